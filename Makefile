@@ -1,0 +1,45 @@
+# Brightfold. `make run` and `make test` are the two set-up commands.
+SHELL := /bin/bash
+GO ?= go
+BIN := bin/brightfold
+export BRIGHTFOLD_ORT_LIB ?= $(CURDIR)/.cache/onnxruntime/libonnxruntime.so.1
+export LANG ?= C.UTF-8
+
+.PHONY: setup build run demo test vet fuzz screenshot-check bench demo-model clean
+
+setup:
+	@scripts/setup.sh
+
+build: setup
+	@$(GO) build -o $(BIN) ./cmd/brightfold
+
+# Opens the viewer on the demo cohort; with no display, runs the headless demo.
+run: build
+	@if [ -n "$$DISPLAY$$WAYLAND_DISPLAY" ]; then $(BIN); else scripts/demo-headless.sh $(BIN); fi
+
+demo: build
+	@scripts/demo-headless.sh $(BIN)
+
+vet:
+	@test -z "$$(gofmt -l $$(git ls-files '*.go'))" || { echo "gofmt would change:"; gofmt -l $$(git ls-files '*.go'); exit 1; }
+	@$(GO) vet ./...
+
+test: setup vet
+	$(GO) test -count=1 -timeout 20m ./...
+	@scripts/fuzz.sh
+	@scripts/screenshot-check.sh
+
+fuzz:
+	@FUZZTIME=$${FUZZTIME:-60s} scripts/fuzz.sh
+
+screenshot-check: build
+	@scripts/screenshot-check.sh
+
+bench: setup
+	@scripts/bench.sh
+
+demo-model: build
+	@scripts/demo-model.sh
+
+clean:
+	rm -rf bin out

@@ -1,0 +1,5 @@
+package main
+
+func runDemo(e *env, args []string) error {
+	return usageError("brightfold demo: not built yet")
+}

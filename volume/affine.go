@@ -1,0 +1,158 @@
+package volume
+
+import (
+	"errors"
+	"fmt"
+	"math"
+)
+
+// Affine is a 4×4 homogeneous matrix, row-major: Affine[r][c].
+type Affine [4][4]float64
+
+// Identity is the 4×4 identity.
+func Identity() Affine {
+	return Affine{{1, 0, 0, 0}, {0, 1, 0, 0}, {0, 0, 1, 0}, {0, 0, 0, 1}}
+}
+
+// Diag returns a scaling affine with the given spacing and origin.
+func Diag(spacing [3]float64, origin [3]float64) Affine {
+	a := Identity()
+	for i := 0; i < 3; i++ {
+		a[i][i] = spacing[i]
+		a[i][3] = origin[i]
+	}
+	return a
+}
+
+// Apply maps the point p (voxel index) through the affine.
+func (a Affine) Apply(p [3]float64) [3]float64 {
+	var q [3]float64
+	for r := 0; r < 3; r++ {
+		q[r] = a[r][0]*p[0] + a[r][1]*p[1] + a[r][2]*p[2] + a[r][3]
+	}
+	return q
+}
+
+// Mul returns a·b.
+func (a Affine) Mul(b Affine) Affine {
+	var c Affine
+	for r := 0; r < 4; r++ {
+		for k := 0; k < 4; k++ {
+			var s float64
+			for j := 0; j < 4; j++ {
+				s += a[r][j] * b[j][k]
+			}
+			c[r][k] = s
+		}
+	}
+	return c
+}
+
+// Spacing returns the norms of the first three columns.
+func (a Affine) Spacing() [3]float64 {
+	var s [3]float64
+	for c := 0; c < 3; c++ {
+		s[c] = math.Sqrt(a[0][c]*a[0][c] + a[1][c]*a[1][c] + a[2][c]*a[2][c])
+	}
+	return s
+}
+
+// ErrSingular is returned for an affine that cannot be inverted or holds NaN or Inf.
+var ErrSingular = errors.New("affine is singular or not finite")
+
+// Validate refuses a non-finite or singular affine, or one whose last row is not (0 0 0 1).
+func (a Affine) Validate() error {
+	for r := 0; r < 4; r++ {
+		for c := 0; c < 4; c++ {
+			if math.IsNaN(a[r][c]) || math.IsInf(a[r][c], 0) {
+				return fmt.Errorf("%w: element [%d][%d] is %v", ErrSingular, r, c, a[r][c])
+			}
+		}
+	}
+	if a[3] != [4]float64{0, 0, 0, 1} {
+		return fmt.Errorf("affine last row is %v, not (0 0 0 1)", a[3])
+	}
+	if d := a.det3(); math.Abs(d) < 1e-12 {
+		return fmt.Errorf("%w: determinant %g", ErrSingular, d)
+	}
+	return nil
+}
+
+func (a Affine) det3() float64 {
+	return a[0][0]*(a[1][1]*a[2][2]-a[1][2]*a[2][1]) -
+		a[0][1]*(a[1][0]*a[2][2]-a[1][2]*a[2][0]) +
+		a[0][2]*(a[1][0]*a[2][1]-a[1][1]*a[2][0])
+}
+
+// Inverse returns the inverse of a rigid-or-general affine (last row 0 0 0 1).
+func (a Affine) Inverse() (Affine, error) {
+	d := a.det3()
+	if math.Abs(d) < 1e-12 || math.IsNaN(d) {
+		return Affine{}, ErrSingular
+	}
+	var m Affine
+	m[0][0] = (a[1][1]*a[2][2] - a[1][2]*a[2][1]) / d
+	m[0][1] = (a[0][2]*a[2][1] - a[0][1]*a[2][2]) / d
+	m[0][2] = (a[0][1]*a[1][2] - a[0][2]*a[1][1]) / d
+	m[1][0] = (a[1][2]*a[2][0] - a[1][0]*a[2][2]) / d
+	m[1][1] = (a[0][0]*a[2][2] - a[0][2]*a[2][0]) / d
+	m[1][2] = (a[0][2]*a[1][0] - a[0][0]*a[1][2]) / d
+	m[2][0] = (a[1][0]*a[2][1] - a[1][1]*a[2][0]) / d
+	m[2][1] = (a[0][1]*a[2][0] - a[0][0]*a[2][1]) / d
+	m[2][2] = (a[0][0]*a[1][1] - a[0][1]*a[1][0]) / d
+	for r := 0; r < 3; r++ {
+		m[r][3] = -(m[r][0]*a[0][3] + m[r][1]*a[1][3] + m[r][2]*a[2][3])
+	}
+	m[3] = [4]float64{0, 0, 0, 1}
+	return m, nil
+}
+
+// Orientation returns the three-letter axis code (such as "RAS" or "LPS"):
+// for each voxel axis, the RAS world direction it points to most, with the
+// letter of the end it points towards (nibabel's aff2axcodes convention).
+func (a Affine) Orientation() string {
+	pos := [3]byte{'R', 'A', 'S'}
+	neg := [3]byte{'L', 'P', 'I'}
+	code := make([]byte, 3)
+	used := [3]bool{}
+	// Greedy by largest absolute component, so that each world axis is used once.
+	type cand struct {
+		axis, world int
+		v           float64
+	}
+	for n := 0; n < 3; n++ {
+		best := cand{-1, -1, -1}
+		for c := 0; c < 3; c++ {
+			if code[c] != 0 {
+				continue
+			}
+			norm := math.Sqrt(a[0][c]*a[0][c] + a[1][c]*a[1][c] + a[2][c]*a[2][c])
+			if norm == 0 {
+				norm = 1
+			}
+			for r := 0; r < 3; r++ {
+				if used[r] {
+					continue
+				}
+				if v := math.Abs(a[r][c]) / norm; v > best.v {
+					best = cand{c, r, v}
+				}
+			}
+		}
+		if best.axis < 0 {
+			break
+		}
+		used[best.world] = true
+		if a[best.world][best.axis] >= 0 {
+			code[best.axis] = pos[best.world]
+		} else {
+			code[best.axis] = neg[best.world]
+		}
+	}
+	for i := range code {
+		if code[i] == 0 {
+			code[i] = '?'
+		}
+	}
+	return string(code)
+}
