@@ -1,0 +1,135 @@
+#!/usr/bin/python3
+"""Reference values for the DICOM tests, from Debian's python3-pydicom (2.3)
+and python3-nibabel (5.0, nibabel.nicom). Run with /usr/bin/python3.
+
+  dicom_ref.py pixels FILE...   pixel values after the modality LUT (rescale)
+  dicom_ref.py series FILE...   slices sorted by nibabel's slice indicator,
+                                the first slice's nibabel affine, the stacked data
+  dicom_ref.py strict FILE...   read with pydicom's validation set to raise,
+                                and report the header fields we write
+  dicom_ref.py multiframe FILE  nibabel's MultiframeWrapper affine and data
+
+Prints JSON on standard output.
+"""
+import json
+import sys
+import warnings
+
+import numpy as np
+import pydicom
+from pydicom.pixel_data_handlers.util import apply_modality_lut
+
+
+def pixels(paths):
+    out = []
+    for p in paths:
+        rec = {"file": p}
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                ds = pydicom.dcmread(p)
+                arr = ds.pixel_array
+                # PS3.3 C.11.1.1.2: Rescale Slope and Intercept, as pydicom applies them.
+                val = apply_modality_lut(arr, ds).astype(np.float64)
+            rec["ok"] = True
+            rec["shape"] = list(val.shape)
+            rec["values"] = val.ravel().tolist()
+        except Exception as e:  # the test decides whether an error is expected
+            rec["ok"] = False
+            rec["error"] = "%s: %s" % (type(e).__name__, e)
+        out.append(rec)
+    return out
+
+
+def series(paths):
+    from nibabel.nicom import dicomwrappers
+
+    ws = []
+    for p in paths:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ws.append((dicomwrappers.wrapper_from_file(p), p))
+    ws.sort(key=lambda w: w[0].slice_indicator)
+    first = ws[0][0]
+    data = np.stack([apply_modality_lut(w.dcm_data.pixel_array, w.dcm_data) for w, _ in ws], axis=-1)
+    return {
+        "files": [p for _, p in ws],
+        "slice_indicator": [float(w.slice_indicator) for w, _ in ws],
+        # nibabel's affine: array index (row, column, slice) to DICOM LPS mm.
+        "affine_lps_rcs": first.affine.tolist(),
+        "shape_rcs": list(data.shape),
+        "sum": float(data.astype(np.float64).sum()),
+    }
+
+
+def strict(paths):
+    from pydicom import config
+
+    config.settings.reading_validation_mode = config.RAISE
+    out = []
+    for p in paths:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            ds = pydicom.dcmread(p)
+            ds.decode()
+            arr = apply_modality_lut(ds.pixel_array, ds).astype(np.float64)
+        out.append({
+            "file": p,
+            "transfer_syntax": str(ds.file_meta.TransferSyntaxUID),
+            "sop_class": str(ds.SOPClassUID),
+            "media_sop_class": str(ds.file_meta.MediaStorageSOPClassUID),
+            "sop_instance": str(ds.SOPInstanceUID),
+            "media_sop_instance": str(ds.file_meta.MediaStorageSOPInstanceUID),
+            "series_uid": str(ds.SeriesInstanceUID),
+            "study_uid": str(ds.StudyInstanceUID),
+            "patient_name": str(ds.PatientName),
+            "patient_id": str(ds.PatientID),
+            "modality": str(ds.Modality),
+            "manufacturer": str(ds.Manufacturer),
+            "institution": str(ds.InstitutionName),
+            "series_description": str(ds.SeriesDescription),
+            "field_strength": float(ds.MagneticFieldStrength),
+            "image_comments": str(ds.ImageComments),
+            "iop": [float(x) for x in ds.ImageOrientationPatient],
+            "ipp": [float(x) for x in ds.ImagePositionPatient],
+            "pixel_spacing": [float(x) for x in ds.PixelSpacing],
+            "slice_thickness": float(ds.SliceThickness),
+            "spacing_between_slices": float(ds.SpacingBetweenSlices),
+            "values": arr.ravel().tolist(),
+            "shape": list(arr.shape),
+        })
+    return out
+
+
+def multiframe(path):
+    from nibabel.nicom import dicomwrappers
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        w = dicomwrappers.wrapper_from_file(path)
+        data = w.get_data()
+    return {
+        "class": type(w).__name__,
+        "affine_lps_rcs": w.affine.tolist(),
+        "shape_rcs": list(data.shape),
+        "sum": float(np.asarray(data, dtype=np.float64).sum()),
+    }
+
+
+def main():
+    mode, args = sys.argv[1], sys.argv[2:]
+    if mode == "pixels":
+        res = pixels(args)
+    elif mode == "series":
+        res = series(args)
+    elif mode == "strict":
+        res = strict(args)
+    elif mode == "multiframe":
+        res = multiframe(args[0])
+    else:
+        raise SystemExit("unknown mode " + mode)
+    json.dump(res, sys.stdout)
+
+
+if __name__ == "__main__":
+    main()
