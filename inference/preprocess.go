@@ -1,0 +1,533 @@
+package inference
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"runtime"
+	"sort"
+	"sync"
+
+	"brightfold/volume"
+)
+
+// Tensor is a model input: Data in the card's layout with Shape [N, C, ...].
+// Grid is the model grid's size along x, y, z (R, A, S). HeadMask marks the
+// head voxels of the model grid in grid order (x fastest), whatever the layout.
+type Tensor struct {
+	Data     []float32
+	Shape    []int64
+	Layout   string
+	Grid     [3]int
+	HeadMask []bool
+}
+
+// GridIndex returns the offset in Data of grid voxel (x, y, z) of batch item 0.
+func (t *Tensor) GridIndex(x, y, z int) int {
+	if t.Layout == LayoutNCXYZ {
+		return z + t.Grid[2]*(y+t.Grid[1]*x)
+	}
+	return x + t.Grid[0]*(y+t.Grid[1]*z)
+}
+
+// GridValues returns the tensor's values in grid order (x fastest), copying
+// only when the layout differs.
+func (t *Tensor) GridValues() []float32 {
+	if t.Layout != LayoutNCXYZ {
+		return t.Data
+	}
+	out := make([]float32, len(t.Data))
+	n := 0
+	for z := 0; z < t.Grid[2]; z++ {
+		for y := 0; y < t.Grid[1]; y++ {
+			for x := 0; x < t.Grid[0]; x++ {
+				out[n] = t.Data[t.GridIndex(x, y, z)]
+				n++
+			}
+		}
+	}
+	return out
+}
+
+// Transform ties the model grid to the scan. GridToScan maps a model-grid
+// voxel index (x, y, z, 1) to the scan's voxel index (i, j, k, 1); GridAffine
+// maps it to RAS millimetres. Relevance maps made on the model grid are carried
+// back to the scan with the inverse of GridToScan.
+type Transform struct {
+	GridToScan volume.Affine `json:"grid_to_scan"`
+	GridAffine volume.Affine `json:"grid_affine"`
+	GridDims   [3]int        `json:"grid_dims"`
+	ScanDims   [3]int        `json:"scan_dims"`
+	ScanAffine volume.Affine `json:"scan_affine"`
+}
+
+// ScanToGrid is the inverse of GridToScan.
+func (t Transform) ScanToGrid() (volume.Affine, error) { return t.GridToScan.Inverse() }
+
+// HeadStats describe the head found by the card's head-mask rule, measured on
+// the anti-aliased scan (before cropping to the model grid).
+type HeadStats struct {
+	Threshold float64    // raw-value threshold of the head mask
+	Centre    [3]float64 // centre of mass of the mask, RAS mm
+	VolumeMl  float64    // mask volume in millilitres
+	ExtentMm  [3]float64 // standard deviation of mask positions along the grid's R, A, S axes
+	Fraction  float64    // fraction of voxels in the mask
+}
+
+// Prepared is everything preprocessing learns about a scan: the tensor, the
+// transform back to the scan and the head statistics the fit checks use.
+type Prepared struct {
+	Tensor    *Tensor
+	Transform Transform
+	Head      HeadStats
+	// InsideFOV is the fraction of model-grid voxels whose centre lies inside
+	// the scan's field of view.
+	InsideFOV float64
+}
+
+// Preprocess turns a scan into the model input exactly as p states: closest
+// canonical RAS axes, resampling to p.SpacingMm (after block-mean
+// anti-aliasing when asked), a p.Shape grid centred on the head's centre of
+// mass, and intensity normalisation. It is the one implementation for the
+// command line, the app, training and evaluation.
+func Preprocess(v *volume.Volume, p Preprocessing) (*Tensor, Transform, error) {
+	pr, err := Prepare(v, p)
+	if err != nil {
+		return nil, Transform{}, err
+	}
+	return pr.Tensor, pr.Transform, nil
+}
+
+// Prepare is Preprocess with the head statistics and field-of-view coverage.
+func Prepare(v *volume.Volume, p Preprocessing) (*Prepared, error) {
+	if err := p.Validate(); err != nil {
+		return nil, err
+	}
+	if err := checkVolume(v); err != nil {
+		return nil, err
+	}
+	frame, err := canonicalFrame(v.Affine)
+	if err != nil {
+		return nil, err
+	}
+	src := v
+	if p.Antialias == "block-mean" {
+		src = blockMean(v, blockFactors(v, frame, p.SpacingMm))
+	}
+	lo, hi := percentilePair(src.Data, p.HeadMask.LowPercentile, p.HeadMask.HighPercentile)
+	if !(hi > lo) {
+		return nil, errors.New("no head found: the image has (nearly) constant intensity")
+	}
+	thr := lo + p.HeadMask.Fraction*(hi-lo)
+	head, err := headStats(src, frame, thr)
+	if err != nil {
+		return nil, err
+	}
+	grid := gridAffine(frame, p.SpacingMm, p.Shape, head.Centre)
+	inv, err := src.Affine.Inverse()
+	if err != nil {
+		return nil, fmt.Errorf("scan affine: %w", err)
+	}
+	vals, inside := sampleTrilinear(src, inv.Mul(grid), p.Shape, float32(lo))
+	mask := make([]bool, len(vals))
+	for i, x := range vals {
+		mask[i] = float64(x) > thr
+	}
+	if err := normalise(vals, mask, p.Intensity); err != nil {
+		return nil, err
+	}
+	scanInv, err := v.Affine.Inverse()
+	if err != nil {
+		return nil, fmt.Errorf("scan affine: %w", err)
+	}
+	t := &Tensor{Layout: LayoutNCDHW, Grid: p.Shape, HeadMask: mask,
+		Data: vals, Shape: []int64{1, 1, int64(p.Shape[2]), int64(p.Shape[1]), int64(p.Shape[0])}}
+	return &Prepared{
+		Tensor:    t,
+		Transform: Transform{GridToScan: scanInv.Mul(grid), GridAffine: grid, GridDims: p.Shape, ScanDims: v.Dims, ScanAffine: v.Affine},
+		Head:      head,
+		InsideFOV: inside,
+	}, nil
+}
+
+// ToLayout rearranges t (made by Prepare in NCDHW) into layout.
+func (t *Tensor) ToLayout(layout string) *Tensor {
+	if layout == t.Layout || layout != LayoutNCXYZ {
+		return t
+	}
+	out := &Tensor{Layout: layout, Grid: t.Grid, HeadMask: t.HeadMask,
+		Shape: []int64{t.Shape[0], t.Shape[1], int64(t.Grid[0]), int64(t.Grid[1]), int64(t.Grid[2])},
+		Data:  make([]float32, len(t.Data))}
+	n := 0
+	for z := 0; z < t.Grid[2]; z++ {
+		for y := 0; y < t.Grid[1]; y++ {
+			for x := 0; x < t.Grid[0]; x++ {
+				out.Data[out.GridIndex(x, y, z)] = t.Data[n]
+				n++
+			}
+		}
+	}
+	return out
+}
+
+// PrepareForCard runs Prepare with the card's preprocessing and puts the
+// tensor in the card's input layout.
+func PrepareForCard(v *volume.Volume, c *Card) (*Prepared, error) {
+	pr, err := Prepare(v, c.Preprocessing)
+	if err != nil {
+		return nil, err
+	}
+	pr.Tensor = pr.Tensor.ToLayout(c.Input.Layout)
+	return pr, nil
+}
+
+func checkVolume(v *volume.Volume) error {
+	if v == nil {
+		return errors.New("no volume")
+	}
+	n, err := volume.CheckedProduct(v.Dims[:], volume.MaxVoxels)
+	if err != nil {
+		return fmt.Errorf("volume dims: %w", err)
+	}
+	if len(v.Data) != n {
+		return fmt.Errorf("volume holds %d values for dims %v", len(v.Data), v.Dims)
+	}
+	if err := v.Affine.Validate(); err != nil {
+		return fmt.Errorf("volume affine: %w", err)
+	}
+	return nil
+}
+
+// frame is the closest canonical RAS frame of a scan: for grid axis g (R, A,
+// S), Axis[g] is the scan voxel axis that points most along it and Dir[g] the
+// unit world vector of that voxel axis, signed to point towards +R, +A or +S.
+type frame struct {
+	Axis [3]int
+	Dir  [3][3]float64
+}
+
+func canonicalFrame(a volume.Affine) (frame, error) {
+	code := a.Orientation()
+	var f frame
+	seen := [3]bool{}
+	for ax := 0; ax < 3; ax++ {
+		g, sign := -1, 1.0
+		switch code[ax] {
+		case 'R', 'L':
+			g = 0
+		case 'A', 'P':
+			g = 1
+		case 'S', 'I':
+			g = 2
+		}
+		if g < 0 || seen[g] {
+			return f, fmt.Errorf("affine has no clear orientation (axis code %q)", code)
+		}
+		if code[ax] == 'L' || code[ax] == 'P' || code[ax] == 'I' {
+			sign = -1
+		}
+		seen[g] = true
+		norm := math.Sqrt(a[0][ax]*a[0][ax] + a[1][ax]*a[1][ax] + a[2][ax]*a[2][ax])
+		f.Axis[g] = ax
+		for r := 0; r < 3; r++ {
+			f.Dir[g][r] = sign * a[r][ax] / norm
+		}
+	}
+	return f, nil
+}
+
+// gridAffine is the model grid's voxel→RAS affine: axes along the frame,
+// the given spacing, and its centre voxel at centre.
+func gridAffine(f frame, spacing [3]float64, shape [3]int, centre [3]float64) volume.Affine {
+	g := volume.Identity()
+	for r := 0; r < 3; r++ {
+		o := centre[r]
+		for ax := 0; ax < 3; ax++ {
+			g[r][ax] = f.Dir[ax][r] * spacing[ax]
+			o -= g[r][ax] * float64(shape[ax]-1) / 2
+		}
+		g[r][3] = o
+	}
+	return g
+}
+
+// blockFactors is, per scan voxel axis, how many voxels one anti-aliasing
+// block averages: the whole number of scan voxels in one target voxel.
+func blockFactors(v *volume.Volume, f frame, target [3]float64) [3]int {
+	sp := v.Spacing()
+	var out [3]int
+	for g := 0; g < 3; g++ {
+		ax := f.Axis[g]
+		k := int(math.Floor(target[g]/sp[ax] + 1e-6))
+		k = max(1, min(k, v.Dims[ax]))
+		out[ax] = k
+	}
+	return out
+}
+
+// blockMean averages non-overlapping blocks of f voxels (non-finite values
+// are skipped), dropping incomplete blocks at the far edges so that the new
+// affine is exact: new voxel I is centred on old voxel f·I + (f−1)/2.
+func blockMean(v *volume.Volume, f [3]int) *volume.Volume {
+	nd := [3]int{v.Dims[0] / f[0], v.Dims[1] / f[1], v.Dims[2] / f[2]}
+	out := &volume.Volume{Dims: nd, Meta: v.Meta, Data: make([]float32, nd[0]*nd[1]*nd[2])}
+	s := volume.Identity()
+	for a := 0; a < 3; a++ {
+		s[a][a] = float64(f[a])
+		s[a][3] = float64(f[a]-1) / 2
+	}
+	out.Affine = v.Affine.Mul(s)
+	parallelRange(nd[2], func(k0, k1 int) {
+		acc := make([]float64, nd[0])
+		cnt := make([]int32, nd[0])
+		for K := k0; K < k1; K++ {
+			for J := 0; J < nd[1]; J++ {
+				clear(acc)
+				clear(cnt)
+				for k := K * f[2]; k < (K+1)*f[2]; k++ {
+					for j := J * f[1]; j < (J+1)*f[1]; j++ {
+						row := v.Data[v.Index(0, j, k):]
+						for I := 0; I < nd[0]; I++ {
+							for _, x := range row[I*f[0] : (I+1)*f[0]] {
+								if finite32(x) {
+									acc[I] += float64(x)
+									cnt[I]++
+								}
+							}
+						}
+					}
+				}
+				o := out.Index(0, J, K)
+				for I := range acc {
+					if cnt[I] > 0 {
+						out.Data[o+I] = float32(acc[I] / float64(cnt[I]))
+					}
+				}
+			}
+		}
+	})
+	return out
+}
+
+func finite32(x float32) bool { return !math.IsNaN(float64(x)) && !math.IsInf(float64(x), 0) }
+
+// parallelRange splits [0, n) into contiguous chunks run on all cores.
+func parallelRange(n int, fn func(lo, hi int)) {
+	w := min(runtime.GOMAXPROCS(0), n)
+	if w <= 1 {
+		fn(0, n)
+		return
+	}
+	var wg sync.WaitGroup
+	for i := 0; i < w; i++ {
+		lo, hi := n*i/w, n*(i+1)/w
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			fn(lo, hi)
+		}()
+	}
+	wg.Wait()
+}
+
+// maxPercentileSample bounds the values sorted for a percentile; larger
+// inputs are subsampled with a fixed stride (deterministic).
+const maxPercentileSample = 1 << 20
+
+// percentilePair returns two percentiles (0–100, linear interpolation between
+// order statistics as numpy's default) of the finite values of data.
+func percentilePair(data []float32, p1, p2 float64) (float64, float64) {
+	stride := 1 + len(data)/maxPercentileSample
+	vals := make([]float64, 0, len(data)/stride+1)
+	for i := 0; i < len(data); i += stride {
+		if finite32(data[i]) {
+			vals = append(vals, float64(data[i]))
+		}
+	}
+	sort.Float64s(vals)
+	return Percentile(vals, p1), Percentile(vals, p2)
+}
+
+// Percentile is the p-th percentile (0–100) of sorted values, interpolating
+// linearly between order statistics (numpy.percentile's default "linear"
+// method); NaN for no values.
+func Percentile(sorted []float64, p float64) float64 {
+	n := len(sorted)
+	if n == 0 {
+		return math.NaN()
+	}
+	h := p / 100 * float64(n-1)
+	lo := int(math.Floor(h))
+	if lo < 0 {
+		return sorted[0]
+	}
+	if lo >= n-1 {
+		return sorted[n-1]
+	}
+	return sorted[lo] + (h-float64(lo))*(sorted[lo+1]-sorted[lo])
+}
+
+// headStats measures the mask {value > thr} of v in the frame's axes.
+func headStats(v *volume.Volume, f frame, thr float64) (HeadStats, error) {
+	var n float64
+	var s1, s2 [3]float64
+	for k := 0; k < v.Dims[2]; k++ {
+		for j := 0; j < v.Dims[1]; j++ {
+			row := v.Data[v.Index(0, j, k) : v.Index(0, j, k)+v.Dims[0]]
+			for i, x := range row {
+				if !(float64(x) > thr) {
+					continue
+				}
+				p := [3]float64{float64(i), float64(j), float64(k)}
+				n++
+				for a := 0; a < 3; a++ {
+					s1[a] += p[a]
+					s2[a] += p[a] * p[a]
+				}
+			}
+		}
+	}
+	if n < 1 {
+		return HeadStats{}, errors.New("no head found: no voxel above the head-mask threshold")
+	}
+	var mean, sd [3]float64
+	for a := 0; a < 3; a++ {
+		mean[a] = s1[a] / n
+		sd[a] = math.Sqrt(math.Max(0, s2[a]/n-mean[a]*mean[a]))
+	}
+	sp := v.Spacing()
+	h := HeadStats{Threshold: thr, Centre: v.Affine.Apply(mean), Fraction: n / float64(v.Len())}
+	h.VolumeMl = n * math.Abs(det3(v.Affine)) / 1000
+	for g := 0; g < 3; g++ {
+		ax := f.Axis[g]
+		h.ExtentMm[g] = sd[ax] * sp[ax]
+	}
+	return h, nil
+}
+
+// sampleTrilinear samples v at the scan voxel positions gridToScan·(x,y,z)
+// of a dims grid, in grid order. Positions more than half a voxel outside the
+// scan take fill; positions within half a voxel of an edge take the edge
+// value. It returns the fraction of positions inside the scan.
+func sampleTrilinear(v *volume.Volume, gridToScan volume.Affine, dims [3]int, fill float32) ([]float32, float64) {
+	out := make([]float32, dims[0]*dims[1]*dims[2])
+	var insideTotal int64
+	var mu sync.Mutex
+	parallelRange(dims[2], func(z0, z1 int) {
+		var inside int64
+		for z := z0; z < z1; z++ {
+			for y := 0; y < dims[1]; y++ {
+				o := dims[0] * (y + dims[1]*z)
+				for x := 0; x < dims[0]; x++ {
+					p := gridToScan.Apply([3]float64{float64(x), float64(y), float64(z)})
+					val, ok := trilinearAt(v, p)
+					if !ok {
+						val = fill
+					} else {
+						inside++
+					}
+					out[o+x] = val
+				}
+			}
+		}
+		mu.Lock()
+		insideTotal += inside
+		mu.Unlock()
+	})
+	return out, float64(insideTotal) / float64(len(out))
+}
+
+func trilinearAt(v *volume.Volume, p [3]float64) (float32, bool) {
+	var i0 [3]int
+	var w [3]float64
+	for a := 0; a < 3; a++ {
+		d := float64(v.Dims[a])
+		if !(p[a] >= -0.5 && p[a] <= d-0.5) {
+			return 0, false
+		}
+		q := math.Min(math.Max(p[a], 0), d-1)
+		f := math.Floor(q)
+		i0[a] = int(f)
+		w[a] = q - f
+		if i0[a] >= v.Dims[a]-1 {
+			i0[a] = v.Dims[a] - 1
+			w[a] = 0
+		}
+	}
+	var s float64
+	for c := 0; c < 8; c++ {
+		wt := 1.0
+		var idx [3]int
+		for a := 0; a < 3; a++ {
+			if c>>a&1 == 1 {
+				if w[a] == 0 {
+					wt = 0
+					break
+				}
+				wt *= w[a]
+				idx[a] = i0[a] + 1
+			} else {
+				wt *= 1 - w[a]
+				idx[a] = i0[a]
+			}
+		}
+		if wt != 0 {
+			s += wt * float64(v.At(idx[0], idx[1], idx[2]))
+		}
+	}
+	return float32(s), true
+}
+
+// normalise applies the intensity normalisation in place, with statistics
+// over the masked voxels.
+func normalise(vals []float32, mask []bool, in Intensity) error {
+	head := make([]float64, 0, len(vals))
+	for i, x := range vals {
+		if mask[i] {
+			head = append(head, float64(x))
+		}
+	}
+	if len(head) < 8 {
+		return fmt.Errorf("no head found: only %d model-grid voxels above the head-mask threshold", len(head))
+	}
+	switch in.Method {
+	case NormZScoreHead:
+		var s, s2 float64
+		for _, x := range head {
+			s += x
+		}
+		mean := s / float64(len(head))
+		for _, x := range head {
+			s2 += (x - mean) * (x - mean)
+		}
+		sd := math.Sqrt(s2 / float64(len(head)))
+		if !(sd > 0) {
+			return errors.New("head voxels have no intensity spread")
+		}
+		for i, x := range vals {
+			z := (float64(x) - mean) / sd
+			if in.Clip > 0 {
+				z = math.Max(-in.Clip, math.Min(in.Clip, z))
+			}
+			vals[i] = float32(z)
+		}
+	case NormPercentileMinMax:
+		sort.Float64s(head)
+		lo, hi := Percentile(head, in.LowPercentile), Percentile(head, in.HighPercentile)
+		if !(hi > lo) {
+			return errors.New("head voxels have no intensity spread between the normalisation percentiles")
+		}
+		for i, x := range vals {
+			vals[i] = float32(math.Max(0, math.Min(1, (float64(x)-lo)/(hi-lo))))
+		}
+	default:
+		return fmt.Errorf("unknown intensity normalisation %q", in.Method)
+	}
+	return nil
+}
+
+func det3(a volume.Affine) float64 {
+	return a[0][0]*(a[1][1]*a[2][2]-a[1][2]*a[2][1]) -
+		a[0][1]*(a[1][0]*a[2][2]-a[1][2]*a[2][0]) +
+		a[0][2]*(a[1][0]*a[2][1]-a[1][1]*a[2][0])
+}

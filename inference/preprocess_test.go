@@ -1,0 +1,327 @@
+package inference
+
+import (
+	"encoding/json"
+	"math"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"sort"
+	"testing"
+
+	"brightfold/internal/refcheck"
+	"brightfold/volume"
+)
+
+// testPreprocessing is a small grid for tests.
+func testPreprocessing() Preprocessing {
+	return Preprocessing{
+		Orientation: "RAS", SpacingMm: [3]float64{4, 4, 4}, Shape: [3]int{16, 16, 16},
+		Crop: "head-centre", Antialias: "block-mean", Interpolation: "trilinear",
+		HeadMask:  HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
+		Intensity: Intensity{Method: NormZScoreHead},
+	}
+}
+
+// ellipsoidHead makes a 1 mm RAS volume with a bright ellipsoid "head"
+// (semi-axes in mm) centred at centre (RAS mm), with inner structure so that
+// orientation matters, and background 0.
+func ellipsoidHead(dims [3]int, centre, semi [3]float64) *volume.Volume {
+	a := volume.Diag([3]float64{1, 1, 1}, [3]float64{-float64(dims[0]) / 2, -float64(dims[1]) / 2, -float64(dims[2]) / 2})
+	v, _ := volume.New(dims, a)
+	for k := 0; k < dims[2]; k++ {
+		for j := 0; j < dims[1]; j++ {
+			for i := 0; i < dims[0]; i++ {
+				p := a.Apply([3]float64{float64(i), float64(j), float64(k)})
+				r := 0.0
+				for c := 0; c < 3; c++ {
+					d := (p[c] - centre[c]) / semi[c]
+					r += d * d
+				}
+				if r <= 1 {
+					// brighter towards anterior-superior-right so that flips change the image
+					v.Data[v.Index(i, j, k)] = float32(100 + 30*(p[0]-centre[0])/semi[0] + 20*(p[1]-centre[1])/semi[1] + 10*(p[2]-centre[2])/semi[2])
+				}
+			}
+		}
+	}
+	return v
+}
+
+// permuteVolume stores the same image with voxel axes permuted and flipped:
+// new axis a is old axis perm[a], reversed when flip[a].
+func permuteVolume(v *volume.Volume, perm [3]int, flip [3]bool) *volume.Volume {
+	var nd [3]int
+	for a := 0; a < 3; a++ {
+		nd[a] = v.Dims[perm[a]]
+	}
+	// new index n -> old index o: o[perm[a]] = flip? nd[a]-1-n[a] : n[a]
+	var m volume.Affine // new voxel -> old voxel
+	m[3][3] = 1
+	for a := 0; a < 3; a++ {
+		if flip[a] {
+			m[perm[a]][a] = -1
+			m[perm[a]][3] = float64(nd[a] - 1)
+		} else {
+			m[perm[a]][a] = 1
+		}
+	}
+	out, _ := volume.New(nd, v.Affine.Mul(m))
+	for k := 0; k < nd[2]; k++ {
+		for j := 0; j < nd[1]; j++ {
+			for i := 0; i < nd[0]; i++ {
+				o := m.Apply([3]float64{float64(i), float64(j), float64(k)})
+				out.Data[out.Index(i, j, k)] = v.At(int(o[0]), int(o[1]), int(o[2]))
+			}
+		}
+	}
+	return out
+}
+
+// The same head stored in different voxel orders (RAS, LPS-like flips,
+// permuted axes) must give the same model tensor: reorientation to the
+// closest canonical RAS frame undoes storage order (NIfTI-1 qform/sform
+// semantics: the affine, not the array order, defines anatomy).
+func TestPreprocessInvariantToStorageOrder(t *testing.T) {
+	base := ellipsoidHead([3]int{60, 72, 56}, [3]float64{3, -5, 2}, [3]float64{20, 26, 18})
+	p := testPreprocessing()
+	ref, _, err := Preprocess(base, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cases := []struct {
+		perm [3]int
+		flip [3]bool
+	}{
+		{[3]int{0, 1, 2}, [3]bool{true, true, false}}, // LPS
+		{[3]int{2, 0, 1}, [3]bool{false, true, true}},
+		{[3]int{1, 2, 0}, [3]bool{true, false, true}},
+	}
+	for _, c := range cases {
+		v := permuteVolume(base, c.perm, c.flip)
+		got, tr, err := Preprocess(v, p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		maxd := 0.0
+		for i := range got.Data {
+			maxd = math.Max(maxd, math.Abs(float64(got.Data[i]-ref.Data[i])))
+		}
+		if maxd > 1e-4 {
+			t.Errorf("perm %v flip %v (%s): tensor differs from the RAS-stored one by %g", c.perm, c.flip, v.Affine.Orientation(), maxd)
+		}
+		checkTransformConsistent(t, tr)
+	}
+}
+
+// checkTransformConsistent: GridAffine = ScanAffine · GridToScan.
+func checkTransformConsistent(t *testing.T, tr Transform) {
+	t.Helper()
+	m := tr.ScanAffine.Mul(tr.GridToScan)
+	for r := 0; r < 4; r++ {
+		for c := 0; c < 4; c++ {
+			if math.Abs(m[r][c]-tr.GridAffine[r][c]) > 1e-9 {
+				t.Fatalf("ScanAffine·GridToScan = %v, GridAffine = %v", m, tr.GridAffine)
+			}
+		}
+	}
+}
+
+func TestPreprocessCentresHeadAndNormalises(t *testing.T) {
+	centre := [3]float64{6, -4, 3}
+	v := ellipsoidHead([3]int{64, 64, 64}, centre, [3]float64{18, 22, 16})
+	pr, err := Prepare(v, testPreprocessing())
+	if err != nil {
+		t.Fatal(err)
+	}
+	// grid centre voxel maps to the head's centre of mass (within a voxel of the
+	// true centre; the brightness ramp does not move the mask's centre)
+	g := pr.Transform.GridAffine.Apply([3]float64{7.5, 7.5, 7.5})
+	for a := 0; a < 3; a++ {
+		if math.Abs(g[a]-centre[a]) > 1.5 {
+			t.Errorf("grid centre %v, head centre %v", g, centre)
+		}
+	}
+	// z-score over head voxels: mean 0, sd 1
+	var s, s2, n float64
+	for i, x := range pr.Tensor.Data {
+		if pr.Tensor.HeadMask[i] {
+			s += float64(x)
+			s2 += float64(x) * float64(x)
+			n++
+		}
+	}
+	if m := s / n; math.Abs(m) > 1e-5 || math.Abs(s2/n-1) > 1e-4 {
+		t.Errorf("head mean %g, mean square %g; want 0 and 1", m, s2/n)
+	}
+	// volume of the ellipsoid 4/3·π·abc in mL; 4 mm block means blur the edge
+	// by about 2 mm, and the 10 % threshold counts the blurred rim (+36 % at most)
+	want := 4.0 / 3 * math.Pi * 18 * 22 * 16 / 1000
+	if r := pr.Head.VolumeMl / want; r < 0.95 || r > 1.36 {
+		t.Errorf("head volume %.1f mL, ellipsoid %.1f mL", pr.Head.VolumeMl, want)
+	}
+	// inside-FOV fraction: count grid centres within half a voxel of the scan
+	inside := 0
+	for z := 0; z < 16; z++ {
+		for y := 0; y < 16; y++ {
+			for x := 0; x < 16; x++ {
+				q := pr.Transform.GridToScan.Apply([3]float64{float64(x), float64(y), float64(z)})
+				ok := true
+				for a := 0; a < 3; a++ {
+					ok = ok && q[a] >= -0.5 && q[a] <= 63.5
+				}
+				if ok {
+					inside++
+				}
+			}
+		}
+	}
+	if want := float64(inside) / 4096; math.Abs(pr.InsideFOV-want) > 0.02 {
+		t.Errorf("inside FOV %g, counted %g", pr.InsideFOV, want)
+	}
+	if pr.Tensor.Shape[2] != 16 || len(pr.Tensor.Data) != 16*16*16 {
+		t.Errorf("shape %v", pr.Tensor.Shape)
+	}
+}
+
+func TestPreprocessRefusesBadInput(t *testing.T) {
+	v, _ := volume.New([3]int{8, 8, 8}, volume.Identity())
+	if _, _, err := Preprocess(v, testPreprocessing()); err == nil {
+		t.Error("constant volume accepted")
+	}
+	v.Data = v.Data[:10]
+	if _, _, err := Preprocess(v, testPreprocessing()); err == nil {
+		t.Error("short data accepted")
+	}
+	w := ellipsoidHead([3]int{20, 20, 20}, [3]float64{}, [3]float64{5, 5, 5})
+	w.Affine[0][0] = math.NaN()
+	if _, _, err := Preprocess(w, testPreprocessing()); err == nil {
+		t.Error("NaN affine accepted")
+	}
+	p := testPreprocessing()
+	p.Shape[0] = 100000
+	if _, _, err := Preprocess(ellipsoidHead([3]int{20, 20, 20}, [3]float64{}, [3]float64{5, 5, 5}), p); err == nil {
+		t.Error("huge grid accepted")
+	}
+}
+
+func TestLayoutNCXYZ(t *testing.T) {
+	v := ellipsoidHead([3]int{40, 40, 40}, [3]float64{}, [3]float64{12, 14, 10})
+	p := testPreprocessing()
+	p.Shape = [3]int{8, 10, 12}
+	a, _, err := Preprocess(v, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b := a.ToLayout(LayoutNCXYZ)
+	if b.Shape[2] != 8 || b.Shape[4] != 12 {
+		t.Fatalf("NCXYZ shape %v", b.Shape)
+	}
+	for z := 0; z < 12; z++ {
+		for x := 0; x < 8; x++ {
+			// NCXYZ: z fastest; NCDHW: x fastest
+			if b.Data[z+12*(3+10*x)] != a.Data[x+8*(3+10*z)] {
+				t.Fatal("NCXYZ transpose wrong")
+			}
+		}
+	}
+	g := b.GridValues()
+	for i := range g {
+		if g[i] != a.Data[i] {
+			t.Fatal("GridValues does not undo the layout")
+		}
+	}
+}
+
+// The canonical frame agrees with nibabel's as_closest_canonical (nibabel
+// 5.0, orientations.io_orientation); trilinear sampling agrees with
+// scipy.ndimage.map_coordinates (order 1); Percentile agrees with
+// numpy.percentile's default linear method.
+func TestPreprocessAgainstNibabelScipy(t *testing.T) {
+	refcheck.PythonModule(t, "nibabel")
+	refcheck.PythonModule(t, "scipy")
+	rng := rand.New(rand.NewPCG(1, 2))
+	var affines []volume.Affine
+	for n := 0; n < 12; n++ {
+		affines = append(affines, randomAffine(rng))
+	}
+	vol := ellipsoidHead([3]int{9, 7, 8}, [3]float64{0.5, 0, 0}, [3]float64{3, 3, 3})
+	for i := range vol.Data {
+		vol.Data[i] += float32(rng.Float64() * 10)
+	}
+	var pts [][3]float64
+	for n := 0; n < 200; n++ {
+		pts = append(pts, [3]float64{rng.Float64() * 8, rng.Float64() * 6, rng.Float64() * 7})
+	}
+	pts = append(pts, [3]float64{0, 0, 0}, [3]float64{8, 6, 7}, [3]float64{8, 3.2, 0.5})
+	vals := make([]float64, 101)
+	for i := range vals {
+		vals[i] = rng.NormFloat64()
+	}
+	ps := []float64{0, 1, 2.5, 50, 97.5, 99, 100}
+	job := map[string]any{"affines": affines, "points": pts,
+		"volume":      map[string]any{"dims": vol.Dims, "data": vol.Data},
+		"percentiles": map[string]any{"values": vals, "p": ps}}
+	jb, _ := json.Marshal(job)
+	jf := filepath.Join(t.TempDir(), "job.json")
+	if err := os.WriteFile(jf, jb, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	var ref struct {
+		Canonical   []volume.Affine
+		Samples     []float64
+		Percentiles []float64
+	}
+	refcheck.RunPython(t, "testdata/ref_preprocess.py", &ref, jf)
+	for n, a := range affines {
+		f, err := canonicalFrame(a)
+		if err != nil {
+			t.Fatal(err)
+		}
+		sp := a.Spacing()
+		for g := 0; g < 3; g++ {
+			for r := 0; r < 3; r++ {
+				got := f.Dir[g][r] * sp[f.Axis[g]]
+				if math.Abs(got-ref.Canonical[n][r][g]) > 1e-9 {
+					t.Fatalf("affine %d: canonical column %d = %v, nibabel %v", n, g, got, ref.Canonical[n])
+				}
+			}
+		}
+	}
+	for n, p := range pts {
+		got, ok := trilinearAt(vol, p)
+		if !ok || math.Abs(float64(got)-ref.Samples[n]) > 1e-3 {
+			t.Fatalf("trilinear at %v = %v (%v), scipy %v", p, got, ok, ref.Samples[n])
+		}
+	}
+	sorted := append([]float64(nil), vals...)
+	sort.Float64s(sorted)
+	for i, p := range ps {
+		if got := Percentile(sorted, p); math.Abs(got-ref.Percentiles[i]) > 1e-12 {
+			t.Errorf("percentile %g = %v, numpy %v", p, got, ref.Percentiles[i])
+		}
+	}
+}
+
+// randomAffine is a random rotation (up to ~40°) of a random permutation and
+// flip, with random spacing and origin.
+func randomAffine(rng *rand.Rand) volume.Affine {
+	perm := rng.Perm(3)
+	a := volume.Identity()
+	for c := 0; c < 3; c++ {
+		for r := 0; r < 3; r++ {
+			a[r][c] = 0
+		}
+		s := 0.5 + 3*rng.Float64()
+		if rng.IntN(2) == 0 {
+			s = -s
+		}
+		a[perm[c]][c] = s
+		a[c][3] = rng.NormFloat64() * 50
+	}
+	ang := (rng.Float64() - 0.5) * 1.4
+	cs, sn := math.Cos(ang), math.Sin(ang)
+	rot := volume.Identity()
+	rot[0][0], rot[0][1], rot[1][0], rot[1][1] = cs, -sn, sn, cs
+	return rot.Mul(a)
+}
