@@ -3,6 +3,11 @@ python3-nibabel 5.0 (and numpy/scipy). Run with /usr/bin/python3.
 
   nifti_ref.py info FILE [INDEX]      dims, affine, axis codes, descrip, codes,
                                       and min/max/sum of frame INDEX (default 0)
+  nifti_ref.py infos FILE[@INDEX]...  a JSON list of info, one per file
+  nifti_ref.py make DIR               writes NIfTI-1/2 and Analyze files with nibabel
+                                      (every scalar dtype, both byte orders, scaling,
+                                      sform/qform/neither, pairs, gzip, 2D, 5D) and
+                                      prints their names
   nifti_ref.py dump FILE OUT [INDEX]  writes frame INDEX as little-endian float32,
                                       first index fastest (Fortran order)
   nifti_ref.py canonical FILE OUT     as_closest_canonical: writes its data as in
@@ -71,13 +76,104 @@ def info(path, index=0):
     }
 
 
+def rotation(axis, angle):
+    axis = np.asarray(axis, dtype=np.float64)
+    x, y, z = axis / np.linalg.norm(axis)
+    c, s, C = np.cos(angle), np.sin(angle), 1 - np.cos(angle)
+    return np.array([[x * x * C + c, x * y * C - z * s, x * z * C + y * s],
+                     [y * x * C + z * s, y * y * C + c, y * z * C - x * s],
+                     [z * x * C - y * s, z * y * C + x * s, z * z * C + c]])
+
+
+def oblique(zooms, offset, flip=False):
+    a = np.eye(4)
+    a[:3, :3] = rotation([0.3, -0.5, 1.0], 0.6) @ np.diag(zooms)
+    if flip:
+        a[:3, 0] = -a[:3, 0]
+    a[:3, 3] = offset
+    return a
+
+
+def make(outdir):
+    """Writes test images through nibabel's own writers."""
+    import os
+    rng = np.random.default_rng(20261201)
+    names = []
+
+    def save(img, name):
+        path = os.path.join(outdir, name)
+        img.to_filename(path)
+        names.append(path)
+
+    shape = (6, 5, 4)
+    base = rng.normal(size=shape)
+    aff = oblique([1.1, 0.9, 2.5], [-30.0, 12.5, 8.25], flip=True)
+    for dt in ["u1", "i1", "i2", "u2", "i4", "u4", "f4", "f8", "i8", "u8"]:
+        for end in "<>":
+            if dt[0] == "f":
+                data = base * 1234.5
+                data[0, 0, 0] = np.nan
+            else:
+                # A range wider than int8/uint8 makes nibabel choose scl_slope/inter.
+                data = (base - base.min()) * 300.25 + 3.0
+            hdr = nib.Nifti1Header(endianness=end)
+            img = nib.Nifti1Image(data, aff, header=hdr)
+            img.set_data_dtype(np.dtype(end + dt))
+            save(img, "dt_%s_%s.nii" % (dt, "le" if end == "<" else "be"))
+    # qform only (sform_code 0), oblique and left-handed.
+    hdr = nib.Nifti1Header()
+    hdr.set_data_shape(shape)
+    hdr.set_data_dtype(np.float32)
+    hdr.set_qform(aff, code=1)
+    hdr.set_sform(aff, code=0)
+    save(nib.Nifti1Image(base.astype(np.float32), None, header=hdr), "qform_only.nii")
+    # Neither code: nibabel's base affine from pixdim.
+    hdr = nib.Nifti1Header()
+    hdr.set_data_shape(shape)
+    hdr.set_data_dtype(np.int16)
+    hdr.set_zooms((1.5, 2.0, 3.0))
+    hdr.set_qform(None, code=0)
+    hdr.set_sform(None, code=0)
+    save(nib.Nifti1Image((base * 100).astype(np.int16), None, header=hdr), "no_xform.nii")
+    # Right-handed oblique sform and qform, NIfTI-2, single and pair, gzip.
+    aff2 = oblique([0.8, 0.8, 1.2], [90.0, -126.0, -72.0])
+    d4 = rng.normal(size=(5, 4, 3, 3)) * 50
+    save(nib.Nifti2Image(d4.astype(np.float32), aff2), "n2_4d.nii.gz")
+    save(nib.Nifti2Pair((base * 100).astype(np.int16), aff2), "n2_pair.hdr")
+    save(nib.Nifti1Pair((base * 100).astype(np.int16), aff2), "n1_pair.img.gz")
+    # 2D and 5D.
+    save(nib.Nifti1Image((base[:, :, 0] * 10).astype(np.int16), aff2), "two_d.nii")
+    d5 = rng.normal(size=(4, 3, 2, 2, 3)).astype(np.float32)
+    save(nib.Nifti1Image(d5, aff2), "five_d.nii.gz")
+    # Analyze (SPM2 flavour) with origin and slope, and plain with no origin.
+    img = nib.Spm2AnalyzeImage((base * 1000).astype(np.float64), np.diag([2.0, 2.5, 3.0, 1.0]))
+    img.set_data_dtype(np.int16)
+    hdr = img.header
+    hdr["origin"][:3] = [3, 2, 2]
+    save(img, "spm_origin.hdr")
+    # nibabel also writes an SPM .mat sidecar, which it would prefer to the
+    # header; Brightfold reads headers only, so compare on the header alone.
+    os.remove(os.path.join(outdir, "spm_origin.mat"))
+    img = nib.AnalyzeImage((base * 10).astype(np.uint8), np.diag([-1.0, 1.0, 1.0, 1.0]))
+    save(img, "analyze_plain.img")
+    return names
+
+
 def dump(data, out):
     np.asarray(data, dtype="<f4").ravel(order="F").tofile(out)
 
 
 def main(argv):
     cmd = argv[1]
-    if cmd == "info":
+    if cmd == "infos":
+        out = []
+        for arg in argv[2:]:
+            path, _, index = arg.rpartition("@")
+            out.append(info(path, int(index or 0)))
+        print(json.dumps(out))
+    elif cmd == "make":
+        print(json.dumps(make(argv[2])))
+    elif cmd == "info":
         print(json.dumps(info(argv[2], int(argv[3]) if len(argv) > 3 else 0)))
     elif cmd == "dump":
         index = int(argv[4]) if len(argv) > 4 else 0

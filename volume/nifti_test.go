@@ -1,0 +1,232 @@
+package volume
+
+import (
+	"bytes"
+	"compress/gzip"
+	"math"
+	"math/rand"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"brightfold/internal/refcheck"
+)
+
+// nibabelTestData is Debian python3-nibabel 5.0's test data folder.
+const nibabelTestData = "/usr/lib/python3/dist-packages/nibabel/tests/data"
+
+// goniiTestData is gonii v0.6.0's test_data folder in the module cache.
+func goniiTestData(t testing.TB) string {
+	t.Helper()
+	cache := os.Getenv("GOMODCACHE")
+	if cache == "" {
+		out, err := exec.Command("go", "env", "GOMODCACHE").Output()
+		if err != nil {
+			refcheck.Missing(t, "go env GOMODCACHE: %v", err)
+		}
+		cache = strings.TrimSpace(string(out))
+	}
+	return refcheck.Path(t, filepath.Join(cache, "github.com", "okieraised", "gonii@v0.6.0", "test_data"))
+}
+
+// refCase is one file checked against nibabel, or one we must refuse.
+type refCase struct {
+	path   string
+	index  int
+	refuse string // when set, Load must fail with an error containing this
+}
+
+func (c refCase) arg() string { return c.path + "@" + itoa(c.index) }
+
+// TestNIfTIAgainstNibabel loads every NIfTI and Analyze image in
+// python3-nibabel's test data and gonii's test_data, header-only files of
+// nibabel's data completed with image files, and files nibabel itself writes
+// (every scalar datatype in both byte orders, scaling, sform/qform/neither,
+// pairs, gzip, 2D, 4D, 5D, Analyze), and compares dims, the affine (to 1e-5),
+// the axis code, and the voxel min, max and sum with nibabel 5.0's
+// img.affine, aff2axcodes and get_fdata (testdata/nifti_ref.py).
+func TestNIfTIAgainstNibabel(t *testing.T) {
+	needNibabel(t)
+	nb := refcheck.Path(t, nibabelTestData)
+	gd := goniiTestData(t)
+	dir := t.TempDir()
+	var cases []refCase
+	for _, n := range []string{"anatomical.nii", "example4d.nii.gz", "example_nifti2.nii.gz",
+		"reoriented_anat_moved.nii", "resampled_anat_moved.nii", "functional.nii", "standard.nii.gz"} {
+		cases = append(cases, refCase{path: filepath.Join(nb, n)})
+	}
+	cases = append(cases,
+		refCase{path: filepath.Join(nb, "example4d.nii.gz"), index: 1},
+		refCase{path: filepath.Join(nb, "functional.nii"), index: 19},
+		refCase{path: filepath.Join(nb, "row_major.dconn.nii"), refuse: "CIFTI-2"})
+	for _, n := range []string{"int16.nii.gz", "nii2_LR.nii.gz", "nii2_RL.nii.gz", "nii2_mni.nii.gz",
+		"t1.hdr.gz", "tensor_rgb.nii.gz", "tensor_tr.nii.gz"} {
+		cases = append(cases, refCase{path: filepath.Join(gd, n)})
+	}
+	cases = append(cases,
+		refCase{path: filepath.Join(gd, "tensor_rgb.nii.gz"), index: 2},
+		refCase{path: filepath.Join(gd, "t1.img.gz")},
+		refCase{path: filepath.Join(gd, "rgb24.nii.gz"), refuse: "rgb24"})
+	cases = append(cases, completedPairs(t, nb, dir)...)
+	var made []string
+	refcheck.RunPython(t, niftiRef, &made, "make", dir)
+	for _, p := range made {
+		cases = append(cases, refCase{path: p})
+	}
+	cases = append(cases, refCase{path: filepath.Join(dir, "n2_4d.nii.gz"), index: 2},
+		refCase{path: filepath.Join(dir, "five_d.nii.gz"), index: 5})
+
+	var args []string
+	for _, c := range cases {
+		if c.refuse == "" {
+			args = append(args, c.arg())
+		}
+	}
+	var refs []refInfo
+	refcheck.RunPython(t, niftiRef, &refs, append([]string{"infos"}, args...)...)
+	i := 0
+	for _, c := range cases {
+		name := strings.TrimPrefix(c.arg(), dir+"/")
+		v, err := Load([]string{c.path}, LoadOptions{VolumeIndex: c.index})
+		if c.refuse != "" {
+			if err == nil || !strings.Contains(err.Error(), c.refuse) {
+				t.Errorf("%s: want an error about %q, got %v", name, c.refuse, err)
+			}
+			continue
+		}
+		ref := refs[i]
+		i++
+		if err != nil {
+			t.Errorf("%s: %v", name, err)
+			continue
+		}
+		compareWithNibabel(t, name, v, ref)
+	}
+	t.Logf("%d files checked against nibabel", i)
+}
+
+// compareWithNibabel checks one loaded volume against nifti_ref.py info.
+func compareWithNibabel(t *testing.T, name string, v *Volume, ref refInfo) {
+	t.Helper()
+	want := [3]int{1, 1, 1}
+	frames := 1
+	for k, s := range ref.Shape {
+		if k < 3 {
+			want[k] = s
+		} else {
+			frames *= s
+		}
+	}
+	if v.Dims != want || v.Meta.NumVolumes != frames {
+		t.Errorf("%s: dims %v with %d volume(s), nibabel shape %v", name, v.Dims, v.Meta.NumVolumes, ref.Shape)
+	}
+	// NIfTI-1 header, sform/qform rules; nibabel Nifti1Header.get_best_affine.
+	if !closeAffine(v.Affine, ref.Affine, 1e-5) {
+		t.Errorf("%s: affine %v, nibabel %v", name, v.Affine, ref.Affine)
+	}
+	// nibabel.orientations.aff2axcodes.
+	if got := v.Affine.Orientation(); got != ref.Axcodes {
+		t.Errorf("%s: orientation %s, nibabel %s", name, got, ref.Axcodes)
+	}
+	mn, mx, _ := v.Stats()
+	var sum, abs float64
+	for _, x := range v.Data {
+		if f := float64(x); !math.IsNaN(f) {
+			sum += f
+			abs += math.Abs(f)
+		}
+	}
+	// Voxels are float32 here and float64 in nibabel: allow float32 rounding.
+	rel := func(a, b, scale float64) bool { return math.Abs(a-b) <= 1e-6*math.Max(1, scale) }
+	if !rel(mn, ref.Min, math.Abs(ref.Min)) || !rel(mx, ref.Max, math.Abs(ref.Max)) || !rel(sum, ref.Sum, abs) {
+		t.Errorf("%s: min/max/sum %g %g %g, nibabel %g %g %g", name, mn, mx, sum, ref.Min, ref.Max, ref.Sum)
+	}
+	// descrip is a NUL-terminated char[80] (nifti1.h); numpy strips trailing
+	// NULs only, so compare up to the first NUL.
+	if ref.Descrip != nil && strings.SplitN(*ref.Descrip, "\x00", 2)[0] != v.Meta.Description {
+		t.Errorf("%s: description %q, nibabel %q", name, v.Meta.Description, *ref.Descrip)
+	}
+	if v.Meta.Format != "nifti" {
+		t.Errorf("%s: format %q", name, v.Meta.Format)
+	}
+}
+
+// completedPairs copies nibabel's header-only analyze.hdr, nifti1.hdr and
+// nifti2.hdr and writes image files for them (deterministic pseudo-random
+// bytes of the size the header asks for), plain and gzipped.
+func completedPairs(t *testing.T, nb, dir string) []refCase {
+	t.Helper()
+	var cases []refCase
+	rng := rand.New(rand.NewSource(42))
+	for _, n := range []string{"analyze", "nifti1", "nifti2"} {
+		hdr, err := os.ReadFile(filepath.Join(nb, n+".hdr"))
+		if err != nil {
+			refcheck.Missing(t, "%v", err)
+		}
+		h, _, err := parseNIfTIHeader(hdr, true)
+		if err != nil {
+			t.Fatalf("%s.hdr: %v", n, err)
+		}
+		img := make([]byte, int(h.voxOffset)+h.frames()*h.Len()*h.bytesPerVoxel())
+		rng.Read(img)
+		write := func(name string, b []byte, gz bool) {
+			if gz {
+				var buf bytes.Buffer
+				zw := gzip.NewWriter(&buf)
+				zw.Write(b)
+				zw.Close()
+				b = buf.Bytes()
+			}
+			if err := os.WriteFile(filepath.Join(dir, name), b, 0o644); err != nil {
+				t.Fatal(err)
+			}
+		}
+		write(n+".hdr", hdr, false)
+		write(n+".img", img, false)
+		write(n+"_gz.hdr.gz", hdr, true)
+		write(n+"_gz.img.gz", img, true)
+		write(n+"_mixed.hdr", hdr, false)
+		write(n+"_mixed.img.gz", img, true)
+		// nibabel does not pair a plain .hdr with an .img.gz; TestNIfTIMixedPair checks ours.
+		for _, p := range []string{n + ".hdr", n + ".img", n + "_gz.hdr.gz", n + "_gz.img.gz"} {
+			cases = append(cases, refCase{path: filepath.Join(dir, p)})
+		}
+	}
+	return cases
+}
+
+// TestNIfTIMixedPair: a plain .hdr with a gzipped .img reads the same as the
+// plain pair (nibabel does not pair these, so the plain pair, checked against
+// nibabel above, is the reference).
+func TestNIfTIMixedPair(t *testing.T) {
+	nb := refcheck.Path(t, nibabelTestData)
+	dir := t.TempDir()
+	completedPairs(t, nb, dir)
+	for _, n := range []string{"analyze", "nifti1", "nifti2"} {
+		a, err := Load([]string{filepath.Join(dir, n+".hdr")}, LoadOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		b, err := Load([]string{filepath.Join(dir, n+"_mixed.hdr")}, LoadOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if a.Affine != b.Affine || a.Dims != b.Dims || !equalF32(a.Data, b.Data) {
+			t.Errorf("%s: mixed pair differs from plain pair", n)
+		}
+	}
+}
+
+func equalF32(a, b []float32) bool {
+	if len(a) != len(b) {
+		return false
+	}
+	for i := range a {
+		if a[i] != b[i] && !(a[i] != a[i] && b[i] != b[i]) {
+			return false
+		}
+	}
+	return true
+}
