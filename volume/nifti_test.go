@@ -8,17 +8,18 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 
 	"brightfold/internal/refcheck"
 )
 
-// nibabelTestData is Debian python3-nibabel 5.0's test data folder.
-const nibabelTestData = "/usr/lib/python3/dist-packages/nibabel/tests/data"
+// niiNibabelDir is Debian python3-nibabel 5.0's test data folder.
+const niiNibabelDir = "/usr/lib/python3/dist-packages/nibabel/tests/data"
 
-// goniiTestData is gonii v0.6.0's test_data folder in the module cache.
-func goniiTestData(t testing.TB) string {
+// niiGoniiTestData is gonii v0.6.0's test_data folder in the module cache.
+func niiGoniiTestData(t testing.TB) string {
 	t.Helper()
 	cache := os.Getenv("GOMODCACHE")
 	if cache == "" {
@@ -31,14 +32,14 @@ func goniiTestData(t testing.TB) string {
 	return refcheck.Path(t, filepath.Join(cache, "github.com", "okieraised", "gonii@v0.6.0", "test_data"))
 }
 
-// refCase is one file checked against nibabel, or one we must refuse.
-type refCase struct {
+// niiRefCase is one file checked against nibabel, or one we must refuse.
+type niiRefCase struct {
 	path   string
 	index  int
 	refuse string // when set, Load must fail with an error containing this
 }
 
-func (c refCase) arg() string { return c.path + "@" + itoa(c.index) }
+func (c niiRefCase) arg() string { return c.path + "@" + strconv.Itoa(c.index) }
 
 // TestNIfTIAgainstNibabel loads every NIfTI and Analyze image in
 // python3-nibabel's test data and gonii's test_data, header-only files of
@@ -48,35 +49,35 @@ func (c refCase) arg() string { return c.path + "@" + itoa(c.index) }
 // the axis code, and the voxel min, max and sum with nibabel 5.0's
 // img.affine, aff2axcodes and get_fdata (testdata/nifti_ref.py).
 func TestNIfTIAgainstNibabel(t *testing.T) {
-	needNibabel(t)
-	nb := refcheck.Path(t, nibabelTestData)
-	gd := goniiTestData(t)
+	niiNeedNibabel(t)
+	nb := refcheck.Path(t, niiNibabelDir)
+	gd := niiGoniiTestData(t)
 	dir := t.TempDir()
-	var cases []refCase
+	var cases []niiRefCase
 	for _, n := range []string{"anatomical.nii", "example4d.nii.gz", "example_nifti2.nii.gz",
 		"reoriented_anat_moved.nii", "resampled_anat_moved.nii", "functional.nii", "standard.nii.gz"} {
-		cases = append(cases, refCase{path: filepath.Join(nb, n)})
+		cases = append(cases, niiRefCase{path: filepath.Join(nb, n)})
 	}
 	cases = append(cases,
-		refCase{path: filepath.Join(nb, "example4d.nii.gz"), index: 1},
-		refCase{path: filepath.Join(nb, "functional.nii"), index: 19},
-		refCase{path: filepath.Join(nb, "row_major.dconn.nii"), refuse: "CIFTI-2"})
+		niiRefCase{path: filepath.Join(nb, "example4d.nii.gz"), index: 1},
+		niiRefCase{path: filepath.Join(nb, "functional.nii"), index: 19},
+		niiRefCase{path: filepath.Join(nb, "row_major.dconn.nii"), refuse: "CIFTI-2"})
 	for _, n := range []string{"int16.nii.gz", "nii2_LR.nii.gz", "nii2_RL.nii.gz", "nii2_mni.nii.gz",
 		"t1.hdr.gz", "tensor_rgb.nii.gz", "tensor_tr.nii.gz"} {
-		cases = append(cases, refCase{path: filepath.Join(gd, n)})
+		cases = append(cases, niiRefCase{path: filepath.Join(gd, n)})
 	}
 	cases = append(cases,
-		refCase{path: filepath.Join(gd, "tensor_rgb.nii.gz"), index: 2},
-		refCase{path: filepath.Join(gd, "t1.img.gz")},
-		refCase{path: filepath.Join(gd, "rgb24.nii.gz"), refuse: "rgb24"})
-	cases = append(cases, completedPairs(t, nb, dir)...)
+		niiRefCase{path: filepath.Join(gd, "tensor_rgb.nii.gz"), index: 2},
+		niiRefCase{path: filepath.Join(gd, "t1.img.gz")},
+		niiRefCase{path: filepath.Join(gd, "rgb24.nii.gz"), refuse: "rgb24"})
+	cases = append(cases, niiCompletedPairs(t, nb, dir)...)
 	var made []string
 	refcheck.RunPython(t, niftiRef, &made, "make", dir)
 	for _, p := range made {
-		cases = append(cases, refCase{path: p})
+		cases = append(cases, niiRefCase{path: p})
 	}
-	cases = append(cases, refCase{path: filepath.Join(dir, "n2_4d.nii.gz"), index: 2},
-		refCase{path: filepath.Join(dir, "five_d.nii.gz"), index: 5})
+	cases = append(cases, niiRefCase{path: filepath.Join(dir, "n2_4d.nii.gz"), index: 2},
+		niiRefCase{path: filepath.Join(dir, "five_d.nii.gz"), index: 5})
 
 	var args []string
 	for _, c := range cases {
@@ -84,7 +85,7 @@ func TestNIfTIAgainstNibabel(t *testing.T) {
 			args = append(args, c.arg())
 		}
 	}
-	var refs []refInfo
+	var refs []niiRefInfo
 	refcheck.RunPython(t, niftiRef, &refs, append([]string{"infos"}, args...)...)
 	i := 0
 	for _, c := range cases {
@@ -102,13 +103,13 @@ func TestNIfTIAgainstNibabel(t *testing.T) {
 			t.Errorf("%s: %v", name, err)
 			continue
 		}
-		compareWithNibabel(t, name, v, ref)
+		niiCompare(t, name, v, ref)
 	}
 	t.Logf("%d files checked against nibabel", i)
 }
 
-// compareWithNibabel checks one loaded volume against nifti_ref.py info.
-func compareWithNibabel(t *testing.T, name string, v *Volume, ref refInfo) {
+// niiCompare checks one loaded volume against nifti_ref.py info.
+func niiCompare(t *testing.T, name string, v *Volume, ref niiRefInfo) {
 	t.Helper()
 	want := [3]int{1, 1, 1}
 	frames := 1
@@ -123,7 +124,7 @@ func compareWithNibabel(t *testing.T, name string, v *Volume, ref refInfo) {
 		t.Errorf("%s: dims %v with %d volume(s), nibabel shape %v", name, v.Dims, v.Meta.NumVolumes, ref.Shape)
 	}
 	// NIfTI-1 header, sform/qform rules; nibabel Nifti1Header.get_best_affine.
-	if !closeAffine(v.Affine, ref.Affine, 1e-5) {
+	if !niiCloseAffine(v.Affine, ref.Affine, 1e-5) {
 		t.Errorf("%s: affine %v, nibabel %v", name, v.Affine, ref.Affine)
 	}
 	// nibabel.orientations.aff2axcodes.
@@ -153,12 +154,12 @@ func compareWithNibabel(t *testing.T, name string, v *Volume, ref refInfo) {
 	}
 }
 
-// completedPairs copies nibabel's header-only analyze.hdr, nifti1.hdr and
+// niiCompletedPairs copies nibabel's header-only analyze.hdr, nifti1.hdr and
 // nifti2.hdr and writes image files for them (deterministic pseudo-random
 // bytes of the size the header asks for), plain and gzipped.
-func completedPairs(t *testing.T, nb, dir string) []refCase {
+func niiCompletedPairs(t *testing.T, nb, dir string) []niiRefCase {
 	t.Helper()
-	var cases []refCase
+	var cases []niiRefCase
 	rng := rand.New(rand.NewSource(42))
 	for _, n := range []string{"analyze", "nifti1", "nifti2"} {
 		hdr, err := os.ReadFile(filepath.Join(nb, n+".hdr"))
@@ -191,7 +192,7 @@ func completedPairs(t *testing.T, nb, dir string) []refCase {
 		write(n+"_mixed.img.gz", img, true)
 		// nibabel does not pair a plain .hdr with an .img.gz; TestNIfTIMixedPair checks ours.
 		for _, p := range []string{n + ".hdr", n + ".img", n + "_gz.hdr.gz", n + "_gz.img.gz"} {
-			cases = append(cases, refCase{path: filepath.Join(dir, p)})
+			cases = append(cases, niiRefCase{path: filepath.Join(dir, p)})
 		}
 	}
 	return cases
@@ -201,9 +202,9 @@ func completedPairs(t *testing.T, nb, dir string) []refCase {
 // plain pair (nibabel does not pair these, so the plain pair, checked against
 // nibabel above, is the reference).
 func TestNIfTIMixedPair(t *testing.T) {
-	nb := refcheck.Path(t, nibabelTestData)
+	nb := refcheck.Path(t, niiNibabelDir)
 	dir := t.TempDir()
-	completedPairs(t, nb, dir)
+	niiCompletedPairs(t, nb, dir)
 	for _, n := range []string{"analyze", "nifti1", "nifti2"} {
 		a, err := Load([]string{filepath.Join(dir, n+".hdr")}, LoadOptions{})
 		if err != nil {
@@ -213,13 +214,13 @@ func TestNIfTIMixedPair(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		if a.Affine != b.Affine || a.Dims != b.Dims || !equalF32(a.Data, b.Data) {
+		if a.Affine != b.Affine || a.Dims != b.Dims || !niiEqualF32(a.Data, b.Data) {
 			t.Errorf("%s: mixed pair differs from plain pair", n)
 		}
 	}
 }
 
-func equalF32(a, b []float32) bool {
+func niiEqualF32(a, b []float32) bool {
 	if len(a) != len(b) {
 		return false
 	}

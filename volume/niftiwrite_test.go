@@ -3,9 +3,11 @@ package volume
 import (
 	"bytes"
 	"encoding/binary"
+	"encoding/json"
 	"math"
 	"os"
 	"path/filepath"
+	"strconv"
 	"testing"
 
 	"brightfold/internal/refcheck"
@@ -15,8 +17,8 @@ import (
 // niftiRef is volume/testdata/nifti_ref.py, which asks Debian's python3-nibabel 5.0.
 const niftiRef = "testdata/nifti_ref.py"
 
-// refInfo is what nifti_ref.py info prints.
-type refInfo struct {
+// niiRefInfo is what nifti_ref.py info prints.
+type niiRefInfo struct {
 	Class     string         `json:"class"`
 	Shape     []int          `json:"shape"`
 	Affine    [4][4]float64  `json:"affine"`
@@ -31,28 +33,28 @@ type refInfo struct {
 	Dtype     string         `json:"dtype"`
 }
 
-func needNibabel(t testing.TB) {
+func niiNeedNibabel(t testing.TB) {
 	t.Helper()
 	refcheck.PythonModule(t, "nibabel")
 }
 
-func nibabelInfo(t testing.TB, path string, index int) refInfo {
+func niiNibabelInfo(t testing.TB, path string, index int) niiRefInfo {
 	t.Helper()
-	var ri refInfo
-	refcheck.RunPython(t, niftiRef, &ri, "info", path, itoa(index))
+	var ri niiRefInfo
+	refcheck.RunPython(t, niftiRef, &ri, "info", path, strconv.Itoa(index))
 	return ri
 }
 
-// nibabelData returns nibabel's get_fdata() of frame index, first index fastest.
-func nibabelData(t testing.TB, path string, index int) []float32 {
+// niiNibabelData returns nibabel's get_fdata() of frame index, first index fastest.
+func niiNibabelData(t testing.TB, path string, index int) []float32 {
 	t.Helper()
 	out := filepath.Join(t.TempDir(), "ref.f32")
 	var meta map[string]any
-	refcheck.RunPython(t, niftiRef, &meta, "dump", path, out, itoa(index))
-	return readF32(t, out)
+	refcheck.RunPython(t, niftiRef, &meta, "dump", path, out, strconv.Itoa(index))
+	return niiReadF32(t, out)
 }
 
-func readF32(t testing.TB, path string) []float32 {
+func niiReadF32(t testing.TB, path string) []float32 {
 	t.Helper()
 	b, err := os.ReadFile(path)
 	if err != nil {
@@ -65,21 +67,9 @@ func readF32(t testing.TB, path string) []float32 {
 	return f
 }
 
-func itoa(i int) string { return string(appendInt(nil, i)) }
-
-func appendInt(b []byte, i int) []byte {
-	if i < 0 {
-		return appendInt(append(b, '-'), -i)
-	}
-	if i >= 10 {
-		b = appendInt(b, i/10)
-	}
-	return append(b, byte('0'+i%10))
-}
-
-// testVolume is a small volume with a left-handed oblique affine and a
+// niiTestVolume is a small volume with a left-handed oblique affine and a
 // smooth, non-integer signal.
-func testVolume(dims [3]int) *Volume {
+func niiTestVolume(dims [3]int) *Volume {
 	c, s := math.Cos(0.3), math.Sin(0.3)
 	// Columns orthogonal, determinant negative (left-handed), rotated in x-z.
 	a := Affine{
@@ -102,7 +92,7 @@ func testVolume(dims [3]int) *Volume {
 	return v
 }
 
-func closeAffine(a, b [4][4]float64, tol float64) bool {
+func niiCloseAffine(a, b [4][4]float64, tol float64) bool {
 	for r := 0; r < 4; r++ {
 		for c := 0; c < 4; c++ {
 			if math.Abs(a[r][c]-b[r][c]) > tol*math.Max(1, math.Abs(b[r][c])) {
@@ -118,8 +108,8 @@ func closeAffine(a, b [4][4]float64, tol float64) bool {
 // (quatern_b/c/d, qoffset, pixdim[0] = qfac), the same data after scl_slope
 // and scl_inter, and the descrip field.
 func TestWriteNIfTIThroughNibabel(t *testing.T) {
-	needNibabel(t)
-	v := testVolume([3]int{7, 6, 5})
+	niiNeedNibabel(t)
+	v := niiTestVolume([3]int{7, 6, 5})
 	dir := t.TempDir()
 	for _, tc := range []struct {
 		name string
@@ -145,11 +135,11 @@ func TestWriteNIfTIThroughNibabel(t *testing.T) {
 			if err := WriteNIfTI(p, v, NIfTIWriteOptions{DataType: tc.dt}); err != nil {
 				t.Fatal(err)
 			}
-			ri := nibabelInfo(t, p, 0)
-			if !closeAffine(ri.Affine, v.Affine, 1e-5) {
+			ri := niiNibabelInfo(t, p, 0)
+			if !niiCloseAffine(ri.Affine, v.Affine, 1e-5) {
 				t.Errorf("nibabel affine %v, wrote %v", ri.Affine, v.Affine)
 			}
-			if ri.Qform == nil || !closeAffine(*ri.Qform, v.Affine, 1e-5) {
+			if ri.Qform == nil || !niiCloseAffine(*ri.Qform, v.Affine, 1e-5) {
 				t.Errorf("nibabel qform %v, wrote %v", ri.Qform, v.Affine)
 			}
 			if ri.Descrip == nil || *ri.Descrip != notice.Short {
@@ -158,7 +148,7 @@ func TestWriteNIfTIThroughNibabel(t *testing.T) {
 			if ri.Axcodes != v.Affine.Orientation() {
 				t.Errorf("axcodes %s, ours %s", ri.Axcodes, v.Affine.Orientation())
 			}
-			got := nibabelData(t, p, 0)
+			got := niiNibabelData(t, p, 0)
 			if len(got) != len(v.Data) {
 				t.Fatalf("nibabel read %d voxels, wrote %d", len(got), len(v.Data))
 			}
@@ -175,7 +165,7 @@ func TestWriteNIfTIThroughNibabel(t *testing.T) {
 
 // TestWriteNIfTIDeterministic: the same volume gives the same bytes.
 func TestWriteNIfTIDeterministic(t *testing.T) {
-	v := testVolume([3]int{5, 4, 3})
+	v := niiTestVolume([3]int{5, 4, 3})
 	dir := t.TempDir()
 	for _, ext := range []string{".nii", ".nii.gz"} {
 		a, b := filepath.Join(dir, "a"+ext), filepath.Join(dir, "b"+ext)
@@ -218,12 +208,12 @@ func TestWriteNIfTIIntegersExact(t *testing.T) {
 // longer than the 80-byte descrip field, and a singular affine are refused.
 func TestWriteNIfTIRefuses(t *testing.T) {
 	dir := t.TempDir()
-	v := testVolume([3]int{3, 3, 3})
+	v := niiTestVolume([3]int{3, 3, 3})
 	v.Data[4] = float32(math.NaN())
 	if err := WriteNIfTI(filepath.Join(dir, "nan.nii"), v, NIfTIWriteOptions{DataType: DTInt16}); err == nil {
 		t.Error("NaN into int16 accepted")
 	}
-	v = testVolume([3]int{3, 3, 3})
+	v = niiTestVolume([3]int{3, 3, 3})
 	long := string(bytes.Repeat([]byte("x"), 81))
 	if err := WriteNIfTI(filepath.Join(dir, "long.nii"), v, NIfTIWriteOptions{Description: long}); err == nil {
 		t.Error("81-byte description accepted")
@@ -242,7 +232,7 @@ func TestWriteNIfTIRefuses(t *testing.T) {
 // checked against nibabel's reading of the qform (NIfTI-1 header, quatern_b/c/d
 // and pixdim[0] = qfac), on right- and left-handed rotations.
 func TestWriteNIfTIQformBranches(t *testing.T) {
-	needNibabel(t)
+	niiNeedNibabel(t)
 	rot := func(axis [3]float64, ang float64) [3][3]float64 {
 		n := math.Sqrt(axis[0]*axis[0] + axis[1]*axis[1] + axis[2]*axis[2])
 		x, y, z := axis[0]/n, axis[1]/n, axis[2]/n
@@ -265,7 +255,7 @@ func TestWriteNIfTIQformBranches(t *testing.T) {
 	dir := t.TempDir()
 	for name, r := range cases {
 		for _, left := range []bool{false, true} {
-			v := testVolume([3]int{3, 4, 2})
+			v := niiTestVolume([3]int{3, 4, 2})
 			sp := [3]float64{0.8, 1.3, 2.1}
 			for i := 0; i < 3; i++ {
 				for j := 0; j < 3; j++ {
@@ -279,10 +269,24 @@ func TestWriteNIfTIQformBranches(t *testing.T) {
 			if err := WriteNIfTI(p, v, NIfTIWriteOptions{}); err != nil {
 				t.Fatal(err)
 			}
-			ri := nibabelInfo(t, p, 0)
-			if ri.Qform == nil || !closeAffine(*ri.Qform, v.Affine, 1e-5) {
+			ri := niiNibabelInfo(t, p, 0)
+			if ri.Qform == nil || !niiCloseAffine(*ri.Qform, v.Affine, 1e-5) {
 				t.Errorf("%s left=%v: nibabel qform %v, wrote %v", name, left, ri.Qform, v.Affine)
 			}
 		}
 	}
+}
+
+// niiAffineJSON writes affines to a JSON file in a temporary folder.
+func niiAffineJSON(t testing.TB, affs [][4][4]float64) string {
+	t.Helper()
+	b, err := json.Marshal(affs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := filepath.Join(t.TempDir(), "affines.json")
+	if err := os.WriteFile(p, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return p
 }

@@ -12,6 +12,7 @@ python3-nibabel 5.0 (and numpy/scipy). Run with /usr/bin/python3.
                                       first index fastest (Fortran order)
   nifti_ref.py canonical FILE OUT     as_closest_canonical: writes its data as in
                                       dump and prints its dims, affine, axis codes
+  nifti_ref.py axcodes AFFINES.json  aff2axcodes of each 4x4 affine in the list
   nifti_ref.py resample IN.f32 NX NY NZ MAP.json ORDER CVAL OUT
                                       scipy.ndimage.map_coordinates of the float32
                                       volume IN (first index fastest) at the voxel
@@ -185,6 +186,9 @@ def main(argv):
         dump(frame(img, 0), argv[3])
         print(json.dumps({"shape": [int(s) for s in img.shape], "affine": img.affine.tolist(),
                           "axcodes": "".join(nib.aff2axcodes(img.affine))}))
+    elif cmd == "axcodes":
+        affs = json.load(open(argv[2]))
+        print(json.dumps(["".join(nib.aff2axcodes(np.array(a))) for a in affs]))
     elif cmd == "resample":
         from scipy import ndimage
         dims = [int(a) for a in argv[3:6]]
