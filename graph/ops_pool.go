@@ -1,0 +1,277 @@
+package graph
+
+import (
+	"fmt"
+	"math"
+)
+
+func init() {
+	register("MaxPool", func(c *buildCtx) (kernel, error) { return buildPool(c, true) })
+	register("AveragePool", func(c *buildCtx) (kernel, error) { return buildPool(c, false) })
+	register("GlobalAveragePool", func(c *buildCtx) (kernel, error) { return &globalPool{}, nil })
+	register("GlobalMaxPool", func(c *buildCtx) (kernel, error) { return &globalPool{isMax: true}, nil })
+}
+
+// poolKernel is ONNX MaxPool (with the optional Indices output) or
+// AveragePool (count_include_pad) over 1 to 3 spatial dimensions.
+type poolKernel struct {
+	spec         windowSpec
+	isMax        bool
+	includePad   bool
+	storageOrder int64
+	workers      int
+}
+
+func buildPool(c *buildCtx, isMax bool) (kernel, error) {
+	ws, err := readWindowSpec(c, isMax)
+	if err != nil {
+		return nil, err
+	}
+	if ws.kernel == nil {
+		return nil, fmt.Errorf("%s: kernel_shape missing", c.node.Describe())
+	}
+	k := &poolKernel{spec: ws, isMax: isMax, workers: c.workers}
+	if isMax {
+		k.storageOrder = c.attrs.int("storage_order", 0)
+	} else {
+		k.includePad = c.attrs.int("count_include_pad", 0) != 0
+	}
+	return k, nil
+}
+
+func (k *poolKernel) plan(x *Tensor) (window, []int, error) {
+	if len(x.Shape) < 3 || len(x.Shape) > 5 {
+		return window{}, nil, fmt.Errorf("X has shape %v; want (N, C, spatial...) with 1 to 3 spatial axes", x.Shape)
+	}
+	ks := make([]int, len(k.spec.kernel))
+	for i, v := range k.spec.kernel {
+		if v < 1 || v > 1<<20 {
+			return window{}, nil, fmt.Errorf("kernel_shape %v", k.spec.kernel)
+		}
+		ks[i] = int(v)
+	}
+	w, err := k.spec.geometry(x.Shape[2:], ks)
+	if err != nil {
+		return w, nil, err
+	}
+	shape := append([]int{x.Shape[0], x.Shape[1]}, w.spatialOut...)
+	_, err = checkedNumel(shape)
+	return w, shape, err
+}
+
+// each calls fn for every output position o of a plane with the input
+// offsets (within the plane) of the window's taps that fall inside the
+// input, and the tap count a count_include_pad divisor uses.
+func (w *window) each(fn func(o int, taps []int, padCount int)) {
+	taps := make([]int, 0, w.kCount())
+	o := 0
+	for oz := 0; oz < w.out[0]; oz++ {
+		for oy := 0; oy < w.out[1]; oy++ {
+			for ox := 0; ox < w.out[2]; ox++ {
+				taps = taps[:0]
+				padCount := 1
+				start := [3]int{oz*w.s[0] - w.padLo[0], oy*w.s[1] - w.padLo[1], ox*w.s[2] - w.padLo[2]}
+				for a := 0; a < 3; a++ {
+					cnt := 0
+					for t := 0; t < w.k[a]; t++ {
+						p := start[a] + t*w.d[a]
+						if p >= -w.padLo[a] && p < w.in[a]+w.padHi[a] {
+							cnt++
+						}
+					}
+					padCount *= cnt
+				}
+				for tz := 0; tz < w.k[0]; tz++ {
+					z := start[0] + tz*w.d[0]
+					if z < 0 || z >= w.in[0] {
+						continue
+					}
+					for ty := 0; ty < w.k[1]; ty++ {
+						y := start[1] + ty*w.d[1]
+						if y < 0 || y >= w.in[1] {
+							continue
+						}
+						for tx := 0; tx < w.k[2]; tx++ {
+							x := start[2] + tx*w.d[2]
+							if x < 0 || x >= w.in[2] {
+								continue
+							}
+							taps = append(taps, (z*w.in[1]+y)*w.in[2]+x)
+						}
+					}
+				}
+				fn(o, taps, padCount)
+				o++
+			}
+		}
+	}
+}
+
+func (k *poolKernel) forward(in []*Tensor) ([]*Tensor, error) {
+	x, err := floatIn(in, 0)
+	if err != nil {
+		return nil, err
+	}
+	w, shape, err := k.plan(x)
+	if err != nil {
+		return nil, err
+	}
+	y := New(shape...)
+	var ind *Tensor
+	if k.isMax {
+		ind = &Tensor{Shape: append([]int{}, shape...), Ints: make([]int64, len(y.Data)), DType: Int64}
+	}
+	planes := x.Shape[0] * x.Shape[1]
+	inP, outP := w.inCount(), w.outCount()
+	parallel(k.workers, planes, func(pl int) {
+		xs, ys := x.Data[pl*inP:(pl+1)*inP], y.Data[pl*outP:(pl+1)*outP]
+		w.each(func(o int, taps []int, padCount int) {
+			if k.isMax {
+				best, arg := argmax(xs, taps)
+				ys[o] = best
+				if arg >= 0 {
+					ind.Ints[pl*outP+o] = int64(pl*inP + k.storedIndex(&w, arg))
+				}
+				return
+			}
+			var s float32
+			for _, t := range taps {
+				s += xs[t]
+			}
+			div := len(taps)
+			if k.includePad {
+				div = padCount
+			}
+			if div > 0 {
+				ys[o] = s / float32(div)
+			}
+		})
+	})
+	if k.isMax {
+		return []*Tensor{y, ind}, nil
+	}
+	return []*Tensor{y}, nil
+}
+
+// argmax returns the largest of xs[t] for t in taps and the first t that
+// holds it (-Inf and -1 when taps is empty).
+func argmax(xs []float32, taps []int) (float32, int) {
+	best, arg := float32(math.Inf(-1)), -1
+	for _, t := range taps {
+		if v := xs[t]; v > best || arg < 0 {
+			best, arg = v, t
+		}
+	}
+	return best, arg
+}
+
+// storedIndex converts a row-major plane offset to the storage order the
+// MaxPool Indices output uses (storage_order 1 is column-major).
+func (k *poolKernel) storedIndex(w *window, off int) int {
+	if k.storageOrder == 0 {
+		return off
+	}
+	z, y, x := off/(w.in[1]*w.in[2]), off/w.in[2]%w.in[1], off%w.in[2]
+	return (x*w.in[1]+y)*w.in[0] + z
+}
+
+func (k *poolKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
+	x := in[0]
+	w, _, err := k.plan(x)
+	if err != nil {
+		return nil, err
+	}
+	g := gout[0]
+	gx := New(x.Shape...)
+	planes := x.Shape[0] * x.Shape[1]
+	inP, outP := w.inCount(), w.outCount()
+	parallel(k.workers, planes, func(pl int) {
+		xs, gs, gxs := x.Data[pl*inP:(pl+1)*inP], g.Data[pl*outP:(pl+1)*outP], gx.Data[pl*inP:(pl+1)*inP]
+		w.each(func(o int, taps []int, padCount int) {
+			if k.isMax {
+				if _, arg := argmax(xs, taps); arg >= 0 {
+					gxs[arg] += gs[o]
+				}
+				return
+			}
+			div := len(taps)
+			if k.includePad {
+				div = padCount
+			}
+			if div == 0 {
+				return
+			}
+			v := gs[o] / float32(div)
+			for _, t := range taps {
+				gxs[t] += v
+			}
+		})
+	})
+	return []*Tensor{gx}, nil
+}
+
+// globalPool is ONNX GlobalAveragePool or GlobalMaxPool: one value per
+// channel, spatial dimensions kept as size 1.
+type globalPool struct{ isMax bool }
+
+func (k *globalPool) forward(in []*Tensor) ([]*Tensor, error) {
+	x, err := floatIn(in, 0)
+	if err != nil {
+		return nil, err
+	}
+	if len(x.Shape) < 2 {
+		return nil, fmt.Errorf("X has shape %v, want (N, C, ...)", x.Shape)
+	}
+	shape := []int{x.Shape[0], x.Shape[1]}
+	for range x.Shape[2:] {
+		shape = append(shape, 1)
+	}
+	y := New(shape...)
+	inner := numel(x.Shape[2:])
+	for p := range y.Data {
+		seg := x.Data[p*inner : (p+1)*inner]
+		if k.isMax {
+			m := float32(math.Inf(-1))
+			for _, v := range seg {
+				m = max(m, v)
+			}
+			y.Data[p] = m
+			continue
+		}
+		var s float64
+		for _, v := range seg {
+			s += float64(v)
+		}
+		if inner > 0 {
+			y.Data[p] = float32(s / float64(inner))
+		}
+	}
+	return []*Tensor{y}, nil
+}
+
+func (k *globalPool) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
+	x, g := in[0], gout[0]
+	gx := New(x.Shape...)
+	inner := numel(x.Shape[2:])
+	for p, gv := range g.Data {
+		seg := x.Data[p*inner : (p+1)*inner]
+		dst := gx.Data[p*inner : (p+1)*inner]
+		if k.isMax {
+			arg := 0
+			for i, v := range seg {
+				if v > seg[arg] {
+					arg = i
+				}
+			}
+			if inner > 0 {
+				dst[arg] = gv
+			}
+			continue
+		}
+		v := gv / float32(inner)
+		for i := range dst {
+			dst[i] = v
+		}
+	}
+	return []*Tensor{gx}, nil
+}

@@ -1,0 +1,129 @@
+package graph
+
+import (
+	"fmt"
+	"math"
+)
+
+func init() {
+	register("Relu", func(c *buildCtx) (kernel, error) {
+		return unary(func(x float32) float32 { return max(x, 0) },
+			func(x, y float32) float32 {
+				if x > 0 {
+					return 1
+				}
+				return 0
+			}), nil
+	})
+	register("LeakyRelu", func(c *buildCtx) (kernel, error) {
+		alpha := c.attrs.float("alpha", 0.01)
+		return unary(func(x float32) float32 {
+			if x >= 0 {
+				return x
+			}
+			return alpha * x
+		}, func(x, y float32) float32 {
+			if x > 0 {
+				return 1
+			}
+			return alpha
+		}), nil
+	})
+	register("Sigmoid", func(c *buildCtx) (kernel, error) {
+		return unary(sigmoid, func(x, y float32) float32 { return y * (1 - y) }), nil
+	})
+	register("Identity", func(c *buildCtx) (kernel, error) { return passThrough(), nil })
+	register("Dropout", buildDropout)
+}
+
+func sigmoid(x float32) float32 {
+	if x >= 0 {
+		return float32(1 / (1 + math.Exp(-float64(x))))
+	}
+	e := math.Exp(float64(x))
+	return float32(e / (1 + e))
+}
+
+// unary is an elementwise float op with derivative d(x, y) at input x and
+// output y.
+func unary(f func(float32) float32, d func(x, y float32) float32) kernel {
+	return funcKernel{
+		fwd: func(in []*Tensor) ([]*Tensor, error) {
+			x, err := floatIn(in, 0)
+			if err != nil {
+				return nil, err
+			}
+			y := New(x.Shape...)
+			for i, v := range x.Data {
+				y.Data[i] = f(v)
+			}
+			return []*Tensor{y}, nil
+		},
+		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
+			x, y, g := in[0], out[0], gout[0]
+			gx := New(x.Shape...)
+			for i, v := range x.Data {
+				gx.Data[i] = g.Data[i] * d(v, y.Data[i])
+			}
+			return []*Tensor{gx}, nil
+		},
+	}
+}
+
+// passThrough returns its first input unchanged (Identity, and Dropout at
+// inference).
+func passThrough() kernel {
+	return funcKernel{
+		fwd: func(in []*Tensor) ([]*Tensor, error) {
+			x, err := anyIn(in, 0)
+			if err != nil {
+				return nil, err
+			}
+			return []*Tensor{x}, nil
+		},
+		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
+			g := make([]*Tensor, len(in))
+			g[0] = gout[0]
+			return g, nil
+		},
+	}
+}
+
+// buildDropout runs Dropout in inference mode: the output is the input and
+// the optional mask is all true (ONNX Dropout, opsets 1-13). Training mode
+// (is_test=0 before opset 7, or a training_mode input that is true) is
+// refused when it is known at build time, and an error at run time.
+func buildDropout(c *buildCtx) (kernel, error) {
+	if c.opset < 7 && c.attrs.int("is_test", 0) == 0 {
+		return nil, c.unsupported("Dropout with is_test=0 (training mode) before opset 7")
+	}
+	if t := c.constInput(2); t != nil && len(t.Ints) == 1 && t.Ints[0] != 0 {
+		return nil, c.unsupported("Dropout in training mode (training_mode input is true)")
+	}
+	return funcKernel{
+		fwd: func(in []*Tensor) ([]*Tensor, error) {
+			x, err := anyIn(in, 0)
+			if err != nil {
+				return nil, err
+			}
+			if optional(in, 2) {
+				if len(in[2].Ints) != 1 {
+					return nil, fmt.Errorf("training_mode must be a boolean scalar")
+				}
+				if in[2].Ints[0] != 0 {
+					return nil, fmt.Errorf("training mode is not supported (inference only)")
+				}
+			}
+			mask := &Tensor{Shape: append([]int{}, x.Shape...), Ints: make([]int64, x.Len()), DType: Bool}
+			for i := range mask.Ints {
+				mask.Ints[i] = 1
+			}
+			return []*Tensor{x, mask}, nil
+		},
+		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
+			g := make([]*Tensor, len(in))
+			g[0] = gout[0]
+			return g, nil
+		},
+	}, nil
+}
