@@ -62,7 +62,7 @@ func loadNIfTI(path string, opts LoadOptions) (*Volume, error) {
 		VolumeIndex: opts.VolumeIndex,
 	}
 	if n := h.frames(); n > 1 {
-		warn = append(warn, fmt.Sprintf("%dD input with %d volumes: using volume %d (LoadOptions.VolumeIndex)", h.ndim, n, opts.VolumeIndex))
+		warn = append(warn, fmt.Sprintf("%dD input with %d volumes: using volume %d only", h.ndim, n, opts.VolumeIndex))
 	}
 	switch h.xyztUnits & 7 {
 	case 1, 3:
