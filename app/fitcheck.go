@@ -1,0 +1,134 @@
+package app
+
+import (
+	"image/color"
+	"strconv"
+
+	"fyne.io/fyne/v2"
+	"fyne.io/fyne/v2/canvas"
+	"fyne.io/fyne/v2/container"
+	"fyne.io/fyne/v2/widget"
+)
+
+// fitPanel is the "Fit check" panel: whether the scan is the kind of scan
+// the model knows. An out-of-distribution verdict fills a vermilion block
+// with large words; each check follows with its value, limit and sentence.
+type fitPanel struct {
+	u        *UI
+	root     fyne.CanvasObject
+	block    *canvas.Rectangle
+	headline *canvas.Text
+	sentence *widget.Label
+	checks   *fyne.Container
+}
+
+// Verdict words on screen.
+const (
+	verdictOOD = "OUT OF DISTRIBUTION"
+	verdictIn  = "In distribution"
+)
+
+func newFitPanel(u *UI) *fitPanel {
+	p := &fitPanel{u: u}
+	p.block = canvas.NewRectangle(colPending)
+	p.block.CornerRadius = 4
+	p.headline = canvas.NewText("", colText)
+	p.headline.TextStyle = fyne.TextStyle{Bold: true}
+	p.headline.TextSize = 26
+	p.sentence = widget.NewLabel("")
+	p.sentence.Wrapping = fyne.TextWrapWord
+	p.checks = container.NewVBox()
+	head := container.NewStack(p.block, container.NewPadded(container.NewVBox(p.headline, p.sentence)))
+	p.root = container.NewVBox(head, p.checks)
+	p.clear()
+	return p
+}
+
+// setBlock colours the verdict block and sets its words.
+func (p *fitPanel) setBlock(c color.Color, headline, sentence string) {
+	p.block.FillColor = c
+	p.block.Refresh()
+	p.headline.Text = headline
+	p.headline.Refresh()
+	p.sentence.SetText(p.u.clean(sentence))
+}
+
+// clear shows that the checks have not run for the open case.
+func (p *fitPanel) clear() {
+	p.setBlock(colPending, "Checking…", "The fit check runs once the scan is loaded.")
+	p.checks.Objects = nil
+	p.checks.Refresh()
+}
+
+// unavailable says why no verdict can be given.
+func (p *fitPanel) unavailable(why string) {
+	p.setBlock(colPending, "No verdict", why)
+	p.checks.Objects = nil
+	p.checks.Refresh()
+}
+
+// showCancelled says the checks were stopped.
+func (p *fitPanel) showCancelled() {
+	p.unavailable("The fit check was cancelled. Reopen the case to run it again.")
+}
+
+// checkRow is one fit check as shown.
+type checkRow struct {
+	Name, Value, Limit, Sentence string
+	Pass, Required               bool
+}
+
+// showChecks fills the panel with a verdict and its checks.
+func (p *fitPanel) showChecks(ood bool, rows []checkRow) {
+	if ood {
+		failed := 0
+		for _, r := range rows {
+			if !r.Pass {
+				failed++
+			}
+		}
+		p.setBlock(colOOD, verdictOOD, plural(failed, "check fails", "checks fail")+
+			": this scan is unlike the scans the model was trained on. Do not rely on its probability.")
+	} else {
+		p.setBlock(colInDist, verdictIn, "Every check passes: the scan resembles the model's training scans. This does not make the probability a diagnosis.")
+	}
+	var objs []fyne.CanvasObject
+	for _, r := range rows {
+		objs = append(objs, p.row(r))
+	}
+	p.checks.Objects = objs
+	p.checks.Refresh()
+}
+
+// row draws one check: a coloured mark, the name with value and limit, and
+// its sentence.
+func (p *fitPanel) row(r checkRow) fyne.CanvasObject {
+	markCol, mark := colInDist, "pass"
+	if !r.Pass {
+		markCol, mark = colOOD, "FAIL"
+	}
+	chip := canvas.NewText(mark, markCol)
+	chip.TextStyle = fyne.TextStyle{Bold: true, Monospace: true}
+	name := widget.NewLabelWithStyle(r.Name, fyne.TextAlignLeading, fyne.TextStyle{Bold: true})
+	detail := r.Value
+	if r.Limit != "" {
+		detail += "  (limit " + r.Limit + ")"
+	}
+	if !r.Required {
+		detail += "  · advisory"
+	}
+	val := widget.NewLabel(detail)
+	val.TextStyle = fyne.TextStyle{Monospace: true}
+	sent := widget.NewLabel(p.u.clean(r.Sentence))
+	sent.Wrapping = fyne.TextWrapWord
+	top := container.NewBorder(nil, nil, container.NewHBox(chip, name), nil, val)
+	return container.NewVBox(top, sent, widget.NewSeparator())
+}
+
+// plural formats "1 check fails" / "3 checks fail".
+func plural(n int, one, many string) string {
+	if n == 1 {
+		return "1 " + one
+	}
+	return strconv.Itoa(n) + " " + many
+}

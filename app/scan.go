@@ -1,0 +1,335 @@
+package app
+
+import (
+	"fmt"
+
+	"fyne.io/fyne/v2"
+	"fyne.io/fyne/v2/container"
+	"fyne.io/fyne/v2/widget"
+
+	"brightfold/viewer"
+)
+
+// scanPanel shows the three planes of the open scan: one large and two
+// small, sharing one crosshair (a RAS point kept on a voxel centre) and one
+// window. Any small plane can be swapped into the large slot.
+type scanPanel struct {
+	u    *UI
+	root fyne.CanvasObject
+
+	views [3]*planeView   // indexed by viewer.Plane
+	order [3]viewer.Plane // order[0] is the large plane
+	grid  *fyne.Container
+
+	scene   *viewer.Scene
+	at      [3]float64 // crosshair, RAS mm, on a voxel centre
+	win     viewer.Window
+	presets []viewer.Preset
+	interp  viewer.Interp
+	conv    viewer.Convention
+
+	overlay *viewer.OverlayMap // relevance map on the scan grid, nil when none
+	style   viewer.OverlayStyle
+	showOv  bool
+
+	preset   *widget.Select
+	convSel  *widget.Select
+	smooth   *widget.Check
+	ovCheck  *widget.Check
+	wlLabel  *widget.Label
+	readout  *widget.Label
+	pointer  *widget.Label
+	dragSel  *widget.Select
+	quietSel bool
+}
+
+func newScanPanel(u *UI) *scanPanel {
+	p := &scanPanel{u: u, order: [3]viewer.Plane{viewer.Axial, viewer.Coronal, viewer.Sagittal}, showOv: true}
+	p.style = viewer.OverlayStyle{Opacity: 0.6, Threshold: viewer.Threshold{Value: 90, Percentile: true}}
+	for _, pl := range viewer.Planes() {
+		p.views[pl] = newPlaneView(p, pl)
+	}
+	p.grid = container.New(&triLayout{})
+	p.arrange()
+
+	p.preset = widget.NewSelect(nil, func(label string) {
+		if p.quietSel {
+			return
+		}
+		for _, pr := range p.presets {
+			if pr.Label == label {
+				p.setWindow(pr.Window)
+			}
+		}
+	})
+	p.preset.PlaceHolder = "Window preset"
+	p.convSel = widget.NewSelect([]string{"Patient right on image left", "Patient right on image right"}, func(s string) {
+		if p.quietSel {
+			return
+		}
+		p.conv = viewer.Radiological
+		if s == "Patient right on image right" {
+			p.conv = viewer.Neurological
+		}
+		p.renderAll()
+	})
+	p.convSel.SetSelectedIndex(0)
+	p.smooth = widget.NewCheck("Smooth", func(on bool) {
+		p.interp = viewer.Nearest
+		if on {
+			p.interp = viewer.Linear
+		}
+		p.renderAll()
+	})
+	p.ovCheck = widget.NewCheck("Overlay (O)", func(on bool) {
+		p.showOv = on
+		p.renderAll()
+		u.evidence.refreshOverlayState()
+	})
+	p.ovCheck.Checked = true
+	reset := widget.NewButton("Reset view", p.resetView)
+	p.dragSel = widget.NewSelect([]string{dragWL, dragPan}, nil)
+	p.dragSel.SetSelectedIndex(0)
+	p.wlLabel = widget.NewLabel("")
+	p.readout = widget.NewLabel("")
+	p.readout.TextStyle = fyne.TextStyle{Monospace: true}
+	p.pointer = widget.NewLabel("")
+	p.pointer.TextStyle = fyne.TextStyle{Monospace: true}
+	tools := container.NewHBox(p.preset, p.wlLabel, p.dragSel, p.convSel, p.smooth, p.ovCheck, reset)
+	info := container.NewVBox(p.readout, p.pointer)
+	p.root = container.NewBorder(tools, info, nil, nil, p.grid)
+	p.clear("No case open.")
+	return p
+}
+
+// The mouse-drag modes of the planes.
+const (
+	dragWL  = "Drag: window/level"
+	dragPan = "Drag: pan"
+)
+
+// dragPans reports whether a plain drag pans (instead of changing the window).
+func (p *scanPanel) dragPans() bool { return p.dragSel.Selected == dragPan }
+
+// arrange places the planes into the slots of the layout in p.order.
+func (p *scanPanel) arrange() {
+	objs := make([]fyne.CanvasObject, 3)
+	for i, pl := range p.order {
+		objs[i] = p.views[pl]
+		p.views[pl].large = i == 0
+	}
+	p.grid.Objects = objs
+	p.grid.Refresh()
+}
+
+// makeLarge swaps plane pl into the large slot.
+func (p *scanPanel) makeLarge(pl viewer.Plane) {
+	for i, q := range p.order {
+		if q == pl {
+			p.order[0], p.order[i] = p.order[i], p.order[0]
+		}
+	}
+	p.arrange()
+	for _, v := range p.views {
+		v.layoutContent()
+	}
+}
+
+// cyclePlanes brings the next plane into the large slot.
+func (p *scanPanel) cyclePlanes() { p.makeLarge(p.order[1]) }
+
+// clear removes the scan and shows msg in every plane.
+func (p *scanPanel) clear(msg string) {
+	p.scene = nil
+	p.overlay = nil
+	for _, v := range p.views {
+		v.setMessage(msg)
+	}
+	p.presets = nil
+	p.preset.Options = nil
+	p.preset.ClearSelected()
+	p.wlLabel.SetText("")
+	p.readout.SetText("")
+	p.pointer.SetText("")
+}
+
+// showMessage replaces the planes with a message (load failed, cancelled).
+func (p *scanPanel) showMessage(msg string) { p.clear(msg) }
+
+// show puts a scene on screen: crosshair at the centre, its default window.
+func (p *scanPanel) show(s *viewer.Scene) {
+	p.scene = s
+	p.overlay = nil
+	p.at = s.Snap(s.Center())
+	p.presets = s.Presets()
+	labels := make([]string, len(p.presets))
+	for i, pr := range p.presets {
+		labels[i] = pr.Label
+	}
+	p.preset.Options = labels
+	p.win = s.DefaultWindow()
+	p.selectPresetFor(p.win)
+	for _, v := range p.views {
+		v.resetZoom()
+	}
+	p.renderAll()
+}
+
+// selectPresetFor shows the preset whose window is w, if any.
+func (p *scanPanel) selectPresetFor(w viewer.Window) {
+	p.quietSel = true
+	defer func() { p.quietSel = false }()
+	for _, pr := range p.presets {
+		if pr.Window == w {
+			p.preset.SetSelected(pr.Label)
+			return
+		}
+	}
+	p.preset.ClearSelected()
+}
+
+// setWindow changes the window of all planes.
+func (p *scanPanel) setWindow(w viewer.Window) {
+	p.win = w
+	p.selectPresetFor(w)
+	p.renderAll()
+}
+
+// setOverlay sets (or with nil removes) the relevance map drawn over the scan.
+func (p *scanPanel) setOverlay(o *viewer.OverlayMap) {
+	p.overlay = o
+	p.renderAll()
+}
+
+// setStyle changes how the overlay is drawn.
+func (p *scanPanel) setStyle(st viewer.OverlayStyle) {
+	p.style = st
+	if p.overlay != nil && p.showOv {
+		p.renderAll()
+	}
+}
+
+// toggleOverlay flips the overlay's visibility (key O).
+func (p *scanPanel) toggleOverlay() { p.ovCheck.SetChecked(!p.ovCheck.Checked) }
+
+// layers is what the planes draw now.
+func (p *scanPanel) layers() viewer.Layers {
+	l := viewer.Layers{Window: p.win, Interp: p.interp}
+	if p.overlay != nil && p.showOv {
+		l.Overlay, l.Style = p.overlay, p.style
+	}
+	return l
+}
+
+// renderAll redraws the three planes and the readout.
+func (p *scanPanel) renderAll() {
+	if p.scene == nil {
+		return
+	}
+	l := p.layers()
+	for _, v := range p.views {
+		v.render(l)
+	}
+	p.wlLabel.SetText("Window " + p.win.String())
+	p.refreshReadout()
+}
+
+// refreshReadout describes the voxel under the crosshair.
+func (p *scanPanel) refreshReadout() {
+	if p.scene == nil {
+		return
+	}
+	v := p.views[p.order[0]]
+	f := v.frame
+	x, y := f.WorldToPixel(p.at)
+	r := p.scene.ReadoutAt(f, x, y, p.visibleOverlay())
+	p.readout.SetText("Crosshair  " + r.String() + p.unitsSuffix(r))
+}
+
+func (p *scanPanel) visibleOverlay() *viewer.OverlayMap {
+	if p.showOv {
+		return p.overlay
+	}
+	return nil
+}
+
+func (p *scanPanel) unitsSuffix(r viewer.Readout) string {
+	if r.HasOverlay && p.overlay.Units() != "" {
+		return " (" + p.overlay.Units() + ")"
+	}
+	return ""
+}
+
+// pointerAt describes the voxel under the mouse in view v.
+func (p *scanPanel) pointerAt(v *planeView, x, y float64) {
+	if p.scene == nil {
+		return
+	}
+	r := p.scene.ReadoutAt(v.frame, x, y, p.visibleOverlay())
+	p.pointer.SetText(fmt.Sprintf("Pointer    %s%s", r.String(), p.unitsSuffix(r)))
+}
+
+// moveCrosshair puts the crosshair on the voxel nearest to the RAS point.
+func (p *scanPanel) moveCrosshair(world [3]float64) {
+	if p.scene == nil {
+		return
+	}
+	p.at = p.scene.Snap(world)
+	p.renderAll()
+}
+
+// stepSlice moves plane pl's slice by n (positive: superior, anterior, right).
+func (p *scanPanel) stepSlice(pl viewer.Plane, n int) {
+	if p.scene == nil {
+		return
+	}
+	p.at = p.scene.StepSlice(p.at, pl, n)
+	p.renderAll()
+}
+
+// dragWindow adjusts the window for a mouse drag.
+func (p *scanPanel) dragWindow(dx, dy float64) {
+	if p.scene == nil {
+		return
+	}
+	p.setWindow(p.scene.DragWindow(p.win, dx, dy))
+}
+
+// resetView restores zoom, pan, crosshair and window.
+func (p *scanPanel) resetView() {
+	if p.scene == nil {
+		return
+	}
+	p.at = p.scene.Snap(p.scene.Center())
+	for _, v := range p.views {
+		v.resetZoom()
+	}
+	p.setWindow(p.scene.DefaultWindow())
+}
+
+// zoomLarge zooms the large plane by factor f (keys + and -).
+func (p *scanPanel) zoomLarge(f float32) { p.views[p.order[0]].zoomBy(f, nil) }
+
+// triLayout puts object 0 in a large slot on the left (two thirds of the
+// width) and objects 1 and 2 stacked on the right.
+type triLayout struct{}
+
+// MinSize is small: the planes scale to whatever room there is.
+func (triLayout) MinSize([]fyne.CanvasObject) fyne.Size { return fyne.NewSize(360, 240) }
+
+// Layout places the three planes.
+func (triLayout) Layout(objs []fyne.CanvasObject, size fyne.Size) {
+	if len(objs) < 3 {
+		return
+	}
+	gap := float32(4)
+	bigW := (size.Width - gap) * 2 / 3
+	smallW := size.Width - gap - bigW
+	smallH := (size.Height - gap) / 2
+	objs[0].Move(fyne.NewPos(0, 0))
+	objs[0].Resize(fyne.NewSize(bigW, size.Height))
+	objs[1].Move(fyne.NewPos(bigW+gap, 0))
+	objs[1].Resize(fyne.NewSize(smallW, smallH))
+	objs[2].Move(fyne.NewPos(bigW+gap, smallH+gap))
+	objs[2].Resize(fyne.NewSize(smallW, smallH))
+}

@@ -1,0 +1,82 @@
+package app
+
+import (
+	"context"
+	"fmt"
+
+	"brightfold/viewer"
+	"brightfold/volume"
+)
+
+// openCase is the loaded case: the scan as read and the scene it is shown from.
+type openCase struct {
+	c     Case
+	vol   *volume.Volume
+	scene *viewer.Scene
+}
+
+// selectCase opens case i: it cancels whatever was running for the previous
+// case, clears the panels and loads the scan in the background.
+func (u *UI) selectCase(i int) {
+	if i < 0 || i >= len(u.cases) {
+		return
+	}
+	u.tasks.cancel(taskLoad, taskScore, taskRelevance)
+	u.cur = i
+	u.open = nil
+	c := u.cases[i]
+	u.casesPanel.refresh()
+	u.refreshIdentity()
+	u.scan.clear("Loading " + c.Code + "…")
+	u.evidence.clear()
+	u.fit.clear()
+	u.say("")
+	u.tasks.start(taskLoad, "Loading "+c.Code, func(ctx context.Context, progress progressFunc) (func(), error) {
+		oc, err := loadCase(ctx, c, progress)
+		if err != nil {
+			return nil, err
+		}
+		return func() { u.showCase(oc) }, nil
+	}, func(err error) {
+		u.scan.showMessage("Could not open " + c.Code + ".")
+		u.fail(err)
+		u.evidence.unavailable("No scan loaded.")
+		u.fit.unavailable("No scan loaded.")
+		u.markReady()
+	})
+}
+
+// loadCase reads the scan and prepares it for display. It runs off the UI thread.
+func loadCase(ctx context.Context, c Case, progress progressFunc) (*openCase, error) {
+	progress(-1, "reading")
+	v, err := volume.Load(c.Paths, volume.LoadOptions{SeriesUID: c.Series})
+	if err != nil {
+		return nil, err
+	}
+	if err := ctx.Err(); err != nil {
+		return nil, err
+	}
+	progress(-1, "preparing the planes")
+	// Closest canonical RAS without interpolation: slicing then runs along
+	// memory order; the viewer shows any axis-aligned orientation correctly.
+	shown, err := volume.Reorient(v)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", c.Code, err)
+	}
+	scene, err := viewer.NewScene(shown)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", c.Code, err)
+	}
+	return &openCase{c: c, vol: v, scene: scene}, nil
+}
+
+// showCase puts a loaded case on screen and starts its evidence.
+func (u *UI) showCase(oc *openCase) {
+	u.open = oc
+	u.refreshIdentity()
+	u.scan.show(oc.scene)
+	for _, w := range oc.vol.Warnings {
+		u.say("Note: " + w)
+	}
+	u.startEvidence()
+}

@@ -1,0 +1,272 @@
+package app
+
+import (
+	"fmt"
+	"image/color"
+	"path/filepath"
+	"sync"
+
+	"fyne.io/fyne/v2"
+	"fyne.io/fyne/v2/canvas"
+	"fyne.io/fyne/v2/container"
+	"fyne.io/fyne/v2/theme"
+	"fyne.io/fyne/v2/widget"
+
+	"brightfold/notice"
+)
+
+// UI is one viewer window and its state. Its fields are touched only on the
+// UI thread; background work reaches it through post.
+type UI struct {
+	app   fyne.App
+	win   fyne.Window
+	opts  Options
+	post  func(func())
+	tasks *tasks
+
+	ready     chan struct{} // closed once the first case is shown with its evidence
+	readyOnce sync.Once
+
+	meeting bool
+	cases   []Case
+	cur     int       // index of the selected case, -1 for none
+	open    *openCase // the loaded case, nil while loading or when none
+
+	root         fyne.CanvasObject
+	bannerBox    fyne.CanvasObject
+	scanSection  fyne.CanvasObject
+	column       fyne.CanvasObject
+	banner       *widget.Label
+	identity     *widget.Label
+	meetingCheck *widget.Check
+	meetingChip  *fyne.Container
+	openBtn      *widget.Button
+	taskBox      *fyne.Container
+	message      *canvas.Text
+
+	casesPanel *casesPanel
+	scan       *scanPanel
+	evidence   *evidencePanel
+	fit        *fitPanel
+	read       *readPanel
+}
+
+// newUI builds the window content. post runs a function on the UI thread.
+func newUI(a fyne.App, w fyne.Window, opts Options, post func(func())) *UI {
+	u := &UI{app: a, win: w, opts: opts, post: post, cur: -1, ready: make(chan struct{})}
+	u.tasks = newTasks(post, u.refreshTasks)
+	u.meeting = opts.Meeting
+	u.build()
+	u.applyMeeting()
+	return u
+}
+
+// build lays the window out: the notice banner across the top, a thin bar
+// for the case identity and Meeting mode, then Cases | Scan | the reading
+// column (Fit check above Evidence above My read), and the task strip.
+func (u *UI) build() {
+	u.banner = widget.NewLabelWithStyle(notice.Full, fyne.TextAlignCenter, fyne.TextStyle{Bold: true})
+	u.banner.Wrapping = fyne.TextWrapWord
+	u.banner.Importance = widget.MediumImportance
+	bannerBG := canvas.NewRectangle(colChalk)
+	banner := container.NewStack(bannerBG, container.NewThemeOverride(u.banner, chalkTheme{newTheme()}))
+	u.bannerBox = banner
+
+	u.identity = widget.NewLabel("")
+	u.identity.Truncation = fyne.TextTruncateEllipsis
+	u.meetingCheck = widget.NewCheck("Meeting mode", func(on bool) { u.setMeeting(on) })
+	u.meetingCheck.Checked = u.meeting
+	chipText := canvas.NewText("MEETING MODE ON · names, IDs, dates and paths hidden", colText)
+	chipText.TextStyle = fyne.TextStyle{Bold: true}
+	u.meetingChip = container.NewStack(canvas.NewRectangle(colMeeting), container.NewPadded(chipText))
+	u.openBtn = widget.NewButtonWithIcon("Open…", theme.FolderOpenIcon(), u.showOpenMenu)
+	help := widget.NewButtonWithIcon("Keys", theme.HelpIcon(), u.showHelp)
+	title := canvas.NewText("Brightfold", colSeaGlass)
+	title.TextStyle = fyne.TextStyle{Bold: true}
+	title.TextSize = theme.TextSubHeadingSize()
+	bar := container.NewBorder(nil, nil,
+		container.NewHBox(title, widget.NewSeparator(), u.openBtn),
+		container.NewHBox(u.meetingChip, u.meetingCheck, help),
+		u.identity)
+
+	u.casesPanel = newCasesPanel(u)
+	u.scan = newScanPanel(u)
+	u.evidence = newEvidencePanel(u)
+	u.fit = newFitPanel(u)
+	u.read = newReadPanel()
+
+	column := container.NewVScroll(container.NewVBox(
+		section("Fit check", u.fit.root),
+		section("Evidence", u.evidence.root),
+		section("My read", u.read.root),
+	))
+	u.column = column
+	u.scanSection = section("Scan", u.scan.root)
+	right := container.NewHSplit(u.scanSection, column)
+	right.Offset = 0.68
+	main := container.NewHSplit(section("Cases", u.casesPanel.root), right)
+	main.Offset = 0.15
+
+	u.message = canvas.NewText("", colMuted)
+	u.taskBox = container.NewVBox()
+	bottom := container.NewVBox(u.taskBox, container.NewPadded(u.message))
+	u.root = container.NewBorder(container.NewVBox(banner, container.NewPadded(bar), widget.NewSeparator()),
+		bottom, nil, nil, main)
+}
+
+// section is a panel with its name above it.
+func section(name string, content fyne.CanvasObject) fyne.CanvasObject {
+	t := canvas.NewText(name, colSeaGlass)
+	t.TextStyle = fyne.TextStyle{Bold: true}
+	t.TextSize = theme.TextSubHeadingSize()
+	rule := canvas.NewRectangle(colSeaGlass)
+	rule.SetMinSize(fyne.NewSize(24, 2))
+	head := container.NewVBox(t, container.NewHBox(rule))
+	return container.NewBorder(container.NewPadded(head), nil, nil, nil, container.NewPadded(content))
+}
+
+// chalkTheme draws the banner's text in dark ink on the chalk ground.
+type chalkTheme struct{ fyne.Theme }
+
+// Color makes the foreground dark ink.
+func (c chalkTheme) Color(n fyne.ThemeColorName, v fyne.ThemeVariant) color.Color {
+	if n == theme.ColorNameForeground {
+		return colChalkInk
+	}
+	return c.Theme.Color(n, v)
+}
+
+// start begins the first work: the cases given on the command line, or the
+// demo cohort.
+func (u *UI) start() {
+	if len(u.opts.Paths) > 0 {
+		u.addPaths(u.opts.Paths, true)
+		return
+	}
+	u.startDemo()
+}
+
+// close cancels background work when the window closes.
+func (u *UI) close() {
+	u.tasks.cancel(taskDemo, taskLoad, taskScore, taskRelevance)
+}
+
+// markReady releases a waiting screenshot.
+func (u *UI) markReady() { u.readyOnce.Do(func() { close(u.ready) }) }
+
+// say shows a status line; in Meeting mode identifiers and paths are removed.
+func (u *UI) say(s string) {
+	u.message.Text = u.clean(s)
+	u.message.Color = colMuted
+	u.message.Refresh()
+}
+
+// fail shows an error line, cleaned like say.
+func (u *UI) fail(err error) {
+	u.message.Text = u.clean(err.Error())
+	u.message.Color = colOOD
+	u.message.Refresh()
+}
+
+// refreshTasks redraws the task strip: one row per running task with its
+// progress and a Cancel button.
+func (u *UI) refreshTasks() {
+	if u.taskBox == nil {
+		return
+	}
+	var rows []fyne.CanvasObject
+	for _, t := range u.tasks.snapshot() {
+		t := t
+		bar := widget.NewProgressBar()
+		var prog fyne.CanvasObject = bar
+		if t.frac < 0 {
+			inf := widget.NewProgressBarInfinite()
+			prog = inf
+		} else {
+			bar.SetValue(t.frac)
+		}
+		label := t.label
+		if t.msg != "" {
+			label += ": " + t.msg
+		}
+		cancel := widget.NewButtonWithIcon("Cancel", theme.CancelIcon(), func() { u.cancelTask(t.kind) })
+		rows = append(rows, container.NewBorder(nil, nil, widget.NewLabel(u.clean(label)), cancel, prog))
+	}
+	u.taskBox.Objects = rows
+	u.taskBox.Refresh()
+}
+
+// cancelTask stops one kind of work and says so where its result would go.
+func (u *UI) cancelTask(kind string) {
+	u.tasks.cancel(kind)
+	switch kind {
+	case taskScore:
+		u.evidence.showCancelled()
+		u.fit.showCancelled()
+	case taskRelevance:
+		u.evidence.relevanceCancelled()
+	case taskLoad:
+		u.scan.showMessage("Loading cancelled. Pick the case again to load it.")
+	case taskDemo:
+		u.casesPanel.setNote("Demo cohort generation cancelled. Restart Brightfold to generate it.")
+	}
+	u.say("Cancelled.")
+}
+
+// caseLabel is how a case is named on screen: its code, and outside
+// Meeting mode the file or folder name.
+func (u *UI) caseLabel(c Case) string {
+	if u.meeting || len(c.Paths) == 0 {
+		return c.Code
+	}
+	return c.Code + "  " + filepath.Base(c.Paths[0])
+}
+
+// refreshIdentity shows who and what is open, as Meeting mode allows.
+func (u *UI) refreshIdentity() {
+	if u.cur < 0 || u.cur >= len(u.cases) {
+		u.identity.SetText("No case open")
+		u.win.SetTitle("Brightfold")
+		return
+	}
+	c := u.cases[u.cur]
+	text := c.Code
+	if !u.meeting {
+		if u.open != nil {
+			if p := u.open.vol.Patient; !p.Empty() {
+				text += fmt.Sprintf("  ·  %s  ·  ID %s  ·  born %s  ·  study %s", dash(p.Name), dash(p.ID), dash(p.BirthDate), dash(p.StudyDate))
+			}
+		}
+		if len(c.Paths) > 0 {
+			text += "  ·  " + c.Paths[0]
+		}
+		u.win.SetTitle("Brightfold · " + c.Code + " · " + filepath.Base(firstPath(c)))
+	} else {
+		u.win.SetTitle("Brightfold · " + c.Code + " · Meeting mode")
+	}
+	if c.Note != "" {
+		text += "  ·  " + c.Note
+	}
+	u.identity.SetText(text)
+}
+
+func dash(s string) string {
+	if s == "" {
+		return "—"
+	}
+	return s
+}
+
+func firstPath(c Case) string {
+	if len(c.Paths) == 0 {
+		return ""
+	}
+	return c.Paths[0]
+}
+
+// spacer is an empty object of the given minimum size.
+func spacer(w, h float32) fyne.CanvasObject {
+	r := canvas.NewRectangle(nil)
+	r.SetMinSize(fyne.NewSize(w, h))
+	return r
+}
