@@ -2,7 +2,8 @@
 """Reference values for the DICOM tests, from Debian's python3-pydicom (2.3)
 and python3-nibabel (5.0, nibabel.nicom). Run with /usr/bin/python3.
 
-  dicom_ref.py pixels FILE...   pixel values after the modality LUT (rescale)
+  dicom_ref.py pixels DIR FILE...  pixel values after the modality LUT (rescale),
+                                written to DIR as little-endian float64 files
   dicom_ref.py series FILE...   slices sorted by nibabel's slice indicator,
                                 the first slice's nibabel affine, the stacked data
   dicom_ref.py strict FILE...   read with pydicom's validation set to raise,
@@ -12,6 +13,7 @@ and python3-nibabel (5.0, nibabel.nicom). Run with /usr/bin/python3.
 Prints JSON on standard output.
 """
 import json
+import os
 import sys
 import warnings
 
@@ -20,9 +22,9 @@ import pydicom
 from pydicom.pixel_data_handlers.util import apply_modality_lut
 
 
-def pixels(paths):
+def pixels(outdir, paths):
     out = []
-    for p in paths:
+    for n, p in enumerate(paths):
         rec = {"file": p}
         try:
             with warnings.catch_warnings():
@@ -33,7 +35,8 @@ def pixels(paths):
                 val = apply_modality_lut(arr, ds).astype(np.float64)
             rec["ok"] = True
             rec["shape"] = list(val.shape)
-            rec["values"] = val.ravel().tolist()
+            rec["values"] = os.path.join(outdir, "ref%03d.f64" % n)
+            val.astype("<f8").ravel().tofile(rec["values"])
         except Exception as e:  # the test decides whether an error is expected
             rec["ok"] = False
             rec["error"] = "%s: %s" % (type(e).__name__, e)
@@ -54,12 +57,34 @@ def series(paths):
     data = np.stack([apply_modality_lut(w.dcm_data.pixel_array, w.dcm_data) for w, _ in ws], axis=-1)
     return {
         "files": [p for _, p in ws],
+        "formula_lps": formula_affine([w.dcm_data for w, _ in ws]),
         "slice_indicator": [float(w.slice_indicator) for w, _ in ws],
         # nibabel's affine: array index (row, column, slice) to DICOM LPS mm.
         "affine_lps_rcs": first.affine.tolist(),
         "shape_rcs": list(data.shape),
         "sum": float(data.astype(np.float64).sum()),
     }
+
+
+def formula_affine(dss):
+    """DICOM PS3.3 C.7.6.2.1.1: P = S + X*dc*i + Y*dr*j for voxel (column i,
+    row j), with X, Y the row and column direction cosines of
+    ImageOrientationPatient, dc = PixelSpacing[1], dr = PixelSpacing[0] and
+    S = ImagePositionPatient; the slice axis is the step between the first
+    and last positions after sorting them along X cross Y. Computed here from
+    pydicom's values, independently of the Go reader."""
+    iop = np.array([float(x) for x in dss[0].ImageOrientationPatient])
+    x, y = iop[:3], iop[3:]
+    n = np.cross(x, y)
+    pos = sorted((np.array([float(v) for v in ds.ImagePositionPatient]) for ds in dss),
+                 key=lambda p: float(np.dot(p, n)))
+    dr, dc = (float(v) for v in dss[0].PixelSpacing)
+    aff = np.eye(4)
+    aff[:3, 0] = x * dc
+    aff[:3, 1] = y * dr
+    aff[:3, 2] = (pos[-1] - pos[0]) / (len(pos) - 1) if len(pos) > 1 else n
+    aff[:3, 3] = pos[0]
+    return aff.tolist()
 
 
 def strict(paths):
@@ -119,7 +144,7 @@ def multiframe(path):
 def main():
     mode, args = sys.argv[1], sys.argv[2:]
     if mode == "pixels":
-        res = pixels(args)
+        res = pixels(args[0], args[1:])
     elif mode == "series":
         res = series(args)
     elif mode == "strict":
