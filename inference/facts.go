@@ -1,0 +1,66 @@
+package inference
+
+import (
+	"math"
+	"sort"
+
+	"brightfold/inference/fitcheck"
+	"brightfold/volume"
+)
+
+// CaseFacts are the model-free measurements of one scan that the fit checks
+// compare with the card's envelope and intensity reference, and that
+// FitReference summarises over training scans. MeasureCase is the one place
+// they are computed.
+type CaseFacts struct {
+	Modality         string     `json:"modality"`
+	SpacingMm        [3]float64 `json:"spacing_mm"`
+	SliceThicknessMm float64    `json:"slice_thickness_mm"` // largest spacing, or the header's thickness when larger
+	FOVMm            [3]float64 `json:"fov_mm"`             // along R, A, S
+	Dims             [3]int     `json:"dims"`
+	Anisotropy       float64    `json:"anisotropy"`
+	ObliquityDeg     float64    `json:"obliquity_deg"`
+	Orientation      string     `json:"orientation"`
+	NumVolumes       int        `json:"num_volumes"`
+	HeadVolumeMl     float64    `json:"head_volume_ml"`
+	HeadAPOverLR     float64    `json:"head_ap_over_lr"`
+	HeadSIOverAP     float64    `json:"head_si_over_ap"`
+	NoiseRatio       float64    `json:"noise_ratio"`
+	HUAirFraction    float64    `json:"hu_air_fraction"`
+	HUBoneFraction   float64    `json:"hu_bone_fraction"`
+	InsideFOV        float64    `json:"inside_fov"`
+	Quantiles        []float64  `json:"quantiles"` // normalised head intensities at the levels
+}
+
+// MeasureCase measures a scan v and its preprocessing pr; levels are the
+// quantile levels of the intensity profile (the card's, when checking).
+func MeasureCase(v *volume.Volume, pr *Prepared, levels []float64) CaseFacts {
+	sp := v.Spacing()
+	f := CaseFacts{Modality: v.Meta.Modality, SpacingMm: sp, Dims: v.Dims, NumVolumes: max(1, v.Meta.NumVolumes),
+		ObliquityDeg: fitcheck.ObliquityDeg(v.Affine), Orientation: v.Affine.Orientation(), FOVMm: fitcheck.FOVMm(v),
+		HeadVolumeMl: pr.Head.VolumeMl, InsideFOV: pr.InsideFOV}
+	lo, hi := math.Min(sp[0], math.Min(sp[1], sp[2])), math.Max(sp[0], math.Max(sp[1], sp[2]))
+	f.SliceThicknessMm = math.Max(hi, v.Meta.SliceThicknessMm)
+	f.Anisotropy = hi / lo
+	if e := pr.Head.ExtentMm; e[0] > 0 && e[1] > 0 {
+		f.HeadAPOverLR = e[1] / e[0]
+		f.HeadSIOverAP = e[2] / e[1]
+	}
+	f.NoiseRatio = fitcheck.NoiseRatio(v, pr.Head.Threshold)
+	f.HUAirFraction, f.HUBoneFraction = fitcheck.HUSignature(v.Data)
+	f.Quantiles = headQuantiles(pr.Tensor, levels)
+	return f
+}
+
+// headQuantiles are the quantiles of the normalised tensor over the head mask.
+func headQuantiles(t *Tensor, levels []float64) []float64 {
+	g := t.GridValues()
+	var head []float64
+	for i, m := range t.HeadMask {
+		if m {
+			head = append(head, float64(g[i]))
+		}
+	}
+	sort.Float64s(head)
+	return fitcheck.Quantiles(head, levels)
+}

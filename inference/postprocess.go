@@ -1,0 +1,63 @@
+package inference
+
+import (
+	"fmt"
+	"math"
+
+	"brightfold/inference/fitcheck"
+)
+
+// Prediction is the calibrated reading of one case's logits.
+type Prediction struct {
+	Label         string             `json:"label"`         // most probable class
+	Probability   float64            `json:"probability"`   // of the positive class
+	Probabilities map[string]float64 `json:"probabilities"` // by class
+	Temperature   float64            `json:"temperature"`
+	// Uncalibrated is the positive-class probability at temperature 1.
+	Uncalibrated float64 `json:"uncalibrated_probability"`
+}
+
+// Postprocess applies the card's activation with temperature scaling
+// (Guo et al. 2017: softmax(z/T), or σ(z/T) for a one-logit sigmoid model).
+func Postprocess(c *Card, logits []float64) (Prediction, error) {
+	if len(logits) != c.NumLogits() {
+		return Prediction{}, fmt.Errorf("got %d logits, the card needs %d", len(logits), c.NumLogits())
+	}
+	for _, z := range logits {
+		if math.IsNaN(z) || math.IsInf(z, 0) {
+			return Prediction{}, fmt.Errorf("model gave a non-finite logit %v", z)
+		}
+	}
+	T := c.Calibration.Temperature
+	probs := ClassProbabilities(c, logits, T)
+	raw := ClassProbabilities(c, logits, 1)
+	pos := c.PositiveIndex()
+	p := Prediction{Probabilities: map[string]float64{}, Temperature: T, Probability: probs[pos], Uncalibrated: raw[pos]}
+	best := 0
+	for i, q := range probs {
+		p.Probabilities[c.Classes[i]] = q
+		if q > probs[best] {
+			best = i
+		}
+	}
+	p.Label = c.Classes[best]
+	return p, nil
+}
+
+// ClassProbabilities returns the probabilities by class, in card order, at
+// temperature T.
+func ClassProbabilities(c *Card, logits []float64, T float64) []float64 {
+	return fitcheck.Softmax(ClassLogits(c, logits), T)
+}
+
+// ClassLogits returns one logit per class: the logits themselves for a
+// softmax model, (0, z) for a one-logit sigmoid model (positive class second
+// or first as the card orders them), whose softmax is (1 − σ(z), σ(z)).
+func ClassLogits(c *Card, logits []float64) []float64 {
+	if c.Outputs.Activation != ActivationSigmoid {
+		return logits
+	}
+	out := make([]float64, 2)
+	out[c.PositiveIndex()] = logits[0]
+	return out
+}

@@ -1,0 +1,215 @@
+package inference
+
+import (
+	"errors"
+	"fmt"
+	"runtime"
+	"sync"
+
+	ort "github.com/yalue/onnxruntime_go"
+
+	"brightfold/inputerr"
+	"brightfold/ortlib"
+)
+
+// ONNX Runtime keeps one environment per process (its C library is
+// process-global), so the environment is set up once here, guarded by a
+// mutex; sessions are per bundle.
+var ortEnv struct {
+	sync.Mutex
+	lib string
+}
+
+// InitRuntime loads the ONNX Runtime library at libPath (see ortlib.Find) and
+// creates the process's environment; later calls with the same path do
+// nothing. A missing or unusable library is an input error with the command
+// that installs the right one.
+func InitRuntime(libPath string) error {
+	ortEnv.Lock()
+	defer ortEnv.Unlock()
+	if ortEnv.lib != "" {
+		if ortEnv.lib != libPath {
+			return fmt.Errorf("ONNX Runtime already loaded from %s; cannot switch to %s in one process", ortEnv.lib, libPath)
+		}
+		return nil
+	}
+	ort.SetSharedLibraryPath(libPath)
+	if err := ort.InitializeEnvironment(ort.WithLogLevelError()); err != nil {
+		return inputerr.New(libPath, "cannot use this ONNX Runtime library (Brightfold needs %s of ONNX Runtime 1.30.0, C API 24): %v; %s",
+			ortlib.FileName, err, ortlib.InstallHint)
+	}
+	ortEnv.lib = libPath
+	return nil
+}
+
+// SessionOptions tune a session.
+type SessionOptions struct {
+	// IntraOpThreads is ONNX Runtime's intra-op thread count; 0 means all cores.
+	IntraOpThreads int
+	// MaxBatch bounds how many cases one Run carries when the model's batch
+	// dimension is dynamic (0 means 8).
+	MaxBatch int
+}
+
+// Session runs one bundle's model on the CPU. It is made once per bundle and
+// reused; Run may be called from several goroutines.
+type Session struct {
+	bundle   *Bundle
+	s        *ort.DynamicAdvancedSession
+	outNames []string
+	maxBatch int
+}
+
+// Output is one case's model outputs.
+type Output struct {
+	Logits   []float64
+	Features []float64
+}
+
+// NewSession makes the ONNX Runtime session for b on the CPU execution
+// provider. InitRuntime must have been called.
+func NewSession(b *Bundle, opt SessionOptions) (*Session, error) {
+	if !ort.IsInitialized() {
+		return nil, errors.New("ONNX Runtime is not initialised (call InitRuntime)")
+	}
+	so, err := ort.NewSessionOptions()
+	if err != nil {
+		return nil, fmt.Errorf("session options: %w", err)
+	}
+	defer so.Destroy()
+	threads := opt.IntraOpThreads
+	if threads <= 0 {
+		threads = runtime.NumCPU()
+	}
+	if err := so.SetIntraOpNumThreads(threads); err != nil {
+		return nil, fmt.Errorf("intra-op threads: %w", err)
+	}
+	if err := so.SetInterOpNumThreads(1); err != nil {
+		return nil, fmt.Errorf("inter-op threads: %w", err)
+	}
+	c := b.Card
+	outs := []string{c.Outputs.Logits, c.Outputs.Features}
+	s, err := ort.NewDynamicAdvancedSessionWithONNXData(b.SessionModel, []string{c.Input.Name}, outs, so)
+	if err != nil {
+		return nil, inputerr.New(b.Source, "ONNX Runtime cannot load %s: %v", ModelFile, err)
+	}
+	mb := opt.MaxBatch
+	if mb <= 0 {
+		mb = 8
+	}
+	if !b.Graph.BatchDynamic {
+		mb = int(c.Input.Shape[0])
+		if mb < 1 {
+			mb = 1
+		}
+	}
+	return &Session{bundle: b, s: s, outNames: outs, maxBatch: mb}, nil
+}
+
+// Bundle is the session's bundle.
+func (s *Session) Bundle() *Bundle { return s.bundle }
+
+// Close frees the session.
+func (s *Session) Close() error {
+	if s.s == nil {
+		return nil
+	}
+	err := s.s.Destroy()
+	s.s = nil
+	return err
+}
+
+// Run feeds the tensors (each one case, shape [1, 1, ...] in the card's
+// layout) through the model, batching them when the batch is dynamic, and
+// returns one Output per tensor.
+func (s *Session) Run(ts []*Tensor) ([]Output, error) {
+	var out []Output
+	for lo := 0; lo < len(ts); lo += s.maxBatch {
+		hi := min(len(ts), lo+s.maxBatch)
+		o, err := s.runBatch(ts[lo:hi])
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, o...)
+	}
+	return out, nil
+}
+
+func (s *Session) runBatch(ts []*Tensor) ([]Output, error) {
+	c := s.bundle.Card
+	per := 1
+	for _, d := range c.Input.Shape[1:] {
+		per *= int(d)
+	}
+	n := len(ts)
+	if !s.bundle.Graph.BatchDynamic && n != s.maxBatch {
+		// a fixed batch larger than the cases at hand: pad with zeros
+		n = s.maxBatch
+	}
+	data := make([]float32, n*per)
+	for i, t := range ts {
+		if len(t.Data) != per {
+			return nil, fmt.Errorf("tensor %d holds %d values, the model input needs %d", i, len(t.Data), per)
+		}
+		if t.Layout != c.Input.Layout {
+			return nil, fmt.Errorf("tensor %d is in layout %s, the card says %s", i, t.Layout, c.Input.Layout)
+		}
+		copy(data[i*per:], t.Data)
+	}
+	shape := append([]int64{int64(n)}, c.Input.Shape[1:]...)
+	in, err := ort.NewTensor(ort.NewShape(shape...), data)
+	if err != nil {
+		return nil, fmt.Errorf("input tensor: %w", err)
+	}
+	defer in.Destroy()
+	outs := make([]ort.Value, len(s.outNames))
+	if err := s.s.Run([]ort.Value{in}, outs); err != nil {
+		return nil, fmt.Errorf("ONNX Runtime run: %w", err)
+	}
+	defer func() {
+		for _, o := range outs {
+			if o != nil {
+				o.Destroy()
+			}
+		}
+	}()
+	logits, err := perCase(outs[0], s.outNames[0], n)
+	if err != nil {
+		return nil, err
+	}
+	feats, err := perCase(outs[1], s.outNames[1], n)
+	if err != nil {
+		return nil, err
+	}
+	res := make([]Output, len(ts))
+	for i := range res {
+		res[i] = Output{Logits: logits[i], Features: feats[i]}
+		if len(res[i].Logits) != c.NumLogits() {
+			return nil, fmt.Errorf("output %s has %d values per case, the card needs %d logits", s.outNames[0], len(res[i].Logits), c.NumLogits())
+		}
+	}
+	return res, nil
+}
+
+// perCase splits a float32 output of batch n into n rows (flattening any
+// trailing dimensions, e.g. [N, F, 1, 1, 1] features).
+func perCase(v ort.Value, name string, n int) ([][]float64, error) {
+	t, ok := v.(*ort.Tensor[float32])
+	if !ok {
+		return nil, fmt.Errorf("output %s is not a float32 tensor", name)
+	}
+	d := t.GetData()
+	sh := t.GetShape()
+	if len(sh) == 0 || sh[0] != int64(n) || len(d)%n != 0 {
+		return nil, fmt.Errorf("output %s has shape %v, want batch %d first", name, sh, n)
+	}
+	per := len(d) / n
+	rows := make([][]float64, n)
+	for i := range rows {
+		rows[i] = make([]float64, per)
+		for j := range rows[i] {
+			rows[i][j] = float64(d[i*per+j])
+		}
+	}
+	return rows, nil
+}
