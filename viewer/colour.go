@@ -137,12 +137,14 @@ func Ember() *Colormap {
 	return buildColormap("ember", false, evenSpaced(path, 256))
 }
 
-// Tide is our diverging colour map for signed values: blue (hue 255°) for
-// negative, a near-white neutral (L 0.97, no chroma) at zero, red-orange (hue
-// 35°) for positive. Both halves share one lightness and chroma profile, so
-// equal magnitudes of either sign look equally strong.
+// Tide is our diverging colour map for signed values: blue (Oklab hue 275°)
+// for negative, a near-white neutral (L 0.97, no chroma) at zero, orange-red
+// (hue 55°) for positive. Both halves share one Oklab lightness and chroma
+// profile, so equal magnitudes of either sign look equally strong; the hue
+// pair is the one, among those we tried, for which CIE L* of mirrored
+// entries also agrees (within 0.5).
 func Tide() *Colormap {
-	const hNeg, hPos = 255.0, 35.0
+	const hNeg, hPos = 275.0, 55.0
 	half := func(s float64) (L, C float64) {
 		L = 0.97 - 0.52*s
 		C = math.Min(0.17*s, math.Min(maxChroma(L, hNeg), maxChroma(L, hPos)))
