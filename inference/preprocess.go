@@ -86,9 +86,12 @@ type Prepared struct {
 }
 
 // Preprocess turns a scan into the model input exactly as p states: closest
-// canonical RAS axes, resampling to p.SpacingMm (after block-mean
-// anti-aliasing when asked), a p.Shape grid centred on the head's centre of
-// mass, and intensity normalisation. It is the one implementation for the
+// canonical RAS axes (volume.ClosestAxes, as volume.Reorient), resampling to
+// p.SpacingMm (after block-mean anti-aliasing when asked), a p.Shape grid
+// centred on the head's centre of mass, and intensity normalisation.
+// Reorientation and resampling are done as one trilinear resampling
+// (volume.ResampleFill) onto the model grid, whose axes are the reoriented
+// scan's axes, so voxels are interpolated once. It is the one implementation for the
 // command line, the app, training and evaluation.
 func Preprocess(v *volume.Volume, p Preprocessing) (*Tensor, Transform, error) {
 	pr, err := Prepare(v, p)
@@ -124,11 +127,10 @@ func Prepare(v *volume.Volume, p Preprocessing) (*Prepared, error) {
 		return nil, err
 	}
 	grid := gridAffine(frame, p.SpacingMm, p.Shape, head.Centre)
-	inv, err := src.Affine.Inverse()
+	vals, inside, err := sampleGrid(src, grid, p.Shape, float32(lo))
 	if err != nil {
-		return nil, fmt.Errorf("scan affine: %w", err)
+		return nil, err
 	}
-	vals, inside := sampleTrilinear(src, inv.Mul(grid), p.Shape, float32(lo))
 	mask := make([]bool, len(vals))
 	for i, x := range vals {
 		mask[i] = float64(x) > thr
@@ -207,26 +209,17 @@ type frame struct {
 }
 
 func canonicalFrame(a volume.Affine) (frame, error) {
-	code := a.Orientation()
+	m, err := volume.ClosestAxes(a)
+	if err != nil {
+		return frame{}, fmt.Errorf("affine has no clear orientation: %w", err)
+	}
 	var f frame
-	seen := [3]bool{}
 	for ax := 0; ax < 3; ax++ {
-		g, sign := -1, 1.0
-		switch code[ax] {
-		case 'R', 'L':
-			g = 0
-		case 'A', 'P':
-			g = 1
-		case 'S', 'I':
-			g = 2
-		}
-		if g < 0 || seen[g] {
-			return f, fmt.Errorf("affine has no clear orientation (axis code %q)", code)
-		}
-		if code[ax] == 'L' || code[ax] == 'P' || code[ax] == 'I' {
+		g := m.World[ax]
+		sign := 1.0
+		if m.Flip[ax] {
 			sign = -1
 		}
-		seen[g] = true
 		norm := math.Sqrt(a[0][ax]*a[0][ax] + a[1][ax]*a[1][ax] + a[2][ax]*a[2][ax])
 		f.Axis[g] = ax
 		for r := 0; r < 3; r++ {
@@ -405,77 +398,23 @@ func headStats(v *volume.Volume, f frame, thr float64) (HeadStats, error) {
 	return h, nil
 }
 
-// sampleTrilinear samples v at the scan voxel positions gridToScan·(x,y,z)
-// of a dims grid, in grid order. Positions more than half a voxel outside the
-// scan take fill; positions within half a voxel of an edge take the edge
-// value. It returns the fraction of positions inside the scan.
-func sampleTrilinear(v *volume.Volume, gridToScan volume.Affine, dims [3]int, fill float32) ([]float32, float64) {
-	out := make([]float32, dims[0]*dims[1]*dims[2])
-	var insideTotal int64
-	var mu sync.Mutex
-	parallelRange(dims[2], func(z0, z1 int) {
-		var inside int64
-		for z := z0; z < z1; z++ {
-			for y := 0; y < dims[1]; y++ {
-				o := dims[0] * (y + dims[1]*z)
-				for x := 0; x < dims[0]; x++ {
-					p := gridToScan.Apply([3]float64{float64(x), float64(y), float64(z)})
-					val, ok := trilinearAt(v, p)
-					if !ok {
-						val = fill
-					} else {
-						inside++
-					}
-					out[o+x] = val
-				}
-			}
-		}
-		mu.Lock()
-		insideTotal += inside
-		mu.Unlock()
-	})
-	return out, float64(insideTotal) / float64(len(out))
-}
-
-func trilinearAt(v *volume.Volume, p [3]float64) (float32, bool) {
-	var i0 [3]int
-	var w [3]float64
-	for a := 0; a < 3; a++ {
-		d := float64(v.Dims[a])
-		if !(p[a] >= -0.5 && p[a] <= d-0.5) {
-			return 0, false
-		}
-		q := math.Min(math.Max(p[a], 0), d-1)
-		f := math.Floor(q)
-		i0[a] = int(f)
-		w[a] = q - f
-		if i0[a] >= v.Dims[a]-1 {
-			i0[a] = v.Dims[a] - 1
-			w[a] = 0
+// sampleGrid resamples v (trilinear, volume.ResampleFill) onto the grid
+// with affine grid and dims, giving points outside v's voxel centres the
+// value fill; it returns the values and the fraction of points inside v.
+func sampleGrid(v *volume.Volume, grid volume.Affine, dims [3]int, fill float32) ([]float32, float64, error) {
+	r, err := volume.ResampleFill(v, grid, dims, volume.Trilinear, float32(math.NaN()))
+	if err != nil {
+		return nil, 0, err
+	}
+	inside := 0
+	for i, x := range r.Data {
+		if math.IsNaN(float64(x)) {
+			r.Data[i] = fill
+		} else {
+			inside++
 		}
 	}
-	var s float64
-	for c := 0; c < 8; c++ {
-		wt := 1.0
-		var idx [3]int
-		for a := 0; a < 3; a++ {
-			if c>>a&1 == 1 {
-				if w[a] == 0 {
-					wt = 0
-					break
-				}
-				wt *= w[a]
-				idx[a] = i0[a] + 1
-			} else {
-				wt *= 1 - w[a]
-				idx[a] = i0[a]
-			}
-		}
-		if wt != 0 {
-			s += wt * float64(v.At(idx[0], idx[1], idx[2]))
-		}
-	}
-	return float32(s), true
+	return r.Data, float64(inside) / float64(len(r.Data)), nil
 }
 
 // normalise applies the intensity normalisation in place, with statistics

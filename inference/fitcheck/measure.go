@@ -117,24 +117,16 @@ func ObliquityDeg(a volume.Affine) float64 {
 
 // FOVMm returns the scan's extent along the world R, A, S axes: for each
 // world axis, the extent (voxel count × spacing) of the voxel axis closest to
-// it.
+// it (volume.ClosestAxes). An affine without clear axes gives zeros.
 func FOVMm(v *volume.Volume) [3]float64 {
 	var out [3]float64
+	m, err := volume.ClosestAxes(v.Affine)
+	if err != nil {
+		return out
+	}
 	sp := v.Spacing()
-	code := v.Affine.Orientation()
 	for ax := 0; ax < 3; ax++ {
-		g := -1
-		switch code[ax] {
-		case 'R', 'L':
-			g = 0
-		case 'A', 'P':
-			g = 1
-		case 'S', 'I':
-			g = 2
-		}
-		if g >= 0 {
-			out[g] = float64(v.Dims[ax]) * sp[ax]
-		}
+		out[m.World[ax]] = float64(v.Dims[ax]) * sp[ax]
 	}
 	return out
 }
