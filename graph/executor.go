@@ -17,8 +17,15 @@ type UnsupportedError struct {
 }
 
 func (e *UnsupportedError) Error() string {
+	if e.Op == inputKind {
+		return fmt.Sprintf("unsupported: graph input %q: %s", e.Node, e.Reason)
+	}
 	return fmt.Sprintf("unsupported: %s node %q: %s", e.Op, e.Node, e.Reason)
 }
+
+// inputKind is the UnsupportedError.Op of a graph input the executor
+// cannot take.
+const inputKind = "graph input"
 
 // kernel is one compiled node: a forward function and, for differentiable
 // ops, a vector-Jacobian product.
@@ -114,6 +121,9 @@ func NewExecutorWorkers(m *Model, workers int) (*Executor, error) {
 		return nil, fmt.Errorf("executor: %w", err)
 	}
 	e.order = order
+	if err := checkInputTypes(e.inputs); err != nil {
+		return nil, fmt.Errorf("executor: %w", err)
+	}
 	e.isInit, e.isInput = map[string]bool{}, map[string]bool{}
 	for _, in := range m.Graph.Initializers {
 		e.isInit[in.Name] = true
@@ -182,6 +192,19 @@ func Unsupported(m *Model) []error {
 		}
 	}
 	return errs
+}
+
+// checkInputTypes refuses graph inputs of types the executor cannot hold.
+func checkInputTypes(inputs []*ValueInfo) error {
+	for _, vi := range inputs {
+		if !vi.IsTensor() {
+			return &UnsupportedError{Op: inputKind, Node: vi.Name, Reason: "not a tensor type (sequence, map or optional)"}
+		}
+		if vi.ElemType != Float && vi.ElemType != Undefined && !vi.ElemType.isIntKind() {
+			return &UnsupportedError{Op: inputKind, Node: vi.Name, Reason: "element type " + vi.ElemType.String()}
+		}
+	}
+	return nil
 }
 
 // topoOrder sorts the nodes so that every value is produced before it is
@@ -333,6 +356,10 @@ func (e *Executor) Forward(inputs map[string]*Tensor) (*Trace, error) {
 
 func (e *Executor) runNode(tr *Trace, n *Node, k kernel) error {
 	outs, err := k.forward(tr.NodeInputs(n))
+	var ue *UnsupportedError
+	if errors.As(err, &ue) {
+		return fmt.Errorf("forward: %w", err)
+	}
 	if err != nil {
 		return fmt.Errorf("forward: %s: %w", n.Describe(), err)
 	}

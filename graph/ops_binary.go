@@ -180,6 +180,7 @@ func intBinary(kind binKind, a, b *Tensor, shape []int) *Tensor {
 				out.Ints[i] = x / y
 			}
 		}
+		out.Ints[i] = normaliseInt(a.DType, out.Ints[i])
 	}
 	return out
 }

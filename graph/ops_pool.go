@@ -108,6 +108,15 @@ func (w *window) each(fn func(o int, taps []int, padCount int)) {
 }
 
 func (k *poolKernel) forward(in []*Tensor) ([]*Tensor, error) {
+	if k.isMax && optional(in, 0) && !in[0].IsFloat() {
+		// Integer max pooling through float32, exact below 2^24.
+		out, err := k.forward([]*Tensor{castTo(in[0], Float)})
+		if err != nil {
+			return nil, err
+		}
+		out[0] = castTo(out[0], in[0].DType)
+		return out, nil
+	}
 	x, err := floatIn(in, 0)
 	if err != nil {
 		return nil, err

@@ -32,6 +32,10 @@ func init() {
 	register("Sigmoid", func(c *buildCtx) (kernel, error) {
 		return unary(sigmoid, func(x, y float32) float32 { return y * (1 - y) }), nil
 	})
+	register("Exp", func(c *buildCtx) (kernel, error) {
+		return unary(func(x float32) float32 { return float32(math.Exp(float64(x))) },
+			func(x, y float32) float32 { return y }), nil
+	})
 	register("Identity", func(c *buildCtx) (kernel, error) { return passThrough(), nil })
 	register("Dropout", buildDropout)
 }
@@ -90,16 +94,20 @@ func passThrough() kernel {
 }
 
 // buildDropout runs Dropout in inference mode: the output is the input and
-// the optional mask is all true (ONNX Dropout, opsets 1-13). Training mode
-// (is_test=0 before opset 7, or a training_mode input that is true) is
-// refused when it is known at build time, and an error at run time.
+// the optional mask is all true (ONNX Dropout). Training mode (is_test=0
+// before opset 7, or a training_mode input that is true) draws random
+// numbers and is unsupported, except with ratio 0, where it is the
+// identity too.
 func buildDropout(c *buildCtx) (kernel, error) {
 	if c.opset < 7 && c.attrs.int("is_test", 0) == 0 {
 		return nil, c.unsupported("Dropout with is_test=0 (training mode) before opset 7")
 	}
 	if t := c.constInput(2); t != nil && len(t.Ints) == 1 && t.Ints[0] != 0 {
-		return nil, c.unsupported("Dropout in training mode (training_mode input is true)")
+		if r := c.constInput(1); r == nil || len(r.Data) != 1 || r.Data[0] != 0 {
+			return nil, c.unsupported("Dropout in training mode (training_mode input is true)")
+		}
 	}
+	unsupported := c.unsupported("Dropout in training mode with a nonzero ratio draws random numbers")
 	return funcKernel{
 		fwd: func(in []*Tensor) ([]*Tensor, error) {
 			x, err := anyIn(in, 0)
@@ -110,8 +118,12 @@ func buildDropout(c *buildCtx) (kernel, error) {
 				if len(in[2].Ints) != 1 {
 					return nil, fmt.Errorf("training_mode must be a boolean scalar")
 				}
-				if in[2].Ints[0] != 0 {
-					return nil, fmt.Errorf("training mode is not supported (inference only)")
+				ratio := float32(0.5)
+				if optional(in, 1) && len(in[1].Data) == 1 {
+					ratio = in[1].Data[0]
+				}
+				if in[2].Ints[0] != 0 && ratio != 0 {
+					return nil, unsupported
 				}
 			}
 			mask := &Tensor{Shape: append([]int{}, x.Shape...), Ints: make([]int64, x.Len()), DType: Bool}
