@@ -113,9 +113,12 @@ func headerChecks(e Envelope, f CaseFacts) []fitcheck.Check {
 	out = append(out, rangeCheck(CheckSpacing, worst, e.SpacingMm, " mm",
 		"Voxel spacing %s is within the training range (%s).",
 		"A voxel spacing of %s is outside what the model was trained on (%s)."))
+	thin := "Slices of %s are thicker than the training scans (%s); fine anatomy is blurred together."
+	if f.SliceThicknessMm < e.SliceThicknessMm.Min {
+		thin = "Slices of %s are thinner than the training scans (%s); noise and detail differ from what the model knows."
+	}
 	out = append(out, rangeCheck(CheckSliceThickness, f.SliceThicknessMm, e.SliceThicknessMm, " mm",
-		"Slice thickness %s is within the training range (%s).",
-		"Slices of %s are thicker or thinner than the training scans (%s); fine anatomy may be lost or differ."))
+		"Slice thickness %s is within the training range (%s).", thin))
 	ratio, axis := math.Inf(1), 0
 	for a := 0; a < 3; a++ {
 		if e.MinFOVMm[a] > 0 {

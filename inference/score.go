@@ -5,6 +5,7 @@ import (
 	"time"
 
 	"brightfold/inference/fitcheck"
+	"brightfold/inputerr"
 	"brightfold/volume"
 )
 
@@ -50,7 +51,8 @@ func (s *Session) ScoreMany(vs []*volume.Volume) ([]*Result, error) {
 		t0 := time.Now()
 		pr, err := PrepareForCard(v, c)
 		if err != nil {
-			return nil, fmt.Errorf("preprocess: %w", err)
+			// the scan cannot be prepared as the card states: bad input
+			return nil, inputerr.Wrap(v.Source, fmt.Errorf("cannot prepare the scan for %s: %w", c.Name, err))
 		}
 		res[i] = &Result{Prepared: pr}
 		ts[i] = pr.Tensor

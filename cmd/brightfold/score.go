@@ -1,5 +1,226 @@
 package main
 
+import (
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"strings"
+	"time"
+
+	"brightfold/inference"
+	"brightfold/inference/fitcheck"
+	"brightfold/inputerr"
+	"brightfold/notice"
+	"brightfold/ortlib"
+	"brightfold/report"
+	"brightfold/volume"
+)
+
+type scoreOptions struct {
+	model, out, mapMethod, ortLib, series string
+	json, showPaths, hidePaths             bool
+	threads, volumeIndex                   int
+}
+
+// relevanceMethods are the --map values; only "none" is available until
+// the relevance maps land.
+var relevanceMethods = []string{"none", "lrp", "ig", "gradinput", "occlusion"}
+
+// runScore scores one scan with a model bundle: prediction, calibrated
+// probability and the fit check, as text or JSON, and result.json with --out.
 func runScore(e *env, args []string) error {
-	return usageError("brightfold score: not built yet")
+	fs := newFlags(e, "score")
+	var o scoreOptions
+	fs.StringVar(&o.model, "model", "", "model bundle: a folder or .zip with model.onnx and card.json (default: the embedded demo bundle)")
+	fs.StringVar(&o.out, "out", "", "folder to write result.json into (created if needed)")
+	fs.StringVar(&o.mapMethod, "map", "none", "relevance map: "+strings.Join(relevanceMethods, "|"))
+	fs.BoolVar(&o.json, "json", false, "print JSON instead of text")
+	fs.BoolVar(&o.showPaths, "show-paths", false, "write the full input path into result.json (default: the file name only)")
+	fs.BoolVar(&o.hidePaths, "hide-paths", false, "print only the input's file name, also on the screen")
+	fs.StringVar(&o.ortLib, "ort-lib", "", "path of the ONNX Runtime library "+ortlib.FileName)
+	fs.IntVar(&o.threads, "threads", 0, "ONNX Runtime intra-op threads (default: all cores)")
+	fs.IntVar(&o.volumeIndex, "volume", 0, "volume of a 4D NIfTI input to score")
+	fs.StringVar(&o.series, "series", "", "DICOM series UID to score when the input holds several")
+	fs.Usage = func() {
+		fmt.Fprintln(e.stderr, "usage: brightfold score PATH [--model BUNDLE] [--map "+strings.Join(relevanceMethods, "|")+"] [--out DIR] [--json]")
+		fs.PrintDefaults()
+	}
+	paths, err := parseFlags(fs, args)
+	if err != nil {
+		return err
+	}
+	if len(paths) == 0 {
+		return usageError("brightfold score: give a scan (a NIfTI file, DICOM files or a DICOM folder)")
+	}
+	if err := checkMapMethod(o.mapMethod); err != nil {
+		return err
+	}
+	if o.threads < 0 {
+		return usageError("brightfold score: --threads must be 0 (all cores) or more, got %d", o.threads)
+	}
+	t0 := time.Now()
+	bundle, err := openBundle(o.model)
+	if err != nil {
+		return err
+	}
+	sess, err := openSession(bundle, o.ortLib, o.threads)
+	if err != nil {
+		return err
+	}
+	defer sess.Close()
+	tLoad := time.Now()
+	v, err := volume.Load(paths, volume.LoadOptions{VolumeIndex: o.volumeIndex, SeriesUID: o.series})
+	if err != nil {
+		return err
+	}
+	loadMs := msSince(tLoad)
+	res, err := sess.Score(v)
+	if err != nil {
+		return err
+	}
+	input := strings.Join(paths, " ")
+	rep := scoreReport(input, v, bundle, res)
+	rep.TimingMs["load"] = loadMs
+	rep.TimingMs["total"] = msSince(t0)
+	if o.hidePaths {
+		rep.Input.Path = baseNames(paths)
+	}
+	if o.out != "" {
+		if err := writeResult(o, paths, rep); err != nil {
+			return err
+		}
+	}
+	if o.json {
+		return report.EncodeScore(e.stdout, rep)
+	}
+	writeScoreText(e.stdout, rep, res)
+	return nil
+}
+
+func checkMapMethod(m string) error {
+	switch m {
+	case "none":
+		return nil
+	case "lrp", "ig", "gradinput", "occlusion":
+		return usageError("brightfold score: --map %s: relevance maps are not available yet in this build; use --map none", m)
+	}
+	return usageError("brightfold score: --map %q: want one of %s", m, strings.Join(relevanceMethods, ", "))
+}
+
+func msSince(t time.Time) float64 { return float64(time.Since(t).Microseconds()) / 1000 }
+
+// openBundle loads the bundle named by --model, or the embedded demo bundle.
+func openBundle(p string) (*inference.Bundle, error) {
+	if p == "" {
+		return demoBundle()
+	}
+	return inference.LoadBundle(p)
+}
+
+// demoBundle is the bundle used without --model.
+func demoBundle() (*inference.Bundle, error) {
+	return nil, usageError("no demo model bundle is embedded in this build yet; give --model BUNDLE (a folder or .zip with model.onnx and card.json)")
+}
+
+// openSession finds and loads ONNX Runtime and makes the bundle's session.
+func openSession(b *inference.Bundle, libFlag string, threads int) (*inference.Session, error) {
+	lib, err := ortlib.Find(libFlag)
+	if err != nil {
+		return nil, inputerr.New(libFlag, "%v", err)
+	}
+	if err := inference.InitRuntime(lib); err != nil {
+		return nil, err
+	}
+	return inference.NewSession(b, inference.SessionOptions{IntraOpThreads: threads})
+}
+
+func baseNames(paths []string) string {
+	names := make([]string, len(paths))
+	for i, p := range paths {
+		names[i] = filepath.Base(p)
+	}
+	return strings.Join(names, " ")
+}
+
+// writeResult writes DIR/result.json; the input path is reduced to file
+// names unless --show-paths.
+func writeResult(o scoreOptions, paths []string, rep *report.Score) error {
+	if err := os.MkdirAll(o.out, 0o755); err != nil {
+		return inputerr.Wrap(o.out, fmt.Errorf("create output folder: %w", err))
+	}
+	c := *rep
+	if !o.showPaths {
+		c.Input.Path = baseNames(paths)
+	}
+	if _, err := report.WriteScore(o.out, &c); err != nil {
+		var pe *os.PathError
+		if errors.As(err, &pe) {
+			return inputerr.Wrap(o.out, err)
+		}
+		return err
+	}
+	return nil
+}
+
+// scoreReport is the JSON form of a result.
+func scoreReport(input string, v *volume.Volume, b *inference.Bundle, r *inference.Result) *report.Score {
+	c := b.Card
+	orient := "?"
+	if m, err := volume.ClosestAxes(v.Affine); err == nil {
+		orient = m.Code()
+	}
+	rep := &report.Score{
+		Input: report.Input{Path: input, Format: v.Meta.Format, Dims: v.Dims, SpacingMm: v.Spacing(),
+			Orientation: orient, Modality: v.Meta.Modality},
+		Model: report.Model{Name: c.Name, Version: c.Version, SHA256: b.SHA256},
+		Prediction: report.Prediction{Label: r.Prediction.Label, Probability: r.Prediction.Probability,
+			PositiveClass: c.PositiveClass, Probabilities: r.Prediction.Probabilities,
+			Temperature: r.Prediction.Temperature, Uncalibrated: r.Prediction.Uncalibrated},
+		OOD: report.OOD{Verdict: r.Verdict},
+		TimingMs: map[string]float64{"preprocess": r.TimingMs.Preprocess, "model": r.TimingMs.Model,
+			"fit_check": r.TimingMs.FitCheck},
+		Warnings: append([]string{}, v.Warnings...),
+	}
+	for _, ch := range r.Checks {
+		rep.OOD.Checks = append(rep.OOD.Checks, report.Check{Name: ch.Name, Value: report.Number(ch.Value),
+			Threshold: ch.Threshold, Pass: ch.Pass, Required: ch.Required, Explanation: ch.Explanation})
+	}
+	return rep
+}
+
+// writeScoreText prints the result for a reader: notice first and last.
+func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result) {
+	fmt.Fprintln(w, notice.Full)
+	fmt.Fprintln(w)
+	in := rep.Input
+	fmt.Fprintf(w, "Scan:        %s (%s, %d×%d×%d voxels, %.2f×%.2f×%.2f mm, %s)\n", in.Path, in.Format,
+		in.Dims[0], in.Dims[1], in.Dims[2], in.SpacingMm[0], in.SpacingMm[1], in.SpacingMm[2], in.Orientation)
+	fmt.Fprintf(w, "Model:       %s %s (sha256 %.12s…)\n", rep.Model.Name, rep.Model.Version, rep.Model.SHA256)
+	fmt.Fprintln(w)
+	p := rep.Prediction
+	fmt.Fprintf(w, "Prediction:  %s\n", p.Label)
+	fmt.Fprintf(w, "Probability: %.2f that the scan shows %q (calibrated with temperature %.2f)\n", p.Probability, p.PositiveClass, p.Temperature)
+	fmt.Fprintln(w)
+	failed := r.FailedChecks()
+	if rep.OOD.Verdict == fitcheck.OutOfDistribution {
+		fmt.Fprintln(w, "Fit check:   OUT-OF-DISTRIBUTION. This scan is unlike the scans the model was trained on; do not rely on the probability.")
+	} else {
+		fmt.Fprintln(w, "Fit check:   in-distribution. The scan resembles the training scans in every required check.")
+	}
+	for _, c := range failed {
+		tag := ""
+		if !c.Required {
+			tag = " (advisory)"
+		}
+		fmt.Fprintf(w, "  - %s%s\n", c.Explanation, tag)
+	}
+	fmt.Fprintf(w, "  (%d checks, %d failed; --json lists every check with its value and threshold)\n", len(r.Checks), len(failed))
+	for _, msg := range rep.Warnings {
+		fmt.Fprintf(w, "Warning:     %s\n", msg)
+	}
+	fmt.Fprintf(w, "Time:        %.0f ms\n", rep.TimingMs["total"])
+	fmt.Fprintln(w)
+	fmt.Fprintln(w, notice.Full)
 }

@@ -1,0 +1,198 @@
+package main
+
+import (
+	"encoding/json"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"brightfold/internal/refcheck"
+	"brightfold/notice"
+	"brightfold/volume"
+)
+
+// tinyBundle copies the inference package's test model and its example card
+// into a bundle folder.
+func tinyBundle(t *testing.T) string {
+	t.Helper()
+	dir := filepath.Join(t.TempDir(), "tiny")
+	os.MkdirAll(dir, 0o755)
+	src := filepath.Join(refcheck.RepoRoot(), "inference", "testdata")
+	for from, to := range map[string]string{"tiny3d.onnx": "model.onnx", "card-example.json": "card.json"} {
+		b, err := os.ReadFile(filepath.Join(src, from))
+		if err != nil {
+			t.Fatal(err)
+		}
+		os.WriteFile(filepath.Join(dir, to), b, 0o644)
+	}
+	return dir
+}
+
+// headNIfTI writes a 1 mm 64³ ellipsoid "head" like the ones the example
+// card was fitted on.
+func headNIfTI(t *testing.T) string {
+	t.Helper()
+	a := volume.Diag([3]float64{1, 1, 1}, [3]float64{-32, -32, -32})
+	v, _ := volume.New([3]int{64, 64, 64}, a)
+	for k := 0; k < 64; k++ {
+		for j := 0; j < 64; j++ {
+			for i := 0; i < 64; i++ {
+				p := a.Apply([3]float64{float64(i), float64(j), float64(k)})
+				x, y, z := p[0]/18, p[1]/22, p[2]/17
+				if x*x+y*y+z*z <= 1 {
+					// deterministic texture standing in for noise
+					v.Data[v.Index(i, j, k)] = float32(100 + 30*x + 20*y + 10*z + 4*math.Sin(float64(i*7+j*13+k*29)))
+				}
+			}
+		}
+	}
+	p := filepath.Join(t.TempDir(), "HMRU-0001_T1w.nii.gz")
+	if err := volume.WriteNIfTI(p, v, volume.NIfTIWriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
+
+func TestScoreJSONAndResultFile(t *testing.T) {
+	lib := refcheck.ORTLib(t)
+	bundle := tinyBundle(t)
+	scan := headNIfTI(t)
+	out := filepath.Join(t.TempDir(), "out")
+	code, stdout, stderr := runCLI("score", scan, "--model", bundle, "--json", "--out", out, "--ort-lib", lib, "--threads", "1")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	var got map[string]any
+	if err := json.Unmarshal([]byte(stdout), &got); err != nil {
+		t.Fatalf("JSON: %v\n%s", err, stdout)
+	}
+	for _, k := range []string{"notice", "input", "model", "prediction", "ood", "timing_ms"} {
+		if _, ok := got[k]; !ok {
+			t.Errorf("JSON lacks %q", k)
+		}
+	}
+	if got["notice"] != notice.Full {
+		t.Error("JSON notice missing")
+	}
+	in := got["input"].(map[string]any)
+	if in["path"] != scan || in["format"] != "nifti" || in["orientation"] != "RAS" {
+		t.Errorf("input block: %v", in)
+	}
+	pred := got["prediction"].(map[string]any)
+	for _, k := range []string{"label", "probability", "probabilities", "temperature"} {
+		if _, ok := pred[k]; !ok {
+			t.Errorf("prediction lacks %q", k)
+		}
+	}
+	ood := got["ood"].(map[string]any)
+	if v := ood["verdict"]; v != "in-distribution" && v != "out-of-distribution" {
+		t.Errorf("verdict %v", v)
+	}
+	for _, c := range ood["checks"].([]any) {
+		m := c.(map[string]any)
+		for _, k := range []string{"name", "value", "threshold", "pass", "explanation"} {
+			if _, ok := m[k]; !ok {
+				t.Errorf("check %v lacks %q", m["name"], k)
+			}
+		}
+	}
+	b, err := os.ReadFile(filepath.Join(out, "result.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var res map[string]any
+	json.Unmarshal(b, &res)
+	if p := res["input"].(map[string]any)["path"]; p != filepath.Base(scan) {
+		t.Errorf("result.json path %v, want the base name only", p)
+	}
+	entries, _ := os.ReadDir(out)
+	if len(entries) != 1 {
+		t.Errorf("out folder holds %d entries (temporary files left?)", len(entries))
+	}
+	// text form: notice first and last, prediction, fit check, model
+	code, stdout, stderr = runCLI("score", scan, "--model", bundle, "--ort-lib", lib)
+	if code != 0 {
+		t.Fatalf("text: exit %d: %s", code, stderr)
+	}
+	lines := strings.Split(strings.TrimSpace(stdout), "\n")
+	if lines[0] != notice.Full || lines[len(lines)-1] != notice.Full {
+		t.Error("text form must start and end with the notice")
+	}
+	for _, want := range []string{"Prediction:", "Probability:", "Fit check:", "tiny3d-test 0.1"} {
+		if !strings.Contains(stdout, want) {
+			t.Errorf("text lacks %q:\n%s", want, stdout)
+		}
+	}
+}
+
+// Real scans from Debian's python3-nibabel test data are out of distribution
+// for a model fitted on 1 mm synthetic heads, each with reasons.
+func TestScoreNibabelScansOutOfDistribution(t *testing.T) {
+	lib := refcheck.ORTLib(t)
+	bundle := tinyBundle(t)
+	for _, name := range []string{"anatomical.nii", "example4d.nii.gz", "reoriented_anat_moved.nii"} {
+		p := refcheck.Path(t, filepath.Join(nibabelDir, name))
+		code, stdout, stderr := runCLI("score", p, "--model", bundle, "--json", "--ort-lib", lib)
+		if code != 0 {
+			t.Fatalf("%s: exit %d: %s", name, code, stderr)
+		}
+		var got struct {
+			OOD struct {
+				Verdict string
+				Checks  []struct {
+					Name        string
+					Pass        bool
+					Explanation string
+				}
+			}
+		}
+		json.Unmarshal([]byte(stdout), &got)
+		var failed []string
+		for _, c := range got.OOD.Checks {
+			if !c.Pass {
+				failed = append(failed, c.Name)
+			}
+		}
+		if got.OOD.Verdict != "out-of-distribution" || len(failed) == 0 {
+			t.Errorf("%s: verdict %q", name, got.OOD.Verdict)
+		}
+		t.Logf("%s: out-of-distribution; failed %v", name, failed)
+	}
+}
+
+func TestScoreAndBundleErrors(t *testing.T) {
+	lib := refcheck.ORTLib(t)
+	bundle := tinyBundle(t)
+	scan := headNIfTI(t)
+	tampered := tinyBundle(t)
+	m := filepath.Join(tampered, "model.onnx")
+	b, _ := os.ReadFile(m)
+	b[len(b)-5] ^= 0xff
+	os.WriteFile(m, b, 0o644)
+	cases := []struct {
+		args []string
+		want string
+	}{
+		{[]string{"score", filepath.Join(t.TempDir(), "missing.nii"), "--model", bundle, "--ort-lib", lib}, "missing.nii"},
+		{[]string{"score", scan, "--model", tampered, "--ort-lib", lib}, "sha256"},
+		{[]string{"score", scan, "--model", bundle, "--map", "lrp", "--ort-lib", lib}, "not available yet"},
+		{[]string{"score", scan, "--model", bundle, "--map", "fancy"}, "want one of"},
+		{[]string{"score", scan}, "--model"},
+		{[]string{"score", scan, "--model", bundle, "--ort-lib", filepath.Join(t.TempDir(), "nolib.so")}, "make setup"},
+		{[]string{"score"}, "give a scan"},
+		{[]string{"bundle", "check", tampered, "--ort-lib", lib}, "sha256"},
+		{[]string{"bundle", "inspect"}, "usage"},
+	}
+	for _, c := range cases {
+		code, _, stderr := runCLI(c.args...)
+		if code != 2 || !strings.Contains(stderr, c.want) || strings.Count(strings.TrimSpace(stderr), "\n") > 0 {
+			t.Errorf("%v: exit %d, stderr %q; want exit 2 and one line with %q", c.args, code, stderr, c.want)
+		}
+	}
+	code, stdout, stderr := runCLI("bundle", "check", bundle, "--ort-lib", lib)
+	if code != 0 || !strings.Contains(stdout, "OK") || !strings.Contains(stdout, "ran one all-zero case") {
+		t.Errorf("bundle check: exit %d\n%s\n%s", code, stdout, stderr)
+	}
+}
