@@ -20,8 +20,8 @@ import (
 
 type scoreOptions struct {
 	model, out, mapMethod, ortLib, series string
-	json, showPaths, hidePaths             bool
-	threads, volumeIndex                   int
+	json, showPaths, hidePaths            bool
+	threads, volumeIndex                  int
 }
 
 // relevanceMethods are the --map values; only "none" is available until
