@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"image/color"
 	"math"
+	"sync"
 )
 
 // Oklab (Ottosson 2020, "A perceptual color space for image processing") is
@@ -119,10 +120,27 @@ func (c *Colormap) At(t float64) color.RGBA {
 	return c.Entry(roundHalfUp(math.Max(0, math.Min(1, t)) * float64(len(c.table)-1)))
 }
 
+// The colour maps are computed once, on first use, and never change after:
+// a Colormap is immutable, so every caller can share the same table.
+var (
+	emberOnce = sync.OnceValue(buildEmber)
+	tideOnce  = sync.OnceValue(buildTide)
+)
+
 // Ember is our sequential colour map for positive values: from a deep red
 // through orange to a pale yellow, lightness rising evenly (Oklab L from
 // 0.40 to 0.97), hue turning from 25° to 100°.
-func Ember() *Colormap {
+func Ember() *Colormap { return emberOnce() }
+
+// Tide is our diverging colour map for signed values: blue (Oklab hue 275°)
+// for negative, a near-white neutral (L 0.97, no chroma) at zero, orange-red
+// (hue 55°) for positive. Both halves share one Oklab lightness and chroma
+// profile, so equal magnitudes of either sign look equally strong; the hue
+// pair is the one, among those we tried, for which CIE L* of mirrored
+// entries also agrees (within 0.5).
+func Tide() *Colormap { return tideOnce() }
+
+func buildEmber() *Colormap {
 	path := func(t float64) oklab {
 		// Anchors (L, C, h) at t = 0, 0.5, 1, chosen by us.
 		a := [3][3]float64{{0.40, 0.15, 25}, {0.70, 0.18, 55}, {0.97, 0.07, 100}}
@@ -137,13 +155,7 @@ func Ember() *Colormap {
 	return buildColormap("ember", false, evenSpaced(path, 256))
 }
 
-// Tide is our diverging colour map for signed values: blue (Oklab hue 275°)
-// for negative, a near-white neutral (L 0.97, no chroma) at zero, orange-red
-// (hue 55°) for positive. Both halves share one Oklab lightness and chroma
-// profile, so equal magnitudes of either sign look equally strong; the hue
-// pair is the one, among those we tried, for which CIE L* of mirrored
-// entries also agrees (within 0.5).
-func Tide() *Colormap {
+func buildTide() *Colormap {
 	const hNeg, hPos = 275.0, 55.0
 	half := func(s float64) (L, C float64) {
 		L = 0.97 - 0.52*s

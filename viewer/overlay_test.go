@@ -197,3 +197,41 @@ func TestRenderMatchesWindowedSample(t *testing.T) {
 		}
 	}
 }
+
+func TestBlendRowMatchesEntry(t *testing.T) {
+	// blendRow is entry() unrolled; both must pick the same colours.
+	vals := lcg(4000, 3)
+	for i := range vals {
+		vals[i] = (vals[i] - 0.5) * 6
+	}
+	vals[5], vals[6], vals[7] = float32(math.NaN()), float32(math.Inf(1)), float32(math.Inf(-1))
+	vals[8], vals[9] = 0, 3 // exactly the range end
+	_, om, _ := overlayFixture(t, vals)
+	for _, st := range []OverlayStyle{
+		{Opacity: 0.7, Threshold: Threshold{Value: 0.4}, Signed: true, Range: 3},
+		{Opacity: 1, Threshold: Threshold{Value: 60, Percentile: true}, Signed: true},
+		{Opacity: 0.3, Threshold: Threshold{Value: 1}, Range: 2.5},
+		{Opacity: 0.5},
+	} {
+		p, err := st.resolve(om)
+		if err != nil {
+			t.Fatal(err)
+		}
+		px := make([]uint8, 4*len(vals))
+		for i := range px {
+			px[i] = 100
+		}
+		blendRow(px, vals, &p)
+		for x, v := range vals {
+			want := [3]uint8{100, 100, 100}
+			if i, ok := p.entry(v); ok {
+				c := p.cm.Entry(i)
+				a := p.alpha
+				want = [3]uint8{uint8((100*(256-a) + int(c.R)*a) >> 8), uint8((100*(256-a) + int(c.G)*a) >> 8), uint8((100*(256-a) + int(c.B)*a) >> 8)}
+			}
+			if got := [3]uint8{px[4*x], px[4*x+1], px[4*x+2]}; got != want {
+				t.Fatalf("%+v value %v: %v, want %v", st, v, got, want)
+			}
+		}
+	}
+}

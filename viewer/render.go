@@ -70,23 +70,59 @@ func (s *Scene) RenderInto(dst *image.RGBA, f Frame, l Layers) error {
 	return nil
 }
 
-// blendRow mixes the overlay colour into the grey pixels px (RGBA) where ov passes.
+// blendRow mixes the overlay colour into the grey pixels px (RGBA) where ov
+// passes. It is overlayPaint.entry unrolled for speed; overlay_test.go
+// checks the two agree.
 func blendRow(px []uint8, ov []float32, p *overlayPaint) {
 	a := p.alpha
 	if a == 0 {
 		return
 	}
 	table := p.cm.table
-	for x, v := range ov {
-		i, ok := p.entry(v)
-		if !ok {
-			continue
-		}
+	b := 256 - a
+	put := func(x, i int) {
 		c := table[i]
 		q := px[4*x : 4*x+3 : 4*x+3]
-		q[0] = uint8((int(q[0])*(256-a) + int(c.R)*a) >> 8)
-		q[1] = uint8((int(q[1])*(256-a) + int(c.G)*a) >> 8)
-		q[2] = uint8((int(q[2])*(256-a) + int(c.B)*a) >> 8)
+		q[0] = uint8((int(q[0])*b + int(c.R)*a) >> 8)
+		q[1] = uint8((int(q[1])*b + int(c.G)*a) >> 8)
+		q[2] = uint8((int(q[2])*b + int(c.B)*a) >> 8)
+	}
+	thr, inf := p.thr, math.MaxFloat32
+	if p.signed {
+		mid := p.mid
+		scale := float64(mid) / p.rng
+		for x, v := range ov {
+			f := float64(v)
+			m := f
+			if m < 0 {
+				m = -m
+			}
+			if !(m > thr) || m > inf {
+				continue
+			}
+			k := mid
+			if m < p.rng {
+				k = int(m*scale + 0.5)
+			}
+			if f < 0 {
+				k = -k
+			}
+			put(x, mid+k)
+		}
+		return
+	}
+	last := int(p.last)
+	scale := p.last / p.rng
+	for x, v := range ov {
+		f := float64(v)
+		if !(f > thr) || f <= 0 || f > inf {
+			continue
+		}
+		i := last
+		if f < p.rng {
+			i = int(f*scale + 0.5)
+		}
+		put(x, i)
 	}
 }
 
