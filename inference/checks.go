@@ -62,10 +62,12 @@ func RunChecks(c *Card, f CaseFacts, ms ModelScores) []fitcheck.Check {
 }
 
 func rangeText(r Range, unit string) string {
-	return fmt.Sprintf("%s to %s%s", num(r.Min), num(r.Max), unit)
+	return fmt.Sprintf("%s to %s%s", FormatValue(r.Min), FormatValue(r.Max), unit)
 }
 
-func num(x float64) string {
+// FormatValue prints a check value compactly for a reader ("not
+// measurable" for NaN).
+func FormatValue(x float64) string {
 	switch {
 	case math.IsNaN(x):
 		return "not measurable"
@@ -83,9 +85,9 @@ func rangeCheck(name string, x float64, r Range, unit, pass, fail string) fitche
 	ok := r.Contains(x)
 	c := fitcheck.Check{Name: name, Value: x, Threshold: rangeText(r, unit), Pass: ok, Required: true}
 	if ok {
-		c.Explanation = fmt.Sprintf(pass, num(x)+unit, rangeText(r, unit))
+		c.Explanation = fmt.Sprintf(pass, FormatValue(x)+unit, rangeText(r, unit))
 	} else {
-		c.Explanation = fmt.Sprintf(fail, num(x)+unit, rangeText(r, unit))
+		c.Explanation = fmt.Sprintf(fail, FormatValue(x)+unit, rangeText(r, unit))
 	}
 	return c
 }
@@ -146,14 +148,14 @@ func headerChecks(e Envelope, f CaseFacts) []fitcheck.Check {
 		sc.Explanation = fmt.Sprintf("The scan has only %d slices along one axis; the model needs a 3D volume with at least %d.", minDim, e.MinSlices)
 	}
 	out = append(out, sc)
-	ac := fitcheck.Check{Name: CheckAnisotropy, Value: f.Anisotropy, Threshold: "≤ " + num(e.MaxAnisotropy), Pass: f.Anisotropy <= e.MaxAnisotropy, Required: true}
+	ac := fitcheck.Check{Name: CheckAnisotropy, Value: f.Anisotropy, Threshold: "≤ " + FormatValue(e.MaxAnisotropy), Pass: f.Anisotropy <= e.MaxAnisotropy, Required: true}
 	if ac.Pass {
-		ac.Explanation = fmt.Sprintf("Voxels are about as even in shape as in training (longest/shortest side %s).", num(f.Anisotropy))
+		ac.Explanation = fmt.Sprintf("Voxels are about as even in shape as in training (longest/shortest side %s).", FormatValue(f.Anisotropy))
 	} else {
-		ac.Explanation = fmt.Sprintf("Voxels are %s times longer along one axis than another, unlike the training scans (at most %s).", num(f.Anisotropy), num(e.MaxAnisotropy))
+		ac.Explanation = fmt.Sprintf("Voxels are %s times longer along one axis than another, unlike the training scans (at most %s).", FormatValue(f.Anisotropy), FormatValue(e.MaxAnisotropy))
 	}
 	out = append(out, ac)
-	oc := fitcheck.Check{Name: CheckOrientation, Value: f.ObliquityDeg, Threshold: "≤ " + num(e.MaxObliquityDeg) + "°", Required: true,
+	oc := fitcheck.Check{Name: CheckOrientation, Value: f.ObliquityDeg, Threshold: "≤ " + FormatValue(e.MaxObliquityDeg) + "°", Required: true,
 		Pass: f.ObliquityDeg <= e.MaxObliquityDeg && !strings.Contains(f.Orientation, "?")}
 	if oc.Pass {
 		oc.Explanation = fmt.Sprintf("The orientation in the header (%s, tilted %.0f° from the scanner axes) is plausible.", f.Orientation, f.ObliquityDeg)
@@ -189,7 +191,7 @@ func imageChecks(o OODReference, f CaseFacts) []fitcheck.Check {
 	in := o.Intensity
 	ct := f.HUAirFraction >= in.HUAirFraction && f.HUBoneFraction >= in.HUBoneFraction
 	hc := fitcheck.Check{Name: CheckHUSignature, Value: f.HUAirFraction, Required: true, Pass: !ct,
-		Threshold: fmt.Sprintf("air fraction < %s or bone fraction < %s", num(in.HUAirFraction), num(in.HUBoneFraction))}
+		Threshold: fmt.Sprintf("air fraction < %s or bone fraction < %s", FormatValue(in.HUAirFraction), FormatValue(in.HUBoneFraction))}
 	if ct {
 		hc.Explanation = fmt.Sprintf("The voxel values look like CT in Hounsfield units (%.0f%% of voxels near −1000 as air, %.1f%% of the rest in the bone range), whatever the header says.", 100*f.HUAirFraction, 100*f.HUBoneFraction)
 	} else {
@@ -198,34 +200,34 @@ func imageChecks(o OODReference, f CaseFacts) []fitcheck.Check {
 	out = append(out, hc)
 	w := fitcheck.QuantileW1(in.Levels, f.Quantiles, in.Quantiles)
 	t := o.Thresholds.Wasserstein
-	wc := fitcheck.Check{Name: CheckIntensityProfile, Value: w, Threshold: "≤ " + num(t.Value), Pass: !t.Fails(w), Required: t.Required}
+	wc := fitcheck.Check{Name: CheckIntensityProfile, Value: w, Threshold: "≤ " + FormatValue(t.Value), Pass: !t.Fails(w), Required: t.Required}
 	if wc.Pass {
-		wc.Explanation = fmt.Sprintf("The distribution of brightness inside the head matches training (distance %s, limit %s).", num(w), num(t.Value))
+		wc.Explanation = fmt.Sprintf("The distribution of brightness inside the head matches training (distance %s, limit %s).", FormatValue(w), FormatValue(t.Value))
 	} else {
-		wc.Explanation = fmt.Sprintf("The distribution of brightness inside the head differs from training (distance %s, limit %s): another contrast, sequence or scanner setting is likely.", num(w), num(t.Value))
+		wc.Explanation = fmt.Sprintf("The distribution of brightness inside the head differs from training (distance %s, limit %s): another contrast, sequence or scanner setting is likely.", FormatValue(w), FormatValue(t.Value))
 	}
 	return append(out, wc)
 }
 
 func modelChecks(c *Card, ms ModelScores) []fitcheck.Check {
 	th := c.OOD.Thresholds
-	msp := fitcheck.Check{Name: CheckMSP, Value: ms.MSP, Threshold: "≥ " + num(th.MSP.Value), Pass: !th.MSP.Fails(ms.MSP), Required: th.MSP.Required}
+	msp := fitcheck.Check{Name: CheckMSP, Value: ms.MSP, Threshold: "≥ " + FormatValue(th.MSP.Value), Pass: !th.MSP.Fails(ms.MSP), Required: th.MSP.Required}
 	if msp.Pass {
-		msp.Explanation = fmt.Sprintf("The model's top class probability before calibration (%s) is as high as on most training scans.", num(ms.MSP))
+		msp.Explanation = fmt.Sprintf("The model's top class probability before calibration (%s) is as high as on most training scans.", FormatValue(ms.MSP))
 	} else {
-		msp.Explanation = fmt.Sprintf("The model is less sure of any class (%s before calibration) than on %.0f%% of training scans.", num(ms.MSP), 100*th.MSP.Retention)
+		msp.Explanation = fmt.Sprintf("The model is less sure of any class (%s before calibration) than on %.0f%% of training scans.", FormatValue(ms.MSP), 100*th.MSP.Retention)
 	}
-	en := fitcheck.Check{Name: CheckEnergy, Value: ms.Energy, Threshold: "≤ " + num(th.Energy.Value), Pass: !th.Energy.Fails(ms.Energy), Required: th.Energy.Required}
+	en := fitcheck.Check{Name: CheckEnergy, Value: ms.Energy, Threshold: "≤ " + FormatValue(th.Energy.Value), Pass: !th.Energy.Fails(ms.Energy), Required: th.Energy.Required}
 	if en.Pass {
-		en.Explanation = fmt.Sprintf("The model's energy score (%s) is as low as on most training scans.", num(ms.Energy))
+		en.Explanation = fmt.Sprintf("The model's energy score (%s) is as low as on most training scans.", FormatValue(ms.Energy))
 	} else {
-		en.Explanation = fmt.Sprintf("The model's energy score (%s) is higher than on %.0f%% of training scans, a sign of an unfamiliar input.", num(ms.Energy), 100*th.Energy.Retention)
+		en.Explanation = fmt.Sprintf("The model's energy score (%s) is higher than on %.0f%% of training scans, a sign of an unfamiliar input.", FormatValue(ms.Energy), 100*th.Energy.Retention)
 	}
-	md := fitcheck.Check{Name: CheckMahalanobis, Value: ms.Mahalanobis, Threshold: "≤ " + num(th.Mahalanobis.Value), Pass: !th.Mahalanobis.Fails(ms.Mahalanobis), Required: th.Mahalanobis.Required}
+	md := fitcheck.Check{Name: CheckMahalanobis, Value: ms.Mahalanobis, Threshold: "≤ " + FormatValue(th.Mahalanobis.Value), Pass: !th.Mahalanobis.Fails(ms.Mahalanobis), Required: th.Mahalanobis.Required}
 	if md.Pass {
-		md.Explanation = fmt.Sprintf("The model's internal features are close to those of training scans (distance %s, limit %s).", num(ms.Mahalanobis), num(th.Mahalanobis.Value))
+		md.Explanation = fmt.Sprintf("The model's internal features are close to those of training scans (distance %s, limit %s).", FormatValue(ms.Mahalanobis), FormatValue(th.Mahalanobis.Value))
 	} else {
-		md.Explanation = fmt.Sprintf("The model's internal features are far from those of every training class (distance %s, limit %s): the scan is unlike the training scans.", num(ms.Mahalanobis), num(th.Mahalanobis.Value))
+		md.Explanation = fmt.Sprintf("The model's internal features are far from those of every training class (distance %s, limit %s): the scan is unlike the training scans.", FormatValue(ms.Mahalanobis), FormatValue(th.Mahalanobis.Value))
 	}
 	return []fitcheck.Check{msp, en, md}
 }
