@@ -133,11 +133,11 @@ var (
 func Ember() *Colormap { return emberOnce() }
 
 // Tide is our diverging colour map for signed values: blue (Oklab hue 275°)
-// for negative, a near-white neutral (L 0.97, no chroma) at zero, orange-red
-// (hue 55°) for positive. Both halves share one Oklab lightness and chroma
+// for negative, a near-white neutral (L 0.97, no chroma) at zero, red-orange
+// (hue 45°) for positive, both ends at L 0.50. Both halves share one Oklab lightness and chroma
 // profile, so equal magnitudes of either sign look equally strong; the hue
 // pair is the one, among those we tried, for which CIE L* of mirrored
-// entries also agrees (within 0.5).
+// entries also agrees (within 0.75) while both ends stay vivid.
 func Tide() *Colormap { return tideOnce() }
 
 func buildEmber() *Colormap {
@@ -156,10 +156,10 @@ func buildEmber() *Colormap {
 }
 
 func buildTide() *Colormap {
-	const hNeg, hPos = 275.0, 55.0
+	const hNeg, hPos = 275.0, 45.0
 	half := func(s float64) (L, C float64) {
-		L = 0.97 - 0.52*s
-		C = math.Min(0.17*s, math.Min(maxChroma(L, hNeg), maxChroma(L, hPos)))
+		L = 0.97 - 0.47*s
+		C = math.Min(0.2*s, math.Min(maxChroma(L, hNeg), maxChroma(L, hPos)))
 		return L, C
 	}
 	pos := evenSpaced(func(s float64) oklab { L, C := half(s); return lch(L, C, hPos) }, 129)

@@ -84,6 +84,7 @@ type Frame struct {
 	PixelMM    float64 // side of one (square) image pixel in millimetres
 	Slice      int     // voxel index along the slice axis
 
+	offX, offY       float64 // where this image starts in the whole plane, in pixels (Viewport)
 	col, row, slice  axisRef // voxel axes across, down and through the image
 	colFlip, rowFlip bool
 	dims             [3]int
@@ -133,6 +134,22 @@ func sideLength(mm, px float64) int {
 	return clampInt(n, 1, MaxSide)
 }
 
+// Viewport returns the part of f's plane that an image of w × h pixels shows
+// when its centre is on the RAS point centre (projected onto the plane): for
+// a screen of fixed size, pan by moving centre and zoom by building f with
+// another pixel size. Pixels beyond the volume render black.
+func (f Frame) Viewport(centre [3]float64, w, h int) Frame {
+	x, y := f.WorldToPixel(centre)
+	w, h = clampInt(w, 1, MaxSide), clampInt(h, 1, MaxSide)
+	v := f
+	v.offX, v.offY = f.offX+x-float64(w)/2, f.offY+y-float64(h)/2
+	if math.IsNaN(v.offX) || math.IsInf(v.offX, 0) || math.IsNaN(v.offY) || math.IsInf(v.offY, 0) {
+		v.offX, v.offY = f.offX, f.offY
+	}
+	v.Width, v.Height = w, h
+	return v
+}
+
 // SliceAxis returns the voxel axis (0, 1 or 2) the frame's slice index counts along.
 func (f Frame) SliceAxis() int { return f.slice.voxel }
 
@@ -159,8 +176,8 @@ func (f Frame) pixelCoord(idx float64, a int, flip bool) float64 {
 // index on the frame's slice.
 func (f Frame) PixelToVoxel(x, y float64) [3]float64 {
 	var ijk [3]float64
-	ijk[f.col.voxel] = f.axisCoord(x, f.col.voxel, f.colFlip)
-	ijk[f.row.voxel] = f.axisCoord(y, f.row.voxel, f.rowFlip)
+	ijk[f.col.voxel] = f.axisCoord(x+f.offX, f.col.voxel, f.colFlip)
+	ijk[f.row.voxel] = f.axisCoord(y+f.offY, f.row.voxel, f.rowFlip)
 	ijk[f.slice.voxel] = float64(f.Slice)
 	return ijk
 }
@@ -168,8 +185,8 @@ func (f Frame) PixelToVoxel(x, y float64) [3]float64 {
 // VoxelToPixel maps a continuous voxel index to the pixel position where it
 // appears (its component along the slice axis is ignored).
 func (f Frame) VoxelToPixel(ijk [3]float64) (x, y float64) {
-	return f.pixelCoord(ijk[f.col.voxel], f.col.voxel, f.colFlip),
-		f.pixelCoord(ijk[f.row.voxel], f.row.voxel, f.rowFlip)
+	return f.pixelCoord(ijk[f.col.voxel], f.col.voxel, f.colFlip) - f.offX,
+		f.pixelCoord(ijk[f.row.voxel], f.row.voxel, f.rowFlip) - f.offY
 }
 
 // PixelToWorld maps the continuous pixel position (x, y) to RAS millimetres
@@ -190,7 +207,7 @@ func (f Frame) VoxelAt(x, y float64) ([3]int, bool) {
 		pix  float64
 		a    int
 		flip bool
-	}{{x, f.col.voxel, f.colFlip}, {y, f.row.voxel, f.rowFlip}} {
+	}{{x + f.offX, f.col.voxel, f.colFlip}, {y + f.offY, f.row.voxel, f.rowFlip}} {
 		d := f.axisCoord(side.pix, side.a, false)
 		last := f.dims[side.a] - 1
 		if !(d >= -0.5 && d < float64(last)+0.5) {

@@ -280,3 +280,38 @@ func TestNewSceneRefusesBadVolumes(t *testing.T) {
 		}
 	}
 }
+
+func TestViewport(t *testing.T) {
+	// A viewport is a window onto the whole plane: its pixel (x, y) shows
+	// what the whole frame shows at (x + dx, y + dy).
+	v := newVolume(t, [3]int{12, 10, 8}, volume.Diag([3]float64{1, 2, 3}, [3]float64{-5, 4, 1}), code)
+	s, _ := NewScene(v)
+	for _, pl := range Planes() {
+		whole := s.Frame(pl, s.Center(), Radiological, 0.5)
+		centre := whole.PixelToWorld(7, 9)
+		vp := whole.Viewport(centre, 6, 4)
+		if vp.Width != 6 || vp.Height != 4 {
+			t.Fatalf("viewport %dx%d", vp.Width, vp.Height)
+		}
+		a, b := s.Sample(whole, Nearest), s.Sample(vp, Nearest)
+		for y := 0; y < 4; y++ {
+			for x := 0; x < 6; x++ {
+				if got, want := b.At(x, y), a.At(x+4, y+7); got != want {
+					t.Fatalf("%v viewport (%d,%d): %v, whole (%d,%d): %v", pl, x, y, got, x+4, y+7, want)
+				}
+			}
+		}
+		if x, y := vp.WorldToPixel(centre); x != 3 || y != 2 {
+			t.Errorf("%v: centre at (%g, %g), want the viewport's middle (3, 2)", pl, x, y)
+		}
+		r1, r2 := s.ReadoutAt(whole, 7.5, 9.5, nil), s.ReadoutAt(vp, 3.5, 2.5, nil)
+		if r1 != r2 {
+			t.Errorf("%v: readouts differ: %v vs %v", pl, r1, r2)
+		}
+		// Far off the volume: black, and the readout says outside.
+		off := whole.Viewport([3]float64{1e4, 1e4, 1e4}, 3, 3)
+		if !math.IsNaN(float64(s.Sample(off, Linear).At(1, 1))) || s.ReadoutAt(off, 1.5, 1.5, nil).Inside {
+			t.Errorf("%v: viewport off the volume shows data", pl)
+		}
+	}
+}

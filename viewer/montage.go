@@ -70,7 +70,11 @@ func Montage(s *Scene, spec MontageSpec) (image.Image, error) {
 	for _, t := range spec.Title {
 		title = append(title, Wrap(t, inner, textScale)...)
 	}
-	info := Wrap(fmt.Sprintf("Window %s (%s), %s display.", spec.Window, spec.Window.Function, spec.Convention), inner, textScale)
+	infoText := fmt.Sprintf("Window %s (%s), %s display.", spec.Window, spec.Window.Function, spec.Convention)
+	if ob := s.Obliquity(); ob > 0.5 {
+		infoText += fmt.Sprintf(" Planes follow the voxel grid, tilted %.1f deg from the RAS axes.", ob)
+	}
+	info := Wrap(infoText, inner, textScale)
 	note := Wrap(notice.Full, inner, textScale)
 	lh := LineHeight(textScale)
 

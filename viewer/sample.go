@@ -57,18 +57,18 @@ type sampler struct {
 func (f Frame) sampler(interp Interp) sampler {
 	stride := [3]int{1, f.dims[0], f.dims[0] * f.dims[1]}
 	return sampler{
-		cols:   f.taps(f.Width, f.col.voxel, f.colFlip, stride[f.col.voxel], interp),
-		rows:   f.taps(f.Height, f.row.voxel, f.rowFlip, stride[f.row.voxel], interp),
+		cols:   f.taps(f.Width, f.offX, f.col.voxel, f.colFlip, stride[f.col.voxel], interp),
+		rows:   f.taps(f.Height, f.offY, f.row.voxel, f.rowFlip, stride[f.row.voxel], interp),
 		base:   f.Slice * stride[f.slice.voxel],
 		linear: interp == Linear,
 	}
 }
 
-// taps computes, for each of n pixels along one image side, which voxels
-// along axis a it reads. Rounding and interpolation work in display order
+// taps computes, for each of n pixels along one image side starting off
+// pixels into the plane, which voxels along axis a it reads. Rounding and interpolation work in display order
 // (before the flip), so that the picture does not depend on the order in
 // which the voxels are stored.
-func (f Frame) taps(n, a int, flip bool, stride int, interp Interp) []tap {
+func (f Frame) taps(n int, off float64, a int, flip bool, stride int, interp Interp) []tap {
 	t := make([]tap, n)
 	last := f.dims[a] - 1
 	voxel := func(d int) int {
@@ -78,7 +78,7 @@ func (f Frame) taps(n, a int, flip bool, stride int, interp Interp) []tap {
 		return d * stride
 	}
 	for p := range t {
-		d := f.axisCoord(float64(p)+0.5, a, false)
+		d := f.axisCoord(float64(p)+0.5+off, a, false)
 		if !(d >= -0.5 && d < float64(last)+0.5) {
 			continue
 		}
