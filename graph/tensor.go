@@ -162,8 +162,10 @@ func numel(shape []int) int {
 	return n
 }
 
-// maxElements bounds any tensor this package creates (2^31 elements).
-const maxElements = 1 << 31
+// maxElements bounds any tensor this package decodes or creates: 2^28
+// elements (1 GiB of float32), far above what a CNN classifier's layers
+// need, so that a hostile shape is an error and not an exhausted memory.
+const maxElements = 1 << 28
 
 // checkedNumel multiplies dims with negative and overflow checks.
 func checkedNumel(shape []int) (int, error) {
