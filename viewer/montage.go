@@ -15,7 +15,7 @@ import (
 type MontageSpec struct {
 	At          [3]float64 // RAS mm point the three planes pass through
 	Convention  Convention
-	Window      Window
+	Window      Window // zero: the scene's DefaultWindow
 	Interp      Interp
 	Overlay     *OverlayMap // nil: scan only, no colour bar
 	Style       OverlayStyle
@@ -48,6 +48,9 @@ const (
 // always printed at the bottom, wrapped, at twice the font's size.
 func Montage(s *Scene, spec MontageSpec) (image.Image, error) {
 	pal := montagePalette()
+	if spec.Window == (Window{}) {
+		spec.Window = s.DefaultWindow()
+	}
 	panels, captions, err := s.montagePanels(spec)
 	if err != nil {
 		return nil, err

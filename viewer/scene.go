@@ -94,7 +94,10 @@ func worldAxes(code string) ([3]axisRef, error) {
 func wholeNumbers(data []float32) bool {
 	for _, x := range data {
 		f := float64(x)
-		if !math.IsInf(f, 0) && f != math.Trunc(f) && !math.IsNaN(f) {
+		if math.IsNaN(f) || math.IsInf(f, 0) {
+			continue
+		}
+		if f != math.Trunc(f) {
 			return false
 		}
 	}

@@ -43,6 +43,7 @@ func textMask(s string, scale int) *image.Alpha {
 	small := image.NewAlpha(image.Rect(0, 0, max(w, 1), glyphHeight))
 	d := font.Drawer{Dst: small, Src: image.Opaque, Face: face, Dot: fixed.P(0, face.Ascent)}
 	d.DrawString(s)
+	squareDots(small, s)
 	if scale == 1 {
 		return small
 	}
@@ -53,6 +54,28 @@ func textMask(s string, scale int) *image.Alpha {
 		}
 	}
 	return big
+}
+
+// squareDots redraws each full stop of s in mask m as a 2×2 square on the
+// baseline: the font's stop is a small plus sign, which enlarged reads like
+// a comma (and "0.5" like "0,5").
+func squareDots(m *image.Alpha, s string) {
+	for n, r := range []rune(s) {
+		if r != '.' {
+			continue
+		}
+		x0 := n * glyphWidth
+		for y := 0; y < glyphHeight; y++ {
+			for x := x0; x < x0+glyphWidth; x++ {
+				m.Pix[y*m.Stride+x] = 0
+			}
+		}
+		for y := 9; y <= 10; y++ {
+			for x := x0 + 2; x <= x0+3; x++ {
+				m.Pix[y*m.Stride+x] = 0xff
+			}
+		}
+	}
 }
 
 // DrawText draws one line of text with its top-left corner at pt.
