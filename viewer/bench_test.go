@@ -3,6 +3,7 @@ package viewer
 import (
 	"image"
 	"testing"
+	"time"
 
 	"brightfold/volume"
 )
@@ -33,10 +34,22 @@ func benchRender(b *testing.B, d [3]int, pl Plane, interp Interp, overlay bool) 
 	}
 	dst := image.NewRGBA(image.Rect(0, 0, f.Width, f.Height))
 	b.ResetTimer()
+	cpu0 := processCPU()
 	for i := 0; i < b.N; i++ {
 		if err := s.RenderInto(dst, f, l); err != nil {
 			b.Fatal(err)
 		}
+	}
+	reportCPU(b, cpu0)
+}
+
+// reportCPU adds the process CPU time per operation since cpu0 ("cpu-ns/op"):
+// wall time per operation rises when other jobs share the cores, CPU time
+// much less. The render loop is single-threaded, so the two agree on an idle
+// machine.
+func reportCPU(b *testing.B, cpu0 time.Duration) {
+	if d := processCPU() - cpu0; d > 0 {
+		b.ReportMetric(float64(d.Nanoseconds())/float64(b.N), "cpu-ns/op")
 	}
 }
 
@@ -65,6 +78,8 @@ func BenchmarkReferenceCopySlice(b *testing.B) {
 	v, _ := volume.New([3]int{256, 256, 64}, volume.Identity())
 	dst := image.NewRGBA(image.Rect(0, 0, 256, 256))
 	b.ResetTimer()
+	cpu0 := processCPU()
+	defer reportCPU(b, cpu0)
 	for n := 0; n < b.N; n++ {
 		for j := 0; j < 256; j++ {
 			for i := 0; i < 256; i++ {
