@@ -105,6 +105,9 @@ type renderer struct {
 	img    []float32
 	labels []Tissue
 	mask   []uint8
+
+	airOnce sync.Once
+	air     []float32
 }
 
 // parallelFor calls fn(w, k) for k in [0, n) on up to workers goroutines;
@@ -265,7 +268,8 @@ func (r *renderer) finishSlice(k int) {
 	g := r.g
 	nx, ny := g.dims[0], g.dims[1]
 	rng := newNormals(newRand(r.s.Seed, r.s.Index, streamNoise+uint64(k)))
-	sigma := r.c.sigma
+	sigma, amp, rician := r.c.sigma, r.c.biasAmp, r.c.rician
+	air := r.airNoise()
 	img := r.img[k*nx*ny : (k+1)*nx*ny]
 	bias := r.s.draw.bias
 	for j := 0; j < ny; j++ {
@@ -276,21 +280,36 @@ func (r *renderer) finishSlice(k int) {
 		c0 := bias[1]*y + bias[2]*z + bias[4]*y*y + bias[5]*z*z + bias[7]*y*z
 		c1 := bias[0] + bias[6]*y + bias[8]*z
 		c2 := bias[3]
-		for i := 0; i < nx; i++ {
+		row := img[j*nx : (j+1)*nx]
+		for i, s := range row {
+			if rician && s == 0 {
+				// Zero signal: the Rician magnitude is Rayleigh distributed.
+				row[i] = air[rng.index()]
+				continue
+			}
 			x := (w0[0] + float64(i)*g.affine[0][0]) / 90
-			b := clamp(1+r.c.biasAmp*(c0+c1*x+c2*x*x), 0.6, 1.4)
-			v := float64(img[j*nx+i]) * b
-			if r.c.rician && v == 0 {
-				v = sigma * rng.nextRayleigh()
-			} else if r.c.rician {
+			v := float64(s) * clamp(1+amp*(c0+c1*x+c2*x*x), 0.6, 1.4)
+			if rician {
 				re, im := v+sigma*rng.next(), sigma*rng.next()
 				v = math.Sqrt(re*re + im*im)
 			} else {
 				v += sigma * rng.next()
 			}
-			img[j*nx+i] = float32(clamp(math.Round(v), r.c.minValue, 32767))
+			row[i] = float32(clamp(math.Round(v), r.c.minValue, 32767))
 		}
 	}
+}
+
+// airNoise is the rounded Rayleigh noise of zero-signal voxels by table index.
+func (r *renderer) airNoise() []float32 {
+	r.airOnce.Do(func() {
+		t := rayleighTable()
+		r.air = make([]float32, len(t))
+		for i, q := range t {
+			r.air[i] = float32(clamp(math.Round(r.c.sigma*q), r.c.minValue, 32767))
+		}
+	})
+	return r.air
 }
 
 func flipZ[T any](d []T, dims [3]int) {
