@@ -281,7 +281,17 @@ func blockMean(v *volume.Volume, f [3]int) *volume.Volume {
 					for j := J * f[1]; j < (J+1)*f[1]; j++ {
 						row := v.Data[v.Index(0, j, k):]
 						for I := 0; I < nd[0]; I++ {
-							for _, x := range row[I*f[0] : (I+1)*f[0]] {
+							seg := row[I*f[0] : (I+1)*f[0]]
+							var s float64
+							for _, x := range seg {
+								s += float64(x)
+							}
+							if finite(s) { // NaN or Inf anywhere makes the sum non-finite
+								acc[I] += s
+								cnt[I] += int32(len(seg))
+								continue
+							}
+							for _, x := range seg {
 								if finite32(x) {
 									acc[I] += float64(x)
 									cnt[I]++

@@ -291,3 +291,31 @@ func TestInverseSPDRefusesIndefinite(t *testing.T) {
 		}
 	}
 }
+
+// SelectQuantile agrees with sorting and linear interpolation (numpy's
+// default method, as Quantiles).
+func TestSelectQuantileMatchesSort(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 9))
+	for n := 1; n < 300; n += 7 {
+		x := make([]float64, n)
+		for i := range x {
+			x[i] = math.Round(rng.NormFloat64() * 3) // ties
+		}
+		s := append([]float64(nil), x...)
+		sortFloats(s)
+		for _, u := range []float64{0, 0.1, 0.25, 0.5, 0.75, 0.999, 1} {
+			c := append([]float64(nil), x...)
+			if got, want := SelectQuantile(c, u), Quantiles(s, []float64{u})[0]; got != want {
+				t.Fatalf("n %d u %g: select %v, sort %v", n, u, got, want)
+			}
+		}
+	}
+}
+
+func sortFloats(x []float64) {
+	for i := 1; i < len(x); i++ {
+		for j := i; j > 0 && x[j] < x[j-1]; j-- {
+			x[j], x[j-1] = x[j-1], x[j]
+		}
+	}
+}

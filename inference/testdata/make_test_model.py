@@ -2,6 +2,9 @@
 inference tests (it is not a medical model and was never trained).
 
 Run with Debian's python3-torch 1.13:  /usr/bin/python3 make_test_model.py OUT.onnx
+With "--bench GRID" it writes instead a larger stand-in of the same shape of
+network for the score-overhead benchmark (input [N, 1, GRID, GRID, GRID],
+three convolution stages of 8, 16 and 32 channels); nothing is printed then.
 Fixed seed, fixed weights. Input "scan" [N, 1, 16, 16, 16] (NCDHW, dynamic N);
 output "logits" [N, 2]. The penultimate features (the Flatten output, [N, 8])
 are an intermediate tensor, not a graph output, so that the bundle loader
@@ -35,8 +38,34 @@ class Tiny3D(nn.Module):
         return self.fc(self.drop(f))
 
 
+class Bench3D(nn.Module):
+    def __init__(self):
+        super().__init__()
+        self.body = nn.Sequential(
+            nn.Conv3d(1, 8, 3, padding=1), nn.BatchNorm3d(8), nn.ReLU(), nn.MaxPool3d(2),
+            nn.Conv3d(8, 16, 3, padding=1), nn.ReLU(), nn.MaxPool3d(2),
+            nn.Conv3d(16, 32, 3, padding=1), nn.ReLU(), nn.AdaptiveAvgPool3d(1))
+        self.flat = nn.Flatten()
+        self.fc = nn.Linear(32, 2)
+
+    def forward(self, x):
+        return self.fc(self.flat(self.body(x)))
+
+
+def bench(out, grid):
+    torch.manual_seed(7)
+    m = Bench3D().eval()
+    x = torch.randn(1, 1, grid, grid, grid)
+    torch.onnx.export(m, x, out, input_names=["scan"], output_names=["logits"],
+                      dynamic_axes={"scan": {0: "batch"}, "logits": {0: "batch"}},
+                      opset_version=13, do_constant_folding=True)
+
+
 def main():
     out = sys.argv[1]
+    if len(sys.argv) == 4 and sys.argv[2] == "--bench":
+        bench(out, int(sys.argv[3]))
+        return
     torch.manual_seed(20261201)
     m = Tiny3D()
     with torch.no_grad():
