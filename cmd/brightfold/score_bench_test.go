@@ -78,7 +78,9 @@ func benchBundle(b *testing.B, dir string) string {
 		prec[i] = make([]float64, 32)
 		prec[i][i] = 1
 	}
-	th := func(dir string) inference.Threshold { return inference.Threshold{Value: 1, Direction: dir, Required: true} }
+	th := func(dir string) inference.Threshold {
+		return inference.Threshold{Value: 1, Direction: dir, Required: true}
+	}
 	card := &inference.Card{
 		Schema: inference.SchemaVersion, Name: "bench-stand-in", Version: "0", Task: "benchmark only",
 		Classes: []string{"a", "b"}, PositiveClass: "b",
