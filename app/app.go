@@ -31,6 +31,8 @@ type Options struct {
 	Screenshot string
 	// Meeting starts the viewer in Meeting mode.
 	Meeting bool
+	// Model is a model bundle (folder or .zip); empty means the embedded demo model.
+	Model string
 	// DemoDir is the demo cohort folder; empty means DefaultDemoDir().
 	DemoDir string
 	// ScreenshotTimeout bounds the wait for content before a screenshot is

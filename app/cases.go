@@ -73,22 +73,17 @@ func (p *casesPanel) refresh() {
 	p.quiet = false
 }
 
-// caseSubtitle is the second line of a case row: the note, and outside
-// Meeting mode the file or folder name.
+// caseSubtitle is the second line of a case row: the note, or for a scan
+// the user opened, outside Meeting mode, its file or folder name.
 func (u *UI) caseSubtitle(c Case) string {
-	s := c.Note
-	if !u.meeting && len(c.Paths) > 0 {
-		name := filepath.Base(c.Paths[0])
-		if len(c.Paths) > 1 {
-			name += fmt.Sprintf(" (+%d)", len(c.Paths)-1)
-		}
-		if s != "" {
-			s = name + " · " + s
-		} else {
-			s = name
-		}
+	if c.Note != "" || u.meeting || len(c.Paths) == 0 {
+		return c.Note
 	}
-	return s
+	name := filepath.Base(c.Paths[0])
+	if len(c.Paths) > 1 {
+		name += fmt.Sprintf(" (+%d)", len(c.Paths)-1)
+	}
+	return name
 }
 
 // addPaths adds user scans as cases, one per path (a folder is one case),

@@ -2,6 +2,7 @@ package app
 
 import (
 	"fmt"
+	"strings"
 
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/canvas"
@@ -9,6 +10,7 @@ import (
 	"fyne.io/fyne/v2/theme"
 	"fyne.io/fyne/v2/widget"
 
+	"brightfold/inference"
 	"brightfold/viewer"
 )
 
@@ -125,6 +127,8 @@ func (p *evidencePanel) clear() {
 	p.prob.Refresh()
 	p.probCaption.SetText("")
 	p.status.SetText("Waiting for the scan…")
+	p.status.Importance = widget.MediumImportance
+	p.model.SetText("")
 	p.colorBar.Image = nil
 	p.colorBar.Refresh()
 	p.refreshOverlayState()
@@ -137,7 +141,38 @@ func (p *evidencePanel) unavailable(why string) {
 	p.prob.Color = colMuted
 	p.prob.Refresh()
 	p.probCaption.SetText("")
+	p.status.Importance = widget.MediumImportance
 	p.status.SetText(p.u.clean(why))
+}
+
+// showPrediction shows the model and its calibrated probability; an
+// out-of-distribution verdict greys the number and says not to rely on it.
+func (p *evidencePanel) showPrediction(card *inference.Card, pr inference.Prediction, ood bool) {
+	p.model.SetText(fmt.Sprintf("Model: %s %s · %s", card.Name, card.Version, firstSentence(card.TrainingData)))
+	p.prob.Text = fmt.Sprintf("%.2f", pr.Probability)
+	p.prob.Color = colText
+	if ood {
+		p.prob.Color = colMuted
+	}
+	p.prob.Refresh()
+	p.probCaption.SetText(fmt.Sprintf("Probability of %q, calibrated by temperature scaling (T = %.2f; %.2f before calibration). Most probable class: %s.",
+		card.PositiveClass, pr.Temperature, pr.Uncalibrated, pr.Label))
+	if ood {
+		p.status.SetText("Out of distribution: the fit check says this scan is unlike the training scans, so this probability should not be relied on.")
+		p.status.Importance = widget.DangerImportance
+	} else {
+		p.status.SetText("A research score, not a diagnosis.")
+		p.status.Importance = widget.MediumImportance
+	}
+	p.status.Refresh()
+}
+
+// firstSentence returns s up to its first full stop.
+func firstSentence(s string) string {
+	if i := strings.Index(s, ". "); i >= 0 {
+		return s[:i+1]
+	}
+	return s
 }
 
 // showCancelled says scoring was stopped.

@@ -1,11 +1,145 @@
 package app
 
-// startEvidence scores the open case and computes its relevance map.
+import (
+	"context"
+	"errors"
+	"fmt"
+	"strings"
+	"sync"
+
+	"brightfold/inference"
+	"brightfold/inference/fitcheck"
+	"brightfold/ortlib"
+)
+
+// model is the scoring session, made once on first use and shared by every
+// case. Its methods may be called from any goroutine.
+type model struct {
+	path string // bundle folder or zip; empty for the embedded demo bundle
+
+	mu      sync.Mutex
+	session *inference.Session
+	err     error
+	tried   bool
+}
+
+// errNoBundle says there is no model to run.
+var errNoBundle = errors.New("no model bundle: the embedded demo model is not built yet; start Brightfold with --model BUNDLE")
+
+// get returns the session, loading the library and the bundle the first time.
+func (m *model) get() (*inference.Session, error) {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	if m.tried {
+		return m.session, m.err
+	}
+	m.tried = true
+	m.session, m.err = m.open()
+	return m.session, m.err
+}
+
+func (m *model) open() (*inference.Session, error) {
+	if m.path == "" {
+		return nil, errNoBundle
+	}
+	b, err := inference.LoadBundle(m.path)
+	if err != nil {
+		return nil, err
+	}
+	lib, err := ortlib.Find("")
+	if err != nil {
+		return nil, err
+	}
+	if err := inference.InitRuntime(lib); err != nil {
+		return nil, err
+	}
+	return inference.NewSession(b, inference.SessionOptions{})
+}
+
+// close frees the session.
+func (m *model) close() {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	if m.session != nil {
+		m.session.Close()
+		m.session = nil
+	}
+}
+
+// startEvidence scores the open case and computes its relevance map, both
+// off the UI thread.
 func (u *UI) startEvidence() {
-	u.evidence.unavailable("Scoring is not available yet: the model runtime is still being built.")
-	u.fit.unavailable("The fit check is not available yet: the model runtime is still being built.")
+	oc := u.open
+	u.evidence.status.SetText("Scoring…")
+	u.tasks.start(taskScore, "Scoring "+oc.c.Code, func(ctx context.Context, progress progressFunc) (func(), error) {
+		progress(-1, "loading the model")
+		s, err := u.model.get()
+		if err != nil {
+			return nil, err
+		}
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
+		progress(-1, "running the model on the CPU")
+		r, err := s.Score(oc.vol)
+		if err != nil {
+			return nil, fmt.Errorf("%s: %w", oc.c.Code, err)
+		}
+		card := s.Bundle().Card
+		return func() { u.showScore(oc, card, r) }, nil
+	}, func(err error) {
+		why := err.Error()
+		u.evidence.unavailable("No probability: " + why)
+		u.fit.unavailable("No verdict: " + why)
+		u.markReady()
+	})
 	u.startRelevance()
+}
+
+// showScore fills Evidence and Fit check from a result.
+func (u *UI) showScore(oc *openCase, card *inference.Card, r *inference.Result) {
+	if u.open != oc {
+		return
+	}
+	oc.result, oc.card = r, card
+	ood := r.Verdict == fitcheck.OutOfDistribution
+	u.evidence.showPrediction(card, r.Prediction, ood)
+	// Failed checks first, so that the reasons for the verdict come first.
+	checks := append(r.FailedChecks(), passed(r.Checks)...)
+	rows := make([]checkRow, len(checks))
+	for i, c := range checks {
+		rows[i] = checkRow{Name: checkTitle(c.Name), Value: inference.FormatValue(c.Value), Limit: c.Threshold,
+			Sentence: c.Explanation, Pass: c.Pass, Required: c.Required}
+	}
+	u.fit.showChecks(ood, rows)
 	u.markReady()
+}
+
+// passed returns the checks that pass, in their order.
+func passed(cs []fitcheck.Check) []fitcheck.Check {
+	var out []fitcheck.Check
+	for _, c := range cs {
+		if c.Pass {
+			out = append(out, c)
+		}
+	}
+	return out
+}
+
+// checkTitle turns a check's key ("voxel_spacing") into words ("Voxel spacing").
+func checkTitle(key string) string {
+	words := strings.ReplaceAll(key, "_", " ")
+	switch key {
+	case inference.CheckHeadAPLR:
+		return "Head shape (AP / LR)"
+	case inference.CheckHeadSIAP:
+		return "Head shape (SI / AP)"
+	case inference.CheckHUSignature:
+		return "Hounsfield-unit signature"
+	case inference.CheckMSP:
+		return "Maximum softmax probability"
+	}
+	return strings.ToUpper(words[:1]) + words[1:]
 }
 
 // startRelevance computes the relevance map of the chosen method.

@@ -3,10 +3,12 @@ package app
 import (
 	"image/color"
 	"strconv"
+	"strings"
 
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/canvas"
 	"fyne.io/fyne/v2/container"
+	"fyne.io/fyne/v2/theme"
 	"fyne.io/fyne/v2/widget"
 )
 
@@ -100,8 +102,8 @@ func (p *fitPanel) showChecks(ood bool, rows []checkRow) {
 	p.checks.Refresh()
 }
 
-// row draws one check: a coloured mark, the name with value and limit, and
-// its sentence.
+// row draws one check: a coloured mark, then the name, the value with its
+// limit, and the sentence, all wrapping to the column's width.
 func (p *fitPanel) row(r checkRow) fyne.CanvasObject {
 	markCol, mark := colInDist, "pass"
 	if !r.Pass {
@@ -109,20 +111,35 @@ func (p *fitPanel) row(r checkRow) fyne.CanvasObject {
 	}
 	chip := canvas.NewText(mark, markCol)
 	chip.TextStyle = fyne.TextStyle{Bold: true, Monospace: true}
-	name := widget.NewLabelWithStyle(r.Name, fyne.TextAlignLeading, fyne.TextStyle{Bold: true})
-	detail := r.Value
-	if r.Limit != "" {
-		detail += "  (limit " + r.Limit + ")"
-	}
-	if !r.Required {
-		detail += "  · advisory"
-	}
-	val := widget.NewLabel(detail)
-	val.TextStyle = fyne.TextStyle{Monospace: true}
+	head := widget.NewRichText(
+		&widget.TextSegment{Text: r.Name, Style: widget.RichTextStyle{Inline: true, TextStyle: fyne.TextStyle{Bold: true}}},
+		&widget.TextSegment{Text: "   " + checkDetail(r), Style: widget.RichTextStyle{Inline: true, ColorName: theme.ColorNamePlaceHolder}},
+	)
+	head.Wrapping = fyne.TextWrapWord
 	sent := widget.NewLabel(p.u.clean(r.Sentence))
 	sent.Wrapping = fyne.TextWrapWord
-	top := container.NewBorder(nil, nil, container.NewHBox(chip, name), nil, val)
-	return container.NewVBox(top, sent, widget.NewSeparator())
+	return container.NewVBox(
+		container.NewBorder(nil, nil, container.NewVBox(container.NewPadded(chip)), nil, container.NewVBox(head, sent)),
+		widget.NewSeparator())
+}
+
+// checkDetail is "value (limit …)", without the value when the limit is not
+// a number (a categorical check whose value is only a pass flag).
+func checkDetail(r checkRow) string {
+	d := ""
+	if strings.ContainsAny(r.Limit, "0123456789") {
+		d = "value " + r.Value
+	}
+	if r.Limit != "" {
+		if d != "" {
+			d += " · "
+		}
+		d += "limit " + r.Limit
+	}
+	if !r.Required {
+		d += " · advisory"
+	}
+	return d
 }
 
 // plural formats "1 check fails" / "3 checks fail".

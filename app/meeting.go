@@ -71,6 +71,19 @@ func (u *UI) clean(s string) string {
 			add(filepath.Dir(p))
 		}
 	}
+	// Case codes are what Meeting mode shows, even where a demo patient ID
+	// repeats one.
+	codes := map[string]bool{}
+	for _, c := range u.cases {
+		codes[c.Code] = true
+	}
+	kept := secrets[:0]
+	for _, x := range secrets {
+		if !codes[x] {
+			kept = append(kept, x)
+		}
+	}
+	secrets = kept
 	// Longest first, so that a path goes before the file name inside it.
 	sort.Slice(secrets, func(i, j int) bool { return len(secrets[i]) > len(secrets[j]) })
 	for _, x := range secrets {

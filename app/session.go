@@ -2,8 +2,10 @@ package app
 
 import (
 	"context"
+	"errors"
 	"fmt"
 
+	"brightfold/inference"
 	"brightfold/viewer"
 	"brightfold/volume"
 )
@@ -13,6 +15,9 @@ type openCase struct {
 	c     Case
 	vol   *volume.Volume
 	scene *viewer.Scene
+
+	result *inference.Result // the score, once computed
+	card   *inference.Card
 }
 
 // selectCase opens case i: it cancels whatever was running for the previous
@@ -38,6 +43,12 @@ func (u *UI) selectCase(i int) {
 		}
 		return func() { u.showCase(oc) }, nil
 	}, func(err error) {
+		var choose *errChooseSeries
+		if errors.As(err, &choose) {
+			u.scan.showMessage(c.Code + " holds several series: choose one.")
+			u.chooseSeries(i, choose.series)
+			return
+		}
 		u.scan.showMessage("Could not open " + c.Code + ".")
 		u.fail(err)
 		u.evidence.unavailable("No scan loaded.")
@@ -46,8 +57,29 @@ func (u *UI) selectCase(i int) {
 	})
 }
 
+// errChooseSeries means the case's DICOM input holds several series and the
+// user has to pick one.
+type errChooseSeries struct{ series []volume.SeriesInfo }
+
+func (e *errChooseSeries) Error() string {
+	return fmt.Sprintf("the input holds %d image series; choose one", len(e.series))
+}
+
 // loadCase reads the scan and prepares it for display. It runs off the UI thread.
 func loadCase(ctx context.Context, c Case, progress progressFunc) (*openCase, error) {
+	if c.Series == "" && !(len(c.Paths) == 1 && volume.IsNIfTIPath(c.Paths[0])) {
+		progress(-1, "listing DICOM series")
+		list, err := volume.ListSeries(c.Paths)
+		if err != nil {
+			return nil, err
+		}
+		if len(list) > 1 {
+			return nil, &errChooseSeries{series: list}
+		}
+	}
+	if err := ctx.Err(); err != nil {
+		return nil, err
+	}
 	progress(-1, "reading")
 	v, err := volume.Load(c.Paths, volume.LoadOptions{SeriesUID: c.Series})
 	if err != nil {

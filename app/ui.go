@@ -23,6 +23,7 @@ type UI struct {
 	opts  Options
 	post  func(func())
 	tasks *tasks
+	model *model
 
 	ready     chan struct{} // closed once the first case is shown with its evidence
 	readyOnce sync.Once
@@ -55,6 +56,7 @@ type UI struct {
 func newUI(a fyne.App, w fyne.Window, opts Options, post func(func())) *UI {
 	u := &UI{app: a, win: w, opts: opts, post: post, cur: -1, ready: make(chan struct{})}
 	u.tasks = newTasks(post, u.refreshTasks)
+	u.model = &model{path: opts.Model}
 	u.meeting = opts.Meeting
 	u.build()
 	u.applyMeeting()
@@ -95,11 +97,13 @@ func (u *UI) build() {
 	u.fit = newFitPanel(u)
 	u.read = newReadPanel()
 
-	column := container.NewVScroll(container.NewVBox(
-		section("Fit check", u.fit.root),
-		section("Evidence", u.evidence.root),
-		section("My read", u.read.root),
-	))
+	// The reading column: the fit check on top (its verdict first), the
+	// evidence below, each scrolling on its own so both stay in view.
+	fit := container.NewVScroll(section("Fit check", u.fit.root))
+	evid := container.NewVScroll(container.NewVBox(section("Evidence", u.evidence.root), section("My read", u.read.root)))
+	colSplit := container.NewVSplit(fit, evid)
+	colSplit.Offset = 0.42
+	var column fyne.CanvasObject = colSplit
 	u.column = column
 	u.scanSection = section("Scan", u.scan.root)
 	right := container.NewHSplit(u.scanSection, column)

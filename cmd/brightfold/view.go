@@ -15,6 +15,7 @@ func runView(e *env, args []string) error {
 	fs := newFlags(e, "view")
 	shot := fs.String("screenshot", "", "save the rendered window as PNG to `FILE` once ready, then exit")
 	meeting := fs.Bool("meeting", false, "start in Meeting mode (identifiers, dates and paths hidden)")
+	model := fs.String("model", "", "model `BUNDLE` (folder or .zip; default: the embedded demo model)")
 	demoDir := fs.String("demo-dir", "", "demo cohort `folder` (default: the user cache folder, brightfold/demo)")
 	paths, err := parseFlags(fs, args)
 	if err != nil {
@@ -25,5 +26,5 @@ func runView(e *env, args []string) error {
 			return inputerr.Wrap(p, err)
 		}
 	}
-	return app.Run(app.Options{Paths: paths, Screenshot: *shot, Meeting: *meeting, DemoDir: *demoDir})
+	return app.Run(app.Options{Paths: paths, Screenshot: *shot, Meeting: *meeting, DemoDir: *demoDir, Model: *model})
 }
