@@ -10,6 +10,7 @@ import (
 	"path/filepath"
 	"strings"
 
+	"github.com/klauspost/compress/gzip"
 	"github.com/klauspost/pgzip"
 
 	"brightfold/inputerr"
@@ -150,7 +151,7 @@ func imagePath(hdr string) (string, error) {
 
 // openMaybeGzip opens path and, when it starts with the gzip magic bytes,
 // returns a decompressing reader. size is the file's size on disk.
-func openMaybeGzip(path string) (r io.Reader, gz *pgzip.Reader, f *os.File, size int64, err error) {
+func openMaybeGzip(path string) (r io.Reader, gz gunzip, f *os.File, size int64, err error) {
 	f, err = os.Open(path)
 	if err != nil {
 		return nil, nil, nil, 0, err
@@ -163,7 +164,7 @@ func openMaybeGzip(path string) (r io.Reader, gz *pgzip.Reader, f *os.File, size
 	br := bufio.NewReaderSize(f, 1<<16)
 	magic, _ := br.Peek(2)
 	if len(magic) == 2 && magic[0] == 0x1f && magic[1] == 0x8b {
-		gz, err = pgzip.NewReader(br)
+		gz, err = newGunzip(br, st.Size())
 		if err != nil {
 			f.Close()
 			return nil, nil, nil, 0, fmt.Errorf("corrupt gzip data: %w", err)
@@ -171,6 +172,21 @@ func openMaybeGzip(path string) (r io.Reader, gz *pgzip.Reader, f *os.File, size
 		return gz, gz, f, st.Size(), nil
 	}
 	return br, nil, f, st.Size(), nil
+}
+
+// gunzip is a gzip stream reader.
+type gunzip interface {
+	io.Reader
+	Close() error
+}
+
+// newGunzip decompresses large files on a second core (pgzip reads ahead
+// while the caller converts voxels) and small ones without its buffers.
+func newGunzip(r io.Reader, size int64) (gunzip, error) {
+	if size < 1<<20 {
+		return gzip.NewReader(r)
+	}
+	return pgzip.NewReader(r)
 }
 
 // readHeaderPrefix returns the first bytes of the (decompressed) file, enough

@@ -49,6 +49,7 @@ func (c niiRefCase) arg() string { return c.path + "@" + strconv.Itoa(c.index) }
 // the axis code, and the voxel min, max and sum with nibabel 5.0's
 // img.affine, aff2axcodes and get_fdata (testdata/nifti_ref.py).
 func TestNIfTIAgainstNibabel(t *testing.T) {
+	t.Parallel()
 	niiNeedNibabel(t)
 	nb := refcheck.Path(t, niiNibabelDir)
 	gd := niiGoniiTestData(t)

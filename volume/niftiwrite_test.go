@@ -38,20 +38,31 @@ func niiNeedNibabel(t testing.TB) {
 	refcheck.PythonModule(t, "nibabel")
 }
 
-func niiNibabelInfo(t testing.TB, path string, index int) niiRefInfo {
+// niiBatch runs several nifti_ref.py commands in one Python process (nibabel's
+// import dominates the time of each call) and returns their JSON results.
+func niiBatch(t testing.TB, jobs [][]string) []json.RawMessage {
 	t.Helper()
-	var ri niiRefInfo
-	refcheck.RunPython(t, niftiRef, &ri, "info", path, strconv.Itoa(index))
-	return ri
+	b, err := json.Marshal(jobs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := filepath.Join(t.TempDir(), "jobs.json")
+	if err := os.WriteFile(p, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	var out []json.RawMessage
+	refcheck.RunPython(t, niftiRef, &out, "batch", p)
+	if len(out) != len(jobs) {
+		t.Fatalf("nifti_ref.py batch: %d results for %d jobs", len(out), len(jobs))
+	}
+	return out
 }
 
-// niiNibabelData returns nibabel's get_fdata() of frame index, first index fastest.
-func niiNibabelData(t testing.TB, path string, index int) []float32 {
+func niiDecode(t testing.TB, raw json.RawMessage, v any) {
 	t.Helper()
-	out := filepath.Join(t.TempDir(), "ref.f32")
-	var meta map[string]any
-	refcheck.RunPython(t, niftiRef, &meta, "dump", path, out, strconv.Itoa(index))
-	return niiReadF32(t, out)
+	if err := json.Unmarshal(raw, v); err != nil {
+		t.Fatalf("decode reference result: %v\n%s", err, raw)
+	}
 }
 
 func niiReadF32(t testing.TB, path string) []float32 {
@@ -108,58 +119,56 @@ func niiCloseAffine(a, b [4][4]float64, tol float64) bool {
 // (quatern_b/c/d, qoffset, pixdim[0] = qfac), the same data after scl_slope
 // and scl_inter, and the descrip field.
 func TestWriteNIfTIThroughNibabel(t *testing.T) {
+	t.Parallel()
 	niiNeedNibabel(t)
 	v := niiTestVolume([3]int{7, 6, 5})
+	lo, hi, _ := v.Stats()
 	dir := t.TempDir()
-	for _, tc := range []struct {
+	cases := []struct {
 		name string
 		dt   DataType
-		tol  float64 // largest allowed voxel error
+		tol  float64 // largest allowed voxel error: half a quantisation step
 	}{
 		{"f32.nii", DTFloat32, 0},
 		{"f32.nii.gz", DTFloat32, 0},
-		{"i16.nii.gz", DTInt16, 0},
-		{"u8.nii", DTUint8, 0},
-	} {
-		t.Run(tc.name, func(t *testing.T) {
-			_, hi, _ := v.Stats()
-			lo, _, _ := v.Stats()
-			tol := tc.tol
-			switch tc.dt {
-			case DTInt16:
-				tol = (hi - lo) / 65535 * 0.51
-			case DTUint8:
-				tol = (hi - lo) / 255 * 0.51
-			}
-			p := filepath.Join(dir, tc.name)
-			if err := WriteNIfTI(p, v, NIfTIWriteOptions{DataType: tc.dt}); err != nil {
-				t.Fatal(err)
-			}
-			ri := niiNibabelInfo(t, p, 0)
-			if !niiCloseAffine(ri.Affine, v.Affine, 1e-5) {
-				t.Errorf("nibabel affine %v, wrote %v", ri.Affine, v.Affine)
-			}
-			if ri.Qform == nil || !niiCloseAffine(*ri.Qform, v.Affine, 1e-5) {
-				t.Errorf("nibabel qform %v, wrote %v", ri.Qform, v.Affine)
-			}
-			if ri.Descrip == nil || *ri.Descrip != notice.Short {
-				t.Errorf("descrip %v, want %q", ri.Descrip, notice.Short)
-			}
-			if ri.Axcodes != v.Affine.Orientation() {
-				t.Errorf("axcodes %s, ours %s", ri.Axcodes, v.Affine.Orientation())
-			}
-			got := niiNibabelData(t, p, 0)
-			if len(got) != len(v.Data) {
-				t.Fatalf("nibabel read %d voxels, wrote %d", len(got), len(v.Data))
-			}
-			worst := 0.0
-			for i := range got {
-				worst = math.Max(worst, math.Abs(float64(got[i])-float64(v.Data[i])))
-			}
-			if worst > tol+1e-6*hi {
-				t.Errorf("largest voxel error %g > %g", worst, tol)
-			}
-		})
+		{"i16.nii.gz", DTInt16, (hi - lo) / 65535 * 0.51},
+		{"u8.nii", DTUint8, (hi - lo) / 255 * 0.51},
+	}
+	var jobs [][]string
+	for _, tc := range cases {
+		p := filepath.Join(dir, tc.name)
+		if err := WriteNIfTI(p, v, NIfTIWriteOptions{DataType: tc.dt}); err != nil {
+			t.Fatal(err)
+		}
+		jobs = append(jobs, []string{"info", p}, []string{"dump", p, p + ".f32"})
+	}
+	res := niiBatch(t, jobs)
+	for n, tc := range cases {
+		var ri niiRefInfo
+		niiDecode(t, res[2*n], &ri)
+		if !niiCloseAffine(ri.Affine, v.Affine, 1e-5) {
+			t.Errorf("%s: nibabel affine %v, wrote %v", tc.name, ri.Affine, v.Affine)
+		}
+		if ri.Qform == nil || !niiCloseAffine(*ri.Qform, v.Affine, 1e-5) {
+			t.Errorf("%s: nibabel qform %v, wrote %v", tc.name, ri.Qform, v.Affine)
+		}
+		if ri.Descrip == nil || *ri.Descrip != notice.Short {
+			t.Errorf("%s: descrip %v, want %q", tc.name, ri.Descrip, notice.Short)
+		}
+		if m, _ := ClosestAxes(v.Affine); ri.Axcodes != m.Code() {
+			t.Errorf("%s: axcodes %s, ours %s", tc.name, ri.Axcodes, m.Code())
+		}
+		got := niiReadF32(t, filepath.Join(dir, tc.name+".f32"))
+		if len(got) != len(v.Data) {
+			t.Fatalf("%s: nibabel read %d voxels, wrote %d", tc.name, len(got), len(v.Data))
+		}
+		worst := 0.0
+		for i := range got {
+			worst = math.Max(worst, math.Abs(float64(got[i])-float64(v.Data[i])))
+		}
+		if worst > tc.tol+1e-6*hi {
+			t.Errorf("%s: largest voxel error %g > %g", tc.name, worst, tc.tol)
+		}
 	}
 }
 
@@ -232,6 +241,7 @@ func TestWriteNIfTIRefuses(t *testing.T) {
 // checked against nibabel's reading of the qform (NIfTI-1 header, quatern_b/c/d
 // and pixdim[0] = qfac), on right- and left-handed rotations.
 func TestWriteNIfTIQformBranches(t *testing.T) {
+	t.Parallel()
 	niiNeedNibabel(t)
 	rot := func(axis [3]float64, ang float64) [3][3]float64 {
 		n := math.Sqrt(axis[0]*axis[0] + axis[1]*axis[1] + axis[2]*axis[2])
@@ -253,6 +263,9 @@ func TestWriteNIfTIQformBranches(t *testing.T) {
 		"leftflip": {{-1, 0, 0}, {0, 1, 0}, {0, 0, 1}},
 	}
 	dir := t.TempDir()
+	var jobs [][]string
+	var wrote []Affine
+	var names []string
 	for name, r := range cases {
 		for _, left := range []bool{false, true} {
 			v := niiTestVolume([3]int{3, 4, 2})
@@ -265,14 +278,20 @@ func TestWriteNIfTIQformBranches(t *testing.T) {
 					}
 				}
 			}
-			p := filepath.Join(dir, name+".nii")
+			p := filepath.Join(dir, name+strconv.FormatBool(left)+".nii")
 			if err := WriteNIfTI(p, v, NIfTIWriteOptions{}); err != nil {
 				t.Fatal(err)
 			}
-			ri := niiNibabelInfo(t, p, 0)
-			if ri.Qform == nil || !niiCloseAffine(*ri.Qform, v.Affine, 1e-5) {
-				t.Errorf("%s left=%v: nibabel qform %v, wrote %v", name, left, ri.Qform, v.Affine)
-			}
+			jobs = append(jobs, []string{"info", p})
+			wrote = append(wrote, v.Affine)
+			names = append(names, filepath.Base(p))
+		}
+	}
+	for n, raw := range niiBatch(t, jobs) {
+		var ri niiRefInfo
+		niiDecode(t, raw, &ri)
+		if ri.Qform == nil || !niiCloseAffine(*ri.Qform, wrote[n], 1e-5) {
+			t.Errorf("%s: nibabel qform %v, wrote %v", names[n], ri.Qform, wrote[n])
 		}
 	}
 }

@@ -22,6 +22,7 @@ type niiCanonRef struct {
 // int16.nii.gz, and files we write with every axis permutation and flip
 // pattern on an oblique grid.
 func TestReorientAgainstNibabel(t *testing.T) {
+	t.Parallel()
 	niiNeedNibabel(t)
 	nb := refcheck.Path(t, niiNibabelDir)
 	gd := niiGoniiTestData(t)
@@ -52,7 +53,12 @@ func TestReorientAgainstNibabel(t *testing.T) {
 		}
 		paths = append(paths, p)
 	}
-	for _, p := range paths {
+	var jobs [][]string
+	for n, p := range paths {
+		jobs = append(jobs, []string{"canonical", p, filepath.Join(dir, "canon"+strconv.Itoa(n)+".f32")})
+	}
+	res := niiBatch(t, jobs)
+	for n, p := range paths {
 		v, err := Load([]string{p}, LoadOptions{})
 		if err != nil {
 			t.Fatal(err)
@@ -61,10 +67,9 @@ func TestReorientAgainstNibabel(t *testing.T) {
 		if err != nil {
 			t.Fatalf("%s: %v", p, err)
 		}
-		out := filepath.Join(dir, "canon.f32")
 		var ref niiCanonRef
-		refcheck.RunPython(t, niftiRef, &ref, "canonical", p, out)
-		want := niiReadF32(t, out)
+		niiDecode(t, res[n], &ref)
+		want := niiReadF32(t, jobs[n][2])
 		name := filepath.Base(p)
 		if r.Dims != [3]int{ref.Shape[0], ref.Shape[1], ref.Shape[2]} {
 			t.Errorf("%s: dims %v, nibabel %v", name, r.Dims, ref.Shape)
@@ -84,6 +89,7 @@ func TestReorientAgainstNibabel(t *testing.T) {
 // TestClosestAxesAgainstNibabel: ClosestAxes(a).Code() equals nibabel's
 // aff2axcodes (io_orientation) on strongly oblique and sheared affines.
 func TestClosestAxesAgainstNibabel(t *testing.T) {
+	t.Parallel()
 	niiNeedNibabel(t)
 	var affs [][4][4]float64
 	for n := 0; n < 60; n++ {

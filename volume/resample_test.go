@@ -23,12 +23,13 @@ func niiWriteF32(t testing.TB, path string, data []float32) {
 	}
 }
 
-// niiScipyResample runs scipy.ndimage.map_coordinates (python3-scipy) on v at
-// the source voxel coordinates inv(v.Affine)·target·(i, j, k, 1).
-func niiScipyResample(t *testing.T, v *Volume, target Affine, dims [3]int, order int, cval float32) []float32 {
+// niiScipyJob is a nifti_ref.py resample job: scipy.ndimage.map_coordinates
+// (python3-scipy) on v at the source voxel coordinates
+// inv(v.Affine)·target·(i, j, k, 1), written to out.
+func niiScipyJob(t *testing.T, v *Volume, target Affine, dims [3]int, order int, cval float32, out string) []string {
 	t.Helper()
 	dir := t.TempDir()
-	in, out, spec := filepath.Join(dir, "in.f32"), filepath.Join(dir, "out.f32"), filepath.Join(dir, "map.json")
+	in, spec := filepath.Join(dir, "in.f32"), filepath.Join(dir, "map.json")
 	niiWriteF32(t, in, v.Data)
 	inv, err := v.Affine.Inverse()
 	if err != nil {
@@ -38,10 +39,8 @@ func niiScipyResample(t *testing.T, v *Volume, target Affine, dims [3]int, order
 	if err := os.WriteFile(spec, b, 0o644); err != nil {
 		t.Fatal(err)
 	}
-	var meta map[string]any
-	refcheck.RunPython(t, niftiRef, &meta, "resample", in, strconv.Itoa(v.Dims[0]), strconv.Itoa(v.Dims[1]),
-		strconv.Itoa(v.Dims[2]), spec, strconv.Itoa(order), strconv.FormatFloat(float64(cval), 'g', -1, 32), out)
-	return niiReadF32(t, out)
+	return []string{"resample", in, strconv.Itoa(v.Dims[0]), strconv.Itoa(v.Dims[1]),
+		strconv.Itoa(v.Dims[2]), spec, strconv.Itoa(order), strconv.FormatFloat(float64(cval), 'g', -1, 32), out}
 }
 
 // niiObliqueTarget is a grid rotated against v's, with other voxel sizes,
@@ -70,6 +69,7 @@ func niiObliqueTarget(v *Volume) (Affine, [3]int) {
 // nibabel's anatomical.nii resampled onto an oblique grid; Nearest equals
 // order=0 wherever scipy's point lies inside the source.
 func TestResampleAgainstScipy(t *testing.T) {
+	t.Parallel()
 	niiNeedNibabel(t)
 	refcheck.PythonModule(t, "scipy.ndimage")
 	v, err := Load([]string{refcheck.Path(t, filepath.Join(niiNibabelDir, "anatomical.nii"))}, LoadOptions{})
@@ -78,15 +78,22 @@ func TestResampleAgainstScipy(t *testing.T) {
 	}
 	target, dims := niiObliqueTarget(v)
 	const fill = -12345
-	for _, tc := range []struct {
+	cases := []struct {
 		interp Interp
 		order  int
-	}{{Trilinear, 1}, {Nearest, 0}} {
+	}{{Trilinear, 1}, {Nearest, 0}}
+	var jobs [][]string
+	dir := t.TempDir()
+	for n, tc := range cases {
+		jobs = append(jobs, niiScipyJob(t, v, target, dims, tc.order, fill, filepath.Join(dir, strconv.Itoa(n)+".f32")))
+	}
+	niiBatch(t, jobs)
+	for n, tc := range cases {
 		got, err := ResampleFill(v, target, dims, tc.interp, fill)
 		if err != nil {
 			t.Fatal(err)
 		}
-		want := niiScipyResample(t, v, target, dims, tc.order, fill)
+		want := niiReadF32(t, jobs[n][len(jobs[n])-1])
 		if len(want) != len(got.Data) {
 			t.Fatalf("%v: scipy gave %d values, we %d", tc.interp, len(want), len(got.Data))
 		}

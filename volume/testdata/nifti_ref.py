@@ -18,7 +18,10 @@ python3-nibabel 5.0 (and numpy/scipy). Run with /usr/bin/python3.
                                       volume IN (first index fastest) at the voxel
                                       coordinates A·(i,j,k,1) for every output voxel
                                       of dims in MAP.json {"affine", "dims"}
-Prints one JSON object on standard output.
+  nifti_ref.py batch JOBS.json        runs a JSON list of commands (each a list of
+                                      the arguments above) in one process and
+                                      prints the list of their results
+Prints the result as JSON on standard output.
 """
 import json
 import sys
@@ -164,49 +167,55 @@ def dump(data, out):
     np.asarray(data, dtype="<f4").ravel(order="F").tofile(out)
 
 
-def main(argv):
-    cmd = argv[1]
+def run(args):
+    """Runs one command (args without the script name) and returns its result."""
+    cmd = args[0]
     if cmd == "infos":
         out = []
-        for arg in argv[2:]:
+        for arg in args[1:]:
             path, _, index = arg.rpartition("@")
             out.append(info(path, int(index or 0)))
-        print(json.dumps(out))
-    elif cmd == "make":
-        print(json.dumps(make(argv[2])))
-    elif cmd == "info":
-        print(json.dumps(info(argv[2], int(argv[3]) if len(argv) > 3 else 0)))
-    elif cmd == "dump":
-        index = int(argv[4]) if len(argv) > 4 else 0
-        data = frame(nib.load(argv[2]), index)
-        dump(data, argv[3])
-        print(json.dumps({"shape": list(data.shape)}))
-    elif cmd == "canonical":
-        img = nib.as_closest_canonical(nib.load(argv[2]))
-        dump(frame(img, 0), argv[3])
-        print(json.dumps({"shape": [int(s) for s in img.shape], "affine": img.affine.tolist(),
-                          "axcodes": "".join(nib.aff2axcodes(img.affine))}))
-    elif cmd == "axcodes":
-        affs = json.load(open(argv[2]))
-        print(json.dumps(["".join(nib.aff2axcodes(np.array(a))) for a in affs]))
-    elif cmd == "resample":
-        from scipy import ndimage
-        dims = [int(a) for a in argv[3:6]]
-        src = np.fromfile(argv[2], dtype="<f4").reshape(dims, order="F").astype(np.float64)
-        spec = json.load(open(argv[6]))
-        a = np.array(spec["affine"], dtype=np.float64)
-        out_dims = spec["dims"]
-        ii, jj, kk = np.meshgrid(*[np.arange(n, dtype=np.float64) for n in out_dims], indexing="ij")
-        pts = np.stack([ii.ravel(order="F"), jj.ravel(order="F"), kk.ravel(order="F"),
-                        np.ones(ii.size)])
-        coords = (a @ pts)[:3]
-        vals = ndimage.map_coordinates(src, coords, order=int(argv[7]), mode="constant",
-                                       cval=float(argv[8]), prefilter=False)
-        np.asarray(vals, dtype="<f4").tofile(argv[9])
-        print(json.dumps({"n": int(vals.size)}))
-    else:
-        raise SystemExit("unknown command " + cmd)
+        return out
+    if cmd == "make":
+        return make(args[1])
+    if cmd == "info":
+        return info(args[1], int(args[2]) if len(args) > 2 else 0)
+    if cmd == "dump":
+        index = int(args[3]) if len(args) > 3 else 0
+        data = frame(nib.load(args[1]), index)
+        dump(data, args[2])
+        return {"shape": list(data.shape)}
+    if cmd == "canonical":
+        img = nib.as_closest_canonical(nib.load(args[1]))
+        dump(frame(img, 0), args[2])
+        return {"shape": [int(s) for s in img.shape], "affine": img.affine.tolist(),
+                "axcodes": "".join(nib.aff2axcodes(img.affine))}
+    if cmd == "axcodes":
+        affs = json.load(open(args[1]))
+        return ["".join(nib.aff2axcodes(np.array(a))) for a in affs]
+    if cmd == "resample":
+        return resample(args[1:])
+    if cmd == "batch":
+        return [run(job) for job in json.load(open(args[1]))]
+    raise SystemExit("unknown command " + cmd)
+
+
+def resample(args):
+    from scipy import ndimage
+    dims = [int(a) for a in args[1:4]]
+    src = np.fromfile(args[0], dtype="<f4").reshape(dims, order="F").astype(np.float64)
+    spec = json.load(open(args[4]))
+    a = np.array(spec["affine"], dtype=np.float64)
+    out_dims = spec["dims"]
+    ii, jj, kk = np.meshgrid(*[np.arange(n, dtype=np.float64) for n in out_dims], indexing="ij")
+    pts = np.stack([ii.ravel(order="F"), jj.ravel(order="F"), kk.ravel(order="F"),
+                    np.ones(ii.size)])
+    coords = (a @ pts)[:3]
+    vals = ndimage.map_coordinates(src, coords, order=int(args[5]), mode="constant",
+                                   cval=float(args[6]), prefilter=False)
+    np.asarray(vals, dtype="<f4").tofile(args[7])
+    return {"n": int(vals.size)}
 
 
 if __name__ == "__main__":
-    main(sys.argv)
+    print(json.dumps(run(sys.argv[1:])))
