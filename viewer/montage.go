@@ -19,7 +19,7 @@ type MontageSpec struct {
 	Interp      Interp
 	Overlay     *OverlayMap // nil: scan only, no colour bar
 	Style       OverlayStyle
-	Title       []string // lines above the planes
+	Title       []string // lines above the planes; the caller leaves identifiers out in Meeting mode
 	PanelHeight int      // height in pixels of the tallest plane (default 320)
 	Crosshair   bool     // mark the point in each plane
 }
