@@ -166,12 +166,21 @@ func readHeaders(paths []string) []headerResult {
 	return out
 }
 
-func readHeaderFile(path string) (*dcmFile, error) {
+func readHeaderFile(path string) (f *dcmFile, err error) {
+	defer recoverAsError(&err)
 	data, err := readBounded(path)
 	if err != nil {
 		return nil, err
 	}
 	return readDICOMHeader(path, data)
+}
+
+// recoverAsError turns a panic while reading one file into that file's
+// error, so that a reader bug on a hostile file cannot crash the program.
+func recoverAsError(err *error) {
+	if r := recover(); r != nil {
+		*err = fmt.Errorf("internal error while reading this file: %v", r)
+	}
 }
 
 // readBounded reads a whole file, refusing one above maxDICOMFileSize.
@@ -295,18 +304,7 @@ func assembleVolume(s *dcmSeries, g seriesGeometry) (*Volume, error) {
 	errs := make([]error, len(files))
 	padded := make([]int64, len(files))
 	parallelFor(len(files), func(i int) {
-		f := files[i]
-		data, err := readBounded(f.path)
-		if err == nil {
-			var raw []byte
-			if raw, err = readPixelBytes(f, data); err == nil {
-				padded[i] = f.excessPadding(len(raw))
-				for _, k := range slot[f] {
-					f.decodeFrame(raw, g.order[k], v.Data[k*n:(k+1)*n])
-				}
-			}
-		}
-		errs[i] = err
+		padded[i], errs[i] = decodeFile(files[i], slot[files[i]], g.order, v.Data, n)
 	})
 	for i, err := range errs {
 		if err != nil {
@@ -318,6 +316,23 @@ func assembleVolume(s *dcmSeries, g seriesGeometry) (*Volume, error) {
 	v.Warnings = append(v.Warnings, g.warnings...)
 	v.Warnings = append(v.Warnings, pixelWarnings(files, padded)...)
 	return v, nil
+}
+
+// decodeFile reads one file's pixels into the slices it holds (slots k of
+// order, n voxels each) and returns the excess padding it carried.
+func decodeFile(f *dcmFile, slots []int, order []dcmFrame, data []float32, n int) (padded int64, err error) {
+	defer recoverAsError(&err)
+	raw, err := readBounded(f.path)
+	if err != nil {
+		return 0, err
+	}
+	if raw, err = readPixelBytes(f, raw); err != nil {
+		return 0, err
+	}
+	for _, k := range slots {
+		f.decodeFrame(raw, order[k], data[k*n:(k+1)*n])
+	}
+	return f.excessPadding(len(raw)), nil
 }
 
 // seriesMeta is the metadata of the first slice, with the stored type.

@@ -93,7 +93,7 @@ func unsupportedSyntax(ts string) error {
 		name = info.Name
 	}
 	return fmt.Errorf("transfer syntax %s %s is not supported (only uncompressed DICOM is read; "+
-		"convert with a decompressing tool first)", ts, name)
+		"convert with a decompressing tool first)", printable(ts), name)
 }
 
 func inflate(b []byte) ([]byte, error) {
@@ -139,7 +139,7 @@ func (w *dcmWalker) fileMeta(pos int) (int, string, error) {
 	if err != nil {
 		return 0, "", err
 	}
-	if h.tag == tag.FileMetaInformationGroupLength && !h.undefined && h.vr == "UL" && h.vl == 4 {
+	if h.tag == tag.FileMetaInformationGroupLength && h.vr == "UL" && h.vl == 4 && h.value+4 <= end {
 		groupLen := int64(w.u32(h.value))
 		pos = h.value + 4
 		if groupLen > int64(end-pos) {
@@ -369,11 +369,22 @@ func (w *dcmWalker) rawItems(pos, end int, pixels bool) (int, error) {
 	}
 }
 
-// dcmTagName formats a tag as "(gggg,eeee) Keyword".
+// dcmTagName formats a tag as "Keyword (gggg,eeee)".
 func dcmTagName(t tag.Tag) string {
 	s := fmt.Sprintf("(%04X,%04X)", t.Group, t.Element)
 	if info, err := tag.Find(t); err == nil {
-		s += " " + info.Keyword
+		s = info.Keyword + " " + s
 	}
 	return s
+}
+
+// printable replaces control characters of header text, so that values
+// from a file can neither break an error line nor a screen.
+func printable(s string) string {
+	return strings.Map(func(r rune) rune {
+		if r < 0x20 || r == 0x7f || (r >= 0x80 && r < 0xa0) {
+			return ' '
+		}
+		return r
+	}, s)
 }

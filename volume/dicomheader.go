@@ -390,7 +390,7 @@ func (m elemMap) str(t tag.Tag) string {
 	if len(v) == 0 {
 		return ""
 	}
-	return strings.TrimSpace(v[0])
+	return strings.TrimSpace(printable(v[0]))
 }
 
 // strs returns every value of a string element.
