@@ -58,7 +58,96 @@ func RunChecks(c *Card, f CaseFacts, ms ModelScores) []fitcheck.Check {
 	out = append(out, headerChecks(c.OOD.Envelope, f)...)
 	out = append(out, imageChecks(c.OOD, f)...)
 	out = append(out, modelChecks(c, ms)...)
+	for i := range out {
+		out[i].Severity = severity(c, out[i], f)
+		if !out[i].Pass && !(out[i].Severity > 1) {
+			out[i].Severity = math.Nextafter(1, 2) // keep "fails ⟺ severity > 1" at edges
+		}
+		if out[i].Pass && out[i].Severity > 1 {
+			out[i].Severity = 1
+		}
+	}
 	return out
+}
+
+// maxSeverity caps severities so that a value of 0 or an infinity stays finite.
+const maxSeverity = 100
+
+// severity is the check's value on a common scale: ≤ 1 when it passes,
+// > 1 when it fails, growing with the distance beyond the threshold. Ranges
+// use the distance from the nearer end in units of the range's width; upper
+// limits the ratio value/limit; lower limits limit/value; booleans 0 or 2.
+func severity(c *Card, ch fitcheck.Check, f CaseFacts) float64 {
+	e := c.OOD.Envelope
+	th := c.OOD.Thresholds
+	var s float64
+	switch ch.Name {
+	case CheckSpacing:
+		s = rangeSeverity(ch.Value, e.SpacingMm)
+	case CheckSliceThickness:
+		s = rangeSeverity(ch.Value, e.SliceThicknessMm)
+	case CheckHeadVolume:
+		s = rangeSeverity(ch.Value, e.HeadVolumeMl)
+	case CheckHeadAPLR:
+		s = rangeSeverity(ch.Value, e.HeadAPOverLR)
+	case CheckHeadSIAP:
+		s = rangeSeverity(ch.Value, e.HeadSIOverAP)
+	case CheckNoise:
+		s = rangeSeverity(ch.Value, e.NoiseRatio)
+	case CheckFOV:
+		s = ratio(1, ch.Value)
+	case CheckSlices:
+		s = ratio(float64(e.MinSlices), ch.Value)
+	case CheckAnisotropy:
+		s = ratio(ch.Value, e.MaxAnisotropy)
+	case CheckOrientation:
+		s = ratio(ch.Value, e.MaxObliquityDeg)
+	case CheckHUSignature:
+		s = math.Min(ratio(f.HUAirFraction, c.OOD.Intensity.HUAirFraction), ratio(f.HUBoneFraction, c.OOD.Intensity.HUBoneFraction))
+	case CheckIntensityProfile:
+		s = ratio(ch.Value, th.Wasserstein.Value)
+	case CheckMahalanobis:
+		s = ratio(ch.Value, th.Mahalanobis.Value)
+	case CheckMSP:
+		s = ratio(1-ch.Value, 1-th.MSP.Value)
+	case CheckEnergy:
+		s = 1 + (ch.Value-th.Energy.Value)/math.Max(math.Abs(th.Energy.Value), 1e-9)
+	}
+	if !ch.Pass && (ch.Name == CheckModality || ch.Name == CheckSingleVolume || ch.Name == CheckOrientation && s <= 1) {
+		s = 2
+	}
+	if math.IsNaN(s) {
+		if ch.Pass {
+			return 0
+		}
+		return 2
+	}
+	return math.Max(-maxSeverity, math.Min(maxSeverity, s))
+}
+
+func rangeSeverity(x float64, r Range) float64 {
+	w := r.Max - r.Min
+	if w <= 0 {
+		w = math.Max(math.Abs(r.Max), 1e-9)
+	}
+	switch {
+	case x < r.Min:
+		return 1 + (r.Min-x)/w
+	case x > r.Max:
+		return 1 + (x-r.Max)/w
+	}
+	return 1 - 2*math.Min(x-r.Min, r.Max-x)/w
+}
+
+// ratio is a/b, capped, with a/0 = maxSeverity for a > 0.
+func ratio(a, b float64) float64 {
+	if b <= 0 {
+		if a > 0 {
+			return maxSeverity
+		}
+		return 0
+	}
+	return math.Min(maxSeverity, a/b)
 }
 
 func rangeText(r Range, unit string) string {

@@ -18,6 +18,7 @@ type Result struct {
 	Prediction Prediction
 	Checks     []fitcheck.Check
 	Verdict    string
+	FitScore   float64 // largest required-check severity; out-of-distribution exactly when > 1
 	TimingMs   Timing
 }
 
@@ -78,6 +79,7 @@ func (s *Session) ScoreMany(vs []*volume.Volume) ([]*Result, error) {
 		r.Facts = MeasureCase(v, r.Prepared, c.OOD.Intensity.Levels)
 		r.Checks = RunChecks(c, r.Facts, r.Scores)
 		r.Verdict = fitcheck.Verdict(r.Checks)
+		r.FitScore = fitcheck.Score(r.Checks)
 		r.TimingMs.FitCheck = ms(time.Since(t1))
 		r.TimingMs.Total = r.TimingMs.Preprocess + r.TimingMs.Model + r.TimingMs.FitCheck
 	}

@@ -61,6 +61,7 @@ type Prediction struct {
 // OOD is the fit check.
 type OOD struct {
 	Verdict string  `json:"verdict"`
+	Score   Number  `json:"score"` // largest severity of the required checks; > 1 is out-of-distribution
 	Checks  []Check `json:"checks"`
 }
 
@@ -72,6 +73,7 @@ type Check struct {
 	Pass        bool   `json:"pass"`
 	Required    bool   `json:"required"`
 	Explanation string `json:"explanation"`
+	Severity    Number `json:"severity"` // > 1 exactly when the check fails
 }
 
 // Number is a float64 that encodes NaN and infinities as JSON null.

@@ -178,14 +178,15 @@ func scoreReport(input string, v *volume.Volume, b *inference.Bundle, r *inferen
 		Prediction: report.Prediction{Label: r.Prediction.Label, Probability: r.Prediction.Probability,
 			PositiveClass: c.PositiveClass, Probabilities: r.Prediction.Probabilities,
 			Temperature: r.Prediction.Temperature, Uncalibrated: r.Prediction.Uncalibrated},
-		OOD: report.OOD{Verdict: r.Verdict},
+		OOD: report.OOD{Verdict: r.Verdict, Score: report.Number(r.FitScore)},
 		TimingMs: map[string]float64{"preprocess": r.TimingMs.Preprocess, "model": r.TimingMs.Model,
 			"fit_check": r.TimingMs.FitCheck},
 		Warnings: append([]string{}, v.Warnings...),
 	}
 	for _, ch := range r.Checks {
 		rep.OOD.Checks = append(rep.OOD.Checks, report.Check{Name: ch.Name, Value: report.Number(ch.Value),
-			Threshold: ch.Threshold, Pass: ch.Pass, Required: ch.Required, Explanation: ch.Explanation})
+			Threshold: ch.Threshold, Pass: ch.Pass, Required: ch.Required, Explanation: ch.Explanation,
+			Severity: report.Number(ch.Severity)})
 	}
 	return rep
 }

@@ -23,6 +23,9 @@ type Check struct {
 	Pass        bool    `json:"pass"`
 	Required    bool    `json:"required"`
 	Explanation string  `json:"explanation"`
+	// Severity puts every check on one scale: above 1 exactly when the check
+	// fails, larger the further the value is beyond its threshold.
+	Severity float64 `json:"severity"`
 }
 
 // Verdicts.
@@ -39,6 +42,19 @@ func Verdict(checks []Check) string {
 		}
 	}
 	return InDistribution
+}
+
+// Score is the largest severity among the required checks: the continuous
+// score behind the verdict, which is out-of-distribution exactly when it
+// exceeds 1 (for checks whose severity is set consistently with Pass).
+func Score(checks []Check) float64 {
+	s := 0.0
+	for _, c := range checks {
+		if c.Required && !math.IsNaN(c.Severity) {
+			s = math.Max(s, c.Severity)
+		}
+	}
+	return s
 }
 
 // Softmax returns exp(z_i/T) / Σ_j exp(z_j/T), computed stably.
