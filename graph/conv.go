@@ -120,28 +120,72 @@ func (p *convPlan) segments(r, j0, cols int, fn func(s segment)) {
 	}
 }
 
-// im2col fills col (kdim × cols, row-major) with the input patches of output
-// positions [j0, j0+cols) for the channels starting at x.
-func (p *convPlan) im2col(x []float32, j0, cols int, col []float32) {
+// im2colPanels writes the input patches of output positions [j0, j0+cols)
+// as the packed B operand of the forward product: column panels of
+// gemmNR positions over the kdim patch rows, dst[(j/16*kdim+r)*16+j%16],
+// zero-padded to whole panels.
+func (p *convPlan) im2colPanels(x []float32, j0, cols int, dst []float32) {
+	k16 := p.kdim * gemmNR
+	if cols%gemmNR != 0 {
+		clear(dst[(cols/gemmNR)*k16 : (cols/gemmNR+1)*k16])
+	}
+	p.im2colInto(x, j0, cols, dst, false)
+}
+
+// im2colPanelsT writes the patches as the packed B operand of the weight
+// gradient (the transposed patch matrix): panels of gemmNR patch rows over
+// the cols positions, dst[(r/16*cols+j)*16+r%16], zero-padded.
+func (p *convPlan) im2colPanelsT(x []float32, j0, cols int, dst []float32) {
+	if p.kdim%gemmNR != 0 {
+		last := p.kdim / gemmNR * cols * gemmNR
+		clear(dst[last : last+cols*gemmNR])
+	}
+	p.im2colInto(x, j0, cols, dst, true)
+}
+
+// im2colInto writes patch element (r, j) in the layout of im2colPanels, or
+// of im2colPanelsT when transposed; taps reading padding give zeros.
+func (p *convPlan) im2colInto(x []float32, j0, cols int, dst []float32, transposed bool) {
 	sx := p.w.s[2]
+	k16 := p.kdim * gemmNR
 	for r := 0; r < p.kdim; r++ {
-		dst := col[r*cols : (r+1)*cols]
+		rowT := (r>>4)*cols*gemmNR + r&15
 		p.segments(r, j0, cols, func(s segment) {
-			seg := dst[s.j : s.j+s.n]
-			if !s.inside {
-				clear(seg)
+			a, b, base := 0, 0, 0
+			if s.inside {
+				a, b = min(max(s.xlo-s.ox, 0), s.n), max(min(s.xhi-s.ox, s.n), 0)
+				base = s.row + s.ox*sx + s.offX
+			}
+			b = max(a, b)
+			if transposed {
+				d := dst[rowT+s.j*gemmNR:]
+				for i := 0; i < a; i++ {
+					d[i*gemmNR] = 0
+				}
+				for i := a; i < b; i++ {
+					d[i*gemmNR] = x[base+i*sx]
+				}
+				for i := b; i < s.n; i++ {
+					d[i*gemmNR] = 0
+				}
 				return
 			}
-			a, b := min(max(s.xlo-s.ox, 0), s.n), max(min(s.xhi-s.ox, s.n), 0)
-			clear(seg[:a])
-			clear(seg[max(a, b):])
-			base := s.row + s.ox*sx + s.offX
-			if sx == 1 && b > a {
-				copy(seg[a:b], x[base+a:base+b])
-				return
-			}
-			for i := a; i < b; i++ {
-				seg[i] = x[base+i*sx]
+			// Runs of positions within one panel are contiguous in dst.
+			for i := 0; i < s.n; {
+				j := s.j + i
+				n := min(gemmNR-j&15, s.n-i)
+				d := dst[(j>>4)*k16+r*gemmNR+j&15:][:n]
+				lo, hi := min(max(a-i, 0), n), min(max(b-i, 0), n)
+				clear(d[:lo])
+				if sx == 1 {
+					copy(d[lo:hi], x[base+i+lo:base+i+hi])
+				} else {
+					for q := lo; q < hi; q++ {
+						d[q] = x[base+(i+q)*sx]
+					}
+				}
+				clear(d[hi:])
+				i += n
 			}
 		})
 	}
@@ -183,15 +227,19 @@ func (p *convPlan) tasks() []convTask {
 	return ts
 }
 
-// colView returns the im2col block of a task as a matrix view, computing it
-// into buf unless the convolution is pointwise.
-func (p *convPlan) colView(x []float32, t convTask, buf []float32) mat {
-	xs := x[(t.n*p.c+t.g*p.cg)*p.inPlane:]
-	if p.pointwise {
-		return mat{d: xs[t.j0:], rs: p.inPlane, cs: 1}
-	}
-	p.im2col(xs, t.j0, t.cols, buf)
-	return rowMajor(buf, t.cols)
+// groupInput returns the input channels of a task's sample and group.
+func (p *convPlan) groupInput(x []float32, t convTask) []float32 {
+	return x[(t.n*p.c+t.g*p.cg)*p.inPlane:]
+}
+
+// pointwiseView is the input of a pointwise convolution as the B operand.
+func (p *convPlan) pointwiseView(x []float32, t convTask) mat {
+	return mat{d: p.groupInput(x, t)[t.j0:], rs: p.inPlane, cs: 1}
+}
+
+// panelBufLen is the size of a packed patch buffer for one column block.
+func (p *convPlan) panelBufLen() int {
+	return (p.kdim + gemmNR) * (p.block + gemmNR)
 }
 
 func (k *convKernel) inputs(in []*Tensor) (x, wt, b *Tensor, p *convPlan, err error) {
@@ -225,13 +273,17 @@ func (k *convKernel) forward(in []*Tensor) ([]*Tensor, error) {
 	bufs := make([][]float32, k.workers)
 	parallelWorkers(k.workers, len(tasks), func(w, i int) {
 		t := tasks[i]
-		if bufs[w] == nil && !p.pointwise {
-			bufs[w] = make([]float32, p.kdim*p.block)
-		}
-		col := p.colView(x.Data, t, bufs[w])
 		wv := rowMajor(wt.Data[t.g*p.mg*p.kdim:], p.kdim)
 		yv := y.Data[(t.n*p.m+t.g*p.mg)*p.p+t.j0:]
-		gemm(p.mg, t.cols, p.kdim, wv, col, yv, p.p, false)
+		if p.pointwise {
+			gemm(p.mg, t.cols, p.kdim, wv, p.pointwiseView(x.Data, t), yv, p.p, false)
+		} else {
+			if bufs[w] == nil {
+				bufs[w] = make([]float32, p.panelBufLen())
+			}
+			p.im2colPanels(p.groupInput(x.Data, t), t.j0, t.cols, bufs[w])
+			gemmPackedB(p.mg, t.cols, p.kdim, wv, bufs[w], yv, p.p, false)
+		}
 		if b != nil {
 			for o := 0; o < p.mg; o++ {
 				bias := b.Data[t.g*p.mg+o]
@@ -263,7 +315,7 @@ func (k *convKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, 
 		t := tasks[i]
 		s := &sc[w]
 		if s.col == nil {
-			s.col = make([]float32, p.kdim*p.block)
+			s.col = make([]float32, p.panelBufLen())
 			s.dcol = make([]float32, p.kdim*p.block)
 		}
 		dyv := mat{d: gy.Data[(t.n*p.m+t.g*p.mg)*p.p+t.j0:], rs: p.p, cs: 1}
@@ -271,9 +323,14 @@ func (k *convKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, 
 			if s.dw == nil {
 				s.dw = New(wt.Shape...)
 			}
-			col := p.colView(x.Data, t, s.col)
 			// dW_g += dY_block · colᵀ
-			gemm(p.mg, p.kdim, t.cols, dyv, col.t(), s.dw.Data[t.g*p.mg*p.kdim:], p.kdim, true)
+			dw := s.dw.Data[t.g*p.mg*p.kdim:]
+			if p.pointwise {
+				gemm(p.mg, p.kdim, t.cols, dyv, p.pointwiseView(x.Data, t).t(), dw, p.kdim, true)
+			} else {
+				p.im2colPanelsT(p.groupInput(x.Data, t), t.j0, t.cols, s.col)
+				gemmPackedB(p.mg, p.kdim, t.cols, dyv, s.col, dw, p.kdim, true)
+			}
 		}
 		if needX {
 			if s.dx == nil {

@@ -59,48 +59,54 @@ func (k *poolKernel) plan(x *Tensor) (window, []int, error) {
 	return w, shape, err
 }
 
+// axisTaps describes, for one output coordinate along one axis, the first
+// input coordinate of its window, the taps [lo, hi) that land inside the
+// input, and how many taps land inside the padded input.
+type axisTaps struct{ start, lo, hi, padCount int }
+
+// axisTable precomputes axisTaps for every output coordinate of axis a.
+func (w *window) axisTable(a int) []axisTaps {
+	tab := make([]axisTaps, w.out[a])
+	for o := range tab {
+		t := axisTaps{start: o*w.s[a] - w.padLo[a], lo: w.k[a]}
+		for k := 0; k < w.k[a]; k++ {
+			p := t.start + k*w.d[a]
+			if p >= -w.padLo[a] && p < w.in[a]+w.padHi[a] {
+				t.padCount++
+			}
+			if p >= 0 && p < w.in[a] {
+				t.lo, t.hi = min(t.lo, k), k+1
+			}
+		}
+		if t.hi == 0 {
+			t.lo = 0
+		}
+		tab[o] = t
+	}
+	return tab
+}
+
 // each calls fn for every output position o of a plane with the input
 // offsets (within the plane) of the window's taps that fall inside the
 // input, and the tap count a count_include_pad divisor uses.
 func (w *window) each(fn func(o int, taps []int, padCount int)) {
+	tz, ty, tx := w.axisTable(0), w.axisTable(1), w.axisTable(2)
 	taps := make([]int, 0, w.kCount())
 	o := 0
-	for oz := 0; oz < w.out[0]; oz++ {
-		for oy := 0; oy < w.out[1]; oy++ {
-			for ox := 0; ox < w.out[2]; ox++ {
+	for _, az := range tz {
+		for _, ay := range ty {
+			for _, ax := range tx {
 				taps = taps[:0]
-				padCount := 1
-				start := [3]int{oz*w.s[0] - w.padLo[0], oy*w.s[1] - w.padLo[1], ox*w.s[2] - w.padLo[2]}
-				for a := 0; a < 3; a++ {
-					cnt := 0
-					for t := 0; t < w.k[a]; t++ {
-						p := start[a] + t*w.d[a]
-						if p >= -w.padLo[a] && p < w.in[a]+w.padHi[a] {
-							cnt++
-						}
-					}
-					padCount *= cnt
-				}
-				for tz := 0; tz < w.k[0]; tz++ {
-					z := start[0] + tz*w.d[0]
-					if z < 0 || z >= w.in[0] {
-						continue
-					}
-					for ty := 0; ty < w.k[1]; ty++ {
-						y := start[1] + ty*w.d[1]
-						if y < 0 || y >= w.in[1] {
-							continue
-						}
-						for tx := 0; tx < w.k[2]; tx++ {
-							x := start[2] + tx*w.d[2]
-							if x < 0 || x >= w.in[2] {
-								continue
-							}
-							taps = append(taps, (z*w.in[1]+y)*w.in[2]+x)
+				for kz := az.lo; kz < az.hi; kz++ {
+					z := az.start + kz*w.d[0]
+					for ky := ay.lo; ky < ay.hi; ky++ {
+						row := (z*w.in[1] + ay.start + ky*w.d[1]) * w.in[2]
+						for kx := ax.lo; kx < ax.hi; kx++ {
+							taps = append(taps, row+ax.start+kx*w.d[2])
 						}
 					}
 				}
-				fn(o, taps, padCount)
+				fn(o, taps, az.padCount*ay.padCount*ax.padCount)
 				o++
 			}
 		}

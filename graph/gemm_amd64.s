@@ -1,0 +1,65 @@
+#include "textflag.h"
+
+// func kernel4x16AVX2(kb int, a, b, c *float32, ldc int)
+// C[0:4][0:16] += A·B for a packed 4×kb A panel (a[p*4+i]) and a packed
+// kb×16 B panel (b[p*16+j]); C has leading dimension ldc (elements).
+TEXT ·kernel4x16AVX2(SB), NOSPLIT, $0-40
+	MOVQ kb+0(FP), CX
+	MOVQ a+8(FP), SI
+	MOVQ b+16(FP), DI
+	MOVQ c+24(FP), DX
+	MOVQ ldc+32(FP), R8
+	SHLQ $2, R8
+	VXORPS Y0, Y0, Y0
+	VXORPS Y1, Y1, Y1
+	VXORPS Y2, Y2, Y2
+	VXORPS Y3, Y3, Y3
+	VXORPS Y4, Y4, Y4
+	VXORPS Y5, Y5, Y5
+	VXORPS Y6, Y6, Y6
+	VXORPS Y7, Y7, Y7
+	TESTQ CX, CX
+	JE    store
+
+loop:
+	VMOVUPS      (DI), Y8
+	VMOVUPS      32(DI), Y9
+	VBROADCASTSS (SI), Y10
+	VFMADD231PS  Y8, Y10, Y0
+	VFMADD231PS  Y9, Y10, Y1
+	VBROADCASTSS 4(SI), Y11
+	VFMADD231PS  Y8, Y11, Y2
+	VFMADD231PS  Y9, Y11, Y3
+	VBROADCASTSS 8(SI), Y12
+	VFMADD231PS  Y8, Y12, Y4
+	VFMADD231PS  Y9, Y12, Y5
+	VBROADCASTSS 12(SI), Y13
+	VFMADD231PS  Y8, Y13, Y6
+	VFMADD231PS  Y9, Y13, Y7
+	ADDQ         $16, SI
+	ADDQ         $64, DI
+	DECQ         CX
+	JNZ          loop
+
+store:
+	VADDPS  (DX), Y0, Y0
+	VMOVUPS Y0, (DX)
+	VADDPS  32(DX), Y1, Y1
+	VMOVUPS Y1, 32(DX)
+	ADDQ    R8, DX
+	VADDPS  (DX), Y2, Y2
+	VMOVUPS Y2, (DX)
+	VADDPS  32(DX), Y3, Y3
+	VMOVUPS Y3, 32(DX)
+	ADDQ    R8, DX
+	VADDPS  (DX), Y4, Y4
+	VMOVUPS Y4, (DX)
+	VADDPS  32(DX), Y5, Y5
+	VMOVUPS Y5, 32(DX)
+	ADDQ    R8, DX
+	VADDPS  (DX), Y6, Y6
+	VMOVUPS Y6, (DX)
+	VADDPS  32(DX), Y7, Y7
+	VMOVUPS Y7, 32(DX)
+	VZEROUPPER
+	RET
