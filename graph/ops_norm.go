@@ -12,7 +12,10 @@ func init() {
 
 // batchNormKernel is ONNX BatchNormalization in inference mode:
 // Y = scale·(X − mean)/sqrt(var + epsilon) + B per channel (axis 1).
-type batchNormKernel struct{ eps float32 }
+type batchNormKernel struct {
+	eps     float32
+	workers int
+}
 
 func buildBatchNorm(c *buildCtx) (kernel, error) {
 	if c.attrs.int("training_mode", 0) != 0 {
@@ -27,7 +30,7 @@ func buildBatchNorm(c *buildCtx) (kernel, error) {
 	if len(c.node.Outputs) > 1 {
 		return nil, c.unsupported("BatchNormalization with %d outputs (training-mode statistics)", len(c.node.Outputs))
 	}
-	return &batchNormKernel{eps: c.attrs.float("epsilon", 1e-5)}, nil
+	return &batchNormKernel{eps: c.attrs.float("epsilon", 1e-5), workers: c.workers}, nil
 }
 
 // channelParams returns the per-channel multiplier a = scale/sqrt(var+eps)
@@ -63,17 +66,16 @@ func (k *batchNormKernel) forward(in []*Tensor) ([]*Tensor, error) {
 	}
 	y := New(x.Shape...)
 	ch, inner := x.Shape[1], numel(x.Shape[2:])
-	for n := 0; n < x.Shape[0]; n++ {
-		for c := 0; c < ch; c++ {
-			mul := float32(a[c])
-			add := in[2].Data[c] - mul*in[3].Data[c]
-			off := (n*ch + c) * inner
-			src, dst := x.Data[off:off+inner], y.Data[off:off+inner]
-			for i, v := range src {
-				dst[i] = v*mul + add
-			}
+	parallel(k.workers, x.Shape[0]*ch, func(plane int) {
+		c := plane % ch
+		mul := float32(a[c])
+		add := in[2].Data[c] - mul*in[3].Data[c]
+		off := plane * inner
+		src, dst := x.Data[off:off+inner], y.Data[off:off+inner]
+		for i, v := range src {
+			dst[i] = v*mul + add
 		}
-	}
+	})
 	return []*Tensor{y}, nil
 }
 

@@ -144,6 +144,7 @@ func (k *poolKernel) forward(in []*Tensor) ([]*Tensor, error) {
 			if k.isMax {
 				best, arg := argmax(xs, taps)
 				ys[o] = best
+				ind.Ints[pl*outP+o] = -1 // a window wholly in the padding
 				if arg >= 0 {
 					ind.Ints[pl*outP+o] = int64(pl*inP + k.storedIndex(&w, arg))
 				}
@@ -192,6 +193,16 @@ func (k *poolKernel) storedIndex(w *window, off int) int {
 
 func (k *poolKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
 	x := in[0]
+	if k.isMax && k.storageOrder == 0 && len(out) > 1 && out[1] != nil && len(out[1].Ints) == len(gout[0].Data) {
+		// The forward pass's Indices route each gradient to its winner.
+		gx := New(x.Shape...)
+		for i, idx := range out[1].Ints {
+			if idx >= 0 && int(idx) < len(gx.Data) {
+				gx.Data[idx] += gout[0].Data[i]
+			}
+		}
+		return []*Tensor{gx}, nil
+	}
 	w, _, err := k.plan(x)
 	if err != nil {
 		return nil, err

@@ -6,28 +6,9 @@ import (
 )
 
 func init() {
-	register("Relu", func(c *buildCtx) (kernel, error) {
-		return unary(func(x float32) float32 { return max(x, 0) },
-			func(x, y float32) float32 {
-				if x > 0 {
-					return 1
-				}
-				return 0
-			}), nil
-	})
+	register("Relu", func(c *buildCtx) (kernel, error) { return leaky(0, c.workers), nil })
 	register("LeakyRelu", func(c *buildCtx) (kernel, error) {
-		alpha := c.attrs.float("alpha", 0.01)
-		return unary(func(x float32) float32 {
-			if x >= 0 {
-				return x
-			}
-			return alpha * x
-		}, func(x, y float32) float32 {
-			if x > 0 {
-				return 1
-			}
-			return alpha
-		}), nil
+		return leaky(c.attrs.float("alpha", 0.01), c.workers), nil
 	})
 	register("Sigmoid", func(c *buildCtx) (kernel, error) {
 		return unary(sigmoid, func(x, y float32) float32 { return y * (1 - y) }), nil
@@ -69,6 +50,46 @@ func unary(f func(float32) float32, d func(x, y float32) float32) kernel {
 			for i, v := range x.Data {
 				gx.Data[i] = g.Data[i] * d(v, y.Data[i])
 			}
+			return []*Tensor{gx}, nil
+		},
+	}
+}
+
+// leaky is Relu (alpha 0) or LeakyRelu: x for x ≥ 0, alpha·x below; the
+// derivative at 0 is taken as alpha. Written out rather than through unary
+// because these run on every activation of a CNN.
+func leaky(alpha float32, workers int) kernel {
+	return funcKernel{
+		fwd: func(in []*Tensor) ([]*Tensor, error) {
+			x, err := floatIn(in, 0)
+			if err != nil {
+				return nil, err
+			}
+			y := New(x.Shape...)
+			chunks(workers, len(x.Data), func(lo, hi int) {
+				yd := y.Data[lo:hi]
+				for i, v := range x.Data[lo:hi] {
+					if v < 0 {
+						v *= alpha
+					}
+					yd[i] = v
+				}
+			})
+			return []*Tensor{y}, nil
+		},
+		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
+			x, g := in[0], gout[0]
+			gx := New(x.Shape...)
+			chunks(workers, len(x.Data), func(lo, hi int) {
+				gd, gs := gx.Data[lo:hi], g.Data[lo:hi]
+				for i, v := range x.Data[lo:hi] {
+					if v > 0 {
+						gd[i] = gs[i]
+					} else {
+						gd[i] = alpha * gs[i]
+					}
+				}
+			})
 			return []*Tensor{gx}, nil
 		},
 	}

@@ -128,6 +128,20 @@ func scatterAdd(g *Tensor, idx []int, shape []int) *Tensor {
 	return out
 }
 
+// chunks splits [0, n) into ranges of at least 1<<16 elements and runs
+// fn(lo, hi) on them on up to workers goroutines.
+func chunks(workers, n int, fn func(lo, hi int)) {
+	const minChunk = 1 << 16
+	parts := min(workers, max(1, n/minChunk))
+	per := (n + parts - 1) / max(parts, 1)
+	parallel(parts, parts, func(i int) {
+		lo := i * per
+		if lo < n {
+			fn(lo, min(n, lo+per))
+		}
+	})
+}
+
 // parallel runs fn(i) for i in [0, n) on up to workers goroutines.
 func parallel(workers, n int, fn func(i int)) {
 	parallelWorkers(workers, n, func(_, i int) { fn(i) })
