@@ -10,3 +10,16 @@ go test -run '^$' -bench . -benchmem ./...
 # peak resident memory of `brightfold score` in a child process (goal ≤ 600 MB).
 echo "== score overhead (cmd/brightfold BenchmarkScoreOverhead) =="
 go test -run '^$' -bench '^BenchmarkScoreOverhead$' -benchtime 5x ./cmd/brightfold | grep -E '^(Benchmark|ok|FAIL)'
+
+# --- NIfTI loading vs nibabel (issue 2) ---------------------------------------
+# BenchmarkLoadNIfTIGz writes a 256×256×176 int16 .nii.gz into a scratch
+# folder (first run), then times volume.Load on it; scripts/bench-volume.py
+# times nibabel's get_fdata() on the same file and prints the ratio
+# (goal: brightfold/nibabel wall time ≤ 1.0) and both peak memories.
+echo "== NIfTI .nii.gz load vs nibabel get_fdata (volume BenchmarkLoadNIfTIGz) =="
+niidir=$(mktemp -d)
+BRIGHTFOLD_BENCH_DIR=$niidir go test -run '^$' -bench '^BenchmarkLoadNIfTIGz$' -benchtime 1x ./volume >/dev/null
+niiline=$(BRIGHTFOLD_BENCH_DIR=$niidir go test -run '^$' -bench '^BenchmarkLoadNIfTIGz$' -benchtime 10x ./volume | grep '^BenchmarkLoadNIfTIGz')
+echo "$niiline"
+/usr/bin/python3 scripts/bench-volume.py "$niidir/bench-256x256x176-int16.nii.gz" "$niiline"
+rm -rf "$niidir"

@@ -2,6 +2,7 @@ package volume
 
 import (
 	"bufio"
+	"bytes"
 	"encoding/binary"
 	"errors"
 	"fmt"
@@ -24,11 +25,11 @@ const maxDeflateRatio = 1032
 // loadNIfTI reads one 3D frame of a NIfTI-1, NIfTI-2 or Analyze 7.5 image:
 // a .nii or .nii.gz file, or a .hdr/.img pair, each part gzipped or not.
 func loadNIfTI(path string, opts LoadOptions) (*Volume, error) {
-	hdrPath, err := headerPath(path)
+	hdrPath, err := niftiHeaderPath(path)
 	if err != nil {
 		return nil, inputerr.Wrap(path, err)
 	}
-	prefix, err := readHeaderPrefix(hdrPath)
+	prefix, err := readNIfTIHeaderPrefix(hdrPath)
 	if err != nil {
 		return nil, inputerr.Wrap(hdrPath, err)
 	}
@@ -43,14 +44,14 @@ func loadNIfTI(path string, opts LoadOptions) (*Volume, error) {
 	warn = append(warn, w...)
 	imgPath := hdrPath
 	if !h.single {
-		if imgPath, err = imagePath(hdrPath); err != nil {
+		if imgPath, err = niftiImagePath(hdrPath); err != nil {
 			return nil, inputerr.Wrap(hdrPath, err)
 		}
 	}
 	if opts.VolumeIndex < 0 || opts.VolumeIndex >= h.frames() {
 		return nil, inputerr.New(path, "volume index %d is out of range: the image has %d volume(s)", opts.VolumeIndex, h.frames())
 	}
-	data, err := readFrame(imgPath, h, opts.VolumeIndex)
+	data, err := readNIfTIFrame(imgPath, h, opts.VolumeIndex)
 	if err != nil {
 		return nil, inputerr.Wrap(imgPath, err)
 	}
@@ -70,7 +71,7 @@ func loadNIfTI(path string, opts LoadOptions) (*Volume, error) {
 		warn = append(warn, "xyzt_units gives metres or micrometres; the affine is used as millimetres, as nibabel does")
 	}
 	if h.kind == kindAnalyze {
-		if stem, _, _ := splitPairName(hdrPath); fileExists(stem + ".mat") {
+		if stem, _, _ := splitPairName(hdrPath); isRegularFile(stem + ".mat") {
 			warn = append(warn, "an SPM .mat file lies beside this Analyze header; it is not read, the header's geometry is used")
 		}
 	}
@@ -109,23 +110,23 @@ func pairCandidates(p, ext string) []string {
 	return []string{stem + ext, stem + ext + gzExt}
 }
 
-func fileExists(p string) bool {
+func isRegularFile(p string) bool {
 	st, err := os.Stat(p)
 	return err == nil && st.Mode().IsRegular()
 }
 
 func firstExisting(names []string) (string, error) {
 	for _, n := range names {
-		if fileExists(n) {
+		if isRegularFile(n) {
 			return n, nil
 		}
 	}
 	return "", fmt.Errorf("missing file: looked for %s", strings.Join(names, " and "))
 }
 
-// headerPath is the file holding the header: path itself, or for an .img
+// niftiHeaderPath is the file holding the header: path itself, or for an .img
 // the .hdr beside it.
-func headerPath(path string) (string, error) {
+func niftiHeaderPath(path string) (string, error) {
 	n := strings.ToLower(path)
 	if strings.HasSuffix(n, ".img") || strings.HasSuffix(n, ".img.gz") {
 		h, err := firstExisting(pairCandidates(path, ".hdr"))
@@ -137,8 +138,8 @@ func headerPath(path string) (string, error) {
 	return path, nil
 }
 
-// imagePath is the .img beside a pair header.
-func imagePath(hdr string) (string, error) {
+// niftiImagePath is the .img beside a pair header.
+func niftiImagePath(hdr string) (string, error) {
 	if !isHeaderName(hdr) {
 		return "", errors.New("the header's magic says the image data is in a separate .img file, but this is not a .hdr file")
 	}
@@ -164,7 +165,17 @@ func openMaybeGzip(path string) (r io.Reader, gz gunzip, f *os.File, size int64,
 	br := bufio.NewReaderSize(f, 1<<16)
 	magic, _ := br.Peek(2)
 	if len(magic) == 2 && magic[0] == 0x1f && magic[1] == 0x8b {
-		gz, err = newGunzip(br, st.Size())
+		var src io.Reader = br
+		if st.Size() <= maxInMemoryGzip {
+			// Inflating from memory is markedly faster than through bufio.
+			b := make([]byte, st.Size())
+			if _, err := io.ReadFull(br, b); err != nil {
+				f.Close()
+				return nil, nil, nil, 0, err
+			}
+			src = bytes.NewReader(b)
+		}
+		gz, err = newGunzip(src, st.Size())
 		if err != nil {
 			f.Close()
 			return nil, nil, nil, 0, fmt.Errorf("corrupt gzip data: %w", err)
@@ -173,6 +184,10 @@ func openMaybeGzip(path string) (r io.Reader, gz gunzip, f *os.File, size int64,
 	}
 	return br, nil, f, st.Size(), nil
 }
+
+// maxInMemoryGzip is the largest gzip file read into memory before
+// inflating; larger ones (long 4D series) are streamed.
+const maxInMemoryGzip = 256 << 20
 
 // gunzip is a gzip stream reader.
 type gunzip interface {
@@ -189,9 +204,9 @@ func newGunzip(r io.Reader, size int64) (gunzip, error) {
 	return pgzip.NewReader(r)
 }
 
-// readHeaderPrefix returns the first bytes of the (decompressed) file, enough
+// readNIfTIHeaderPrefix returns the first bytes of the (decompressed) file, enough
 // for any header kind.
-func readHeaderPrefix(path string) ([]byte, error) {
+func readNIfTIHeaderPrefix(path string) ([]byte, error) {
 	r, gz, f, _, err := openMaybeGzip(path)
 	if err != nil {
 		return nil, err
@@ -200,11 +215,11 @@ func readHeaderPrefix(path string) ([]byte, error) {
 	if gz != nil {
 		defer gz.Close()
 	}
-	return readPrefix(r, gz != nil)
+	return readNIfTIPrefix(r, gz != nil)
 }
 
-func readPrefix(r io.Reader, gz bool) ([]byte, error) {
-	buf := make([]byte, headerPrefix)
+func readNIfTIPrefix(r io.Reader, gz bool) ([]byte, error) {
+	buf := make([]byte, niftiPrefixLen)
 	n, err := io.ReadFull(r, buf)
 	if err != nil && err != io.ErrUnexpectedEOF && err != io.EOF {
 		if gz {
@@ -215,8 +230,8 @@ func readPrefix(r io.Reader, gz bool) ([]byte, error) {
 	return buf[:n], nil
 }
 
-// readFrame reads frame index of the image data in imgPath.
-func readFrame(imgPath string, h *niftiHeader, index int) ([]float32, error) {
+// readNIfTIFrame reads frame index of the image data in imgPath.
+func readNIfTIFrame(imgPath string, h *niftiHeader, index int) ([]float32, error) {
 	r, gz, f, size, err := openMaybeGzip(imgPath)
 	if err != nil {
 		return nil, err

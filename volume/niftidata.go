@@ -45,7 +45,6 @@ func (d *voxelDecoder) decode(dst []float32, src []byte) {
 }
 
 func (d *voxelDecoder) decodeRange(dst []float32, src []byte) {
-	o := d.order
 	switch d.dt {
 	case DTUint8:
 		src = src[:len(dst)]
@@ -57,26 +56,47 @@ func (d *voxelDecoder) decodeRange(dst []float32, src []byte) {
 		for i := range dst {
 			dst[i] = float32(int8(src[i]))
 		}
-	case DTInt16:
-		src = src[:2*len(dst)]
-		for i := range dst {
-			dst[i] = float32(int16(o.Uint16(src[2*i:])))
-		}
-	case DTUint16:
-		src = src[:2*len(dst)]
-		for i := range dst {
-			dst[i] = float32(o.Uint16(src[2*i:]))
-		}
+	case DTInt16, DTUint16:
+		decode16(dst, src[:2*len(dst)], d.order == binary.BigEndian, d.dt == DTInt16)
 	case DTFloat32:
 		src = src[:4*len(dst)]
-		for i := range dst {
-			dst[i] = math.Float32frombits(o.Uint32(src[4*i:]))
+		if d.order == binary.BigEndian {
+			for i := range dst {
+				dst[i] = math.Float32frombits(binary.BigEndian.Uint32(src[4*i:]))
+			}
+		} else {
+			for i := range dst {
+				dst[i] = math.Float32frombits(binary.LittleEndian.Uint32(src[4*i:]))
+			}
 		}
 	default:
 		d.decodeWide(dst, src)
 		return
 	}
 	d.scale(dst)
+}
+
+// decode16 converts 16-bit voxels; the loops use the concrete byte orders
+// so that the compiler inlines the loads.
+func decode16(dst []float32, src []byte, big, signed bool) {
+	switch {
+	case big && signed:
+		for i := range dst {
+			dst[i] = float32(int16(binary.BigEndian.Uint16(src[2*i:])))
+		}
+	case big:
+		for i := range dst {
+			dst[i] = float32(binary.BigEndian.Uint16(src[2*i:]))
+		}
+	case signed:
+		for i := range dst {
+			dst[i] = float32(int16(binary.LittleEndian.Uint16(src[2*i:])))
+		}
+	default:
+		for i := range dst {
+			dst[i] = float32(binary.LittleEndian.Uint16(src[2*i:]))
+		}
+	}
 }
 
 // decodeWide handles the 32- and 64-bit integer and float64 types, whose

@@ -21,7 +21,7 @@ const (
 // Header sizes (sizeof_hdr) and the largest header prefix we ever read.
 const (
 	nifti2HeaderSize = 540
-	headerPrefix     = nifti2HeaderSize + 4
+	niftiPrefixLen   = nifti2HeaderSize + 4
 )
 
 // niftiHeader is the validated content of a NIfTI-1, NIfTI-2 or Analyze
@@ -68,11 +68,11 @@ func (h *niftiHeader) frames() int {
 
 func (h *niftiHeader) bytesPerVoxel() int { return bitsPerVoxel(h.datatype) / 8 }
 
-// errHeader marks a header problem; the caller adds the file name.
-var errHeader = errors.New("bad NIfTI header")
+// errNIfTIHeader marks a header problem; the caller adds the file name.
+var errNIfTIHeader = errors.New("bad NIfTI header")
 
-func headerErr(format string, args ...any) error {
-	return fmt.Errorf("%w: "+format, append([]any{errHeader}, args...)...)
+func niftiHeaderErr(format string, args ...any) error {
+	return fmt.Errorf("%w: "+format, append([]any{errNIfTIHeader}, args...)...)
 }
 
 // parseNIfTIHeader decodes and validates the header at the start of b.
@@ -80,16 +80,16 @@ func headerErr(format string, args ...any) error {
 // NIfTI magic is read as Analyze 7.5.
 func parseNIfTIHeader(b []byte, pairHeader bool) (*niftiHeader, []string, error) {
 	if len(b) < nifti1HeaderSize {
-		return nil, nil, headerErr("truncated: %d bytes, a NIfTI-1 or Analyze header is %d", len(b), nifti1HeaderSize)
+		return nil, nil, niftiHeaderErr("truncated: %d bytes, a NIfTI-1 or Analyze header is %d", len(b), nifti1HeaderSize)
 	}
-	order, size, err := headerOrder(b)
+	order, size, err := niftiByteOrder(b)
 	if err != nil {
 		return nil, nil, err
 	}
 	var h *niftiHeader
 	if size == nifti2HeaderSize {
 		if len(b) < nifti2HeaderSize {
-			return nil, nil, headerErr("truncated: %d bytes, a NIfTI-2 header is %d", len(b), nifti2HeaderSize)
+			return nil, nil, niftiHeaderErr("truncated: %d bytes, a NIfTI-2 header is %d", len(b), nifti2HeaderSize)
 		}
 		h, err = decodeNIfTI2(b, order)
 	} else {
@@ -102,15 +102,15 @@ func parseNIfTIHeader(b []byte, pairHeader bool) (*niftiHeader, []string, error)
 	return h, warn, err
 }
 
-// headerOrder finds the byte order from sizeof_hdr (348 for NIfTI-1 and
+// niftiByteOrder finds the byte order from sizeof_hdr (348 for NIfTI-1 and
 // Analyze, 540 for NIfTI-2), read both ways.
-func headerOrder(b []byte) (binary.ByteOrder, int, error) {
+func niftiByteOrder(b []byte) (binary.ByteOrder, int, error) {
 	for _, o := range []binary.ByteOrder{binary.LittleEndian, binary.BigEndian} {
 		if s := int32(o.Uint32(b)); s == nifti1HeaderSize || s == nifti2HeaderSize {
 			return o, int(s), nil
 		}
 	}
-	return nil, 0, headerErr("sizeof_hdr is %d; NIfTI-1 and Analyze headers have 348, NIfTI-2 540",
+	return nil, 0, niftiHeaderErr("sizeof_hdr is %d; NIfTI-1 and Analyze headers have 348, NIfTI-2 540",
 		int32(binary.LittleEndian.Uint32(b)))
 }
 
@@ -120,7 +120,7 @@ func headerOrder(b []byte) (binary.ByteOrder, int, error) {
 func decodeNIfTI1(b []byte, order binary.ByteOrder, pairHeader bool) (*niftiHeader, error) {
 	var r gonii.Nii1Header
 	if err := binary.Read(bytes.NewReader(b[:nifti1HeaderSize]), order, &r); err != nil {
-		return nil, headerErr("%v", err)
+		return nil, niftiHeaderErr("%v", err)
 	}
 	h := &niftiHeader{order: order, kind: kindNIfTI1}
 	switch string(r.Magic[:]) {
@@ -129,7 +129,7 @@ func decodeNIfTI1(b []byte, order binary.ByteOrder, pairHeader bool) (*niftiHead
 	case "ni1\x00":
 	default:
 		if !pairHeader {
-			return nil, headerErr("magic is %q, not \"n+1\" (NIfTI-1 single file) nor \"ni1\" (pair)", cString(r.Magic[:]))
+			return nil, niftiHeaderErr("magic is %q, not \"n+1\" (NIfTI-1 single file) nor \"ni1\" (pair)", headerString(r.Magic[:]))
 		}
 		h.kind = kindAnalyze
 	}
@@ -140,11 +140,11 @@ func decodeNIfTI1(b []byte, order binary.ByteOrder, pairHeader bool) (*niftiHead
 	h.datatype, h.bitpix = DataType(r.Datatype), int(r.Bitpix)
 	vo := float64(r.VoxOffset)
 	if math.IsNaN(vo) || math.IsInf(vo, 0) || vo < 0 || vo != math.Trunc(vo) || vo > 1<<40 {
-		return nil, headerErr("vox_offset %v is not a non-negative whole number", vo)
+		return nil, niftiHeaderErr("vox_offset %v is not a non-negative whole number", vo)
 	}
 	h.voxOffset = int64(vo)
 	h.slope, h.inter = float64(r.SclSlope), float64(r.SclInter)
-	h.descrip = cString(r.Descrip[:])
+	h.descrip = headerString(r.Descrip[:])
 	h.intentCode = int(r.IntentCode)
 	h.xyztUnits = int(r.XyztUnits)
 	h.glmax, h.glmin = r.Glmax, r.Glmin
@@ -170,7 +170,7 @@ func decodeNIfTI1(b []byte, order binary.ByteOrder, pairHeader bool) (*niftiHead
 func decodeNIfTI2(b []byte, order binary.ByteOrder) (*niftiHeader, error) {
 	var r gonii.Nii2Header
 	if err := binary.Read(bytes.NewReader(b[:nifti2HeaderSize]), order, &r); err != nil {
-		return nil, headerErr("%v", err)
+		return nil, niftiHeaderErr("%v", err)
 	}
 	h := &niftiHeader{order: order, kind: kindNIfTI2}
 	switch m := string(r.Magic[:]); {
@@ -178,18 +178,18 @@ func decodeNIfTI2(b []byte, order binary.ByteOrder) (*niftiHeader, error) {
 		h.single = true
 	case m == "ni2\x00\r\n\x1a\n":
 	case strings.HasPrefix(m, "n+2\x00") || strings.HasPrefix(m, "ni2\x00"):
-		return nil, headerErr("NIfTI-2 magic %q is damaged (bytes 4-7 should be \\r\\n\\x1a\\n; a text-mode transfer?)", m)
+		return nil, niftiHeaderErr("NIfTI-2 magic %q is damaged (bytes 4-7 should be \\r\\n\\x1a\\n; a text-mode transfer?)", m)
 	default:
-		return nil, headerErr("magic is %q, not \"n+2\" (NIfTI-2 single file) nor \"ni2\" (pair)", cString(r.Magic[:]))
+		return nil, niftiHeaderErr("magic is %q, not \"n+2\" (NIfTI-2 single file) nor \"ni2\" (pair)", headerString(r.Magic[:]))
 	}
 	h.dim, h.pixdim = r.Dim, r.Pixdim
 	h.datatype, h.bitpix = DataType(r.Datatype), int(r.Bitpix)
 	if r.VoxOffset < 0 || r.VoxOffset > 1<<40 {
-		return nil, headerErr("vox_offset %d is out of range", r.VoxOffset)
+		return nil, niftiHeaderErr("vox_offset %d is out of range", r.VoxOffset)
 	}
 	h.voxOffset = r.VoxOffset
 	h.slope, h.inter = r.SclSlope, r.SclInter
-	h.descrip = cString(r.Descrip[:])
+	h.descrip = headerString(r.Descrip[:])
 	h.intentCode = int(r.IntentCode)
 	h.xyztUnits = int(r.XyztUnits)
 	h.qformCode, h.sformCode = int(r.QformCode), int(r.SformCode)
@@ -199,9 +199,9 @@ func decodeNIfTI2(b []byte, order binary.ByteOrder) (*niftiHeader, error) {
 	return h, nil
 }
 
-// cString returns the bytes up to the first NUL, with anything but printable
+// headerString returns the bytes up to the first NUL, with anything but printable
 // ASCII replaced by '?', so a hostile header cannot put control codes on a terminal.
-func cString(b []byte) string {
+func headerString(b []byte) string {
 	if i := bytes.IndexByte(b, 0); i >= 0 {
 		b = b[:i]
 	}
@@ -220,7 +220,7 @@ func (h *niftiHeader) validate() ([]string, error) {
 	var warn []string
 	nd := h.dim[0]
 	if nd < 1 || nd > 7 {
-		return nil, headerErr("dim[0] is %d; it must be 1 to 7 (NIfTI-1 header, dim field)", nd)
+		return nil, niftiHeaderErr("dim[0] is %d; it must be 1 to 7 (NIfTI-1 header, dim field)", nd)
 	}
 	h.ndim = int(nd)
 	for i := 1; i <= 7; i++ {
@@ -229,15 +229,15 @@ func (h *niftiHeader) validate() ([]string, error) {
 			continue
 		}
 		if h.dim[i] < 1 {
-			return nil, headerErr("dim[%d] is %d; dims must be positive", i, h.dim[i])
+			return nil, niftiHeaderErr("dim[%d] is %d; dims must be positive", i, h.dim[i])
 		}
 		if h.dim[i] > MaxVoxels {
-			return nil, headerErr("dim[%d] is %d, too large", i, h.dim[i])
+			return nil, niftiHeaderErr("dim[%d] is %d, too large", i, h.dim[i])
 		}
 	}
 	sp := h.spatial()
 	if _, err := CheckedProduct(sp[:], MaxVoxels); err != nil {
-		return nil, headerErr("%v", err)
+		return nil, niftiHeaderErr("%v", err)
 	}
 	all := make([]int, 7)
 	for i := range all {
@@ -245,16 +245,16 @@ func (h *niftiHeader) validate() ([]string, error) {
 	}
 	bpv := bitsPerVoxel(h.datatype) / 8
 	if !readableType(h.datatype) {
-		return nil, headerErr("datatype %d (%s) is not a scalar type Brightfold reads", h.datatype, dataTypeName(h.datatype))
+		return nil, niftiHeaderErr("datatype %d (%s) is not a scalar type Brightfold reads", h.datatype, dataTypeName(h.datatype))
 	}
 	if _, err := CheckedProduct(append(all, bpv), 1<<50); err != nil {
-		return nil, headerErr("image size: %v", err)
+		return nil, niftiHeaderErr("image size: %v", err)
 	}
 	if h.bitpix != 8*bpv {
 		warn = append(warn, fmt.Sprintf("bitpix is %d but datatype %s has %d bits; using the datatype", h.bitpix, dataTypeName(h.datatype), 8*bpv))
 	}
 	if h.intentCode >= 3000 && h.intentCode < 3100 {
-		return nil, headerErr("intent code %d marks CIFTI-2 matrix data, not a volume", h.intentCode)
+		return nil, niftiHeaderErr("intent code %d marks CIFTI-2 matrix data, not a volume", h.intentCode)
 	}
 	if h.single {
 		min := int64(nifti1VoxOffset)
@@ -262,7 +262,7 @@ func (h *niftiHeader) validate() ([]string, error) {
 			min = nifti2HeaderSize + 4
 		}
 		if h.voxOffset < min {
-			return nil, headerErr("vox_offset %d is inside the header; a single file's data starts at %d or later", h.voxOffset, min)
+			return nil, niftiHeaderErr("vox_offset %d is inside the header; a single file's data starts at %d or later", h.voxOffset, min)
 		}
 	}
 	w, err := h.checkScaling()
@@ -296,7 +296,7 @@ func (h *niftiHeader) checkScaling() ([]string, error) {
 		return nil, nil
 	}
 	if math.IsNaN(c) || math.IsInf(c, 0) {
-		return nil, headerErr("scl_slope is %g but scl_inter is %g", s, c)
+		return nil, niftiHeaderErr("scl_slope is %g but scl_inter is %g", s, c)
 	}
 	return nil, nil
 }
@@ -361,7 +361,7 @@ func (h *niftiHeader) affine() (Affine, []string, error) {
 		return a, warn, err
 	}
 	if err := a.Validate(); err != nil {
-		return a, warn, headerErr("transform: %v", err)
+		return a, warn, niftiHeaderErr("transform: %v", err)
 	}
 	return a, warn, nil
 }
@@ -385,7 +385,7 @@ func (h *niftiHeader) zooms(pad bool) ([3]float64, error) {
 			p = 1
 		}
 		if !(p > 0) || math.IsInf(p, 0) {
-			return z, headerErr("pixdim[%d] is %v; voxel sizes must be positive", i+1, p)
+			return z, niftiHeaderErr("pixdim[%d] is %v; voxel sizes must be positive", i+1, p)
 		}
 		z[i] = p
 	}
@@ -408,7 +408,7 @@ func (h *niftiHeader) qformAffine() (Affine, error) {
 	b, c, d := h.quatern[0], h.quatern[1], h.quatern[2]
 	for _, x := range h.quatern {
 		if math.IsNaN(x) || math.IsInf(x, 0) {
-			return Affine{}, headerErr("quatern_b/c/d %v are not finite", h.quatern)
+			return Affine{}, niftiHeaderErr("quatern_b/c/d %v are not finite", h.quatern)
 		}
 	}
 	w2 := 1 - (b*b + c*c + d*d)
@@ -417,7 +417,7 @@ func (h *niftiHeader) qformAffine() (Affine, error) {
 	case w2 >= 0:
 		a = math.Sqrt(w2)
 	case w2 < quaternionThreshold:
-		return Affine{}, headerErr("quatern_b/c/d %v have norm above 1", h.quatern)
+		return Affine{}, niftiHeaderErr("quatern_b/c/d %v have norm above 1", h.quatern)
 	}
 	if h.pixdim[0] == -1 {
 		z[2] = -z[2]

@@ -73,20 +73,20 @@ func WriteNIfTI(path string, v *Volume, opts NIfTIWriteOptions) error {
 	gz := strings.HasSuffix(strings.ToLower(path), ".gz")
 	return atomicfile.Write(path, func(w io.Writer) error {
 		if !gz {
-			return writeAll(w, hdr, body)
+			return writeParts(w, hdr, body)
 		}
 		zw, err := gzip.NewWriterLevel(w, gzip.DefaultCompression)
 		if err != nil {
 			return err
 		}
-		if err := writeAll(zw, hdr, body); err != nil {
+		if err := writeParts(zw, hdr, body); err != nil {
 			return err
 		}
 		return zw.Close()
 	})
 }
 
-func writeAll(w io.Writer, parts ...[]byte) error {
+func writeParts(w io.Writer, parts ...[]byte) error {
 	bw := bufio.NewWriterSize(w, 1<<20)
 	for _, p := range parts {
 		if _, err := bw.Write(p); err != nil {

@@ -1,0 +1,130 @@
+package volume
+
+import (
+	"math"
+	"math/rand"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"syscall"
+	"testing"
+)
+
+// niiBenchDims is the size of a typical 1 mm T1-weighted head scan.
+var niiBenchDims = [3]int{256, 256, 176}
+
+// niiBenchVolume is a synthetic head-like volume: a bright ellipsoid with
+// smooth intensity changes, a darker core, and noise, so that gzip
+// compresses it about as much as it compresses a real scan.
+func niiBenchVolume() *Volume {
+	v, _ := New(niiBenchDims, Diag([3]float64{1, 1, 1}, [3]float64{-128, -128, -88}))
+	c := [3]float64{128, 128, 88}
+	r := [3]float64{90, 110, 75}
+	forSlices(v.Dims[2], func(k int) {
+		rng := rand.New(rand.NewSource(int64(k)))
+		for j := 0; j < v.Dims[1]; j++ {
+			for i := 0; i < v.Dims[0]; i++ {
+				x, y, z := (float64(i)-c[0])/r[0], (float64(j)-c[1])/r[1], (float64(k)-c[2])/r[2]
+				d := x*x + y*y + z*z
+				val := 0.0
+				if d < 1 {
+					val = 600 + 200*math.Sin(6*x)*math.Cos(5*y) + 100*z
+					if d < 0.3 {
+						val -= 250
+					}
+				}
+				val += 8 * rng.NormFloat64()
+				v.Data[v.Index(i, j, k)] = float32(math.Round(math.Max(val, 0)))
+			}
+		}
+	})
+	return v
+}
+
+// niiBenchFile writes (once) the benchmark's .nii.gz: into
+// $BRIGHTFOLD_BENCH_DIR when set, so that scripts/bench.sh can time nibabel
+// on the same file, else into a temporary folder.
+func niiBenchFile(b *testing.B) string {
+	b.Helper()
+	dir := os.Getenv("BRIGHTFOLD_BENCH_DIR")
+	if dir == "" {
+		dir = b.TempDir()
+	}
+	p := filepath.Join(dir, "bench-256x256x176-int16.nii.gz")
+	if _, err := os.Stat(p); err == nil {
+		return p
+	}
+	if err := WriteNIfTI(p, niiBenchVolume(), NIfTIWriteOptions{DataType: DTInt16}); err != nil {
+		b.Fatal(err)
+	}
+	return p
+}
+
+// peakRSSMB is this process's peak resident memory (VmHWM) in MB.
+func peakRSSMB() float64 {
+	b, err := os.ReadFile("/proc/self/status")
+	if err != nil {
+		return math.NaN()
+	}
+	for _, line := range strings.Split(string(b), "\n") {
+		if f := strings.Fields(line); len(f) >= 2 && f[0] == "VmHWM:" {
+			kb, _ := strconv.ParseFloat(f[1], 64)
+			return kb / 1024
+		}
+	}
+	return math.NaN()
+}
+
+// cpuSeconds is the user and system CPU time of this process so far.
+func cpuSeconds() float64 {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return math.NaN()
+	}
+	return float64(ru.Utime.Nano()+ru.Stime.Nano()) / 1e9
+}
+
+// BenchmarkLoadNIfTIGz loads a 256×256×176 int16 .nii.gz into float32.
+// scripts/bench.sh compares it with nibabel's get_fdata on the same file.
+func BenchmarkLoadNIfTIGz(b *testing.B) {
+	p := niiBenchFile(b)
+	cpu0 := cpuSeconds()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		v, err := Load([]string{p}, LoadOptions{})
+		if err != nil {
+			b.Fatal(err)
+		}
+		if v.Dims != niiBenchDims {
+			b.Fatalf("dims %v", v.Dims)
+		}
+	}
+	b.StopTimer()
+	b.ReportMetric((cpuSeconds()-cpu0)/float64(b.N), "cpu-s/op")
+	b.ReportMetric(peakRSSMB(), "peak-RSS-MB")
+}
+
+// BenchmarkReorient turns a 256×256×176 LPI-stored volume into RAS order.
+func BenchmarkReorient(b *testing.B) {
+	v, _ := New(niiBenchDims, Affine{{0, 0, -1, 90}, {-1, 0, 0, 120}, {0, -1, 0, 100}, {0, 0, 0, 1}})
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := Reorient(v); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkResampleTrilinear resamples a 256×256×176 volume onto an oblique
+// grid of the same size.
+func BenchmarkResampleTrilinear(b *testing.B) {
+	v, _ := New(niiBenchDims, Diag([3]float64{1, 1, 1}, [3]float64{-128, -128, -88}))
+	target, _ := niiObliqueTarget(v)
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := Resample(v, target, niiBenchDims, Trilinear); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
