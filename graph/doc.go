@@ -14,6 +14,9 @@
 //
 // (*Model).AddOutput exposes an intermediate value as an extra graph output,
 // for example the penultimate features, so that ONNX Runtime returns it.
+// (*Model).Clone makes a deep copy (for example to randomise weights), and
+// FoldBatchNorm returns a copy with every BatchNormalization that follows a
+// Conv folded into the convolution's weights and bias.
 //
 // # Tensors
 //
@@ -41,8 +44,9 @@
 // (count_include_pad, ceil_mode), GlobalAveragePool, GlobalMaxPool, Flatten,
 // Reshape, Transpose, Squeeze, Unsqueeze, Concat, Gemm, MatMul, Add, Sub,
 // Mul, Div (broadcasting), Softmax (both the opset < 13 and ≥ 13 meanings),
-// Dropout (inference), Identity, Constant, Shape, Gather and Cast (float32
-// and integer types). SupportedOps lists them.
+// Exp, ReduceSum, ReduceMean, ReduceMax, Dropout (inference), Identity,
+// Constant, Shape, Gather and Cast (float32 and integer types).
+// SupportedOps lists them. Every float op has a backward pass.
 //
 // (*Executor).Forward(inputs) returns a Trace with every value of the pass by
 // name. (*Executor).Backward(trace, seeds) propagates seed gradients (for
@@ -59,9 +63,10 @@
 // vector-Jacobian product, from which the standard LRP rules follow as
 // x ⊙ VJP(s) with s = R/z.
 //
-// Convolutions use im2col column blocks and a packed 4×4 register-tiled
-// matrix product, run on as many goroutines as GOMAXPROCS (or the count
-// given to NewExecutorWorkers). An Executor holds no per-run state and is
+// Convolutions write im2col column blocks straight into packed panels and
+// multiply them with a 4×16 register-tiled kernel (AVX2 and FMA assembly on
+// amd64 CPUs that have them, portable Go otherwise), on as many goroutines
+// as GOMAXPROCS (or the count given to NewExecutorWorkers). An Executor holds no per-run state and is
 // safe for concurrent use while the model is not modified; optimisers may
 // update initializer tensors in place between passes.
 package graph
