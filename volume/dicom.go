@@ -3,6 +3,7 @@ package volume
 import (
 	"errors"
 	"fmt"
+	"io"
 	"io/fs"
 	"os"
 	"path/filepath"
@@ -83,7 +84,7 @@ func scanDICOM(paths []string) (*dcmScan, error) {
 		return nil, inputerr.New("", "no DICOM input given")
 	}
 	sc := &dcmScan{where: paths[0]}
-	explicit, found, err := collectFiles(paths)
+	explicit, found, err := dcmCollectFiles(paths)
 	if err != nil {
 		return nil, err
 	}
@@ -116,8 +117,8 @@ func scanDICOM(paths []string) (*dcmScan, error) {
 	return sc, nil
 }
 
-// collectFiles expands folders recursively (sorted, hidden files skipped).
-func collectFiles(paths []string) (explicit, found []string, err error) {
+// dcmCollectFiles expands folders recursively (sorted, hidden files skipped).
+func dcmCollectFiles(paths []string) (explicit, found []string, err error) {
 	for _, p := range paths {
 		info, err := os.Stat(p)
 		if err != nil {
@@ -159,7 +160,7 @@ type headerResult struct {
 // readHeaders reads the headers of files on all cores, keeping their order.
 func readHeaders(paths []string) []headerResult {
 	out := make([]headerResult, len(paths))
-	parallelFor(len(paths), func(i int) {
+	dcmParallelFor(len(paths), func(i int) {
 		out[i] = headerResult{path: paths[i]}
 		out[i].file, out[i].err = readHeaderFile(paths[i])
 	})
@@ -167,24 +168,60 @@ func readHeaders(paths []string) []headerResult {
 }
 
 func readHeaderFile(path string) (f *dcmFile, err error) {
-	defer recoverAsError(&err)
-	data, err := readBounded(path)
+	defer dcmRecoverAsError(&err)
+	head, size, err := readFileHead(path, dcmHeaderPrefix)
+	if err != nil {
+		return nil, err
+	}
+	if int64(len(head)) < size {
+		f, err := readDICOMHeaderPrefix(path, head, size)
+		if !errors.Is(err, errNeedWhole) {
+			return f, err
+		}
+	}
+	data, err := dcmReadBounded(path)
 	if err != nil {
 		return nil, err
 	}
 	return readDICOMHeader(path, data)
 }
 
-// recoverAsError turns a panic while reading one file into that file's
+// dcmHeaderPrefix is how much of a file the header pass reads first; the
+// headers of single-frame images fit, and pixel data is not read.
+const dcmHeaderPrefix = 16 << 10
+
+// readFileHead reads up to n bytes from the start of a file and returns them
+// with the file's size.
+func readFileHead(path string, n int) ([]byte, int64, error) {
+	fh, err := os.Open(path)
+	if err != nil {
+		return nil, 0, err
+	}
+	defer fh.Close()
+	info, err := fh.Stat()
+	if err != nil {
+		return nil, 0, err
+	}
+	if int64(n) > info.Size() {
+		n = int(info.Size())
+	}
+	buf := make([]byte, n)
+	if _, err := io.ReadFull(fh, buf); err != nil {
+		return nil, 0, err
+	}
+	return buf, info.Size(), nil
+}
+
+// dcmRecoverAsError turns a panic while reading one file into that file's
 // error, so that a reader bug on a hostile file cannot crash the program.
-func recoverAsError(err *error) {
+func dcmRecoverAsError(err *error) {
 	if r := recover(); r != nil {
 		*err = fmt.Errorf("internal error while reading this file: %v", r)
 	}
 }
 
-// readBounded reads a whole file, refusing one above maxDICOMFileSize.
-func readBounded(path string) ([]byte, error) {
+// dcmReadBounded reads a whole file, refusing one above maxDICOMFileSize.
+func dcmReadBounded(path string) ([]byte, error) {
 	info, err := os.Stat(path)
 	if err != nil {
 		return nil, err
@@ -195,8 +232,8 @@ func readBounded(path string) ([]byte, error) {
 	return os.ReadFile(path)
 }
 
-// parallelFor runs body(0..n-1) on up to GOMAXPROCS goroutines.
-func parallelFor(n int, body func(i int)) {
+// dcmParallelFor runs body(0..n-1) on up to GOMAXPROCS goroutines.
+func dcmParallelFor(n int, body func(i int)) {
 	workers := runtime.GOMAXPROCS(0)
 	if workers > n {
 		workers = n
@@ -303,8 +340,8 @@ func assembleVolume(s *dcmSeries, g seriesGeometry) (*Volume, error) {
 	n := dims[0] * dims[1]
 	errs := make([]error, len(files))
 	padded := make([]int64, len(files))
-	parallelFor(len(files), func(i int) {
-		padded[i], errs[i] = decodeFile(files[i], slot[files[i]], g.order, v.Data, n)
+	dcmParallelFor(len(files), func(i int) {
+		padded[i], errs[i] = dcmDecodeSlices(files[i], slot[files[i]], g.order, v.Data, n)
 	})
 	for i, err := range errs {
 		if err != nil {
@@ -318,11 +355,11 @@ func assembleVolume(s *dcmSeries, g seriesGeometry) (*Volume, error) {
 	return v, nil
 }
 
-// decodeFile reads one file's pixels into the slices it holds (slots k of
+// dcmDecodeSlices reads one file's pixels into the slices it holds (slots k of
 // order, n voxels each) and returns the excess padding it carried.
-func decodeFile(f *dcmFile, slots []int, order []dcmFrame, data []float32, n int) (padded int64, err error) {
-	defer recoverAsError(&err)
-	raw, err := readBounded(f.path)
+func dcmDecodeSlices(f *dcmFile, slots []int, order []dcmFrame, data []float32, n int) (padded int64, err error) {
+	defer dcmRecoverAsError(&err)
+	raw, err := dcmReadBounded(f.path)
 	if err != nil {
 		return 0, err
 	}

@@ -50,20 +50,41 @@ type dcmLayout struct {
 // lengths where none may be, items that are not items, deep nesting. It
 // also reports the transfer syntax and where the pixel data is.
 func checkDICOMStructure(data []byte) (dcmLayout, error) {
+	return checkDICOMPrefix(data, int64(len(data)))
+}
+
+// errNeedWhole asks for the whole file: a prefix did not settle the check.
+var errNeedWhole = errors.New("the file's first bytes do not settle its structure")
+
+// checkDICOMPrefix is checkDICOMStructure on the first bytes of a file of
+// size bytes. A prefix is enough when the walk reaches top-level native
+// pixel data that runs exactly to the end of the file; otherwise (any
+// problem, a deflated data set, elements after the pixel data) it returns
+// errNeedWhole and the caller checks the whole file.
+func checkDICOMPrefix(data []byte, size int64) (dcmLayout, error) {
+	prefix := int64(len(data)) < size
+	lay, done, err := walkDICOM(data, size)
+	if prefix && (err != nil || !done) && !(errors.Is(err, errNotDICOM) && len(data) >= 132) {
+		return lay, errNeedWhole
+	}
+	return lay, err
+}
+
+func walkDICOM(data []byte, size int64) (dcmLayout, bool, error) {
 	var lay dcmLayout
 	if len(data) < 132 || string(data[128:132]) != "DICM" {
-		return lay, errNotDICOM
+		return lay, false, errNotDICOM
 	}
 	meta := &dcmWalker{b: data, bo: binary.LittleEndian}
 	pos, ts, err := meta.fileMeta(132)
 	if err != nil {
-		return lay, fmt.Errorf("file meta information: %w", err)
+		return lay, false, fmt.Errorf("file meta information: %w", err)
 	}
 	if ts == "" {
-		return lay, errors.New("file meta information has no TransferSyntaxUID (0002,0010)")
+		return lay, false, errors.New("file meta information has no TransferSyntaxUID (0002,0010)")
 	}
 	lay.transferSyntax = ts
-	w := &dcmWalker{b: data, bo: binary.LittleEndian, lay: &lay}
+	w := &dcmWalker{b: data, bo: binary.LittleEndian, lay: &lay, size: size}
 	switch ts {
 	case tsImplicitLE:
 		w.implicit, lay.implicit = true, true
@@ -72,18 +93,18 @@ func checkDICOMStructure(data []byte) (dcmLayout, error) {
 		w.bo, lay.bigEndian = binary.BigEndian, true
 	case tsDeflatedLE:
 		lay.deflated = true
-		inflated, err := inflate(data[pos:])
+		inflated, err := dcmInflate(data[pos:])
 		if err != nil {
-			return lay, err
+			return lay, false, err
 		}
-		w.b, pos = inflated, 0
+		w.b, w.size, pos = inflated, int64(len(inflated)), 0
 	default:
-		return lay, unsupportedSyntax(ts)
+		return lay, false, unsupportedSyntax(ts)
 	}
 	if _, err := w.elements(pos, len(w.b), 0, false); err != nil {
-		return lay, err
+		return lay, false, err
 	}
-	return lay, nil
+	return lay, w.atEnd, nil
 }
 
 // unsupportedSyntax names a transfer syntax whose pixels are not decoded.
@@ -93,10 +114,10 @@ func unsupportedSyntax(ts string) error {
 		name = info.Name
 	}
 	return fmt.Errorf("transfer syntax %s %s is not supported (only uncompressed DICOM is read; "+
-		"convert with a decompressing tool first)", printable(ts), name)
+		"convert with a decompressing tool first)", dcmPrintable(ts), name)
 }
 
-func inflate(b []byte) ([]byte, error) {
+func dcmInflate(b []byte) ([]byte, error) {
 	r := flate.NewReader(bytes.NewReader(b))
 	defer r.Close()
 	var out bytes.Buffer
@@ -116,6 +137,8 @@ type dcmWalker struct {
 	bo       binary.ByteOrder
 	implicit bool
 	lay      *dcmLayout // nil while walking the file meta group
+	size     int64      // length of the whole data (b may be its first bytes)
+	atEnd    bool       // the walk reached pixel data ending the file
 }
 
 // elemHead is one element's tag, VR and value length as the reader sees them.
@@ -277,6 +300,11 @@ func (w *dcmWalker) untilDelimiter(pos, end, depth int, delim tag.Tag, inSequenc
 // value checks the value of element h and returns the offset after it.
 func (w *dcmWalker) value(h elemHead, end, depth int) (int, error) {
 	room := int64(end - h.value)
+	if h.tag == tag.PixelData && depth == 0 && w.lay != nil && !h.undefined && int64(h.value)+int64(h.vl) == w.size {
+		w.lay.hasPixelData, w.lay.pixelStart, w.lay.pixelLength = true, h.start, int64(h.vl)
+		w.atEnd = true
+		return end, nil
+	}
 	if !h.undefined && int64(h.vl) > room {
 		if h.tag == tag.PixelData && depth == 0 && w.lay != nil && !w.lay.deflated {
 			// Keep the header readable; loading the pixels reports this.
@@ -378,9 +406,9 @@ func dcmTagName(t tag.Tag) string {
 	return s
 }
 
-// printable replaces control characters of header text, so that values
+// dcmPrintable replaces control characters of header text, so that values
 // from a file can neither break an error line nor a screen.
-func printable(s string) string {
+func dcmPrintable(s string) string {
 	return strings.Map(func(r rune) rune {
 		if r < 0x20 || r == 0x7f || (r >= 0x80 && r < 0xa0) {
 			return ' '

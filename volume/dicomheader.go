@@ -88,12 +88,20 @@ func parseWithLibrary(data []byte, opts ...dicom.ParseOption) (ds dicom.Dataset,
 // readDICOMHeader checks the structure of a file's bytes and reads its
 // header without the pixel data.
 func readDICOMHeader(path string, data []byte) (*dcmFile, error) {
-	lay, err := checkDICOMStructure(data)
+	return readDICOMHeaderPrefix(path, data, int64(len(data)))
+}
+
+// readDICOMHeaderPrefix is readDICOMHeader on the first bytes of a file of
+// size bytes; it returns errNeedWhole when they are not enough.
+func readDICOMHeaderPrefix(path string, data []byte, size int64) (*dcmFile, error) {
+	lay, err := checkDICOMPrefix(data, size)
 	if err != nil {
 		return nil, err
 	}
+	// The library reads the header up to the pixel data, which the walk
+	// has already located and checked.
 	src := data
-	if lay.pixelErr != nil {
+	if lay.hasPixelData && !lay.deflated {
 		src = data[:lay.pixelStart]
 	}
 	ds, err := parseWithLibrary(src, dicom.SkipPixelData())
@@ -359,7 +367,7 @@ func planeFrame(posSet, orientSet, measureSet, rescaleSet elemMap) (dcmFrame, er
 	if s := rescaleSet.floats(tag.RescaleIntercept); len(s) > 0 {
 		fr.intercept = s[0]
 	}
-	if !finite(fr.slope) || !finite(fr.intercept) || fr.slope == 0 {
+	if !dcmFinite(fr.slope) || !dcmFinite(fr.intercept) || fr.slope == 0 {
 		return fr, fmt.Errorf("RescaleSlope %v / RescaleIntercept %v unusable", fr.slope, fr.intercept)
 	}
 	return fr, nil
@@ -378,7 +386,7 @@ func checkOrientation(r, c pvec) error {
 	return nil
 }
 
-func finite(x float64) bool { return !math.IsNaN(x) && !math.IsInf(x, 0) }
+func dcmFinite(x float64) bool { return !math.IsNaN(x) && !math.IsInf(x, 0) }
 
 // str returns the first value of a string element, trimmed; "" when absent.
 func (m elemMap) str(t tag.Tag) string {
@@ -390,7 +398,7 @@ func (m elemMap) str(t tag.Tag) string {
 	if len(v) == 0 {
 		return ""
 	}
-	return strings.TrimSpace(printable(v[0]))
+	return strings.TrimSpace(dcmPrintable(v[0]))
 }
 
 // strs returns every value of a string element.
@@ -459,16 +467,16 @@ func (m elemMap) floats(t tag.Tag) []float64 {
 	return nil
 }
 
-// float is the first finite value of a numeric element, or 0.
+// float is the first dcmFinite value of a numeric element, or 0.
 func (m elemMap) float(t tag.Tag) float64 {
 	v := m.floats(t)
-	if len(v) == 0 || !finite(v[0]) {
+	if len(v) == 0 || !dcmFinite(v[0]) {
 		return 0
 	}
 	return v[0]
 }
 
-// vector reads exactly n finite numbers.
+// vector reads exactly n dcmFinite numbers.
 func (m elemMap) vector(t tag.Tag, n int) ([]float64, error) {
 	e := m[t]
 	if e == nil {
@@ -479,7 +487,7 @@ func (m elemMap) vector(t tag.Tag, n int) ([]float64, error) {
 		return nil, fmt.Errorf("%s holds %d numbers, not %d", dcmTagName(t), len(v), n)
 	}
 	for _, x := range v {
-		if !finite(x) {
+		if !dcmFinite(x) {
 			return nil, fmt.Errorf("%s holds %v", dcmTagName(t), x)
 		}
 	}

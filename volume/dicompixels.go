@@ -73,34 +73,47 @@ func (f *dcmFile) decodeFrame(raw []byte, fr dcmFrame, dst []float32) {
 	case 8:
 		src := raw[fr.index*n : (fr.index+1)*n]
 		for p, u := range src {
-			dst[p] = float32(storedValue(uint32(u), 8, unused, f.signed)*slope + inter)
+			dst[p] = float32(dcmStoredValue(uint32(u), 8, unused, f.signed)*slope + inter)
 		}
 	case 16:
 		src := raw[2*fr.index*n : 2*(fr.index+1)*n]
-		if !f.signed && unused == 0 && slope == 1 && inter == 0 {
-			decodeU16(src, bo, dst)
+		if unused == 0 {
+			dcmDecode16(src, bo, f.signed, slope, inter, dst)
 			return
 		}
 		for p := 0; p < n; p++ {
-			dst[p] = float32(storedValue(uint32(bo.Uint16(src[2*p:])), 16, unused, f.signed)*slope + inter)
+			dst[p] = float32(dcmStoredValue(uint32(bo.Uint16(src[2*p:])), 16, unused, f.signed)*slope + inter)
 		}
 	case 32:
 		src := raw[4*fr.index*n : 4*(fr.index+1)*n]
 		for p := 0; p < n; p++ {
-			dst[p] = float32(storedValue(bo.Uint32(src[4*p:]), 32, unused, f.signed)*slope + inter)
+			dst[p] = float32(dcmStoredValue(bo.Uint32(src[4*p:]), 32, unused, f.signed)*slope + inter)
 		}
 	}
 }
 
-func decodeU16(src []byte, bo binary.ByteOrder, dst []float32) {
-	for p := range dst {
-		dst[p] = float32(bo.Uint16(src[2*p:]))
+// dcmDecode16 is the common case of 16 stored bits, without masking.
+func dcmDecode16(src []byte, bo binary.ByteOrder, signed bool, slope, inter float64, dst []float32) {
+	src = src[:2*len(dst)]
+	switch {
+	case signed && slope == 1 && inter == 0:
+		for p := range dst {
+			dst[p] = float32(int16(bo.Uint16(src[2*p:])))
+		}
+	case signed:
+		for p := range dst {
+			dst[p] = float32(float64(int16(bo.Uint16(src[2*p:])))*slope + inter)
+		}
+	default:
+		for p := range dst {
+			dst[p] = float32(float64(bo.Uint16(src[2*p:]))*slope + inter)
+		}
 	}
 }
 
-// storedValue keeps the low bits-unused bits of a bits-wide sample u,
+// dcmStoredValue keeps the low bits-unused bits of a bits-wide sample u,
 // sign-extending them when signed.
-func storedValue(u uint32, bits int, unused uint, signed bool) float64 {
+func dcmStoredValue(u uint32, bits int, unused uint, signed bool) float64 {
 	shift := unused + uint(32-bits)
 	if signed {
 		return float64(int32(u<<shift) >> shift)

@@ -85,8 +85,8 @@ func findGroup(groups []*dcmSeries, fr dcmFrame) *dcmSeries {
 	for _, s := range groups {
 		ref := s.frames[0]
 		if ref.file.rows != fr.file.rows || ref.file.cols != fr.file.cols ||
-			!closeVec(ref.rowDir, fr.rowDir, 1e-3) || !closeVec(ref.colDir, fr.colDir, 1e-3) ||
-			!closeRel(ref.pixelSpacing[0], fr.pixelSpacing[0], 1e-3) || !closeRel(ref.pixelSpacing[1], fr.pixelSpacing[1], 1e-3) ||
+			!dcmCloseVec(ref.rowDir, fr.rowDir, 1e-3) || !dcmCloseVec(ref.colDir, fr.colDir, 1e-3) ||
+			!dcmCloseRel(ref.pixelSpacing[0], fr.pixelSpacing[0], 1e-3) || !dcmCloseRel(ref.pixelSpacing[1], fr.pixelSpacing[1], 1e-3) ||
 			math.Abs(s.te-fr.file.echoTimeMs) > 1e-3 {
 			continue
 		}
@@ -95,11 +95,13 @@ func findGroup(groups []*dcmSeries, fr dcmFrame) *dcmSeries {
 	return nil
 }
 
-func closeVec(a, b pvec, tol float64) bool {
+func dcmCloseVec(a, b pvec, tol float64) bool {
 	return math.Abs(a[0]-b[0]) <= tol && math.Abs(a[1]-b[1]) <= tol && math.Abs(a[2]-b[2]) <= tol
 }
 
-func closeRel(a, b, tol float64) bool { return math.Abs(a-b) <= tol*math.Max(math.Abs(a), math.Abs(b)) }
+func dcmCloseRel(a, b, tol float64) bool {
+	return math.Abs(a-b) <= tol*math.Max(math.Abs(a), math.Abs(b))
+}
 
 // finishSeries orders the series, gives split ones their keys, and fills
 // the listing fields.
@@ -175,7 +177,7 @@ type seriesGeometry struct {
 	warnings []string
 }
 
-// Tolerances of the slice spacing checks, relative to the median spacing.
+// Tolerances of the slice spacing checks, relative to the dcmMedian spacing.
 const (
 	spacingQuiet  = 1e-3 // below this, unevenness is rounding in the headers
 	spacingRefuse = 0.05 // above this, the volume would be distorted
@@ -248,7 +250,7 @@ func sliceStep(frames []dcmFrame, n pvec, warnings *[]string) (pvec, error) {
 	for i := range d {
 		d[i] = frames[i+1].pos.dot(n) - frames[i].pos.dot(n)
 	}
-	med := median(d)
+	med := dcmMedian(d)
 	for i, x := range d {
 		if x < 1e-3*math.Max(med, 1e-3) || x < 1e-4 {
 			return pvec{}, fmt.Errorf("two slices at the same position (%.4g mm along the normal): %s and %s",
@@ -307,7 +309,7 @@ func checkCollinear(frames []dcmFrame, step pvec) error {
 	return nil
 }
 
-func median(x []float64) float64 {
+func dcmMedian(x []float64) float64 {
 	c := append([]float64(nil), x...)
 	sort.Float64s(c)
 	if len(c)%2 == 1 {
@@ -346,7 +348,7 @@ func describeSeries(all []*dcmSeries) string {
 		if d == "" {
 			d = "no description"
 		}
-		p := fmt.Sprintf("%s (%s, %s, %d images)", s.info.Key, d, orDash(s.info.Modality), s.info.Slices)
+		p := fmt.Sprintf("%s (%s, %s, %d images)", s.info.Key, d, dcmOrDash(s.info.Modality), s.info.Slices)
 		if s.info.Problem != "" {
 			p += " [unreadable]"
 		}
@@ -355,7 +357,7 @@ func describeSeries(all []*dcmSeries) string {
 	return strings.Join(parts, "; ")
 }
 
-func orDash(s string) string {
+func dcmOrDash(s string) string {
 	if s == "" {
 		return "-"
 	}
