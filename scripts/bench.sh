@@ -23,3 +23,16 @@ niiline=$(BRIGHTFOLD_BENCH_DIR=$niidir go test -run '^$' -bench '^BenchmarkLoadN
 echo "$niiline"
 /usr/bin/python3 scripts/bench-volume.py "$niidir/bench-256x256x176-int16.nii.gz" "$niiline"
 rm -rf "$niidir"
+
+# --- DICOM series loading vs pydicom (issue 2) --------------------------------
+# BenchmarkLoadDICOMSeries writes a 176-slice 256×256 int16 MR series, times
+# volume.Load on its folder, and times a pydicom loop with numpy stacking on
+# the same files (volume/testdata/dicom_bench.py) in the same run. It reports
+# the ratio of the two wall times (goal: ≤ 1.0) and the peak resident memory
+# (VmHWM) of a process doing only that load, ours and pydicom's.
+echo "== DICOM series load vs pydicom + numpy (volume BenchmarkLoadDICOMSeries) =="
+dcmline=$(go test -run '^$' -bench '^BenchmarkLoadDICOMSeries$' -benchtime 5x -benchmem ./volume | grep '^BenchmarkLoadDICOMSeries')
+echo "$dcmline"
+echo "$dcmline" | awk '{for (i = 3; i < NF; i++) m[$(i+1)] = $i}
+  END {printf "DICOM load: %.0f ms, pydicom %.0f ms, ratio %.2f (goal <= 1.0); peak RSS %.0f MiB, pydicom %.0f MiB\n",
+    m["ns/op"]/1e6, m["pydicom_ms"], m["ratio_vs_pydicom"], m["peak_MiB"], m["pydicom_peak_MiB"]}'
