@@ -307,6 +307,11 @@ func (a *anatomy) newMorph(years, sev float64) morph {
 	return m
 }
 
+// inBox reports whether p is in the bounding box of the blobs.
+func (m *morph) inBox(p [3]float64) bool {
+	return p[0] >= m.lo[0] && p[0] <= m.hi[0] && p[1] >= m.lo[1] && p[1] <= m.hi[1] && p[2] >= m.lo[2] && p[2] <= m.hi[2]
+}
+
 // setBox sets the bounding box of all blobs.
 func (m *morph) setBox() {
 	m.lo, m.hi = m.blobs[0].lo, m.blobs[0].hi
@@ -382,7 +387,7 @@ func region(p [3]float64) float64 {
 
 // inner classifies a point at depth d ≥ 0 inside the brain hull.
 func (a *anatomy) inner(m *morph, p [3]float64, d float64, f *fieldVals, reg float64) Tissue {
-	if p[0] >= m.lo[0] && p[0] <= m.hi[0] && p[1] >= m.lo[1] && p[1] <= m.hi[1] && p[2] >= m.lo[2] && p[2] <= m.hi[2] {
+	if m.inBox(p) {
 		for i := range m.blobs {
 			if m.blobs[i].inside(p, f.low) {
 				return m.blobs[i].tissue
@@ -438,7 +443,9 @@ func (a *anatomy) classify(p [3]float64, f *fieldVals) (Tissue, uint8) {
 		reg = region(p)
 	}
 	t := a.inner(&a.actual, p, d, f, reg)
-	if !a.positive {
+	// The pattern acts only on the deep structures and, through reg, on the
+	// cortex of its regions: elsewhere the base anatomy is the actual one.
+	if !a.positive || (reg == 0 && !a.actual.inBox(p)) {
 		return t, MaskNone
 	}
 	tb := a.inner(&a.base, p, d, f, reg)

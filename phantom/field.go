@@ -48,21 +48,40 @@ func (f field) at(p [3]float64) float64 {
 	return v
 }
 
+// rowSteps holds, for each wave of a field, the phase step and its sine and
+// cosine for one voxel step dp along a row; dp is the same for every row of
+// a case, so these are computed once.
+type rowSteps struct {
+	f            field
+	step, sd, cd []float64
+}
+
+func (f field) steps(dp [3]float64) *rowSteps {
+	r := &rowSteps{f: f, step: make([]float64, len(f)), sd: make([]float64, len(f)), cd: make([]float64, len(f))}
+	for i, w := range f {
+		r.step[i] = w.k[0]*dp[0] + w.k[1]*dp[1] + w.k[2]*dp[2]
+		r.sd[i], r.cd[i] = math.Sincos(r.step[i])
+	}
+	return r
+}
+
 // fillRow sets out[t] to the field at p0 + (first+t)·dp for t in [0, len(out)).
-func (f field) fillRow(out []float64, p0, dp [3]float64, first int) {
+func (r *rowSteps) fillRow(out []float64, p0 [3]float64, first int) {
 	clear(out)
 	i := 0
-	for ; i+1 < len(f); i += 2 {
-		s1, c1, sd1, cd1 := f[i].start(p0, dp, first)
-		s2, c2, sd2, cd2 := f[i+1].start(p0, dp, first)
+	for ; i+1 < len(r.f); i += 2 {
+		s1, c1 := r.start(i, p0, first)
+		s2, c2 := r.start(i+1, p0, first)
+		sd1, cd1, sd2, cd2 := r.sd[i], r.cd[i], r.sd[i+1], r.cd[i+1]
 		for t := range out {
 			out[t] += s1 + s2
 			s1, c1 = s1*cd1+c1*sd1, c1*cd1-s1*sd1
 			s2, c2 = s2*cd2+c2*sd2, c2*cd2-s2*sd2
 		}
 	}
-	if i < len(f) {
-		s, c, sd, cd := f[i].start(p0, dp, first)
+	if i < len(r.f) {
+		s, c := r.start(i, p0, first)
+		sd, cd := r.sd[i], r.cd[i]
 		for t := range out {
 			out[t] += s
 			s, c = s*cd+c*sd, c*cd-s*sd
@@ -70,14 +89,12 @@ func (f field) fillRow(out []float64, p0, dp [3]float64, first int) {
 	}
 }
 
-// start returns amp·sin and amp·cos of the phase at voxel first of the row,
-// and the sine and cosine of the phase step per voxel.
-func (w *wave) start(p0, dp [3]float64, first int) (s, c, sd, cd float64) {
-	step := w.k[0]*dp[0] + w.k[1]*dp[1] + w.k[2]*dp[2]
-	ph := w.k[0]*p0[0] + w.k[1]*p0[1] + w.k[2]*p0[2] + w.phase + float64(first)*step
+// start returns amp·sin and amp·cos of wave i's phase at voxel first of the row.
+func (r *rowSteps) start(i int, p0 [3]float64, first int) (s, c float64) {
+	w := &r.f[i]
+	ph := w.k[0]*p0[0] + w.k[1]*p0[1] + w.k[2]*p0[2] + w.phase + float64(first)*r.step[i]
 	s, c = math.Sincos(ph)
-	sd, cd = math.Sincos(step)
-	return s * w.amp, c * w.amp, sd, cd
+	return s * w.amp, c * w.amp
 }
 
 // rmsK is the root mean square wavenumber (radians per millimetre), the

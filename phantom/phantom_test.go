@@ -273,3 +273,19 @@ func TestRenderRejects(t *testing.T) {
 		t.Error("an unknown shift was accepted")
 	}
 }
+
+// TestFieldRow checks the rotation recurrence of fillRow against direct
+// evaluation of the sum of sines.
+func TestFieldRow(t *testing.T) {
+	f := newField(newRand(1, 0, 99), 7, 15, 40)
+	p0, dp := [3]float64{-80, 3, 12}, [3]float64{0.98, 0.1, -0.05}
+	out := make([]float64, 150)
+	f.steps(dp).fillRow(out, p0, 10)
+	for i, v := range out {
+		s := float64(10 + i)
+		want := f.at([3]float64{p0[0] + s*dp[0], p0[1] + s*dp[1], p0[2] + s*dp[2]})
+		if math.Abs(v-want) > 1e-9 {
+			t.Fatalf("voxel %d: recurrence %v, direct %v", i, v, want)
+		}
+	}
+}

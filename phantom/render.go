@@ -68,6 +68,8 @@ func Render(s Subject, opts Options) (*Case, error) {
 		return nil, err
 	}
 	r := &renderer{s: &s, g: &g, a: newAnatomy(&s), c: newContrast(&s)}
+	r.dp = r.a.toStandardDir([3]float64{g.affine[0][0], g.affine[1][0], g.affine[2][0]})
+	r.fold, r.low, r.shape = s.draw.fold.steps(r.dp), s.draw.low.steps(r.dp), s.draw.shape.steps(r.dp)
 	n := g.len()
 	r.img = make([]float32, n)
 	r.labels = make([]Tissue, n)
@@ -105,6 +107,9 @@ type renderer struct {
 	img    []float32
 	labels []Tissue
 	mask   []uint8
+
+	dp               [3]float64 // one voxel step along i in the standard head frame
+	fold, low, shape *rowSteps
 
 	airOnce sync.Once
 	air     []float32
@@ -182,7 +187,7 @@ func (r *renderer) drawSlice(sc *sliceScratch, k int) {
 	acc := sc.acc
 	clear(acc)
 	fold, low, shape := sc.fold, sc.low, sc.shape
-	dp := a.toStandardDir([3]float64{g.affine[0][0], g.affine[1][0], g.affine[2][0]})
+	dp := r.dp
 	centre := len(g.sub) / 2
 	wsub := 1 / float64(len(g.sub))
 	for si, off := range g.sub {
@@ -193,11 +198,11 @@ func (r *renderer) drawSlice(sc *sliceScratch, k int) {
 			h0, h1 := span(p0, dp, a.head, nx)
 			b0, b1 := span(p0, dp, a.bound, nx)
 			if h1 > h0 {
-				a.d.shape.fillRow(shape[h0:h1], p0, dp, h0)
+				r.shape.fillRow(shape[h0:h1], p0, h0)
 			}
 			if b1 > b0 {
-				a.d.fold.fillRow(fold[b0:b1], p0, dp, b0)
-				a.d.low.fillRow(low[b0:b1], p0, dp, b0)
+				r.fold.fillRow(fold[b0:b1], p0, b0)
+				r.low.fillRow(low[b0:b1], p0, b0)
 			}
 			row := j * nx
 			off3 := k * nx * ny
