@@ -114,19 +114,20 @@ func (s *sampler) nearest(x, y, z float64) float32 {
 }
 
 // corner splits coordinate x on an axis of n voxels into the lower voxel
-// index and the weight of the upper one; ok is false outside [0, n-1].
+// index, the step to the upper one (0 when its weight is 0) and the weight of
+// the upper one; ok is false outside [0, n-1] (with edgeTolerance).
 func corner(x float64, n int) (i0, step int, f float64, ok bool) {
 	top := float64(n - 1)
-	if !(x >= -edgeTolerance && x <= top+edgeTolerance) {
+	switch {
+	case !(x >= -edgeTolerance && x <= top+edgeTolerance):
 		return 0, 0, 0, false
-	}
-	x = math.Min(math.Max(x, 0), top)
-	fl := math.Floor(x)
-	i0 = int(fl)
-	if i0 >= n-1 {
+	case x <= 0:
+		return 0, 0, 0, true
+	case x >= top:
 		return n - 1, 0, 0, true
 	}
-	return i0, 1, x - fl, true
+	i0 = int(x) // x > 0, so truncation is the floor; i0 <= n-2
+	return i0, 1, x - float64(i0), true
 }
 
 func (s *sampler) trilinear(x, y, z float64) float32 {

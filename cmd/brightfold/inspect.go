@@ -241,15 +241,7 @@ func writeInspectText(w io.Writer, r *inspectReport) {
 		if i == 0 {
 			label = "series"
 		}
-		desc := s.Description
-		if desc == "" {
-			desc = "(no description)"
-		}
-		text := fmt.Sprintf("%s  %s %s, %d×%d×%d, %s %s, %d file(s)", s.Key, s.Modality, desc, s.Cols, s.Rows, s.Slices, s.Plane, s.Orientation, s.Files)
-		if s.Problem != "" {
-			text += "  PROBLEM: " + s.Problem
-		}
-		line(label, "%s", text)
+		line(label, "%s", seriesText(s))
 	}
 	for i, warn := range r.Warnings {
 		label := ""
@@ -258,6 +250,29 @@ func writeInspectText(w io.Writer, r *inspectReport) {
 		}
 		line(label, "- %s", warn)
 	}
+}
+
+// seriesText is one line of a series list: key, modality and description,
+// matrix, plane and axis code, files, and the problem if there is one.
+func seriesText(s seriesSummary) string {
+	key := s.Key
+	if key == "" {
+		key = "(no SeriesInstanceUID)"
+	}
+	parts := []string{key}
+	if what := strings.TrimSpace(s.Modality + " " + s.Description); what != "" {
+		parts = append(parts, what)
+	}
+	parts = append(parts, fmt.Sprintf("%d×%d×%d", s.Cols, s.Rows, s.Slices))
+	if where := strings.TrimSpace(s.Plane + " " + s.Orientation); where != "" {
+		parts = append(parts, where)
+	}
+	parts = append(parts, fmt.Sprintf("%d file(s)", s.Files))
+	text := strings.Join(parts, ", ")
+	if s.Problem != "" {
+		text += "; cannot load: " + s.Problem
+	}
+	return text
 }
 
 func writeGeometryText(line func(string, string, ...any), r *inspectReport) {

@@ -180,3 +180,51 @@ func TestInspectBadInput(t *testing.T) {
 		t.Errorf("missing file: exit %d, want 2", code)
 	}
 }
+
+// TestInspectSeriesList: a folder with two series (pydicom's CT_small.dcm and
+// MR_small.dcm) is listed with a note; --series picks one and describes it.
+func TestInspectSeriesList(t *testing.T) {
+	src := refcheck.Path(t, "/usr/lib/python3/dist-packages/pydicom/data/test_files")
+	dir := t.TempDir()
+	for _, n := range []string{"CT_small.dcm", "MR_small.dcm"} {
+		b, err := os.ReadFile(filepath.Join(src, n))
+		if err != nil {
+			refcheck.Missing(t, "%v", err)
+		}
+		if err := os.WriteFile(filepath.Join(dir, n), b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	code, out, errs := runCLI("inspect", dir, "--json")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	var list struct {
+		Format string          `json:"format"`
+		Note   string          `json:"note"`
+		Series []seriesSummary `json:"series"`
+		Dims   []int           `json:"dims"`
+	}
+	if err := json.Unmarshal([]byte(out), &list); err != nil {
+		t.Fatal(err)
+	}
+	if list.Format != "dicom" || len(list.Series) != 2 || list.Note == "" || list.Dims != nil {
+		t.Fatalf("series list: %+v", list)
+	}
+	for _, s := range list.Series {
+		code, out, errs = runCLI("inspect", dir, "--json", "--series", s.Key)
+		if code != 0 {
+			t.Fatalf("--series %s: exit %d: %s", s.Key, code, errs)
+		}
+		var one struct {
+			Dims     []int           `json:"dims"`
+			Metadata volume.Metadata `json:"metadata"`
+		}
+		if err := json.Unmarshal([]byte(out), &one); err != nil {
+			t.Fatal(err)
+		}
+		if len(one.Dims) != 3 || one.Dims[0] != s.Cols || one.Dims[1] != s.Rows || one.Metadata.Modality != s.Modality {
+			t.Errorf("--series %s: dims %v modality %q; listed %d×%d %s", s.Key, one.Dims, one.Metadata.Modality, s.Cols, s.Rows, s.Modality)
+		}
+	}
+}
