@@ -340,10 +340,17 @@ func lpsToRAS(c0, c1, c2, origin pvec) Affine {
 	return a
 }
 
-// describeSeries lists series for an error message, one per line part.
+// maxListed bounds how many series an error message lists.
+const maxListed = 12
+
+// describeSeries lists series for a one-line error message.
 func describeSeries(all []*dcmSeries) string {
 	parts := make([]string, 0, len(all))
-	for _, s := range all {
+	for i, s := range all {
+		if i == maxListed {
+			parts = append(parts, fmt.Sprintf("and %d more", len(all)-maxListed))
+			break
+		}
 		d := s.info.Description
 		if d == "" {
 			d = "no description"

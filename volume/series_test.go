@@ -350,3 +350,61 @@ func TestDICOMMultiframeNibabel(t *testing.T) {
 		t.Errorf("voxel sum %v, nibabel %v", sum, ref.Sum)
 	}
 }
+
+// TestDICOMWarnings: conditions that leave the volume right but deserve a
+// note load with a warning: a gantry-tilt shear (kept in the affine, as the
+// positions give it), slice spacing uneven by less than 5%, a file copied
+// twice, MONOCHROME1 (PS3.3 C.7.6.3.1.2: minimum shown white).
+func TestDICOMWarnings(t *testing.T) {
+	t.Run("shear", func(t *testing.T) {
+		src := dcmObliqueVolume(t, [3]int{4, 4, 5}, true)
+		src.Affine[0][2] += 0.3 // tilt the slice axis by about 10°
+		dir := t.TempDir()
+		if err := WriteDICOMSeries(dir, src, dcmDemoOptions("warn/shear")); err != nil {
+			t.Fatal(err)
+		}
+		v := dcmLoadWarned(t, dir, "sheared")
+		if !dcmAffineClose(v.Affine, src.Affine, 1e-6) {
+			t.Errorf("affine\n%v\nwritten\n%v", v.Affine, src.Affine)
+		}
+	})
+	t.Run("uneven", func(t *testing.T) {
+		dir := t.TempDir()
+		dcmMoveSlice(2, 2.02, 0)(t, dir)
+		dcmLoadWarned(t, dir, "slice spacing varies")
+	})
+	t.Run("copied file", func(t *testing.T) {
+		dir := t.TempDir()
+		files := dcmSmallSeries(t, dir, 3)
+		b, _ := os.ReadFile(files[1])
+		if err := os.WriteFile(filepath.Join(dir, "copy of IM0002.dcm"), b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		if v := dcmLoadWarned(t, dir, "duplicate copies"); v.Dims[2] != 3 {
+			t.Errorf("dims %v", v.Dims)
+		}
+	})
+	t.Run("MONOCHROME1", func(t *testing.T) {
+		dir := t.TempDir()
+		files := dcmSmallSeries(t, dir, 2)
+		for _, f := range files {
+			dcmRewrite(t, f, dcmSet(t, tag.PhotometricInterpretation, []string{"MONOCHROME1"}))
+		}
+		dcmLoadWarned(t, dir, "MONOCHROME1")
+	})
+}
+
+func dcmLoadWarned(t *testing.T, dir, want string) *Volume {
+	t.Helper()
+	v, err := Load([]string{dir}, LoadOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, w := range v.Warnings {
+		if strings.Contains(w, want) {
+			return v
+		}
+	}
+	t.Errorf("warnings %q, want one containing %q", v.Warnings, want)
+	return v
+}
