@@ -56,8 +56,10 @@ const (
 // Wasserstein barycentre); the feature class means and the shared covariance
 // of Lee et al. 2018 (class-centred training features) with Ledoit-Wolf
 // shrinkage, inverted; the temperature minimising validation NLL (Guo et al.
-// 2017); thresholds on the validation cases (the training cases when there
-// are none) at the retention (see FitOptions.Retention). It returns the
+// 2017) on the validation cases (the training cases when there are none);
+// thresholds at the retention (see FitOptions.Retention) on the training
+// cases' leave-one-out scores pooled with the validation cases' scores (see
+// thresholdScores). It returns the
 // reference, the calibration and validation metrics (AUROC of the
 // positive-class probability, ECE with 15 bins before and after scaling,
 // retention achieved).
@@ -80,7 +82,15 @@ func FitReference(c *Card, train, val []FitCase, opt FitOptions) (OODReference, 
 	}
 	tmp := *c
 	tmp.OOD = ref
-	if err := fitThresholds(&tmp, thrCases, opt, thrDesc); err != nil {
+	sc, err := thresholdScores(&tmp, train, val, opt)
+	if err != nil {
+		return ref, Calibration{}, nil, err
+	}
+	desc := fmt.Sprintf("%s (leave-one-out) and %s", opt.TrainDescription, opt.ValidationDescription)
+	if len(val) == 0 {
+		desc = opt.TrainDescription + " (leave-one-out)"
+	}
+	if err := fitThresholds(&tmp, sc, opt, desc); err != nil {
 		return ref, Calibration{}, nil, err
 	}
 	ref.Thresholds = tmp.OOD.Thresholds
@@ -220,16 +230,51 @@ type scored struct {
 	msp, energy, maha, w1 float64
 }
 
-func fitThresholds(c *Card, cases []FitCase, opt FitOptions, desc string) error {
+// thresholdScores are the scores the thresholds are fitted on: for each
+// training case, the Mahalanobis distance to class means and shared
+// covariance fitted without it, and the intensity distance to the mean
+// quantile function of the other training cases (leave-one-out, so that
+// training cases count as unseen ones); for each validation case, the scores
+// against the full reference. MSP and energy are the model's own (on
+// training cases optimistic, which makes those two thresholds lenient).
+func thresholdScores(c *Card, train, val []FitCase, opt FitOptions) ([]scored, error) {
 	var sc []scored
-	for _, fc := range cases {
-		ms, err := ComputeModelScores(c, fc.Output)
-		if err != nil {
-			return fmt.Errorf("fit thresholds: %w", err)
+	for i := range train {
+		rest := make([]FitCase, 0, len(train)-1)
+		rest = append(rest, train[:i]...)
+		rest = append(rest, train[i+1:]...)
+		loo := *c
+		var err error
+		if loo.OOD.Features, err = fitFeatures(c, rest, opt); err != nil {
+			return nil, fmt.Errorf("fit thresholds: leave-one-out without training case %d: %w", i, err)
 		}
-		w := fitcheck.QuantileW1(c.OOD.Intensity.Levels, fc.Facts.Quantiles, c.OOD.Intensity.Quantiles)
-		sc = append(sc, scored{ms.MSP, ms.Energy, ms.Mahalanobis, w})
+		loo.OOD.Intensity = fitIntensity(rest, opt)
+		s, err := scoreCase(&loo, train[i])
+		if err != nil {
+			return nil, err
+		}
+		sc = append(sc, s)
 	}
+	for _, fc := range val {
+		s, err := scoreCase(c, fc)
+		if err != nil {
+			return nil, err
+		}
+		sc = append(sc, s)
+	}
+	return sc, nil
+}
+
+func scoreCase(c *Card, fc FitCase) (scored, error) {
+	ms, err := ComputeModelScores(c, fc.Output)
+	if err != nil {
+		return scored{}, fmt.Errorf("fit thresholds: %w", err)
+	}
+	w := fitcheck.QuantileW1(c.OOD.Intensity.Levels, fc.Facts.Quantiles, c.OOD.Intensity.Quantiles)
+	return scored{ms.MSP, ms.Energy, ms.Mahalanobis, w}, nil
+}
+
+func fitThresholds(c *Card, sc []scored, opt FitOptions, desc string) error {
 	col := func(f func(s scored) float64) []float64 {
 		out := make([]float64, len(sc))
 		for i, s := range sc {
