@@ -467,7 +467,7 @@ func (m elemMap) floats(t tag.Tag) []float64 {
 	return nil
 }
 
-// float is the first dcmFinite value of a numeric element, or 0.
+// float is the first finite value of a numeric element, or 0.
 func (m elemMap) float(t tag.Tag) float64 {
 	v := m.floats(t)
 	if len(v) == 0 || !dcmFinite(v[0]) {
@@ -476,7 +476,7 @@ func (m elemMap) float(t tag.Tag) float64 {
 	return v[0]
 }
 
-// vector reads exactly n dcmFinite numbers.
+// vector reads exactly n finite numbers.
 func (m elemMap) vector(t tag.Tag, n int) ([]float64, error) {
 	e := m[t]
 	if e == nil {

@@ -177,7 +177,7 @@ type seriesGeometry struct {
 	warnings []string
 }
 
-// Tolerances of the slice spacing checks, relative to the dcmMedian spacing.
+// Tolerances of the slice spacing checks, relative to the median spacing.
 const (
 	spacingQuiet  = 1e-3 // below this, unevenness is rounding in the headers
 	spacingRefuse = 0.05 // above this, the volume would be distorted
