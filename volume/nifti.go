@@ -25,6 +25,12 @@ const maxDeflateRatio = 1032
 // loadNIfTI reads one 3D frame of a NIfTI-1, NIfTI-2 or Analyze 7.5 image:
 // a .nii or .nii.gz file, or a .hdr/.img pair, each part gzipped or not.
 func loadNIfTI(path string, opts LoadOptions) (*Volume, error) {
+	return readNIfTI(path, opts, maxInMemoryGzip)
+}
+
+// readNIfTI is loadNIfTI with the size up to which gzip files are inflated
+// from memory rather than streamed.
+func readNIfTI(path string, opts LoadOptions, inMemoryGzip int64) (*Volume, error) {
 	hdrPath, err := niftiHeaderPath(path)
 	if err != nil {
 		return nil, inputerr.Wrap(path, err)
@@ -51,7 +57,7 @@ func loadNIfTI(path string, opts LoadOptions) (*Volume, error) {
 	if opts.VolumeIndex < 0 || opts.VolumeIndex >= h.frames() {
 		return nil, inputerr.New(path, "volume index %d is out of range: the image has %d volume(s)", opts.VolumeIndex, h.frames())
 	}
-	data, err := readNIfTIFrame(imgPath, h, opts.VolumeIndex)
+	data, err := readNIfTIFrame(imgPath, h, opts.VolumeIndex, inMemoryGzip)
 	if err != nil {
 		return nil, inputerr.Wrap(imgPath, err)
 	}
@@ -152,7 +158,7 @@ func niftiImagePath(hdr string) (string, error) {
 
 // openMaybeGzip opens path and, when it starts with the gzip magic bytes,
 // returns a decompressing reader. size is the file's size on disk.
-func openMaybeGzip(path string) (r io.Reader, gz gunzip, f *os.File, size int64, err error) {
+func openMaybeGzip(path string, inMemory int64) (r io.Reader, gz gunzip, f *os.File, size int64, err error) {
 	f, err = os.Open(path)
 	if err != nil {
 		return nil, nil, nil, 0, err
@@ -166,7 +172,7 @@ func openMaybeGzip(path string) (r io.Reader, gz gunzip, f *os.File, size int64,
 	magic, _ := br.Peek(2)
 	if len(magic) == 2 && magic[0] == 0x1f && magic[1] == 0x8b {
 		var src io.Reader = br
-		if st.Size() <= maxInMemoryGzip {
+		if st.Size() <= inMemory {
 			// Inflating from memory is markedly faster than through bufio.
 			b := make([]byte, st.Size())
 			if _, err := io.ReadFull(br, b); err != nil {
@@ -207,7 +213,7 @@ func newGunzip(r io.Reader, size int64) (gunzip, error) {
 // readNIfTIHeaderPrefix returns the first bytes of the (decompressed) file, enough
 // for any header kind.
 func readNIfTIHeaderPrefix(path string) ([]byte, error) {
-	r, gz, f, _, err := openMaybeGzip(path)
+	r, gz, f, _, err := openMaybeGzip(path, 0)
 	if err != nil {
 		return nil, err
 	}
@@ -231,8 +237,8 @@ func readNIfTIPrefix(r io.Reader, gz bool) ([]byte, error) {
 }
 
 // readNIfTIFrame reads frame index of the image data in imgPath.
-func readNIfTIFrame(imgPath string, h *niftiHeader, index int) ([]float32, error) {
-	r, gz, f, size, err := openMaybeGzip(imgPath)
+func readNIfTIFrame(imgPath string, h *niftiHeader, index int, inMemoryGzip int64) ([]float32, error) {
+	r, gz, f, size, err := openMaybeGzip(imgPath, inMemoryGzip)
 	if err != nil {
 		return nil, err
 	}
