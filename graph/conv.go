@@ -177,7 +177,9 @@ func (p *convPlan) im2colInto(x []float32, j0, cols int, dst []float32, transpos
 				d := dst[(j>>4)*k16+r*gemmNR+j&15:][:n]
 				lo, hi := min(max(a-i, 0), n), min(max(b-i, 0), n)
 				clear(d[:lo])
-				if sx == 1 {
+				if hi <= lo {
+					clear(d)
+				} else if sx == 1 {
 					copy(d[lo:hi], x[base+i+lo:base+i+hi])
 				} else {
 					for q := lo; q < hi; q++ {

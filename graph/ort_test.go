@@ -188,6 +188,8 @@ func TestORTAgreesOnBuiltModels(t *testing.T) {
 	conv("conv2d dilations", []int{2, 3, 11, 10}, []int{4, 3, 3, 3}, IntsAttr("dilations", 2, 3), IntsAttr("pads", 2, 1, 0, 3))
 	conv("conv1d", []int{3, 2, 17}, []int{4, 2, 5}, IntsAttr("strides", 3), IntsAttr("pads", 2, 2))
 	conv("conv3d pointwise", []int{2, 5, 4, 5, 6}, []int{7, 5, 1, 1, 1})
+	// Rows and whole column blocks that read only padding (a case fuzzing found).
+	conv("conv2d pads wider than input", []int{1, 2, 5, 4}, []int{3, 2, 3, 3}, IntsAttr("pads", 3, 48, 2, 40))
 	conv("conv3d large block", []int{1, 2, 20, 20, 20}, []int{4, 2, 3, 3, 3}, IntsAttr("pads", 1, 1, 1, 1, 1, 1))
 
 	pool := func(name, op string, x []int, attrs ...*Attribute) {

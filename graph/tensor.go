@@ -162,10 +162,14 @@ func numel(shape []int) int {
 	return n
 }
 
-// maxElements bounds any tensor this package decodes or creates: 2^28
-// elements (1 GiB of float32), far above what a CNN classifier's layers
-// need, so that a hostile shape is an error and not an exhausted memory.
-const maxElements = 1 << 28
+// maxElements bounds any tensor this package decodes or creates: 2^27
+// elements (512 MiB of float32), above what a CNN classifier's layers on a
+// model grid need, so that a hostile shape is an error and not an
+// exhausted memory.
+const maxElements = 1 << 27
+
+// maxTaps bounds the number of taps of a convolution or pooling window.
+const maxTaps = 1 << 16
 
 // checkedNumel multiplies dims with negative and overflow checks.
 func checkedNumel(shape []int) (int, error) {

@@ -95,6 +95,12 @@ func (ws windowSpec) geometry(spatial []int, kernel []int) (window, error) {
 		}
 	}
 	w.spatialOut = append([]int{}, w.out[off:]...)
+	if w.k[0]*w.k[1]*w.k[2] > maxTaps {
+		return w, fmt.Errorf("window of %v taps exceeds %d", kernel, maxTaps)
+	}
+	if _, err := checkedNumel(w.spatialOut); err != nil {
+		return w, err
+	}
 	return w, nil
 }
 
