@@ -8,5 +8,5 @@ t=${FUZZTIME:-10s}
 grep -v '^\s*#' scripts/fuzz.list | while read -r pkg name; do
   [ -n "${pkg:-}" ] || continue
   echo "fuzz: $pkg $name ($t)"
-  go test -run '^$' -fuzz "^${name}\$" -fuzztime "$t" "$pkg" >/tmp/brightfold-fuzz.log 2>&1 || { cat /tmp/brightfold-fuzz.log; exit 1; }
+  go test -run '^$' -fuzz "^${name}\$" -fuzztime "$t" -fuzzminimizetime 0 "$pkg" >/tmp/brightfold-fuzz.log 2>&1 || { cat /tmp/brightfold-fuzz.log; exit 1; }
 done
