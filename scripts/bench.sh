@@ -18,10 +18,12 @@ go test -run '^$' -bench '^BenchmarkScoreOverhead$' -benchtime 5x ./cmd/brightfo
 # (goal: brightfold/nibabel wall time ≤ 1.0) and both peak memories.
 echo "== NIfTI .nii.gz load vs nibabel get_fdata (volume BenchmarkLoadNIfTIGz) =="
 niidir=$(mktemp -d)
-BRIGHTFOLD_BENCH_DIR=$niidir go test -run '^$' -bench '^BenchmarkLoadNIfTIGz$' -benchtime 1x ./volume >/dev/null
-niiline=$(BRIGHTFOLD_BENCH_DIR=$niidir go test -run '^$' -bench '^BenchmarkLoadNIfTIGz$' -benchtime 10x ./volume | grep '^BenchmarkLoadNIfTIGz')
+niibench() { BRIGHTFOLD_BENCH_DIR=$niidir go test -run '^$' -bench '^BenchmarkLoadNIfTIGz$' -benchtime "$1" ./volume | grep '^BenchmarkLoadNIfTIGz'; }
+niibench 1x >/dev/null          # writes the file
+niipeak=$(niibench 1x)          # a process that loads it once: its peak memory
+niiline=$(niibench 10x)         # timing
 echo "$niiline"
-/usr/bin/python3 scripts/bench-volume.py "$niidir/bench-256x256x176-int16.nii.gz" "$niiline"
+/usr/bin/python3 scripts/bench-volume.py "$niidir/bench-256x256x176-int16.nii.gz" "$niiline" "$niipeak"
 rm -rf "$niidir"
 
 # --- DICOM series loading vs pydicom (issue 2) --------------------------------
