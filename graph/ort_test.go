@@ -207,6 +207,25 @@ func TestORTAgreesOnBuiltModels(t *testing.T) {
 	pool("avgpool3d exclude pad", "AveragePool", []int{1, 3, 6, 7, 5}, IntsAttr("kernel_shape", 2, 3, 2), IntsAttr("strides", 2, 2, 2), IntsAttr("pads", 0, 1, 1, 1, 1, 0))
 	pool("globalavg3d", "GlobalAveragePool", []int{2, 3, 4, 5, 6})
 
+	// The int64 shape arithmetic older PyTorch exports use for flattening:
+	// Shape → Gather → Unsqueeze → Concat → Reshape, and a Cast round trip.
+	{
+		b := NewBuilder("shape-chain", 13)
+		x := b.Input("x", 2, 3, 4, 5)
+		shape := b.Node("Shape", []string{x})
+		n0 := b.Node("Gather", []string{shape, b.Param("zero", FromInts([]int64{0}))}, IntAttr("axis", 0))
+		n0 = b.Node("Unsqueeze", []string{n0, b.Param("axes0", FromInts([]int64{0}, 1))})
+		target := b.Node("Concat", []string{n0, b.Param("minus1", FromInts([]int64{-1}, 1))}, IntAttr("axis", 0))
+		target = b.Node("Cast", []string{b.Node("Cast", []string{target}, IntAttr("to", int64(Float)))}, IntAttr("to", int64(Int64)))
+		y := b.Node("Reshape", []string{x, target})
+		b.Output(b.Node("Softmax", []string{y}, IntAttr("axis", 1)), "y")
+		m, err := b.Model()
+		if err != nil {
+			t.Fatal(err)
+		}
+		compareWithORT(t, "shape chain", m, map[string]*Tensor{"x": randTensor(r, 1, 2, 3, 4, 5)}, 1e-4)
+	}
+
 	m := smallCNN(t, r, 10)
 	compareWithORT(t, "small 3D CNN", m, map[string]*Tensor{"input": randTensor(r, 1, 3, 1, 10, 10, 10)}, 1e-4)
 }
