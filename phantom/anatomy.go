@@ -119,6 +119,8 @@ func (b *blob) inside(p [3]float64, low float64) bool {
 type morph struct {
 	blobs        []blob
 	lo, hi       [3]float64 // bounding box of all blobs
+	cells        [][]int32  // blob indices whose boxes meet each cell, in precedence order
+	ncell        [3]int
 	pial         float64    // global inward shift of the pial surface (mm)
 	pialPattern  float64    // extra shift at the peak of the pattern region (mm)
 	sulcW        float64    // sulcal width as a fraction of the folding field's s.d.
@@ -312,7 +314,11 @@ func (m *morph) inBox(p [3]float64) bool {
 	return p[0] >= m.lo[0] && p[0] <= m.hi[0] && p[1] >= m.lo[1] && p[1] <= m.hi[1] && p[2] >= m.lo[2] && p[2] <= m.hi[2]
 }
 
-// setBox sets the bounding box of all blobs.
+// cellMM is the edge of the cells that index the blobs.
+const cellMM = 6.0
+
+// setBox sets the bounding box of all blobs and the cell index that lists,
+// for each cell of the box, the blobs whose boxes meet it.
 func (m *morph) setBox() {
 	m.lo, m.hi = m.blobs[0].lo, m.blobs[0].hi
 	for _, b := range m.blobs[1:] {
@@ -321,6 +327,37 @@ func (m *morph) setBox() {
 			m.hi[i] = math.Max(m.hi[i], b.hi[i])
 		}
 	}
+	for i := range m.ncell {
+		m.ncell[i] = int((m.hi[i]-m.lo[i])/cellMM) + 1
+	}
+	m.cells = make([][]int32, m.ncell[0]*m.ncell[1]*m.ncell[2])
+	for n, b := range m.blobs {
+		var c0, c1 [3]int
+		for i := range c0 {
+			c0[i] = int((b.lo[i] - m.lo[i]) / cellMM)
+			c1[i] = min(int((b.hi[i]-m.lo[i])/cellMM), m.ncell[i]-1)
+		}
+		for z := c0[2]; z <= c1[2]; z++ {
+			for y := c0[1]; y <= c1[1]; y++ {
+				for x := c0[0]; x <= c1[0]; x++ {
+					c := x + m.ncell[0]*(y+m.ncell[1]*z)
+					m.cells[c] = append(m.cells[c], int32(n))
+				}
+			}
+		}
+	}
+}
+
+// candidates returns the blobs that may contain p, in precedence order.
+func (m *morph) candidates(p [3]float64) []int32 {
+	if !m.inBox(p) {
+		return nil
+	}
+	var c [3]int
+	for i := range c {
+		c[i] = min(int((p[i]-m.lo[i])/cellMM), m.ncell[i]-1)
+	}
+	return m.cells[c[0]+m.ncell[0]*(c[1]+m.ncell[1]*c[2])]
 }
 
 // fieldVals are the smooth fields at one point.
@@ -387,11 +424,9 @@ func region(p [3]float64) float64 {
 
 // inner classifies a point at depth d ≥ 0 inside the brain hull.
 func (a *anatomy) inner(m *morph, p [3]float64, d float64, f *fieldVals, reg float64) Tissue {
-	if m.inBox(p) {
-		for i := range m.blobs {
-			if m.blobs[i].inside(p, f.low) {
-				return m.blobs[i].tissue
-			}
+	for _, i := range m.candidates(p) {
+		if m.blobs[i].inside(p, f.low) {
+			return m.blobs[i].tissue
 		}
 	}
 	// The pial surface is a height field over the hull: narrow V-shaped
