@@ -121,9 +121,9 @@ type morph struct {
 	lo, hi       [3]float64 // bounding box of all blobs
 	cells        [][]int32  // blob indices whose boxes meet each cell, in precedence order
 	ncell        [3]int
-	pial         float64    // global inward shift of the pial surface (mm)
-	pialPattern  float64    // extra shift at the peak of the pattern region (mm)
-	sulcW        float64    // sulcal width as a fraction of the folding field's s.d.
+	pial         float64 // global inward shift of the pial surface (mm)
+	pialPattern  float64 // extra shift at the peak of the pattern region (mm)
+	sulcW        float64 // sulcal width as a fraction of the folding field's s.d.
 	sulcWPattern float64
 	fissW        float64 // half width of the interhemispheric fissure (mm)
 }
