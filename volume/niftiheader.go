@@ -53,7 +53,8 @@ type niftiHeader struct {
 	calMin     float64
 }
 
-// Spatial dims, frame count and bytes.
+// spatial returns dim[1..3]; frames the number of 3D frames (dims beyond
+// the third, flattened in file order).
 func (h *niftiHeader) spatial() [3]int {
 	return [3]int{int(h.dim[1]), int(h.dim[2]), int(h.dim[3])}
 }
