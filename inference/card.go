@@ -156,7 +156,11 @@ type Envelope struct {
 	HeadAPOverLR     Range      `json:"head_ap_over_lr"` // head extent ratio, anterior-posterior / left-right
 	HeadSIOverAP     Range      `json:"head_si_over_ap"` // superior-inferior / anterior-posterior
 	NoiseRatio       Range      `json:"noise_ratio"`     // neighbour-difference noise / head interquartile range
-	FittedOn         string     `json:"fitted_on"`
+	// HeadSkewSI bounds the skewness of the head mask along S (an
+	// upside-down head flips its sign). Optional: cards fitted before it
+	// existed leave it out and skip the check.
+	HeadSkewSI *Range `json:"head_skew_si,omitempty"`
+	FittedOn   string `json:"fitted_on"`
 }
 
 // IntensityReference is the reference profile of normalised head
@@ -474,6 +478,14 @@ func (o OODReference) validate(classes int) error {
 		{"ood.envelope.head_si_over_ap", e.HeadSIOverAP}, {"ood.envelope.noise_ratio", e.NoiseRatio},
 	} {
 		if !finite(r.r.Min) || !finite(r.r.Max) || r.r.Min > r.r.Max {
+			return fieldError(r.path, "want finite min ≤ max, got [%v, %v]", r.r.Min, r.r.Max)
+		}
+	}
+	for _, r := range []struct {
+		path string
+		r    *Range
+	}{{"ood.envelope.head_skew_si", e.HeadSkewSI}} {
+		if r.r != nil && (!finite(r.r.Min) || !finite(r.r.Max) || r.r.Min > r.r.Max) {
 			return fieldError(r.path, "want finite min ≤ max, got [%v, %v]", r.r.Min, r.r.Max)
 		}
 	}

@@ -21,6 +21,7 @@ const (
 	CheckHeadVolume       = "head_volume"
 	CheckHeadAPLR         = "head_shape_ap_lr"
 	CheckHeadSIAP         = "head_shape_si_ap"
+	CheckHeadSkewSI       = "head_upright"
 	CheckNoise            = "noise_level"
 	CheckHUSignature      = "hounsfield_signature"
 	CheckIntensityProfile = "intensity_profile"
@@ -94,6 +95,8 @@ func severity(c *Card, ch fitcheck.Check, f CaseFacts) float64 {
 		s = rangeSeverity(ch.Value, e.HeadSIOverAP)
 	case CheckNoise:
 		s = rangeSeverity(ch.Value, e.NoiseRatio)
+	case CheckHeadSkewSI:
+		s = rangeSeverity(ch.Value, *e.HeadSkewSI)
 	case CheckFOV:
 		s = ratio(1, ch.Value)
 	case CheckSlices:
@@ -273,10 +276,16 @@ func imageChecks(o OODReference, f CaseFacts) []fitcheck.Check {
 		rangeCheck(CheckHeadSIAP, f.HeadSIOverAP, e.HeadSIOverAP, "",
 			"The head's head-foot to front-back proportion (%s) is as in training (%s).",
 			"The head's head-foot to front-back proportion (%s) is unlike training (%s); the header may give the wrong orientation or the field of view differs."),
+	}
+	if e.HeadSkewSI != nil {
+		out = append(out, rangeCheck(CheckHeadSkewSI, f.HeadSkewSI, *e.HeadSkewSI, "",
+			"The head's mass is distributed head-to-foot as in training (skewness %s; training %s).",
+			"The head's mass is distributed head-to-foot unlike training (skewness %s; training %s): the head may be upside down, or the header gives the wrong orientation."))
+	}
+	out = append(out,
 		rangeCheck(CheckNoise, f.NoiseRatio, e.NoiseRatio, "",
 			"The image noise relative to tissue contrast (%s) is within the training range (%s).",
-			"The image noise relative to tissue contrast (%s) is outside the training range (%s)."),
-	}
+			"The image noise relative to tissue contrast (%s) is outside the training range (%s)."))
 	in := o.Intensity
 	ct := f.HUAirFraction >= in.HUAirFraction && f.HUBoneFraction >= in.HUBoneFraction
 	hc := fitcheck.Check{Name: CheckHUSignature, Value: f.HUAirFraction, Required: true, Pass: !ct,

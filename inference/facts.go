@@ -25,6 +25,7 @@ type CaseFacts struct {
 	HeadVolumeMl     float64    `json:"head_volume_ml"`
 	HeadAPOverLR     float64    `json:"head_ap_over_lr"`
 	HeadSIOverAP     float64    `json:"head_si_over_ap"`
+	HeadSkewSI       float64    `json:"head_skew_si"`
 	NoiseRatio       float64    `json:"noise_ratio"`
 	HUAirFraction    float64    `json:"hu_air_fraction"`
 	HUBoneFraction   float64    `json:"hu_bone_fraction"`
@@ -46,6 +47,7 @@ func MeasureCase(v *volume.Volume, pr *Prepared, levels []float64) CaseFacts {
 		f.HeadAPOverLR = e[1] / e[0]
 		f.HeadSIOverAP = e[2] / e[1]
 	}
+	f.HeadSkewSI = pr.Head.Skewness[2]
 	f.NoiseRatio = fitcheck.NoiseRatio(v, pr.Head.Threshold)
 	f.HUAirFraction, f.HUBoneFraction = fitcheck.HUSignature(v.Data)
 	f.Quantiles = headQuantiles(pr.Tensor, levels)

@@ -141,8 +141,19 @@ func (s span) widen(m float64) Range {
 	return Range{Min: s.lo / (1 + m), Max: s.hi * (1 + m)}
 }
 
+// widenSigned widens a range of a signed quantity by m times the larger of
+// its width and its largest magnitude, on both sides.
+func (s span) widenSigned(m float64) *Range {
+	if s.lo > s.hi {
+		return nil
+	}
+	w := m * math.Max(s.hi-s.lo, math.Max(math.Abs(s.lo), math.Abs(s.hi)))
+	return &Range{Min: s.lo - w, Max: s.hi + w}
+}
+
 func fitEnvelope(train []FitCase, opt FitOptions) Envelope {
 	sp, th, vol, aplr, siap, noise := newSpan(), newSpan(), newSpan(), newSpan(), newSpan(), newSpan()
+	skewSI := newSpan()
 	fov := [3]float64{math.Inf(1), math.Inf(1), math.Inf(1)}
 	minSlices, maxAniso, maxObl := math.MaxInt, 1.0, 0.0
 	mods := map[string]bool{}
@@ -159,6 +170,7 @@ func fitEnvelope(train []FitCase, opt FitOptions) Envelope {
 		aplr.add(f.HeadAPOverLR)
 		siap.add(f.HeadSIOverAP)
 		noise.add(f.NoiseRatio)
+		skewSI.add(f.HeadSkewSI)
 		maxAniso = math.Max(maxAniso, f.Anisotropy)
 		maxObl = math.Max(maxObl, f.ObliquityDeg)
 		if f.Modality != "" && !mods[f.Modality] {
@@ -172,7 +184,8 @@ func fitEnvelope(train []FitCase, opt FitOptions) Envelope {
 	m := opt.Margin
 	e := Envelope{Modalities: modList, SpacingMm: sp.widen(m), SliceThicknessMm: th.widen(m),
 		MinSlices: max(1, minSlices/2), MaxAnisotropy: math.Max(1.25, maxAniso*(1+m)), MaxObliquityDeg: maxObl + 10,
-		HeadVolumeMl: vol.widen(m), HeadAPOverLR: aplr.widen(m), HeadSIOverAP: siap.widen(m), NoiseRatio: noise.widen(m)}
+		HeadVolumeMl: vol.widen(m), HeadAPOverLR: aplr.widen(m), HeadSIOverAP: siap.widen(m), NoiseRatio: noise.widen(m),
+		HeadSkewSI: skewSI.widenSigned(4 * m)}
 	for a := 0; a < 3; a++ {
 		e.MinFOVMm[a] = fov[a] / (1 + m)
 	}

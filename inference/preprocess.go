@@ -71,7 +71,11 @@ type HeadStats struct {
 	Centre    [3]float64 // centre of mass of the mask, RAS mm
 	VolumeMl  float64    // mask volume in millilitres
 	ExtentMm  [3]float64 // standard deviation of mask positions along the grid's R, A, S axes
-	Fraction  float64    // fraction of voxels in the mask
+	// Skewness is the third standardised moment of the mask positions
+	// along R, A, S (signed towards +R, +A, +S): a head with its neck has a
+	// long tail towards inferior, so an upside-down head changes its sign.
+	Skewness [3]float64
+	Fraction float64 // fraction of voxels in the mask
 }
 
 // Prepared is everything preprocessing learns about a scan: the tensor, the
@@ -206,6 +210,7 @@ func checkVolume(v *volume.Volume) error {
 type frame struct {
 	Axis [3]int
 	Dir  [3][3]float64
+	Sign [3]float64 // +1 when scan axis Axis[g] runs towards +R, +A or +S
 }
 
 func canonicalFrame(a volume.Affine) (frame, error) {
@@ -222,6 +227,7 @@ func canonicalFrame(a volume.Affine) (frame, error) {
 		}
 		norm := math.Sqrt(a[0][ax]*a[0][ax] + a[1][ax]*a[1][ax] + a[2][ax]*a[2][ax])
 		f.Axis[g] = ax
+		f.Sign[g] = sign
 		for r := 0; r < 3; r++ {
 			f.Dir[g][r] = sign * a[r][ax] / norm
 		}
@@ -373,39 +379,53 @@ func Percentile(sorted []float64, p float64) float64 {
 // headStats measures the mask {value > thr} of v in the frame's axes.
 func headStats(v *volume.Volume, f frame, thr float64) (HeadStats, error) {
 	var n float64
-	var s1, s2 [3]float64
-	for k := 0; k < v.Dims[2]; k++ {
-		for j := 0; j < v.Dims[1]; j++ {
-			row := v.Data[v.Index(0, j, k) : v.Index(0, j, k)+v.Dims[0]]
-			for i, x := range row {
-				if !(float64(x) > thr) {
-					continue
-				}
-				p := [3]float64{float64(i), float64(j), float64(k)}
-				n++
-				for a := 0; a < 3; a++ {
-					s1[a] += p[a]
-					s2[a] += p[a] * p[a]
-				}
-			}
+	var s1 [3]float64
+	eachMasked(v, thr, func(p [3]float64) {
+		n++
+		for a := 0; a < 3; a++ {
+			s1[a] += p[a]
 		}
-	}
+	})
 	if n < 1 {
 		return HeadStats{}, errors.New("no head found: no voxel above the head-mask threshold")
 	}
-	var mean, sd [3]float64
+	var mean, m2, m3 [3]float64
 	for a := 0; a < 3; a++ {
 		mean[a] = s1[a] / n
-		sd[a] = math.Sqrt(math.Max(0, s2[a]/n-mean[a]*mean[a]))
 	}
+	eachMasked(v, thr, func(p [3]float64) {
+		for a := 0; a < 3; a++ {
+			d := p[a] - mean[a]
+			m2[a] += d * d
+			m3[a] += d * d * d
+		}
+	})
 	sp := v.Spacing()
 	h := HeadStats{Threshold: thr, Centre: v.Affine.Apply(mean), Fraction: n / float64(v.Len())}
 	h.VolumeMl = n * math.Abs(det3(v.Affine)) / 1000
 	for g := 0; g < 3; g++ {
 		ax := f.Axis[g]
-		h.ExtentMm[g] = sd[ax] * sp[ax]
+		sd := math.Sqrt(m2[ax] / n)
+		h.ExtentMm[g] = sd * sp[ax]
+		if sd > 0 {
+			h.Skewness[g] = f.Sign[g] * m3[ax] / n / (sd * sd * sd)
+		}
 	}
 	return h, nil
+}
+
+// eachMasked calls fn with the voxel index of every voxel of v above thr.
+func eachMasked(v *volume.Volume, thr float64, fn func(p [3]float64)) {
+	for k := 0; k < v.Dims[2]; k++ {
+		for j := 0; j < v.Dims[1]; j++ {
+			o := v.Index(0, j, k)
+			for i, x := range v.Data[o : o+v.Dims[0]] {
+				if float64(x) > thr {
+					fn([3]float64{float64(i), float64(j), float64(k)})
+				}
+			}
+		}
+	}
 }
 
 // sampleGrid resamples v (trilinear, volume.ResampleFill) onto the grid

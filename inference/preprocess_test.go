@@ -85,10 +85,11 @@ func permuteVolume(v *volume.Volume, perm [3]int, flip [3]bool) *volume.Volume {
 func TestPreprocessInvariantToStorageOrder(t *testing.T) {
 	base := ellipsoidHead([3]int{60, 72, 56}, [3]float64{3, -5, 2}, [3]float64{20, 26, 18})
 	p := testPreprocessing()
-	ref, _, err := Preprocess(base, p)
+	refPr, err := Prepare(base, p)
 	if err != nil {
 		t.Fatal(err)
 	}
+	ref := refPr.Tensor
 	cases := []struct {
 		perm [3]int
 		flip [3]bool
@@ -99,9 +100,16 @@ func TestPreprocessInvariantToStorageOrder(t *testing.T) {
 	}
 	for _, c := range cases {
 		v := permuteVolume(base, c.perm, c.flip)
-		got, tr, err := Preprocess(v, p)
+		pr, err := Prepare(v, p)
 		if err != nil {
 			t.Fatal(err)
+		}
+		got, tr := pr.Tensor, pr.Transform
+		for a := 0; a < 3; a++ {
+			if math.Abs(pr.Head.Skewness[a]-refPr.Head.Skewness[a]) > 1e-9 || math.Abs(pr.Head.ExtentMm[a]-refPr.Head.ExtentMm[a]) > 1e-9 {
+				t.Errorf("perm %v flip %v: head skewness %v / extent %v, RAS-stored %v / %v", c.perm, c.flip,
+					pr.Head.Skewness, pr.Head.ExtentMm, refPr.Head.Skewness, refPr.Head.ExtentMm)
+			}
 		}
 		maxd := 0.0
 		for i := range got.Data {
@@ -111,6 +119,35 @@ func TestPreprocessInvariantToStorageOrder(t *testing.T) {
 			t.Errorf("perm %v flip %v (%s): tensor differs from the RAS-stored one by %g", c.perm, c.flip, v.Affine.Orientation(), maxd)
 		}
 		checkTransformConsistent(t, tr)
+	}
+}
+
+// Flipping the voxels head to foot while keeping the affine (a wrong
+// orientation header) flips the sign of the head mask's S skewness.
+func TestHeadSkewnessFlipsWithData(t *testing.T) {
+	// a head with a "neck": a narrow column below the ellipsoid
+	v := ellipsoidHead([3]int{48, 48, 64}, [3]float64{0, 0, 6}, [3]float64{16, 18, 14})
+	for k := 0; k < 20; k++ {
+		for j := 20; j < 28; j++ {
+			for i := 20; i < 28; i++ {
+				v.Data[v.Index(i, j, k)] = 90
+			}
+		}
+	}
+	up, err := Prepare(v, testPreprocessing())
+	if err != nil {
+		t.Fatal(err)
+	}
+	f := v.Clone()
+	for k := 0; k < 64; k++ {
+		copy(f.Data[f.Index(0, 0, k):f.Index(0, 0, k)+48*48], v.Data[v.Index(0, 0, 63-k):v.Index(0, 0, 63-k)+48*48])
+	}
+	down, err := Prepare(f, testPreprocessing())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !(up.Head.Skewness[2] < -0.1) || math.Abs(up.Head.Skewness[2]+down.Head.Skewness[2]) > 0.05 {
+		t.Errorf("S skewness upright %v, flipped %v", up.Head.Skewness[2], down.Head.Skewness[2])
 	}
 }
 
