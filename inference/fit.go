@@ -144,7 +144,9 @@ func (s span) widen(m float64) Range {
 // widenSigned widens a range of a signed quantity by m times the larger of
 // its width and its largest magnitude, on both sides.
 func (s span) widenSigned(m float64) *Range {
-	if s.lo > s.hi {
+	if s.lo > s.hi || (s.lo == 0 && s.hi == 0) {
+		// no measurements, or facts measured before the quantity existed
+		// (all zero): leave the range out so that the check is skipped
 		return nil
 	}
 	w := m * math.Max(s.hi-s.lo, math.Max(math.Abs(s.lo), math.Abs(s.hi)))
