@@ -107,52 +107,13 @@ func (a Affine) Inverse() (Affine, error) {
 	return m, nil
 }
 
-// Orientation returns the three-letter axis code (such as "RAS" or "LPS"):
-// for each voxel axis, the RAS world direction it points to most, with the
-// letter of the end it points towards (nibabel's aff2axcodes convention).
+// Orientation returns the three-letter axis code (such as "RAS" or "LPS"),
+// the same one nibabel 5.0's aff2axcodes gives (see ClosestAxes), or "???"
+// for an affine that has none.
 func (a Affine) Orientation() string {
-	pos := [3]byte{'R', 'A', 'S'}
-	neg := [3]byte{'L', 'P', 'I'}
-	code := make([]byte, 3)
-	used := [3]bool{}
-	// Greedy by largest absolute component, so that each world axis is used once.
-	type cand struct {
-		axis, world int
-		v           float64
+	m, err := ClosestAxes(a)
+	if err != nil {
+		return "???"
 	}
-	for n := 0; n < 3; n++ {
-		best := cand{-1, -1, -1}
-		for c := 0; c < 3; c++ {
-			if code[c] != 0 {
-				continue
-			}
-			norm := math.Sqrt(a[0][c]*a[0][c] + a[1][c]*a[1][c] + a[2][c]*a[2][c])
-			if norm == 0 {
-				norm = 1
-			}
-			for r := 0; r < 3; r++ {
-				if used[r] {
-					continue
-				}
-				if v := math.Abs(a[r][c]) / norm; v > best.v {
-					best = cand{c, r, v}
-				}
-			}
-		}
-		if best.axis < 0 {
-			break
-		}
-		used[best.world] = true
-		if a[best.world][best.axis] >= 0 {
-			code[best.axis] = pos[best.world]
-		} else {
-			code[best.axis] = neg[best.world]
-		}
-	}
-	for i := range code {
-		if code[i] == 0 {
-			code[i] = '?'
-		}
-	}
-	return string(code)
+	return m.Code()
 }
