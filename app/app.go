@@ -33,6 +33,9 @@ type Options struct {
 	Meeting bool
 	// Model is a model bundle (folder or .zip); empty means the embedded demo model.
 	Model string
+	// DemoCases is the number of in-distribution demo cases made on first
+	// start (one of each shifted variant is added); 0 means 12.
+	DemoCases int
 	// DemoDir is the demo cohort folder; empty means DefaultDemoDir().
 	DemoDir string
 	// ScreenshotTimeout bounds the wait for content before a screenshot is

@@ -42,12 +42,16 @@ func (u *UI) startDemo() {
 		u.openCohort(dir)
 		return
 	}
-	total := len(phantom.Cohort(demoSeed, demoCases, true))
+	n := u.opts.DemoCases
+	if n <= 0 {
+		n = demoCases
+	}
+	total := len(phantom.Cohort(demoSeed, n, true))
 	u.casesPanel.setNote("First start: generating the synthetic demo cohort…")
 	u.tasks.start(taskDemo, "Generating the demo cohort", func(ctx context.Context, progress progressFunc) (func(), error) {
 		progress(0, fmt.Sprintf("0 of %d cases", total))
 		w := &lineCounter{total: total, progress: progress}
-		_, err := phantom.WriteCohort(dir, phantom.WriteOptions{N: demoCases, Seed: demoSeed, Shifts: true, Progress: w})
+		_, err := phantom.WriteCohort(dir, phantom.WriteOptions{N: n, Seed: demoSeed, Shifts: true, Progress: w})
 		if err != nil {
 			return nil, err
 		}

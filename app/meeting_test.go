@@ -87,7 +87,7 @@ func TestExportCarriesNoticeAndHidesIdentifiers(t *testing.T) {
 			t.Errorf("the Meeting mode export shows %q", s)
 		}
 	}
-	if !strings.Contains(norm, "Sagittal") || !strings.Contains(norm, "Crosshair") {
+	if !strings.Contains(norm, "Crosshair") || !strings.Contains(norm, "Relevance map") {
 		t.Errorf("OCR did not find the Scan panel:\n%s", norm)
 	}
 }

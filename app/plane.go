@@ -37,8 +37,9 @@ type planeView struct {
 
 	bg      *canvas.Rectangle
 	img     *canvas.Image
-	cross   [4]*canvas.Line // left, right, top and bottom arms, with a gap at the centre
-	letters [4]*canvas.Text // left, right, top, bottom
+	cross   [4]*canvas.Line      // left, right, top and bottom arms, with a gap at the centre
+	letters [4]*canvas.Text      // left, right, top, bottom
+	backs   [5]*canvas.Rectangle // dark backings behind the letters and the title
 	title   *canvas.Text
 	msg     *canvas.Text
 	enlarge *widget.Button
@@ -58,6 +59,11 @@ func newPlaneView(p *scanPanel, pl viewer.Plane) *planeView {
 		v.cross[i] = canvas.NewLine(colCrosshair)
 		v.cross[i].StrokeWidth = 1
 		objs = append(objs, v.cross[i])
+	}
+	for i := range v.backs {
+		v.backs[i] = canvas.NewRectangle(colBacking)
+		v.backs[i].CornerRadius = 3
+		objs = append(objs, v.backs[i])
 	}
 	for i := range v.letters {
 		t := canvas.NewText("", colLetter)
@@ -169,6 +175,7 @@ func (v *planeView) layoutContent() {
 	v.bg.Resize(size)
 	v.title.Move(fyne.NewPos(8, 6))
 	v.title.Refresh()
+	back(v.backs[4], v.title)
 	bs := v.enlarge.MinSize()
 	v.enlarge.Resize(bs)
 	v.enlarge.Move(fyne.NewPos(size.Width-bs.Width-4, 2))
@@ -185,8 +192,9 @@ func (v *planeView) layoutContent() {
 		for _, l := range v.cross {
 			l.Hide()
 		}
-		for _, t := range v.letters {
+		for i, t := range v.letters {
 			t.Hide()
+			v.backs[i].Hide()
 		}
 		return
 	}
@@ -241,7 +249,17 @@ func (v *planeView) placeLetters(o fyne.Position, iw, ih float32, size fyne.Size
 		}
 		t.Move(pos)
 		t.Refresh()
+		back(v.backs[i], t)
 	}
+}
+
+// back puts a dark backing behind a text so that it reads on bright tissue.
+func back(r *canvas.Rectangle, t *canvas.Text) {
+	s := t.MinSize()
+	r.Move(t.Position().Subtract(fyne.NewPos(3, 1)))
+	r.Resize(s.Add(fyne.NewSize(6, 2)))
+	r.Show()
+	r.Refresh()
 }
 
 func max32(a, b float32) float32 {

@@ -63,12 +63,12 @@ func newScanPanel(u *UI) *scanPanel {
 		}
 	})
 	p.preset.PlaceHolder = "Window preset"
-	p.convSel = widget.NewSelect([]string{"Patient right on image left", "Patient right on image right"}, func(s string) {
+	p.convSel = widget.NewSelect([]string{convRadiological, convNeurological}, func(s string) {
 		if p.quietSel {
 			return
 		}
 		p.conv = viewer.Radiological
-		if s == "Patient right on image right" {
+		if s == convNeurological {
 			p.conv = viewer.Neurological
 		}
 		p.renderAll()
@@ -91,12 +91,13 @@ func newScanPanel(u *UI) *scanPanel {
 	p.dragSel = widget.NewSelect([]string{dragWL, dragPan}, nil)
 	p.dragSel.SetSelectedIndex(0)
 	p.wlLabel = widget.NewLabel("")
+	p.wlLabel.TextStyle = fyne.TextStyle{Monospace: true}
 	p.readout = widget.NewLabel("")
 	p.readout.TextStyle = fyne.TextStyle{Monospace: true}
 	p.pointer = widget.NewLabel("")
 	p.pointer.TextStyle = fyne.TextStyle{Monospace: true}
-	tools := container.NewHBox(p.preset, p.wlLabel, p.dragSel, p.convSel, p.smooth, p.ovCheck, reset)
-	info := container.NewVBox(p.readout, p.pointer)
+	tools := container.NewHBox(p.preset, p.dragSel, p.convSel, p.smooth, p.ovCheck, reset)
+	info := container.NewVBox(p.wlLabel, p.readout, p.pointer)
 	p.root = container.NewBorder(tools, info, nil, nil, p.grid)
 	p.clear("No case open.")
 	return p
@@ -104,8 +105,14 @@ func newScanPanel(u *UI) *scanPanel {
 
 // The mouse-drag modes of the planes.
 const (
-	dragWL  = "Drag: window/level"
+	dragWL  = "Drag: W/L"
 	dragPan = "Drag: pan"
+)
+
+// The left-right display conventions (axial and coronal planes).
+const (
+	convRadiological = "Radiological"
+	convNeurological = "Neurological"
 )
 
 // dragPans reports whether a plain drag pans (instead of changing the window).
@@ -230,7 +237,7 @@ func (p *scanPanel) renderAll() {
 	for _, v := range p.views {
 		v.render(l)
 	}
-	p.wlLabel.SetText("Window " + p.win.String())
+	p.wlLabel.SetText(fmt.Sprintf("Window     %s  (%s, DICOM VOI function)  ·  %s convention", p.win.String(), p.win.Function, p.convSel.Selected))
 	p.refreshReadout()
 }
 

@@ -26,6 +26,7 @@ var (
 	colCrosshair  = color.NRGBA{0x7f, 0xe0, 0xcf, 0xb0}
 	colLetter     = color.NRGBA{0xf5, 0xe6, 0xa8, 0xff}
 	colImageField = color.NRGBA{0x00, 0x00, 0x00, 0xff}
+	colBacking    = color.NRGBA{0x0b, 0x0e, 0x12, 0xa8}
 )
 
 // brightTheme is Brightfold's own theme on top of Fyne's default metrics.
