@@ -12,6 +12,7 @@ import (
 	"runtime/debug"
 
 	"brightfold/inputerr"
+	_ "brightfold/internal/langenv"
 	"brightfold/notice"
 )
 
