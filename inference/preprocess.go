@@ -278,44 +278,52 @@ func blockMean(v *volume.Volume, f [3]int) *volume.Volume {
 	out.Affine = v.Affine.Mul(s)
 	parallelRange(nd[2], func(k0, k1 int) {
 		acc := make([]float64, nd[0])
-		cnt := make([]int32, nd[0])
 		for K := k0; K < k1; K++ {
 			for J := 0; J < nd[1]; J++ {
 				clear(acc)
-				clear(cnt)
 				for k := K * f[2]; k < (K+1)*f[2]; k++ {
 					for j := J * f[1]; j < (J+1)*f[1]; j++ {
 						row := v.Data[v.Index(0, j, k):]
-						for I := 0; I < nd[0]; I++ {
-							seg := row[I*f[0] : (I+1)*f[0]]
-							var s float64
-							for _, x := range seg {
-								s += float64(x)
+						for I := range acc {
+							var s float32
+							for _, x := range row[I*f[0] : (I+1)*f[0]] {
+								s += x
 							}
-							if finite(s) { // NaN or Inf anywhere makes the sum non-finite
-								acc[I] += s
-								cnt[I] += int32(len(seg))
-								continue
-							}
-							for _, x := range seg {
-								if finite32(x) {
-									acc[I] += float64(x)
-									cnt[I]++
-								}
-							}
+							acc[I] += float64(s)
 						}
 					}
 				}
 				o := out.Index(0, J, K)
-				for I := range acc {
-					if cnt[I] > 0 {
-						out.Data[o+I] = float32(acc[I] / float64(cnt[I]))
+				n := float64(f[0] * f[1] * f[2])
+				for I, s := range acc {
+					if !finite(s) { // a NaN or Inf in the block: average its finite voxels
+						s, n := blockFinite(v, f, I, J, K)
+						if n > 0 {
+							out.Data[o+I] = float32(s / n)
+						}
+						continue
 					}
+					out.Data[o+I] = float32(s / n)
 				}
 			}
 		}
 	})
 	return out
+}
+
+// blockFinite sums the finite voxels of block (I, J, K) and counts them.
+func blockFinite(v *volume.Volume, f [3]int, I, J, K int) (sum, n float64) {
+	for k := K * f[2]; k < (K+1)*f[2]; k++ {
+		for j := J * f[1]; j < (J+1)*f[1]; j++ {
+			for i := I * f[0]; i < (I+1)*f[0]; i++ {
+				if x := v.At(i, j, k); finite32(x) {
+					sum += float64(x)
+					n++
+				}
+			}
+		}
+	}
+	return sum, n
 }
 
 func finite32(x float32) bool { return !math.IsNaN(float64(x)) && !math.IsInf(float64(x), 0) }

@@ -343,3 +343,25 @@ func randomAffine(rng *rand.Rand) volume.Affine {
 	rot[0][0], rot[0][1], rot[1][0], rot[1][1] = cs, -sn, sn, cs
 	return rot.Mul(a)
 }
+
+// Block means skip non-finite voxels and keep the exact block-centre affine.
+func TestBlockMeanNonFinite(t *testing.T) {
+	v, _ := volume.New([3]int{4, 2, 2}, volume.Diag([3]float64{1, 1, 1}, [3]float64{10, 20, 30}))
+	for i := range v.Data {
+		v.Data[i] = float32(i)
+	}
+	v.Data[0] = float32(math.NaN())
+	v.Data[1] = float32(math.Inf(1))
+	b := blockMean(v, [3]int{2, 2, 2})
+	// block 0 holds voxels 0,1,4,5,8,9,12,13 (offset i + 4·(j + 2·k)); 0 and 1 are dropped
+	if want := float32(4+5+8+9+12+13) / 6; b.Data[0] != want {
+		t.Errorf("block 0 = %v, want %v", b.Data[0], want)
+	}
+	if want := float32(2+3+6+7+10+11+14+15) / 8; b.Data[1] != want {
+		t.Errorf("block 1 = %v, want %v", b.Data[1], want)
+	}
+	// new voxel 0 is centred on old voxel (0.5, 0.5, 0.5)
+	if p := b.Affine.Apply([3]float64{0, 0, 0}); p != [3]float64{10.5, 20.5, 30.5} {
+		t.Errorf("block centre %v", p)
+	}
+}
