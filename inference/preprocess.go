@@ -8,6 +8,7 @@ import (
 	"sort"
 	"sync"
 
+	"brightfold/inference/fitcheck"
 	"brightfold/volume"
 )
 
@@ -352,7 +353,8 @@ func parallelRange(n int, fn func(lo, hi int)) {
 const maxPercentileSample = 1 << 20
 
 // percentilePair returns two percentiles (0–100, linear interpolation between
-// order statistics as numpy's default) of the finite values of data.
+// order statistics as numpy's default) of the finite values of data, by
+// selection in linear time.
 func percentilePair(data []float32, p1, p2 float64) (float64, float64) {
 	stride := 1 + len(data)/maxPercentileSample
 	vals := make([]float64, 0, len(data)/stride+1)
@@ -361,8 +363,10 @@ func percentilePair(data []float32, p1, p2 float64) (float64, float64) {
 			vals = append(vals, float64(data[i]))
 		}
 	}
-	sort.Float64s(vals)
-	return Percentile(vals, p1), Percentile(vals, p2)
+	if len(vals) == 0 {
+		return math.NaN(), math.NaN()
+	}
+	return fitcheck.SelectQuantile(vals, p1/100), fitcheck.SelectQuantile(vals, p2/100)
 }
 
 // Percentile is the p-th percentile (0–100) of sorted values, interpolating
