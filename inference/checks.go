@@ -338,3 +338,47 @@ func contains(xs []string, s string) bool {
 	}
 	return false
 }
+
+// CheckTitle is a short title of a check for screens and reports, such as
+// "Voxel spacing" for CheckSpacing; unknown names are returned as they are.
+func CheckTitle(name string) string {
+	switch name {
+	case CheckModality:
+		return "Modality"
+	case CheckSpacing:
+		return "Voxel spacing"
+	case CheckSliceThickness:
+		return "Slice thickness"
+	case CheckFOV:
+		return "Field of view"
+	case CheckSlices:
+		return "3D volume"
+	case CheckAnisotropy:
+		return "Voxel shape"
+	case CheckOrientation:
+		return "Orientation"
+	case CheckSingleVolume:
+		return "Single volume"
+	case CheckHeadVolume:
+		return "Head size"
+	case CheckHeadAPLR:
+		return "Head shape (front-back / left-right)"
+	case CheckHeadSIAP:
+		return "Head shape (head-foot / front-back)"
+	case CheckHeadSkewSI:
+		return "Head upright"
+	case CheckNoise:
+		return "Noise level"
+	case CheckHUSignature:
+		return "CT signature (Hounsfield units)"
+	case CheckIntensityProfile:
+		return "Intensity profile"
+	case CheckMSP:
+		return "Model confidence (maximum softmax probability)"
+	case CheckEnergy:
+		return "Energy score"
+	case CheckMahalanobis:
+		return "Feature distance (Mahalanobis)"
+	}
+	return name
+}
