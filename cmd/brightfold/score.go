@@ -24,8 +24,7 @@ type scoreOptions struct {
 	threads, volumeIndex                  int
 }
 
-// relevanceMethods are the --map values; only "none" is available until
-// the relevance maps land.
+// relevanceMethods are the --map values (package overlay; scoremap.go).
 var relevanceMethods = []string{"none", "lrp", "ig", "gradinput", "occlusion"}
 
 // runScore scores one scan with a model bundle: prediction, calibrated
@@ -54,7 +53,7 @@ func runScore(e *env, args []string) error {
 	if len(paths) == 0 {
 		return usageError("brightfold score: give a scan (a NIfTI file, DICOM files or a DICOM folder)")
 	}
-	if err := checkMapMethod(o.mapMethod); err != nil {
+	if err := checkMap(o); err != nil {
 		return err
 	}
 	if o.threads < 0 {
@@ -83,6 +82,11 @@ func runScore(e *env, args []string) error {
 	input := strings.Join(paths, " ")
 	rep := scoreReport(input, v, bundle, res)
 	rep.TimingMs["load"] = loadMs
+	if o.mapMethod != "none" {
+		if err := addRelevance(e, o, paths, v, bundle, sess, res, rep); err != nil {
+			return err
+		}
+	}
 	rep.TimingMs["total"] = msSince(t0)
 	if o.hidePaths {
 		rep.Input.Path = baseNames(paths)
@@ -97,16 +101,6 @@ func runScore(e *env, args []string) error {
 	}
 	writeScoreText(e.stdout, rep, res)
 	return nil
-}
-
-func checkMapMethod(m string) error {
-	switch m {
-	case "none":
-		return nil
-	case "lrp", "ig", "gradinput", "occlusion":
-		return usageError("brightfold score: --map %s: relevance maps are not available yet in this build; use --map none", m)
-	}
-	return usageError("brightfold score: --map %q: want one of %s", m, strings.Join(relevanceMethods, ", "))
 }
 
 func msSince(t time.Time) float64 { return float64(time.Since(t).Microseconds()) / 1000 }
@@ -215,12 +209,13 @@ func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result) {
 		if !c.Required {
 			tag = " (advisory)"
 		}
-		fmt.Fprintf(w, "  - %s%s\n", c.Explanation, tag)
+		fmt.Fprintf(w, "  - %s%s: %s\n", inference.CheckTitle(c.Name), tag, c.Explanation)
 	}
 	fmt.Fprintf(w, "  (%d checks, %d failed; --json lists every check with its value and threshold)\n", len(r.Checks), len(failed))
 	for _, msg := range rep.Warnings {
 		fmt.Fprintf(w, "Warning:     %s\n", msg)
 	}
+	writeRelevanceText(w, rep)
 	fmt.Fprintf(w, "Time:        %.0f ms\n", rep.TimingMs["total"])
 	fmt.Fprintln(w)
 	fmt.Fprintln(w, notice.Full)
