@@ -171,13 +171,19 @@ func TestScoreAndBundleErrors(t *testing.T) {
 	b, _ := os.ReadFile(m)
 	b[len(b)-5] ^= 0xff
 	os.WriteFile(m, b, 0o644)
+	flat, _ := volume.New([3]int{20, 20, 20}, volume.Identity())
+	flatPath := filepath.Join(t.TempDir(), "flat.nii")
+	if err := volume.WriteNIfTI(flatPath, flat, volume.NIfTIWriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
 	cases := []struct {
 		args []string
 		want string
 	}{
+		{[]string{"score", flatPath, "--model", bundle, "--ort-lib", lib}, "flat.nii: cannot prepare the scan"},
 		{[]string{"score", filepath.Join(t.TempDir(), "missing.nii"), "--model", bundle, "--ort-lib", lib}, "missing.nii"},
 		{[]string{"score", scan, "--model", tampered, "--ort-lib", lib}, "sha256"},
-		{[]string{"score", scan, "--model", bundle, "--map", "lrp", "--ort-lib", lib}, "not available yet"},
+		{[]string{"score", scan, "--model", bundle, "--map", "lrp", "--ort-lib", lib}, "give --out DIR"},
 		{[]string{"score", scan, "--model", bundle, "--map", "fancy"}, "want one of"},
 		{[]string{"score", scan}, "--model"},
 		{[]string{"score", scan, "--model", bundle, "--ort-lib", filepath.Join(t.TempDir(), "nolib.so")}, "make setup"},
