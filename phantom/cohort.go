@@ -3,6 +3,7 @@ package phantom
 import (
 	"bufio"
 	"bytes"
+	"context"
 	"encoding/csv"
 	"errors"
 	"fmt"
@@ -76,6 +77,9 @@ type WriteOptions struct {
 	Workers int
 	// Progress receives one line per finished case; nil for none.
 	Progress io.Writer
+	// Context, when set, stops the writing when it is done (for example on
+	// an interrupt): nothing is left behind.
+	Context context.Context
 }
 
 // Row is one line of cohort.csv.
@@ -241,6 +245,9 @@ func writeCases(root string, opts WriteOptions) ([]Row, error) {
 		go func() {
 			defer wg.Done()
 			for i := range jobs {
+				if opts.Context != nil && opts.Context.Err() != nil {
+					stop.Store(true)
+				}
 				if stop.Load() {
 					results <- result{i, errStopped}
 					continue
@@ -275,6 +282,9 @@ func writeCases(root string, opts WriteOptions) ([]Row, error) {
 	}
 	if first != nil {
 		return nil, first
+	}
+	if opts.Context != nil && opts.Context.Err() != nil {
+		return nil, fmt.Errorf("cohort not written: %w", context.Cause(opts.Context))
 	}
 	return rows, nil
 }

@@ -2,6 +2,7 @@ package phantom
 
 import (
 	"bytes"
+	"context"
 	"encoding/csv"
 	"io/fs"
 	"math"
@@ -299,5 +300,18 @@ func TestCohortLoadsBack(t *testing.T) {
 		if r.DICOMPath != "" {
 			check("dicom", []string{filepath.Join(dir, r.DICOMPath)}, c.Volume)
 		}
+	}
+}
+
+func TestCohortCancelled(t *testing.T) {
+	parent := t.TempDir()
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	_, err := WriteCohort(filepath.Join(parent, "c"), WriteOptions{N: 3, VoxelMM: cohortVoxel, Context: ctx})
+	if err == nil {
+		t.Fatal("a cancelled cohort was written")
+	}
+	if ents, _ := os.ReadDir(parent); len(ents) != 0 {
+		t.Errorf("left behind: %v", ents)
 	}
 }
