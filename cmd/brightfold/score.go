@@ -90,6 +90,9 @@ func runScore(e *env, args []string) error {
 	rep.TimingMs["total"] = msSince(t0)
 	if o.hidePaths {
 		rep.Input.Path = baseNames(paths)
+		if o.model != "" {
+			rep.Model.Source = filepath.Base(o.model)
+		}
 	}
 	if o.out != "" {
 		if err := writeResult(o, paths, rep); err != nil {
@@ -147,6 +150,9 @@ func writeResult(o scoreOptions, paths []string, rep *report.Score) error {
 	c := *rep
 	if !o.showPaths {
 		c.Input.Path = baseNames(paths)
+		if o.model != "" {
+			c.Model.Source = filepath.Base(o.model)
+		}
 	}
 	if _, err := report.WriteScore(o.out, &c); err != nil {
 		var pe *os.PathError
@@ -168,7 +174,7 @@ func scoreReport(input string, v *volume.Volume, b *inference.Bundle, r *inferen
 	rep := &report.Score{
 		Input: report.Input{Path: input, Format: v.Meta.Format, Dims: v.Dims, SpacingMm: v.Spacing(),
 			Orientation: orient, Modality: v.Meta.Modality},
-		Model: report.Model{Name: c.Name, Version: c.Version, SHA256: b.SHA256},
+		Model: report.Model{Name: c.Name, Version: c.Version, SHA256: b.SHA256, Source: b.Source},
 		Prediction: report.Prediction{Label: r.Prediction.Label, Probability: r.Prediction.Probability,
 			PositiveClass: c.PositiveClass, Probabilities: r.Prediction.Probabilities,
 			Temperature: r.Prediction.Temperature, Uncalibrated: r.Prediction.Uncalibrated},
