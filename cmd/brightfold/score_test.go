@@ -202,3 +202,38 @@ func TestScoreAndBundleErrors(t *testing.T) {
 		t.Errorf("bundle check: exit %d\n%s\n%s", code, stdout, stderr)
 	}
 }
+
+// Patient identifiers of a DICOM series never reach the output, text or
+// JSON or result.json (fictional identifiers of the demo scenario).
+func TestScoreHidesIdentifiers(t *testing.T) {
+	lib := refcheck.ORTLib(t)
+	bundle := tinyBundle(t)
+	scan := headNIfTI(t)
+	v, err := volume.Load([]string{scan}, volume.LoadOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := filepath.Join(t.TempDir(), "dicom")
+	err = volume.WriteDICOMSeries(dir, v, volume.DICOMWriteOptions{Seed: "HMRU-0001/T1", PatientName: "DEMO^SUBJECT0001",
+		PatientID: "HMRU-0001-ID", PatientBirthDate: "19510203", StudyDate: "20261201", AccessionNumber: "ACC7781",
+		InstitutionName: "Harbourside Memory Research Unit"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	out := filepath.Join(t.TempDir(), "out")
+	for _, args := range [][]string{
+		{"score", dir, "--model", bundle, "--ort-lib", lib},
+		{"score", dir, "--model", bundle, "--ort-lib", lib, "--json", "--out", out},
+	} {
+		code, stdout, stderr := runCLI(args...)
+		if code != 0 {
+			t.Fatalf("%v: exit %d: %s", args, code, stderr)
+		}
+		res, _ := os.ReadFile(filepath.Join(out, "result.json"))
+		for _, id := range []string{"DEMO^SUBJECT0001", "HMRU-0001-ID", "19510203", "20261201", "ACC7781", "Harbourside"} {
+			if strings.Contains(stdout+stderr+string(res), id) {
+				t.Errorf("%v: output contains identifier %q", args, id)
+			}
+		}
+	}
+}
