@@ -1,0 +1,42 @@
+// Package overlay computes relevance maps for a model bundle's positive-class
+// score (or any class the caller picks) with published explanation methods,
+// each with the check that its own definition implies:
+//
+//   - LRP, layer-wise relevance propagation (Bach et al. 2015), on the Go
+//     executor of package graph, node by node over a forward Trace. The
+//     default composite follows Montavon et al. 2019 ("Layer-wise relevance
+//     propagation: an overview", section 10.1): the z^B rule at the input
+//     layer with the bounds of the card's intensity normalisation, the
+//     alpha1-beta0 rule in the lower convolutions, the epsilon rule in the
+//     upper convolutions and LRP-0 (epsilon rule with a vanishing epsilon)
+//     in the dense layers. BatchNormalization after a convolution is folded
+//     into it first (graph.FoldBatchNorm); ReLU, Dropout, Identity and the
+//     shape operators pass relevance on unchanged; max pooling routes it to
+//     the winner; average pooling splits it in proportion to the inputs.
+//     Check: conservation, the input relevance plus the relevance the biases
+//     and the stabilisers absorb (both computed from their own terms) equals
+//     the target logit.
+//   - Gradient × input (Shrikumar et al. 2016; for ReLU networks equal to
+//     LRP-0, Ancona et al. 2018).
+//   - Integrated gradients (Sundararajan et al. 2017) from a zero or a
+//     blurred baseline with m steps, batched through the executor. Check:
+//     completeness, the attributions sum to f(x) − f(baseline).
+//   - Occlusion sensitivity (Zeiler & Fergus 2014): the drop of the target
+//     logit when a cube of the input is set to a fill value, through ONNX
+//     Runtime (inference.Session) in batches. It needs only the model's
+//     outputs, so it works on any bundle, also one whose operators the Go
+//     executor lacks.
+//
+// Maps are computed on the model grid (Map, in grid order: x fastest) and
+// carried back onto the scan's own voxel grid by ToScan through the inverse
+// of the preprocessing transform, so that a written map has the scan's dims
+// and affine.
+//
+// Explainer.Available lists, for a bundle, which methods can run and why not
+// (an operator without a Go kernel or without an LRP rule switches off the
+// executor methods with the reason; occlusion stays). The slow methods take
+// a context.Context for cancellation and report progress through
+// Options.Progress.
+//
+// Research use only. Not a diagnosis.
+package overlay

@@ -1,0 +1,228 @@
+package overlay
+
+import (
+	"context"
+	"fmt"
+	"math"
+
+	"brightfold/graph"
+	"brightfold/inference"
+)
+
+// computeLRP runs the planned LRP rules and reports their conservation.
+func (e *Explainer) computeLRP(ctx context.Context, t *inference.Tensor, tg target, opt Options) (*Map, error) {
+	x, err := e.input1(t)
+	if err != nil {
+		return nil, err
+	}
+	res, err := e.lrp.run(ctx, x, tg, opt)
+	if err != nil {
+		return nil, err
+	}
+	f := res.target
+	rsum := sum(res.input.Data)
+	den := math.Max(math.Abs(f), 1e-12)
+	return &Map{
+		Rule:     e.lrp.describe(opt.Rule, opt.Epsilon),
+		Target:   f,
+		Values:   toGrid(t, res.input.Data),
+		Additive: true,
+		Passes:   1,
+		Checks: map[string]float64{
+			// Bach et al. 2015, eq. 2 and section 3: relevance is conserved
+			// from layer to layer; what the biases and stabilisers take is
+			// booked from their own terms.
+			"conservation_error": math.Abs(rsum+res.ledger.bias+res.ledger.stab-f) / den,
+			"relevance_sum":      rsum,
+			"target_logit":       f,
+			"bias_share":         res.ledger.bias / den,
+			"stabiliser_share":   res.ledger.stab / den,
+		},
+		Settings: map[string]any{"rule": string(opt.Rule), "epsilon": opt.Epsilon},
+	}, nil
+}
+
+// input1 checks t's size and wraps it as a one-case executor input.
+func (e *Explainer) input1(t *inference.Tensor) (*graph.Tensor, error) {
+	n := 1
+	for _, d := range t.Shape[1:] {
+		n *= int(d)
+	}
+	if len(t.Shape) < 2 || t.Shape[0] != 1 || len(t.Data) != n {
+		return nil, fmt.Errorf("overlay: tensor of shape %v holds %d values; want one case", t.Shape, len(t.Data))
+	}
+	return graphInput(t), nil
+}
+
+// gradSum returns the sum over n cases (made by fill into a buffer of one's
+// size) of the gradient of the target score, and each case's score, running
+// the executor in batches of at most batch cases.
+func (e *Explainer) gradSum(ctx context.Context, one *graph.Tensor, n int, fill func(i int, dst []float32), tg target, batch int, onBatch func(done int)) ([]float64, []float64, error) {
+	batch = max(1, min(batch, e.maxBatch, n))
+	per := one.Len()
+	acc := make([]float64, per)
+	var scores []float64
+	for lo := 0; lo < n; lo += batch {
+		if err := ctx.Err(); err != nil {
+			return nil, nil, err
+		}
+		hi := min(n, lo+batch)
+		x := graph.New(append([]int{hi - lo}, one.Shape[1:]...)...)
+		for i := lo; i < hi; i++ {
+			fill(i, x.Data[(i-lo)*per:(i-lo+1)*per])
+		}
+		g, s, err := e.gradBatch(x, tg)
+		if err != nil {
+			return nil, nil, err
+		}
+		for i, v := range g.Data {
+			acc[i%per] += float64(v)
+		}
+		scores = append(scores, s...)
+		if onBatch != nil {
+			onBatch(hi)
+		}
+	}
+	return acc, scores, nil
+}
+
+// gradBatch is one forward and backward pass on a batch.
+func (e *Explainer) gradBatch(x *graph.Tensor, tg target) (*graph.Tensor, []float64, error) {
+	tr, err := e.exec.Forward(map[string]*graph.Tensor{e.input: x})
+	if err != nil {
+		return nil, nil, err
+	}
+	z := tr.Value(e.logits)
+	if z == nil {
+		return nil, nil, fmt.Errorf("overlay: the model computes no %q", e.logits)
+	}
+	seed, err := tg.seed(z)
+	if err != nil {
+		return nil, nil, err
+	}
+	g, err := e.exec.BackwardWith(tr, map[string]*graph.Tensor{e.logits: seed}, graph.BackwardOptions{NoParams: true})
+	if err != nil {
+		return nil, nil, err
+	}
+	gx := g.Of(e.input)
+	if gx == nil {
+		gx = graph.New(x.Shape...)
+	}
+	return gx, tg.scores(z), nil
+}
+
+// scoresOf runs the executor forward on cases and returns their scores.
+func (e *Explainer) scoresOf(one *graph.Tensor, cases [][]float32, tg target) ([]float64, error) {
+	var out []float64
+	per := one.Len()
+	batch := max(1, min(len(cases), e.maxBatch))
+	for lo := 0; lo < len(cases); lo += batch {
+		hi := min(len(cases), lo+batch)
+		x := graph.New(append([]int{hi - lo}, one.Shape[1:]...)...)
+		for i, c := range cases[lo:hi] {
+			copy(x.Data[i*per:], c)
+		}
+		tr, err := e.exec.Forward(map[string]*graph.Tensor{e.input: x})
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, tg.scores(tr.Value(e.logits))...)
+	}
+	return out, nil
+}
+
+// computeGradInput is gradient × input (Shrikumar et al. 2016).
+func (e *Explainer) computeGradInput(ctx context.Context, t *inference.Tensor, tg target) (*Map, error) {
+	x, err := e.input1(t)
+	if err != nil {
+		return nil, err
+	}
+	g, s, err := e.gradSum(ctx, x, 1, func(_ int, dst []float32) { copy(dst, x.Data) }, tg, 1, nil)
+	if err != nil {
+		return nil, err
+	}
+	v := make([]float32, len(x.Data))
+	for i, xv := range x.Data {
+		v[i] = float32(float64(xv) * g[i])
+	}
+	rsum := sum(v)
+	return &Map{
+		Rule: "gradient of the target logit times the input", Target: s[0], Values: toGrid(t, v),
+		Additive: true, Passes: 1,
+		Checks: map[string]float64{"relevance_sum": rsum, "target_logit": s[0]},
+	}, nil
+}
+
+// computeIG is integrated gradients (Sundararajan et al. 2017, eq. 3),
+// approximated with the midpoint rule on m steps:
+// (x − x')·(1/m)·Σ_k ∇f(x' + (k − ½)/m·(x − x')).
+func (e *Explainer) computeIG(ctx context.Context, t *inference.Tensor, tg target, opt Options) (*Map, error) {
+	x, err := e.input1(t)
+	if err != nil {
+		return nil, err
+	}
+	base, err := e.baseline(t, opt)
+	if err != nil {
+		return nil, err
+	}
+	m := opt.Steps
+	point := func(k int, dst []float32) {
+		a := float32((float64(k) + 0.5) / float64(m))
+		for i, xv := range x.Data {
+			dst[i] = base[i] + a*(xv-base[i])
+		}
+	}
+	total := m + 2
+	opt.progress(0, total)
+	ends, err := e.scoresOf(x, [][]float32{x.Data, base}, tg)
+	if err != nil {
+		return nil, err
+	}
+	opt.progress(2, total)
+	acc, _, err := e.gradSum(ctx, x, m, point, tg, opt.Batch, func(done int) { opt.progress(2+done, total) })
+	if err != nil {
+		return nil, err
+	}
+	v := make([]float32, len(x.Data))
+	for i, xv := range x.Data {
+		v[i] = float32(float64(xv-base[i]) * acc[i] / float64(m))
+	}
+	rsum := sum(v)
+	diff := ends[0] - ends[1]
+	return &Map{
+		Rule:   fmt.Sprintf("integrated gradients, %s baseline, %d midpoint steps", opt.Baseline, m),
+		Target: ends[0], Values: toGrid(t, v), Additive: true, Passes: total,
+		Checks: map[string]float64{
+			// Sundararajan et al. 2017, Proposition 1 (completeness):
+			// Σ_i IG_i = f(x) − f(x').
+			"completeness_error": math.Abs(rsum-diff) / math.Max(math.Abs(diff), 1e-12),
+			"relevance_sum":      rsum,
+			"target_logit":       ends[0],
+			"baseline_logit":     ends[1],
+		},
+		Settings: map[string]any{"steps": m, "baseline": string(opt.Baseline), "blur_sigma_mm": blurSetting(opt)},
+	}, nil
+}
+
+func blurSetting(opt Options) any {
+	if opt.Baseline != BaselineBlur {
+		return nil
+	}
+	return opt.BlurSigmaMM
+}
+
+// baseline returns the integrated-gradients baseline in t's layout.
+func (e *Explainer) baseline(t *inference.Tensor, opt Options) ([]float32, error) {
+	switch opt.Baseline {
+	case BaselineZero:
+		return make([]float32, len(t.Data)), nil
+	case BaselineBlur:
+		sp := e.card.Preprocessing.SpacingMm
+		var sigma [3]float64
+		for a := range sigma {
+			sigma[a] = opt.BlurSigmaMM / sp[a]
+		}
+		return blurTensor(t, sigma), nil
+	}
+	return nil, fmt.Errorf("overlay: unknown baseline %q (want %s or %s)", opt.Baseline, BaselineZero, BaselineBlur)
+}

@@ -1,0 +1,569 @@
+package overlay
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"strings"
+
+	"brightfold/graph"
+)
+
+// nodeKind is how LRP treats a node on the path from the input to the logits.
+type nodeKind int
+
+const (
+	kindSkip         nodeKind = iota // not on the relevance path
+	kindIdentity                     // R_in = R_out (ReLU, Dropout, Identity)
+	kindRoute                        // R_in = VJP(R_out): winner-take-all pooling, shape operators
+	kindProportional                 // R_i = x_i·VJP(R/z)_i: average pooling, sums, elementwise affine
+	kindWeighted                     // a linear layer with constant weights: by rule
+)
+
+var nodeKinds = map[string]nodeKind{
+	"Relu": kindIdentity, "LeakyRelu": kindIdentity, "Identity": kindIdentity, "Dropout": kindIdentity,
+	"MaxPool": kindRoute, "GlobalMaxPool": kindRoute, "ReduceMax": kindRoute,
+	"Flatten": kindRoute, "Reshape": kindRoute, "Squeeze": kindRoute, "Unsqueeze": kindRoute,
+	"Transpose": kindRoute, "Concat": kindRoute,
+	"AveragePool": kindProportional, "GlobalAveragePool": kindProportional, "ReduceMean": kindProportional,
+	"ReduceSum": kindProportional, "Add": kindProportional, "Sub": kindProportional,
+	"Mul": kindProportional, "Div": kindProportional, "BatchNormalization": kindProportional,
+	"Conv": kindWeighted, "Gemm": kindWeighted, "MatMul": kindWeighted,
+}
+
+// ruleKind is the rule of a weighted layer.
+type ruleKind int
+
+const (
+	ruleZB        ruleKind = iota // z^B (Montavon et al. 2017, 2019) for the input layer
+	ruleAlphaBeta                 // alpha = 1, beta = 0 (Bach et al. 2015)
+	ruleEpsilon                   // epsilon rule (Bach et al. 2015)
+	ruleZero                      // LRP-0: epsilon rule with a vanishing epsilon
+)
+
+func (r ruleKind) String() string {
+	return [...]string{"z^B", "alpha1-beta0", "epsilon", "LRP-0"}[r]
+}
+
+// lrpStep is the plan for one node of the folded model.
+type lrpStep struct {
+	kind   nodeKind
+	layer  *linearLayer // kindWeighted
+	conv   bool
+	first  bool // the weighted layer nearest the input
+	convAt int  // index among the convolutions (kindWeighted, conv)
+}
+
+// lrpPlan is the LRP walk over the BatchNormalization-folded model.
+type lrpPlan struct {
+	exec          *graph.Executor
+	input, logits string
+	steps         []*lrpStep // aligned with exec.Nodes()
+	dep           map[string]bool
+	bounds        [2]float64
+	folded, convs int
+}
+
+// newLRPPlan folds the model's batch normalisation into its convolutions
+// and checks that every node between the input and the logits has a rule.
+func newLRPPlan(m *graph.Model, input, logits string, bounds [2]float64) (*lrpPlan, error) {
+	fm, folded, err := graph.FoldBatchNorm(m)
+	if err != nil {
+		return nil, fmt.Errorf("fold batch normalisation: %w", err)
+	}
+	ex, err := graph.NewExecutor(fm)
+	if err != nil {
+		return nil, err
+	}
+	p := &lrpPlan{exec: ex, input: input, logits: logits, bounds: bounds, folded: folded, dep: map[string]bool{input: true}}
+	nodes := ex.Nodes()
+	for _, n := range nodes {
+		if anyIn(n.Inputs, p.dep) {
+			for _, o := range n.Outputs {
+				p.dep[o] = true
+			}
+		}
+	}
+	if !p.dep[logits] {
+		return nil, fmt.Errorf("the logits %q do not depend on the input %q", logits, input)
+	}
+	need := map[string]bool{logits: true}
+	p.steps = make([]*lrpStep, len(nodes))
+	for i := len(nodes) - 1; i >= 0; i-- {
+		n := nodes[i]
+		p.steps[i] = &lrpStep{}
+		if !anyIn(n.Outputs, need) || !anyIn(n.Inputs, p.dep) {
+			continue
+		}
+		st, err := p.classify(fm, n)
+		if err != nil {
+			return nil, err
+		}
+		p.steps[i] = st
+		for _, in := range n.Inputs {
+			if p.dep[in] {
+				need[in] = true
+			}
+		}
+	}
+	p.numberLayers()
+	return p, nil
+}
+
+func anyIn(names []string, set map[string]bool) bool {
+	for _, s := range names {
+		if s != "" && set[s] {
+			return true
+		}
+	}
+	return false
+}
+
+// classify finds the rule family of node n, or says why LRP has none.
+func (p *lrpPlan) classify(m *graph.Model, n *graph.Node) (*lrpStep, error) {
+	kind, ok := nodeKinds[n.OpType]
+	if !ok {
+		return nil, fmt.Errorf("no LRP rule for %s", n.Describe())
+	}
+	depIn := 0
+	for _, in := range n.Inputs {
+		if p.dep[in] {
+			depIn++
+		}
+	}
+	switch {
+	case kind == kindWeighted:
+		return p.weighted(m, n)
+	case (n.OpType == "Mul" || n.OpType == "Div") && (depIn != 1 || !p.dep[n.Input(0)] && n.OpType == "Div"):
+		return nil, fmt.Errorf("no LRP rule for %s: it multiplies or divides by an input-dependent value", n.Describe())
+	case kind == kindIdentity && !p.dep[n.Input(0)]:
+		return nil, fmt.Errorf("no LRP rule for %s: its first input does not carry relevance", n.Describe())
+	}
+	return &lrpStep{kind: kind}, nil
+}
+
+// weighted plans a linear layer: input 0 carries relevance, the weight
+// (input 1) and the bias (input 2, optional) are constants.
+func (p *lrpPlan) weighted(m *graph.Model, n *graph.Node) (*lrpStep, error) {
+	if !p.dep[n.Input(0)] || p.dep[n.Input(1)] || p.dep[n.Input(2)] {
+		return nil, fmt.Errorf("no LRP rule for %s: only a layer with constant weights on an input-dependent first operand has one", n.Describe())
+	}
+	w := constTensor(m, n.Input(1))
+	if w == nil {
+		return nil, fmt.Errorf("no LRP rule for %s: its weight is not a float constant", n.Describe())
+	}
+	var b *graph.Tensor
+	if n.OpType != "MatMul" && n.Input(2) != "" {
+		if b = constTensor(m, n.Input(2)); b == nil {
+			return nil, fmt.Errorf("no LRP rule for %s: its bias is not a float constant", n.Describe())
+		}
+	}
+	l, err := newLinearLayer(n, p.exec.Opset(), w, b)
+	if err != nil {
+		return nil, err
+	}
+	return &lrpStep{kind: kindWeighted, layer: l, conv: n.OpType == "Conv"}, nil
+}
+
+// constTensor returns the float tensor of an initializer or a Constant
+// node's value, or nil.
+func constTensor(m *graph.Model, name string) *graph.Tensor {
+	if in := m.Graph.Initializer(name); in != nil {
+		if in.Tensor != nil && in.Tensor.IsFloat() {
+			return in.Tensor
+		}
+		return nil
+	}
+	if n := m.Graph.Producer(name); n != nil && n.OpType == "Constant" {
+		if a := n.Attr("value"); a != nil && a.T != nil && a.T.IsFloat() {
+			return a.T
+		}
+	}
+	return nil
+}
+
+// numberLayers marks the first weighted layer and numbers the convolutions
+// in execution order.
+func (p *lrpPlan) numberLayers() {
+	first := true
+	for _, st := range p.steps {
+		if st.kind != kindWeighted {
+			continue
+		}
+		st.first, first = first, false
+		if st.conv {
+			st.convAt = p.convs
+			p.convs++
+		}
+	}
+}
+
+// rule is the rule a weighted layer gets under rule set rs: for the
+// composite, z^B at the input layer, alpha1-beta0 in the lower half of the
+// convolutions, epsilon in the upper half, LRP-0 in dense layers (Montavon
+// et al. 2019, section 10.1: LRP-γ-like rules low, LRP-ε in the middle,
+// LRP-0 at the top).
+func (p *lrpPlan) rule(st *lrpStep, rs LRPRule) ruleKind {
+	switch {
+	case rs == RuleEpsilon:
+		return ruleEpsilon
+	case st.first:
+		return ruleZB
+	case rs == RuleAlphaBeta:
+		return ruleAlphaBeta
+	case !st.conv:
+		return ruleZero
+	case st.convAt < (p.convs+1)/2:
+		return ruleAlphaBeta
+	}
+	return ruleEpsilon
+}
+
+// describe lists the layers under each rule, e.g. "z^B: conv1; alpha1-beta0: conv2; ...".
+func (p *lrpPlan) describe(rs LRPRule, eps float64) string {
+	var order []ruleKind
+	names := map[ruleKind][]string{}
+	for i, st := range p.steps {
+		if st.kind != kindWeighted {
+			continue
+		}
+		r := p.rule(st, rs)
+		if names[r] == nil {
+			order = append(order, r)
+		}
+		n := p.exec.Nodes()[i]
+		label := n.Name
+		if label == "" {
+			label = n.OpType + " -> " + n.Outputs[0]
+		}
+		names[r] = append(names[r], label)
+	}
+	var parts []string
+	for _, r := range order {
+		label := r.String()
+		if r == ruleEpsilon {
+			label = fmt.Sprintf("epsilon (%.2g × RMS)", eps)
+		}
+		parts = append(parts, label+": "+strings.Join(names[r], ", "))
+	}
+	return fmt.Sprintf("%s rule; %s; %d batch normalisation(s) folded", rs, strings.Join(parts, "; "), p.folded)
+}
+
+// ledger sums the relevance the rules absorb rather than pass on.
+type ledger struct {
+	bias float64 // taken by biases and constant operands
+	stab float64 // taken by the stabilisers (and dropped where a denominator is zero)
+}
+
+// lrpResult is one LRP pass.
+type lrpResult struct {
+	input  *graph.Tensor
+	target float64
+	ledger ledger
+}
+
+// run propagates the target logit of x back to the input.
+func (p *lrpPlan) run(ctx context.Context, x *graph.Tensor, tg target, opt Options) (*lrpResult, error) {
+	tr, err := p.exec.Forward(map[string]*graph.Tensor{p.input: x})
+	if err != nil {
+		return nil, err
+	}
+	z := tr.Value(p.logits)
+	seed, err := tg.seed(z)
+	if err != nil {
+		return nil, err
+	}
+	r0 := graph.New(z.Shape...)
+	for i, s := range seed.Data {
+		r0.Data[i] = s * z.Data[i]
+	}
+	res := &lrpResult{target: tg.scores(z)[0]}
+	rel := map[string]*graph.Tensor{p.logits: r0}
+	owned := map[string]bool{p.logits: true}
+	nodes := p.exec.Nodes()
+	for i := len(nodes) - 1; i >= 0; i-- {
+		st, n := p.steps[i], nodes[i]
+		r := rel[n.Outputs[0]]
+		if st.kind == kindSkip || r == nil {
+			continue
+		}
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
+		delete(rel, n.Outputs[0])
+		ins, outs := tr.NodeInputs(n), tr.NodeOutputs(n)
+		parts, err := p.step(st, n, ins, outs, r, opt, &res.ledger)
+		if err != nil {
+			return nil, fmt.Errorf("LRP at %s: %w", n.Describe(), err)
+		}
+		for j, part := range parts {
+			if part != nil && p.dep[n.Inputs[j]] {
+				addRelevance(rel, owned, n.Inputs[j], part)
+			}
+		}
+	}
+	res.input = rel[p.input]
+	if res.input == nil {
+		res.input = graph.New(x.Shape...)
+	}
+	return res, nil
+}
+
+// addRelevance adds part to rel[name], copying before the first in-place sum.
+func addRelevance(rel map[string]*graph.Tensor, owned map[string]bool, name string, part *graph.Tensor) {
+	cur := rel[name]
+	if cur == nil {
+		rel[name], owned[name] = part, false
+		return
+	}
+	if !owned[name] {
+		cur = cur.Clone()
+		rel[name], owned[name] = cur, true
+	}
+	for i, v := range part.Data {
+		cur.Data[i] += v
+	}
+}
+
+// step returns the relevance of each input of n given the relevance r of
+// its first output.
+func (p *lrpPlan) step(st *lrpStep, n *graph.Node, ins, outs []*graph.Tensor, r *graph.Tensor, opt Options, lg *ledger) ([]*graph.Tensor, error) {
+	parts := make([]*graph.Tensor, len(ins))
+	switch st.kind {
+	case kindIdentity:
+		parts[0] = r
+	case kindRoute:
+		g, err := p.exec.VJP(n, ins, outs, []*graph.Tensor{r})
+		if err != nil {
+			return nil, err
+		}
+		copy(parts, g)
+	case kindProportional:
+		return p.proportional(n, ins, outs, r, lg)
+	case kindWeighted:
+		x, z := ins[0], outs[0]
+		var err error
+		switch rk := p.rule(st, opt.Rule); rk {
+		case ruleZB:
+			parts[0], err = p.zB(st.layer, x, z, r, lg)
+		case ruleAlphaBeta:
+			parts[0], err = alphaBeta(st.layer, x, r, lg)
+		default:
+			eps := opt.Epsilon
+			if rk == ruleZero {
+				eps = tinyEps
+			}
+			parts[0], err = epsilonRule(st.layer, x, z, r, eps, lg)
+		}
+		if err != nil {
+			return nil, err
+		}
+	}
+	return parts, nil
+}
+
+// tinyEps is the relative stabiliser of the rules that need none but must
+// not divide by zero (LRP-0, z^B, alpha1-beta0, proportional splits).
+const tinyEps = 1e-9
+
+// stabilised returns s = R / (z + eps·sign z), with eps relative to the
+// root mean square of z, and books Σ (R − s·z), the part the stabiliser
+// takes, in the ledger. s is 0 where the denominator is 0 (R is dropped).
+func stabilised(r, z *graph.Tensor, rel float64, lg *ledger) *graph.Tensor {
+	var ss float64
+	for _, v := range z.Data {
+		ss += float64(v) * float64(v)
+	}
+	eps := rel * math.Sqrt(ss/float64(max(len(z.Data), 1)))
+	s := graph.New(z.Shape...)
+	var taken float64
+	for i, zv := range z.Data {
+		d := float64(zv)
+		if d >= 0 {
+			d += eps
+		} else {
+			d -= eps
+		}
+		rv := float64(r.Data[i])
+		if d != 0 && !math.IsInf(rv/d, 0) {
+			s.Data[i] = float32(rv / d)
+		}
+		taken += rv - float64(s.Data[i])*float64(zv)
+	}
+	lg.stab += taken
+	return s
+}
+
+// epsilonRule: R_i = x_i Σ_j w_ij R_j / (z_j + ε sign z_j) (Bach et al.
+// 2015, eq. 58). The bias takes Σ_j s_j b_j.
+func epsilonRule(l *linearLayer, x, z, r *graph.Tensor, eps float64, lg *ledger) (*graph.Tensor, error) {
+	s := stabilised(r, z, eps, lg)
+	c, err := l.vjpFull(x, z, s)
+	if err != nil {
+		return nil, err
+	}
+	bias, err := l.cached("bias", x.Shape)
+	if err != nil {
+		return nil, err
+	}
+	if bias != nil {
+		lg.bias += dot(s.Data, bias.Data)
+	}
+	return mulTensors(x, c), nil
+}
+
+// alphaBeta is the alpha1-beta0 rule (Bach et al. 2015, eq. 60 with α = 1,
+// β = 0; the z⁺ rule of Montavon et al. 2017): R_i = Σ_j (x_i w_ij)⁺ R_j /
+// Σ_i (x_i w_ij)⁺, bias left out.
+func alphaBeta(l *linearLayer, x, r *graph.Tensor, lg *ledger) (*graph.Tensor, error) {
+	xp, xn := graph.New(x.Shape...), graph.New(x.Shape...)
+	negative := false
+	for i, v := range x.Data {
+		if v > 0 {
+			xp.Data[i] = v
+		} else if v < 0 {
+			xn.Data[i], negative = v, true
+		}
+	}
+	zp, err := forward(l.pos, xp)
+	if err != nil {
+		return nil, err
+	}
+	if negative {
+		zn, err := forward(l.neg, xn)
+		if err != nil {
+			return nil, err
+		}
+		zp = addTensors(zp, zn)
+	}
+	s := stabilised(r, zp, tinyEps, lg)
+	c, err := l.vjpPos(xp, zp, s)
+	if err != nil {
+		return nil, err
+	}
+	out := mulTensors(xp, c)
+	if negative {
+		cn, err := l.vjpNeg(xn, zp, s)
+		if err != nil {
+			return nil, err
+		}
+		out = addTensors(out, mulTensors(xn, cn))
+	}
+	return out, nil
+}
+
+// zB is the z^B rule for an input layer whose inputs lie in [L, H]
+// (Montavon et al. 2017, "Explaining nonlinear classification decisions
+// with deep Taylor decomposition"; Montavon et al. 2019, eq. in section
+// 10.1): R_i = Σ_j (x_i w_ij − L w⁺_ij − H w⁻_ij) R_j / Σ_i (…), which is
+// (x_i − L)·[W⁺ᵀs]_i + (x_i − H)·[W⁻ᵀs]_i.
+func (p *lrpPlan) zB(l *linearLayer, x, z, r *graph.Tensor, lg *ledger) (*graph.Tensor, error) {
+	lo, hi := p.bounds[0], p.bounds[1]
+	for _, v := range x.Data {
+		if !(float64(v) >= lo) {
+			lo = float64(v)
+		}
+		if !(float64(v) <= hi) {
+			hi = float64(v)
+		}
+	}
+	bias, err := l.cached("bias", x.Shape)
+	if err != nil {
+		return nil, err
+	}
+	onesPos, err := l.cached("ones+", x.Shape)
+	if err != nil {
+		return nil, err
+	}
+	onesNeg, err := l.cached("ones-", x.Shape)
+	if err != nil {
+		return nil, err
+	}
+	zb := graph.New(z.Shape...)
+	for i, v := range z.Data {
+		lin := float64(v)
+		if bias != nil {
+			lin -= float64(bias.Data[i])
+		}
+		zb.Data[i] = float32(lin - lo*float64(onesPos.Data[i]) - hi*float64(onesNeg.Data[i]))
+	}
+	s := stabilised(r, zb, tinyEps, lg)
+	cp, err := l.vjpPos(x, zb, s)
+	if err != nil {
+		return nil, err
+	}
+	cn, err := l.vjpNeg(x, zb, s)
+	if err != nil {
+		return nil, err
+	}
+	out := graph.New(x.Shape...)
+	for i, v := range x.Data {
+		out.Data[i] = float32((float64(v)-lo)*float64(cp.Data[i]) + (float64(v)-hi)*float64(cn.Data[i]))
+	}
+	return out, nil
+}
+
+// proportional splits R among the input-dependent operands in proportion to
+// their contributions, R_i = x_i·VJP(R/z)_i: average pooling and means split
+// in proportion to the inputs, a sum in proportion to its terms. Constant
+// operands (a bias added, a batch normalisation's shift) take the rest.
+func (p *lrpPlan) proportional(n *graph.Node, ins, outs []*graph.Tensor, r *graph.Tensor, lg *ledger) ([]*graph.Tensor, error) {
+	z := outs[0]
+	s := stabilised(r, z, tinyEps, lg)
+	g, err := p.exec.VJP(n, ins, outs, []*graph.Tensor{s})
+	if err != nil {
+		return nil, err
+	}
+	parts := make([]*graph.Tensor, len(ins))
+	passed, hasConst := 0.0, false
+	for j, in := range ins {
+		if in == nil || !in.IsFloat() {
+			continue
+		}
+		if !p.dep[n.Inputs[j]] {
+			hasConst = true
+			continue
+		}
+		if j >= len(g) || g[j] == nil {
+			continue
+		}
+		parts[j] = mulTensors(in, g[j])
+		passed += sum(parts[j].Data)
+	}
+	if hasConst {
+		lg.bias += dot(s.Data, z.Data) - passed
+	}
+	return parts, nil
+}
+
+func mulTensors(a, b *graph.Tensor) *graph.Tensor {
+	out := graph.New(a.Shape...)
+	for i, v := range a.Data {
+		out.Data[i] = v * b.Data[i]
+	}
+	return out
+}
+
+func addTensors(a, b *graph.Tensor) *graph.Tensor {
+	out := graph.New(a.Shape...)
+	for i, v := range a.Data {
+		out.Data[i] = v + b.Data[i]
+	}
+	return out
+}
+
+func dot(a, b []float32) float64 {
+	var s float64
+	for i, v := range a {
+		s += float64(v) * float64(b[i])
+	}
+	return s
+}
+
+func sum(a []float32) float64 {
+	var s float64
+	for _, v := range a {
+		s += float64(v)
+	}
+	return s
+}

@@ -1,0 +1,102 @@
+package overlay
+
+// LRPRule selects the LRP rules.
+type LRPRule string
+
+// The LRP rule sets.
+const (
+	// RuleComposite (the default) applies the rules by layer position as
+	// Montavon et al. 2019 (section 10.1) recommend: z^B at the input layer,
+	// alpha1-beta0 in the lower convolutions, epsilon in the upper
+	// convolutions, LRP-0 in the dense layers.
+	RuleComposite LRPRule = "composite"
+	// RuleEpsilon applies the epsilon rule to every weighted layer (the rule
+	// whose conservation the checks measure).
+	RuleEpsilon LRPRule = "epsilon"
+	// RuleAlphaBeta applies z^B at the input layer and alpha1-beta0 to every
+	// other weighted layer.
+	RuleAlphaBeta LRPRule = "alpha1beta0"
+)
+
+// Baseline is the integrated-gradients reference input.
+type Baseline string
+
+// The baselines.
+const (
+	// BaselineZero is the all-zero tensor (for z-score normalisation, the
+	// head's mean intensity everywhere).
+	BaselineZero Baseline = "zero"
+	// BaselineBlur is the input blurred with a Gaussian of BlurSigmaMM
+	// (Sturmfels et al. 2020 discuss blurred baselines).
+	BaselineBlur Baseline = "blur"
+)
+
+// Options tune the methods; the zero value gives the defaults.
+type Options struct {
+	// Class is the class whose logit is explained; "" means the card's
+	// positive class.
+	Class string
+
+	// Rule is the LRP rule set ("" means RuleComposite).
+	Rule LRPRule
+	// Epsilon is the epsilon rule's stabiliser as a multiple of the root
+	// mean square of the layer's pre-activations (0 means 0.25, the value
+	// Montavon et al. use for the middle layers).
+	Epsilon float64
+
+	// Steps is the number of integrated-gradients steps m (0 means 64).
+	Steps int
+	// Baseline is the integrated-gradients baseline ("" means zero).
+	Baseline Baseline
+	// BlurSigmaMM is the blurred baseline's Gaussian sigma in millimetres
+	// (0 means 12).
+	BlurSigmaMM float64
+
+	// Patch is the occluding cube's side in model-grid voxels (0 means 8)
+	// and Stride the step between patches (0 means Patch/2).
+	Patch, Stride int
+	// Fill is the value the occluded voxels get (0: the head's mean for
+	// z-score normalisation).
+	Fill float32
+
+	// Batch is how many inputs one pass carries (integrated gradients and
+	// occlusion; 0 means 8). A model with a fixed batch of 1 runs one at a time.
+	Batch int
+	// Progress, when set, is called with the passes done and the total
+	// after each batch of the slow methods (integrated gradients, occlusion).
+	Progress func(done, total int)
+}
+
+func (o Options) withDefaults() Options {
+	if o.Rule == "" {
+		o.Rule = RuleComposite
+	}
+	if o.Epsilon <= 0 {
+		o.Epsilon = 0.25
+	}
+	if o.Steps <= 0 {
+		o.Steps = 64
+	}
+	if o.Baseline == "" {
+		o.Baseline = BaselineZero
+	}
+	if o.BlurSigmaMM <= 0 {
+		o.BlurSigmaMM = 12
+	}
+	if o.Patch <= 0 {
+		o.Patch = 8
+	}
+	if o.Stride <= 0 {
+		o.Stride = max(1, o.Patch/2)
+	}
+	if o.Batch <= 0 {
+		o.Batch = 8
+	}
+	return o
+}
+
+func (o Options) progress(done, total int) {
+	if o.Progress != nil {
+		o.Progress(done, total)
+	}
+}

@@ -1,0 +1,277 @@
+package overlay
+
+import (
+	"context"
+	"errors"
+	"math"
+	"strings"
+	"testing"
+
+	"brightfold/graph"
+	"brightfold/inference"
+)
+
+const testGrid = 16
+
+func testExplainer(t *testing.T, spec modelSpec, withSession bool) *Explainer {
+	t.Helper()
+	b := testBundle(t, spec)
+	var s *inference.Session
+	if withSession {
+		s = testSession(t, b)
+	}
+	ex, err := New(b, s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return ex
+}
+
+func compute(t *testing.T, ex *Explainer, m Method, in *inference.Tensor, opt Options) *Map {
+	t.Helper()
+	mp, err := ex.Compute(context.Background(), m, in, opt)
+	if err != nil {
+		t.Fatalf("%s: %v", m, err)
+	}
+	if len(mp.Values) != len(in.Data) || mp.Grid != in.Grid {
+		t.Fatalf("%s: map of %d values on %v for a %v grid", m, len(mp.Values), mp.Grid, in.Grid)
+	}
+	return mp
+}
+
+// LRP conservation (Bach et al. 2015, eq. 2): at every layer the relevance
+// passed down plus what the biases and the stabilisers take equals the
+// relevance received, so the input relevance plus those terms equals the
+// target logit. The bias term is computed from the biases themselves and the
+// stabiliser term from the epsilons, not as a remainder.
+func TestLRPConservation(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid}, false)
+	for seed := uint64(1); seed <= 3; seed++ {
+		in := testInput(testGrid, seed)
+		for _, rule := range []LRPRule{RuleEpsilon, RuleComposite, RuleAlphaBeta} {
+			for _, class := range []string{"positive", "negative"} {
+				m := compute(t, ex, LRP, in, Options{Rule: rule, Class: class})
+				c := m.Checks
+				if c["conservation_error"] > 1e-5 {
+					t.Errorf("seed %d, %s, class %s: conservation error %.3g (sum %.6g, bias %.3g, stabiliser %.3g, logit %.6g)",
+						seed, rule, class, c["conservation_error"], c["relevance_sum"], c["bias_share"], c["stabiliser_share"], c["target_logit"])
+				}
+				if math.Abs(m.Sum()-c["relevance_sum"]) > 1e-4*math.Abs(c["target_logit"]) {
+					t.Errorf("map sum %.6g, reported %.6g", m.Sum(), c["relevance_sum"])
+				}
+				if rule == RuleEpsilon && c["bias_share"] == 0 {
+					t.Errorf("seed %d: the epsilon rule booked no bias relevance although conv1, conv3 and fc have biases", seed)
+				}
+				if rule == RuleAlphaBeta && c["bias_share"] != 0 {
+					t.Errorf("seed %d: alpha1-beta0 leaves the bias out, yet booked %.3g", seed, c["bias_share"])
+				}
+			}
+		}
+	}
+}
+
+// With a vanishing epsilon, LRP on a ReLU network equals gradient × input
+// voxel by voxel (Ancona et al. 2018, "Towards better understanding of
+// gradient-based attribution methods", Proposition 1; Montavon et al. 2019,
+// section 10.2, from memory). Max pooling (winner) and average pooling
+// (proportional) keep the identity. The gradient comes from the executor's
+// own backward pass, a separate code path from the LRP rules.
+func TestLRPZeroIsGradientTimesInput(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid}, false)
+	in := testInput(testGrid, 7)
+	lrp0 := compute(t, ex, LRP, in, Options{Rule: RuleEpsilon, Epsilon: 1e-12})
+	gi := compute(t, ex, GradientInput, in, Options{})
+	if d := relDiff(lrp0.Values, gi.Values); d > 1e-3 {
+		t.Errorf("LRP-0 and gradient × input differ by %.3g of the largest value", d)
+	}
+	if math.Abs(lrp0.Target-gi.Target) > 1e-5 {
+		t.Errorf("target logit: LRP %.7g, gradient %.7g", lrp0.Target, gi.Target)
+	}
+}
+
+// Integrated gradients completeness (Sundararajan et al. 2017, Proposition 1):
+// the attributions add up to f(x) − f(x'), within 1 % at m = 64, for both
+// baselines; batching does not change the map.
+func TestIGCompleteness(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid}, false)
+	in := testInput(testGrid, 5)
+	for _, base := range []Baseline{BaselineZero, BaselineBlur} {
+		m := compute(t, ex, IntegratedGradients, in, Options{Baseline: base, Steps: 64})
+		t.Logf("%s baseline: f(x) %.5g, f(x') %.5g, sum %.5g, completeness error %.3g",
+			base, m.Checks["target_logit"], m.Checks["baseline_logit"], m.Checks["relevance_sum"], m.Checks["completeness_error"])
+		if e := m.Checks["completeness_error"]; !(e < 0.01) {
+			t.Errorf("%s baseline: completeness error %.3g at m = 64", base, e)
+		}
+		one := compute(t, ex, IntegratedGradients, in, Options{Baseline: base, Steps: 64, Batch: 1})
+		if d := relDiff(one.Values, m.Values); d > 1e-5 {
+			t.Errorf("%s baseline: batch 1 and batch 8 maps differ by %.3g", base, d)
+		}
+	}
+}
+
+// A blurred baseline is the input smoothed: same mean inside (the kernel is
+// normalised) and less variation.
+func TestBlurBaseline(t *testing.T) {
+	in := testInput(testGrid, 2)
+	b := blurTensor(in, [3]float64{2, 2, 2})
+	var ma, mb, va, vb float64
+	for i := range b {
+		ma += float64(in.Data[i])
+		mb += float64(b[i])
+	}
+	ma /= float64(len(b))
+	mb /= float64(len(b))
+	for i := range b {
+		va += sq(float64(in.Data[i]) - ma)
+		vb += sq(float64(b[i]) - mb)
+	}
+	if math.Abs(ma-mb) > 0.1 || !(vb < 0.8*va) {
+		t.Errorf("blur: mean %.3g → %.3g, variance %.3g → %.3g", ma, mb, va, vb)
+	}
+	if k := gaussian(1.5); math.Abs(sum32(k)-1) > 1e-12 || len(k) != 11 {
+		t.Errorf("gaussian(1.5): %d taps summing to %v", len(k), sum32(k))
+	}
+}
+
+func sum32(k []float64) float64 {
+	var s float64
+	for _, v := range k {
+		s += v
+	}
+	return s
+}
+
+// A model with an operator the Go executor lacks keeps occlusion (through
+// ONNX Runtime) and switches the executor methods off, naming the operator;
+// one the executor runs but LRP has no rule for switches off LRP only.
+func TestUnsupportedOperators(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid, insert: "Tanh"}, true)
+	in := testInput(testGrid, 1)
+	for _, a := range ex.Available() {
+		want := a.Method == Occlusion
+		if a.Available != want || (!want && !strings.Contains(a.Reason, "Tanh")) {
+			t.Errorf("Tanh model: %s available %v, reason %q", a.Method, a.Available, a.Reason)
+		}
+	}
+	if _, err := ex.Compute(context.Background(), LRP, in, Options{}); err == nil || !strings.Contains(err.Error(), "Tanh") {
+		t.Errorf("LRP on the Tanh model: %v", err)
+	}
+	m := compute(t, ex, Occlusion, in, Options{Patch: 8, Stride: 8})
+	if m.Passes != 9 {
+		t.Errorf("occlusion 8³ on 16³ with stride 8: %d passes, want 9", m.Passes)
+	}
+
+	ex = testExplainer(t, modelSpec{grid: testGrid, insert: "Sigmoid"}, false)
+	for _, a := range ex.Available() {
+		want := a.Method != LRP && a.Method != Occlusion // no session here
+		if a.Available != want {
+			t.Errorf("Sigmoid model: %s available %v, reason %q", a.Method, a.Available, a.Reason)
+		}
+		if a.Method == LRP && !strings.Contains(a.Reason, "no LRP rule for Sigmoid") {
+			t.Errorf("Sigmoid model: LRP reason %q", a.Reason)
+		}
+	}
+	compute(t, ex, GradientInput, in, Options{})
+}
+
+// Occlusion (Zeiler & Fergus 2014, section 4.2) with non-overlapping cubes:
+// every voxel's value is the drop of the logit when its cube is set to the
+// fill value, computed here with the Go executor on inputs the test builds,
+// against the package's ONNX Runtime passes.
+func TestOcclusionDefinition(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid}, true)
+	in := testInput(testGrid, 4)
+	const patch, fill = 4, 0.5
+	var calls []int
+	m := compute(t, ex, Occlusion, in, Options{Patch: patch, Stride: patch, Fill: fill, Batch: 5,
+		Progress: func(done, total int) { calls = append(calls, done) }})
+	if m.Passes != 65 || len(calls) == 0 || calls[len(calls)-1] != 65 {
+		t.Fatalf("passes %d, progress %v", m.Passes, calls)
+	}
+	score := func(data []float32) float64 {
+		tr, err := ex.exec.Forward(map[string]*graph.Tensor{"scan": graph.FromData(data, 1, 1, testGrid, testGrid, testGrid)})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return float64(tr.Value("logits").Data[1])
+	}
+	f := score(in.Data)
+	for _, p := range [][3]int{{0, 0, 0}, {4, 8, 12}, {12, 12, 12}, {8, 0, 4}} {
+		occ := append([]float32(nil), in.Data...)
+		for z := p[2]; z < p[2]+patch; z++ {
+			for y := p[1]; y < p[1]+patch; y++ {
+				for x := p[0]; x < p[0]+patch; x++ {
+					occ[in.GridIndex(x, y, z)] = fill
+				}
+			}
+		}
+		want := f - score(occ)
+		got := float64(m.Values[p[0]+1+testGrid*(p[1]+2+testGrid*(p[2]+3))])
+		if math.Abs(got-want) > 1e-4+1e-3*math.Abs(want) {
+			t.Errorf("cube at %v: drop %.6g, executor says %.6g", p, got, want)
+		}
+	}
+}
+
+// The slow methods stop when their context is cancelled.
+func TestCancellation(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid}, true)
+	in := testInput(testGrid, 4)
+	for _, m := range []Method{IntegratedGradients, Occlusion} {
+		ctx, cancel := context.WithCancel(context.Background())
+		calls := 0
+		_, err := ex.Compute(ctx, m, in, Options{Batch: 2, Patch: 4, Stride: 2, Progress: func(done, total int) {
+			if calls++; done > 0 {
+				cancel()
+			}
+		}})
+		cancel()
+		if !errors.Is(err, context.Canceled) || calls > 3 {
+			t.Errorf("%s: error %v after %d progress calls; want context.Canceled soon", m, err, calls)
+		}
+	}
+}
+
+func TestTargetAndInputErrors(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid}, false)
+	in := testInput(testGrid, 1)
+	if _, err := ex.Compute(context.Background(), LRP, in, Options{Class: "other"}); err == nil || !strings.Contains(err.Error(), "other") {
+		t.Errorf("unknown class: %v", err)
+	}
+	bad := *in
+	bad.Data = bad.Data[:10]
+	for _, m := range []Method{LRP, GradientInput, IntegratedGradients} {
+		if _, err := ex.Compute(context.Background(), m, &bad, Options{}); err == nil {
+			t.Errorf("%s: truncated tensor accepted", m)
+		}
+	}
+	if _, err := ex.Compute(context.Background(), Occlusion, in, Options{}); err == nil || !strings.Contains(err.Error(), "session") {
+		t.Errorf("occlusion without a session: %v", err)
+	}
+	if _, err := ParseMethod("heat"); err == nil {
+		t.Error("ParseMethod accepted heat")
+	}
+	pos := compute(t, ex, GradientInput, in, Options{})
+	neg := compute(t, ex, GradientInput, in, Options{Class: "negative"})
+	if pos.Class != "positive" || neg.Class != "negative" || pos.Target == neg.Target {
+		t.Errorf("targets: %s %.4g, %s %.4g", pos.Class, pos.Target, neg.Class, neg.Target)
+	}
+}
+
+func TestPatchStarts(t *testing.T) {
+	for _, c := range []struct {
+		n, p, s int
+		want    []int
+	}{{16, 4, 4, []int{0, 4, 8, 12}}, {10, 4, 4, []int{0, 4, 6}}, {3, 8, 4, []int{0}}, {8, 8, 4, []int{0}}} {
+		got := patchStarts(c.n, min(c.p, c.n), c.s)
+		if len(got) != len(c.want) {
+			t.Errorf("patchStarts(%d, %d, %d) = %v, want %v", c.n, c.p, c.s, got, c.want)
+			continue
+		}
+		for i := range got {
+			if got[i] != c.want[i] {
+				t.Errorf("patchStarts(%d, %d, %d) = %v, want %v", c.n, c.p, c.s, got, c.want)
+			}
+		}
+	}
+}
