@@ -1,9 +1,13 @@
 package main
 
 import (
+	"context"
 	"fmt"
 	"io"
+	"os"
+	"os/signal"
 	"strconv"
+	"syscall"
 	"time"
 
 	"brightfold/notice"
@@ -46,8 +50,12 @@ func runDemo(e *env, args []string) error {
 		return usageError("--n %d is outside 1..100000", *n)
 	}
 	fmt.Fprintln(e.stderr, notice.Full)
+	// An interrupt stops the writing and removes the partial cohort.
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
 	start := time.Now()
-	rows, err := phantom.WriteCohort(pos[0], phantom.WriteOptions{N: *n, Seed: s, Shifts: *shifts, Progress: e.stderr})
+	rows, err := phantom.WriteCohort(pos[0], phantom.WriteOptions{N: *n, Seed: s, Shifts: *shifts,
+		Progress: e.stderr, Context: ctx})
 	if err != nil {
 		return err
 	}
