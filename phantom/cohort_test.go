@@ -24,7 +24,12 @@ const cohortVoxel = 8.0
 
 func writeTestCohort(t *testing.T, dir string, n int, shifts bool) []Row {
 	t.Helper()
-	rows, err := WriteCohort(dir, WriteOptions{N: n, Seed: 9, Shifts: shifts, VoxelMM: cohortVoxel, DICOMEvery: 2})
+	return writeTestCohortWorkers(t, dir, n, shifts, 0)
+}
+
+func writeTestCohortWorkers(t *testing.T, dir string, n int, shifts bool, workers int) []Row {
+	t.Helper()
+	rows, err := WriteCohort(dir, WriteOptions{N: n, Seed: 9, Shifts: shifts, VoxelMM: cohortVoxel, DICOMEvery: 2, Workers: workers})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -53,8 +58,9 @@ func readTree(t *testing.T, root string) map[string][]byte {
 func TestCohortSameBytes(t *testing.T) {
 	base := t.TempDir()
 	a, b := filepath.Join(base, "a"), filepath.Join(base, "b")
-	writeTestCohort(t, a, 2, true)
-	writeTestCohort(t, b, 2, true)
+	// One case at a time, then three at once: the order of work must not matter.
+	writeTestCohortWorkers(t, a, 2, true, 1)
+	writeTestCohortWorkers(t, b, 2, true, 3)
 	fa, fb := readTree(t, a), readTree(t, b)
 	if len(fa) != len(fb) || len(fa) < 20 {
 		t.Fatalf("%d vs %d files", len(fa), len(fb))
