@@ -1,0 +1,172 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+	"path/filepath"
+	"strings"
+	"time"
+
+	"brightfold/inference"
+	"brightfold/inference/fitcheck"
+	"brightfold/inputerr"
+	"brightfold/overlay"
+	"brightfold/report"
+	"brightfold/volume"
+)
+
+// checkMap checks --map (and that --out gives the maps somewhere to go).
+func checkMap(o scoreOptions) error {
+	if o.mapMethod == "none" {
+		return nil
+	}
+	if _, err := overlay.ParseMethod(o.mapMethod); err != nil {
+		return usageError("brightfold score: --map %q: want one of %s", o.mapMethod, strings.Join(relevanceMethods, ", "))
+	}
+	if o.out == "" {
+		return usageError("brightfold score: --map %s writes %s and %s: give --out DIR", o.mapMethod, report.RelevanceFile, report.OverlayFile)
+	}
+	return nil
+}
+
+// addRelevance computes the --map relevance map of the scored scan, carries
+// it onto the scan's grid, writes relevance.nii.gz, relevance.json and
+// overlay.png into --out, and adds the relevance block to the report.
+// Ctrl-C stops a slow map cleanly (nothing is written).
+func addRelevance(e *env, o scoreOptions, paths []string, v *volume.Volume, b *inference.Bundle, sess *inference.Session, res *inference.Result, rep *report.Score) error {
+	t0 := time.Now()
+	method, err := overlay.ParseMethod(o.mapMethod)
+	if err != nil {
+		return usageError("brightfold score: --map: %v", err)
+	}
+	ex, err := overlay.New(b, sess)
+	if err != nil {
+		return err
+	}
+	for _, a := range ex.Available() {
+		if a.Method == method && !a.Available {
+			return inputerr.New(b.Source, "--map %s: %s; --map occlusion works with any model", method, a.Reason)
+		}
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	defer stop()
+	m, err := ex.Compute(ctx, method, res.Prepared.Tensor, overlay.Options{Progress: progressPrinter(e.stderr, method)})
+	if errors.Is(err, context.Canceled) {
+		return inputerr.New(o.out, "--map %s: stopped before the map was complete; nothing written", method)
+	}
+	if err != nil {
+		return fmt.Errorf("relevance map (%s): %w", method, err)
+	}
+	onScan, err := m.ToScan(res.Prepared.Transform)
+	if err != nil {
+		return err
+	}
+	if err := os.MkdirAll(o.out, 0o755); err != nil {
+		return inputerr.Wrap(o.out, fmt.Errorf("create output folder: %w", err))
+	}
+	prob := res.Prediction.Probabilities[m.Class]
+	info := relevanceInfo(m, method, b, res, prob, baseNames(paths))
+	if _, _, err := report.WriteRelevance(o.out, onScan, info); err != nil {
+		return wrapPathError(o.out, err)
+	}
+	fig := report.OverlayFigure{Scan: v, Map: onScan, At: peakRAS(onScan), Signed: true,
+		Units: mapUnits(m), Title: figureTitle(m, method, b, res, prob)}
+	if err := report.WriteOverlayPNG(filepath.Join(o.out, report.OverlayFile), fig); err != nil {
+		return wrapPathError(o.out, err)
+	}
+	rep.Relevance = &report.Relevance{Method: string(method), File: report.RelevanceFile, Overlay: report.OverlayFile, Checks: m.Checks}
+	rep.TimingMs["relevance"] = msSince(t0)
+	return nil
+}
+
+func wrapPathError(dir string, err error) error {
+	var pe *os.PathError
+	if errors.As(err, &pe) {
+		return inputerr.Wrap(dir, err)
+	}
+	return err
+}
+
+// progressPrinter reports the slow methods' progress on stderr in steps of
+// a tenth.
+func progressPrinter(w io.Writer, method overlay.Method) func(done, total int) {
+	if method != overlay.Occlusion && method != overlay.IntegratedGradients {
+		return nil
+	}
+	last := -1
+	return func(done, total int) {
+		if total <= 0 {
+			return
+		}
+		if step := 10 * done / total; step > last {
+			last = step
+			fmt.Fprintf(w, "%s: %d %% (%d of %d passes)\n", method.Title(), 10*step, done, total)
+		}
+	}
+}
+
+func relevanceInfo(m *overlay.Map, method overlay.Method, b *inference.Bundle, res *inference.Result, prob float64, input string) report.RelevanceInfo {
+	checks := map[string]report.Number{}
+	for k, x := range m.Checks {
+		checks[k] = report.Number(x)
+	}
+	c := b.Card
+	return report.RelevanceInfo{
+		Method: string(method), MethodName: method.Title(), Reference: method.Reference(), About: method.About(),
+		Rule: m.Rule, TargetClass: m.Class, TargetLogit: report.Number(m.Target), Probability: report.Number(prob),
+		Units: mapUnits(m), Input: input,
+		Space:     "the input scan's voxel grid (dims and affine as the scan); computed on the model grid and carried back through the inverse of the preprocessing transform",
+		ModelGrid: report.ModelGrid{Dims: res.Prepared.Transform.GridDims, Affine: res.Prepared.Transform.GridAffine},
+		Checks:    checks, Settings: m.Settings, Passes: m.Passes,
+		Model:    report.Model{Name: c.Name, Version: c.Version, SHA256: b.SHA256},
+		FitCheck: res.Verdict,
+	}
+}
+
+func mapUnits(m *overlay.Map) string {
+	if m.Additive {
+		return "share of the logit per voxel"
+	}
+	return "logit drop"
+}
+
+// peakRAS is the RAS position of the map's peak voxel.
+func peakRAS(m *volume.Volume) [3]float64 {
+	p := overlay.Peak(m)
+	return m.Affine.Apply([3]float64{float64(p[0]), float64(p[1]), float64(p[2])})
+}
+
+// figureTitle says what the figure shows: the method, the explained class
+// with its probability, the model and the fit check.
+func figureTitle(m *overlay.Map, method overlay.Method, b *inference.Bundle, res *inference.Result, prob float64) []string {
+	lines := []string{
+		fmt.Sprintf("Relevance map: %s (%s). Planes through the map's peak.", method.Title(), method.Reference()),
+		fmt.Sprintf("Explains the %q logit (%.3g); calibrated probability of %q: %.2f. Red-orange speaks for the class, blue against.", m.Class, m.Target, m.Class, prob),
+		fmt.Sprintf("Model: %s %s.", b.Card.Name, b.Card.Version),
+	}
+	if res.Verdict == fitcheck.OutOfDistribution {
+		lines = append(lines, "Fit check: OUT-OF-DISTRIBUTION. The scan is unlike the training scans; neither the score nor this map can be relied on.")
+	} else {
+		lines = append(lines, "Fit check: in-distribution.")
+	}
+	return lines
+}
+
+// writeRelevanceText adds the relevance map to the text form of a result.
+func writeRelevanceText(w io.Writer, rep *report.Score) {
+	r := rep.Relevance
+	if r == nil {
+		return
+	}
+	check := ""
+	for _, k := range []string{"conservation_error", "completeness_error"} {
+		if x, ok := r.Checks[k]; ok {
+			check = fmt.Sprintf(", %s %.2g", strings.ReplaceAll(k, "_", " "), x)
+		}
+	}
+	fmt.Fprintf(w, "Relevance:   %s map in %s, figure in %s (%s%s)\n", r.Method, r.File, r.Overlay, report.RelevanceSidecar, check)
+}
