@@ -133,7 +133,7 @@ func BenchmarkScoreOverhead(b *testing.B) {
 		b.Fatal(err)
 	}
 	defer sess.Close()
-	var scoreMs, noLoadMs, runMs, prepMs []float64
+	var scoreMs, noLoadMs, runMs, prepMs, checkMs, loadMs []float64
 	b.ResetTimer()
 	for i := 0; i < b.N+1; i++ { // the first round warms caches and is dropped
 		t0 := time.Now()
@@ -156,6 +156,8 @@ func BenchmarkScoreOverhead(b *testing.B) {
 			noLoadMs = append(noLoadMs, ms(t2.Sub(t1)))
 			runMs = append(runMs, ms(t3.Sub(t2)))
 			prepMs = append(prepMs, res.TimingMs.Preprocess)
+			checkMs = append(checkMs, res.TimingMs.FitCheck)
+			loadMs = append(loadMs, ms(t1.Sub(t0)))
 		}
 	}
 	b.StopTimer()
@@ -163,6 +165,8 @@ func BenchmarkScoreOverhead(b *testing.B) {
 	b.ReportMetric(run, "run_ms")
 	b.ReportMetric(median(scoreMs), "score_ms")
 	b.ReportMetric(median(prepMs), "preprocess_ms")
+	b.ReportMetric(median(checkMs), "fit_check_ms")
+	b.ReportMetric(median(loadMs), "load_ms")
 	b.ReportMetric((median(scoreMs)-run)/run, "overhead_ratio")
 	b.ReportMetric((median(noLoadMs)-run)/run, "overhead_ratio_loaded_scan")
 	rss, wall := childScoreRSS(b, scan, bundleDir, lib)
