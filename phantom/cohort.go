@@ -113,9 +113,17 @@ func WriteCohort(dir string, opts WriteOptions) ([]Row, error) {
 	if _, err := gridFor(ShiftNone, voxelOr1(opts.VoxelMM)); err != nil {
 		return nil, inputerr.Wrap(dir, err)
 	}
+	abs, err := filepath.Abs(dir)
+	if err != nil {
+		return nil, inputerr.Wrap(dir, err)
+	}
+	if filepath.Dir(abs) == abs {
+		return nil, inputerr.New(dir, "cannot write a cohort over the root folder")
+	}
 	if err := checkTarget(dir); err != nil {
 		return nil, err
 	}
+	dir = abs
 	parent := filepath.Dir(filepath.Clean(dir))
 	if err := os.MkdirAll(parent, 0o755); err != nil {
 		return nil, inputerr.Wrap(parent, err)
