@@ -1,0 +1,84 @@
+package inference
+
+import (
+	"math"
+	"math/rand/v2"
+	"strings"
+	"testing"
+)
+
+// The required thresholds share one per-score quantile, the smallest that
+// keeps at least the target fraction of cases passing all of them together.
+func TestFitThresholdsJointRetention(t *testing.T) {
+	rng := rand.New(rand.NewPCG(21, 22))
+	var sc []scored
+	for i := 0; i < 400; i++ {
+		sc = append(sc, scored{msp: rng.Float64(), energy: rng.NormFloat64(), maha: rng.ExpFloat64(), w1: rng.ExpFloat64()})
+	}
+	c := tinyCard([]byte("x"))
+	if err := fitThresholds(c, sc, FitOptions{}.withDefaults(), "400 synthetic"); err != nil {
+		t.Fatal(err)
+	}
+	th := c.OOD.Thresholds
+	pass := 0
+	for _, s := range sc {
+		if !th.Mahalanobis.Fails(s.maha) && !th.Wasserstein.Fails(s.w1) {
+			pass++
+		}
+	}
+	joint := float64(pass) / float64(len(sc))
+	if joint < 0.95 || joint > 0.96 {
+		t.Errorf("joint retention %.4f, want just above 0.95", joint)
+	}
+	// two independent scores: each must keep about √0.95 ≈ 0.975
+	for _, r := range []float64{th.Mahalanobis.Retention, th.Wasserstein.Retention} {
+		if math.Abs(r-math.Sqrt(0.95)) > 0.01 {
+			t.Errorf("per-score retention %.4f, want about %.4f", r, math.Sqrt(0.95))
+		}
+	}
+	if th.MSP.Required || th.Energy.Required || !th.Mahalanobis.Required || !strings.Contains(th.Mahalanobis.FittedOn, "400 synthetic") {
+		t.Errorf("required flags or fitted_on: %+v", th)
+	}
+}
+
+// Leave-one-out scores of training cases are larger than their in-sample
+// scores (a case is farther from a reference fitted without it).
+func TestLeaveOneOutScores(t *testing.T) {
+	rng := rand.New(rand.NewPCG(31, 32))
+	c := tinyCard([]byte("x"))
+	var train []FitCase
+	for i := 0; i < 30; i++ {
+		f := make([]float64, 8)
+		for j := range f {
+			f[j] = rng.NormFloat64() + float64(i%2)
+		}
+		q := make([]float64, len(DefaultLevels()))
+		for j := range q {
+			q[j] = float64(j)/50 + 0.1*rng.NormFloat64()
+		}
+		train = append(train, FitCase{Facts: CaseFacts{Quantiles: q}, Output: Output{Logits: []float64{0, 1}, Features: f}, Label: i % 2})
+	}
+	opt := FitOptions{}.withDefaults()
+	full := *c
+	var err error
+	if full.OOD.Features, err = fitFeatures(c, train, opt); err != nil {
+		t.Fatal(err)
+	}
+	full.OOD.Intensity = fitIntensity(train, opt)
+	loo, err := thresholdScores(&full, train, nil, opt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var in, out float64
+	for i, fc := range train {
+		s, _ := scoreCase(&full, fc)
+		in += s.maha
+		out += loo[i].maha
+		if loo[i].w1 < s.w1-1e-12 {
+			t.Errorf("case %d: leave-one-out W1 %v below in-sample %v", i, loo[i].w1, s.w1)
+		}
+	}
+	if out <= in {
+		t.Errorf("mean leave-one-out Mahalanobis %v not above in-sample %v", out/30, in/30)
+	}
+}
