@@ -2,6 +2,7 @@ package app
 
 import (
 	"fmt"
+	"sort"
 	"strings"
 
 	"fyne.io/fyne/v2"
@@ -11,26 +12,31 @@ import (
 	"fyne.io/fyne/v2/widget"
 
 	"brightfold/inference"
+	"brightfold/overlay"
 	"brightfold/viewer"
 )
 
-// Relevance methods offered in the Evidence panel, with the one sentence
-// that says what each is.
-var methods = []struct{ Key, Label, About string }{
-	{"lrp", "LRP", "Layer-wise relevance propagation (Bach et al. 2015): the positive-class score redistributed backwards, layer by layer, onto the voxels."},
-	{"ig", "Integrated gradients", "Integrated gradients (Sundararajan et al. 2017): gradients averaged along a path from a baseline scan to this one, times the difference."},
-	{"gradinput", "Gradient × input", "Gradient × input: how much each voxel's value, changed slightly, moves the positive-class score."},
-	{"occlusion", "Occlusion", "Occlusion (Zeiler & Fergus 2014): how much the score drops when a patch of the scan is hidden."},
-	{"none", "None", "No relevance map."},
+// methodNone is the picker's choice for no map.
+const methodNone = "None"
+
+// methodLabels are the relevance picker's choices: every method of the
+// overlay package, then none.
+func methodLabels() []string {
+	var out []string
+	for _, m := range overlay.Methods() {
+		out = append(out, m.Title())
+	}
+	return append(out, methodNone)
 }
 
-func methodByLabel(label string) (key, about string) {
-	for _, m := range methods {
-		if m.Label == label {
-			return m.Key, m.About
+// methodByLabel returns the method with the given title and its sentence.
+func methodByLabel(label string) (overlay.Method, string, bool) {
+	for _, m := range overlay.Methods() {
+		if m.Title() == label {
+			return m, m.About() + " (" + m.Reference() + ")", true
 		}
 	}
-	return "none", ""
+	return "", "No relevance map.", false
 }
 
 // evidencePanel is the "Evidence" panel: the model, its calibrated
@@ -40,6 +46,7 @@ type evidencePanel struct {
 	root fyne.CanvasObject
 
 	model       *widget.Label
+	training    *widget.Label
 	prob        *canvas.Text
 	probCaption *widget.Label
 	status      *widget.Label
@@ -51,7 +58,10 @@ type evidencePanel struct {
 	thrVal      *widget.Label
 	colorBar    *canvas.Image
 	ovState     *widget.Label
+	signed      *widget.Check
+	peak        *widget.Button
 	export      *widget.Button
+	mapInfo     string // what the shown map is, with its own check
 	quiet       bool
 }
 
@@ -59,6 +69,11 @@ func newEvidencePanel(u *UI) *evidencePanel {
 	p := &evidencePanel{u: u}
 	p.model = widget.NewLabel("")
 	p.model.Wrapping = fyne.TextWrapWord
+	p.model.TextStyle = fyne.TextStyle{Bold: true}
+	p.training = widget.NewLabel("")
+	p.training.Wrapping = fyne.TextWrapWord
+	p.training.Importance = widget.LowImportance
+	p.training.SizeName = theme.SizeNameCaptionText
 	p.prob = canvas.NewText("—", colText)
 	p.prob.TextSize = 34
 	p.prob.TextStyle = fyne.TextStyle{Bold: true}
@@ -67,14 +82,11 @@ func newEvidencePanel(u *UI) *evidencePanel {
 	p.status = widget.NewLabel("")
 	p.status.Wrapping = fyne.TextWrapWord
 
-	labels := make([]string, len(methods))
-	for i, m := range methods {
-		labels[i] = m.Label
-	}
+	labels := methodLabels()
 	p.about = widget.NewLabel("")
 	p.about.Wrapping = fyne.TextWrapWord
 	p.method = widget.NewSelect(labels, func(label string) {
-		_, about := methodByLabel(label)
+		_, about, _ := methodByLabel(label)
 		p.about.SetText(about)
 		if !p.quiet {
 			u.startRelevance()
@@ -101,19 +113,22 @@ func newEvidencePanel(u *UI) *evidencePanel {
 	p.colorBar.SetMinSize(fyne.NewSize(280, 56))
 	p.ovState = widget.NewLabel("")
 	p.ovState.Wrapping = fyne.TextWrapWord
+	p.signed = widget.NewCheck("Show negative relevance too", func(bool) { p.styleChanged() })
+	p.peak = widget.NewButtonWithIcon("Go to the strongest relevance", theme.ZoomFitIcon(), u.goToPeak)
+	p.peak.Disable()
 	p.export = widget.NewButtonWithIcon("Export view as PNG", theme.DocumentSaveIcon(), u.exportView)
 
 	form := container.New(&labelledRows{},
 		widget.NewLabel("Opacity"), p.opacity, p.opacityVal,
 		widget.NewLabel("Threshold"), p.threshold, p.thrVal)
 	p.root = container.NewVBox(
-		p.model,
+		p.model, p.training,
 		p.prob, p.probCaption, p.status,
 		widget.NewSeparator(),
 		container.NewBorder(nil, nil, widget.NewLabel("Relevance map"), nil, p.method),
 		p.about,
-		form,
-		p.colorBar, p.ovState,
+		form, p.signed,
+		p.colorBar, p.ovState, p.peak,
 		p.export,
 	)
 	p.clear()
@@ -129,8 +144,12 @@ func (p *evidencePanel) clear() {
 	p.status.SetText("Waiting for the scan…")
 	p.status.Importance = widget.MediumImportance
 	p.model.SetText("")
+	p.training.SetText("")
 	p.colorBar.Image = nil
 	p.colorBar.Refresh()
+	p.mapInfo = ""
+	p.peak.Disable()
+	p.ovState.SetText("")
 	p.refreshOverlayState()
 	p.styleLabels()
 }
@@ -143,20 +162,22 @@ func (p *evidencePanel) unavailable(why string) {
 	p.probCaption.SetText("")
 	p.status.Importance = widget.MediumImportance
 	p.status.SetText(p.u.clean(why))
+	p.u.reflow()
 }
 
 // showPrediction shows the model and its calibrated probability; an
 // out-of-distribution verdict greys the number and says not to rely on it.
 func (p *evidencePanel) showPrediction(card *inference.Card, pr inference.Prediction, ood bool) {
-	p.model.SetText(fmt.Sprintf("Model: %s %s · %s", card.Name, card.Version, firstSentence(card.TrainingData)))
+	p.model.SetText(fmt.Sprintf("Model: %s, version %s", card.Name, card.Version))
+	p.training.SetText(firstSentence(card.TrainingData))
 	p.prob.Text = fmt.Sprintf("%.2f", pr.Probability)
 	p.prob.Color = colText
 	if ood {
 		p.prob.Color = colMuted
 	}
 	p.prob.Refresh()
-	p.probCaption.SetText(fmt.Sprintf("Probability of %q, calibrated by temperature scaling (T = %.2f; %.2f before calibration). Most probable class: %s.",
-		card.PositiveClass, pr.Temperature, pr.Uncalibrated, pr.Label))
+	p.probCaption.SetText(fmt.Sprintf("Probability of %s, calibrated by temperature scaling (T = %.2f; %.2f before calibration). Most probable class: %s.",
+		className(card.PositiveClass), pr.Temperature, pr.Uncalibrated, className(pr.Label)))
 	if ood {
 		p.status.SetText("Out of distribution: the fit check says this scan is unlike the training scans, so this probability should not be relied on.")
 		p.status.Importance = widget.DangerImportance
@@ -165,7 +186,11 @@ func (p *evidencePanel) showPrediction(card *inference.Card, pr inference.Predic
 		p.status.Importance = widget.MediumImportance
 	}
 	p.status.Refresh()
+	p.u.reflow()
 }
+
+// className shows a class key ("atrophy_pattern") as words.
+func className(s string) string { return "\u201c" + strings.ReplaceAll(s, "_", " ") + "\u201d" }
 
 // firstSentence returns s up to its first full stop.
 func firstSentence(s string) string {
@@ -185,6 +210,40 @@ func (p *evidencePanel) relevanceCancelled() {
 	p.ovState.SetText("Relevance map cancelled. Pick a method to compute it again.")
 }
 
+// selectedMethod is the picked relevance method; false for none.
+func (p *evidencePanel) selectedMethod() (overlay.Method, bool) {
+	m, _, ok := methodByLabel(p.method.Selected)
+	return m, ok
+}
+
+// showRelevance describes a computed map and its own check.
+func (p *evidencePanel) showRelevance(m *overlay.Map, om *viewer.OverlayMap) {
+	text := fmt.Sprintf("%s map of the %s logit, %s.", m.Method.Title(), className(m.Class), plural(m.Passes, "model pass", "model passes"))
+	// The method's own check (LRP conservation, integrated-gradients
+	// completeness), as the score JSON reports it.
+	for _, k := range sortedKeys(m.Checks) {
+		if strings.HasSuffix(k, "_error") {
+			text += fmt.Sprintf(" Its own check: %s %.2g.", strings.ReplaceAll(k, "_", " "), m.Checks[k])
+		}
+	}
+	if om.HasNegative() && !p.signed.Checked {
+		text += " Negative values (evidence against the class) are hidden."
+	}
+	p.mapInfo = text
+	p.peak.Enable()
+	p.refreshColorBar()
+	p.refreshOverlayState()
+}
+
+func sortedKeys(m map[string]float64) []string {
+	out := make([]string, 0, len(m))
+	for k := range m {
+		out = append(out, k)
+	}
+	sort.Strings(out)
+	return out
+}
+
 // styleChanged applies the opacity and threshold sliders.
 func (p *evidencePanel) styleChanged() {
 	p.styleLabels()
@@ -194,6 +253,7 @@ func (p *evidencePanel) styleChanged() {
 	st := p.u.scan.style
 	st.Opacity = p.opacity.Value / 100
 	st.Threshold = viewer.Threshold{Value: p.threshold.Value, Percentile: true}
+	st.Signed = p.signed.Checked
 	p.u.scan.setStyle(st)
 	p.refreshColorBar()
 	p.refreshOverlayState()
@@ -233,11 +293,12 @@ func (p *evidencePanel) refreshOverlayState() {
 			p.ovState.SetText("No relevance map yet.")
 		}
 	case !sp.showOv:
-		p.ovState.SetText("Overlay hidden (press O to show it).")
+		p.ovState.SetText(p.mapInfo + " Overlay hidden (press O to show it).")
 	default:
 		thr := sp.overlay.Resolve(sp.style.Threshold)
-		p.ovState.SetText(fmt.Sprintf("Overlay shown: %.1f %% of the map's non-zero voxels pass the threshold.", sp.overlay.VisibleShare(thr)))
+		p.ovState.SetText(fmt.Sprintf("%s Shown: the %.1f %% of non-zero voxels above %.3g.", p.mapInfo, sp.overlay.VisibleShare(thr), thr))
 	}
+	p.u.reflow()
 }
 
 // labelledRows lays out rows of (label, control, value) with the control

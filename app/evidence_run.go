@@ -10,6 +10,9 @@ import (
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
 	"brightfold/ortlib"
+	"brightfold/overlay"
+	"brightfold/viewer"
+	"brightfold/volume"
 )
 
 // model is the scoring session, made once on first use and shared by every
@@ -21,6 +24,8 @@ type model struct {
 	session *inference.Session
 	err     error
 	tried   bool
+	ex      *overlay.Explainer
+	exErr   error
 }
 
 // errNoBundle says there is no model to run.
@@ -91,9 +96,9 @@ func (u *UI) startEvidence() {
 		why := err.Error()
 		u.evidence.unavailable("No probability: " + why)
 		u.fit.unavailable("No verdict: " + why)
+		u.evidence.ovState.SetText("No relevance map without a score.")
 		u.markReady()
 	})
-	u.startRelevance()
 }
 
 // showScore fills Evidence and Fit check from a result.
@@ -112,7 +117,7 @@ func (u *UI) showScore(oc *openCase, card *inference.Card, r *inference.Result) 
 			Sentence: c.Explanation, Pass: c.Pass, Required: c.Required}
 	}
 	u.fit.showChecks(ood, rows)
-	u.markReady()
+	u.startRelevance()
 }
 
 // passed returns the checks that pass, in their order.
@@ -142,15 +147,89 @@ func checkTitle(key string) string {
 	return strings.ToUpper(words[:1]) + words[1:]
 }
 
-// startRelevance computes the relevance map of the chosen method.
+// startRelevance computes the relevance map of the chosen method for the
+// open case, off the UI thread, once the case has been scored (the map
+// explains the model input that scoring prepared).
 func (u *UI) startRelevance() {
 	u.tasks.cancel(taskRelevance)
 	u.scan.setOverlay(nil)
 	u.evidence.refreshColorBar()
-	key, _ := methodByLabel(u.evidence.method.Selected)
-	if key == "none" {
+	method, ok := u.evidence.selectedMethod()
+	oc := u.open
+	switch {
+	case !ok:
 		u.evidence.ovState.SetText("No relevance map (method: none).")
+		u.markReady()
+		return
+	case oc == nil:
+		return
+	case oc.result == nil:
+		u.evidence.ovState.SetText("The relevance map follows the score.")
 		return
 	}
-	u.evidence.ovState.SetText("Relevance maps are not available yet: the relevance package is still being built.")
+	u.evidence.ovState.SetText("Computing the " + method.Title() + " map…")
+	u.tasks.start(taskRelevance, method.Title()+" map for "+oc.c.Code, func(ctx context.Context, progress progressFunc) (func(), error) {
+		progress(-1, "preparing")
+		ex, err := u.model.explainer()
+		if err != nil {
+			return nil, err
+		}
+		opt := overlay.Options{Progress: func(done, total int) {
+			progress(float64(done)/float64(max(total, 1)), fmt.Sprintf("%d of %d model passes", done, total))
+		}}
+		m, err := ex.Compute(ctx, method, oc.result.Prepared.Tensor, opt)
+		if err != nil {
+			return nil, err
+		}
+		progress(-1, "carrying the map onto the scan")
+		onScan, err := m.ToScan(oc.result.Prepared.Transform)
+		if err != nil {
+			return nil, err
+		}
+		// The planes show the scan reoriented to closest-canonical RAS; the
+		// same reorientation of the map puts it on the same grid.
+		shown, err := volume.Reorient(onScan)
+		if err != nil {
+			return nil, err
+		}
+		om, err := viewer.NewOverlayMap(oc.scene, shown, relevanceUnits(m))
+		if err != nil {
+			return nil, err
+		}
+		peak := overlay.Peak(shown)
+		return func() {
+			if u.open != oc {
+				return
+			}
+			oc.relevance, oc.overlayVol, oc.peak = m, shown, peak
+			u.scan.setOverlay(om)
+			u.evidence.showRelevance(m, om)
+			u.markReady()
+		}, nil
+	}, func(err error) {
+		u.evidence.ovState.SetText(u.clean("No relevance map: " + err.Error()))
+		u.markReady()
+	})
+}
+
+// relevanceUnits labels a map's values for the colour bar and readout.
+func relevanceUnits(m *overlay.Map) string {
+	if m.Additive {
+		return "share of the " + strings.ReplaceAll(m.Class, "_", " ") + " logit"
+	}
+	return "drop of the " + strings.ReplaceAll(m.Class, "_", " ") + " logit"
+}
+
+// explainer returns the relevance maps' explainer for the model, made once.
+func (m *model) explainer() (*overlay.Explainer, error) {
+	s, err := m.get()
+	if err != nil {
+		return nil, err
+	}
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	if m.ex == nil && m.exErr == nil {
+		m.ex, m.exErr = overlay.New(s.Bundle(), s)
+	}
+	return m.ex, m.exErr
 }

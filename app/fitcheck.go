@@ -60,6 +60,7 @@ func (p *fitPanel) clear() {
 	p.setBlock(colPending, "Checking…", "The fit check runs once the scan is loaded.")
 	p.checks.Objects = nil
 	p.checks.Refresh()
+	p.u.reflow()
 }
 
 // unavailable says why no verdict can be given.
@@ -67,6 +68,7 @@ func (p *fitPanel) unavailable(why string) {
 	p.setBlock(colPending, "No verdict", why)
 	p.checks.Objects = nil
 	p.checks.Refresh()
+	p.u.reflow()
 }
 
 // showCancelled says the checks were stopped.
@@ -100,6 +102,7 @@ func (p *fitPanel) showChecks(ood bool, rows []checkRow) {
 	}
 	p.checks.Objects = objs
 	p.checks.Refresh()
+	p.u.reflow()
 }
 
 // row draws one check: a coloured mark, then the name, the value with its

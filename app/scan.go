@@ -92,10 +92,13 @@ func newScanPanel(u *UI) *scanPanel {
 	p.dragSel.SetSelectedIndex(0)
 	p.wlLabel = widget.NewLabel("")
 	p.wlLabel.TextStyle = fyne.TextStyle{Monospace: true}
+	p.wlLabel.Truncation = fyne.TextTruncateEllipsis
 	p.readout = widget.NewLabel("")
 	p.readout.TextStyle = fyne.TextStyle{Monospace: true}
+	p.readout.Truncation = fyne.TextTruncateEllipsis
 	p.pointer = widget.NewLabel("")
 	p.pointer.TextStyle = fyne.TextStyle{Monospace: true}
+	p.pointer.Truncation = fyne.TextTruncateEllipsis
 	tools := container.NewHBox(p.preset, p.dragSel, p.convSel, p.smooth, p.ovCheck, reset)
 	info := container.NewVBox(p.wlLabel, p.readout, p.pointer)
 	p.root = container.NewBorder(tools, info, nil, nil, p.grid)
@@ -312,6 +315,16 @@ func (p *scanPanel) resetView() {
 		v.resetZoom()
 	}
 	p.setWindow(p.scene.DefaultWindow())
+}
+
+// goToPeak moves the crosshair to the relevance map's strongest voxel.
+func (u *UI) goToPeak() {
+	oc := u.open
+	if oc == nil || oc.overlayVol == nil || u.scan.scene == nil {
+		return
+	}
+	ijk := [3]float64{float64(oc.peak[0]), float64(oc.peak[1]), float64(oc.peak[2])}
+	u.scan.moveCrosshair(oc.overlayVol.Affine.Apply(ijk))
 }
 
 // zoomLarge zooms the large plane by factor f (keys + and -).

@@ -6,6 +6,7 @@ import (
 	"fmt"
 
 	"brightfold/inference"
+	"brightfold/overlay"
 	"brightfold/viewer"
 	"brightfold/volume"
 )
@@ -18,6 +19,10 @@ type openCase struct {
 
 	result *inference.Result // the score, once computed
 	card   *inference.Card
+
+	relevance  *overlay.Map   // the relevance map on the model grid, once computed
+	overlayVol *volume.Volume // the map on the displayed grid
+	peak       [3]int         // its strongest voxel there
 }
 
 // selectCase opens case i: it cancels whatever was running for the previous

@@ -45,6 +45,8 @@ type UI struct {
 	taskBox      *fyne.Container
 	message      *canvas.Text
 
+	scrolls []*container.Scroll // the reading column's panes, reflowed after text changes
+
 	casesPanel *casesPanel
 	scan       *scanPanel
 	evidence   *evidencePanel
@@ -101,21 +103,34 @@ func (u *UI) build() {
 	// evidence below, each scrolling on its own so both stay in view.
 	fit := container.NewVScroll(section("Fit check", u.fit.root))
 	evid := container.NewVScroll(container.NewVBox(section("Evidence", u.evidence.root), section("My read", u.read.root)))
+	u.scrolls = []*container.Scroll{fit, evid}
 	colSplit := container.NewVSplit(fit, evid)
 	colSplit.Offset = 0.42
 	var column fyne.CanvasObject = colSplit
 	u.column = column
 	u.scanSection = section("Scan", u.scan.root)
 	right := container.NewHSplit(u.scanSection, column)
-	right.Offset = 0.68
+	right.Offset = 0.66
 	main := container.NewHSplit(section("Cases", u.casesPanel.root), right)
-	main.Offset = 0.15
+	main.Offset = 0.13
 
 	u.message = canvas.NewText("", colMuted)
 	u.taskBox = container.NewVBox()
 	bottom := container.NewVBox(u.taskBox, container.NewPadded(u.message))
 	u.root = container.NewBorder(container.NewVBox(banner, container.NewPadded(bar), widget.NewSeparator()),
 		bottom, nil, nil, main)
+}
+
+// reflow lays the reading column out again after its texts changed: a
+// wrapped label knows its height only once it has its width, so a second
+// pass gives the rows their real heights (otherwise lines overlap).
+func (u *UI) reflow() {
+	for i := 0; i < 2; i++ {
+		for _, s := range u.scrolls {
+			s.Content.Refresh()
+			s.Refresh()
+		}
+	}
 }
 
 // section is a panel with its name above it.

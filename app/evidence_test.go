@@ -1,0 +1,114 @@
+package app
+
+import (
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"testing"
+
+	"brightfold/internal/refcheck"
+	"brightfold/viewer"
+)
+
+// tinyBundle makes a model bundle from the inference package's test model
+// (a small PyTorch export with a fitted card), which ONNX Runtime and the
+// Go executor both run.
+func tinyBundle(t *testing.T) string {
+	t.Helper()
+	refcheck.ORTLib(t)
+	dir := filepath.Join(t.TempDir(), "tiny-bundle")
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	for src, dst := range map[string]string{"tiny3d.onnx": "model.onnx", "card-example.json": "card.json"} {
+		b, err := os.ReadFile(filepath.Join("..", "inference", "testdata", src))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(filepath.Join(dir, dst), b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return dir
+}
+
+// colouredPixels counts the pixels of a plane whose red and blue differ
+// (the grey scan has none; the overlay colours do).
+func colouredPixels(v *planeView) int {
+	n := 0
+	for i := 0; i+3 < len(v.rgba.Pix); i += 4 {
+		if v.rgba.Pix[i] != v.rgba.Pix[i+2] {
+			n++
+		}
+	}
+	return n
+}
+
+// Scoring a scan fills Evidence (model, probability, temperature) and Fit
+// check (a verdict with every check), then the relevance map is drawn over
+// the planes with its colour bar; another method replaces it, "None"
+// removes it, and the overlay key hides and shows it.
+func TestScoreAndRelevance(t *testing.T) {
+	h := newHarness(t, Options{Model: tinyBundle(t)})
+	h.open(anatomical(t))
+	u := h.u
+	if u.open.result == nil {
+		t.Fatalf("not scored: %q", u.evidence.status.Text)
+	}
+	p, err := strconv.ParseFloat(u.evidence.prob.Text, 64)
+	if err != nil || p < 0 || p > 1 || !strings.Contains(u.evidence.probCaption.Text, "T = ") {
+		t.Fatalf("probability %q caption %q", u.evidence.prob.Text, u.evidence.probCaption.Text)
+	}
+	if h := u.fit.headline.Text; h != verdictIn && h != verdictOOD {
+		t.Fatalf("verdict %q", h)
+	}
+	if len(u.fit.checks.Objects) != len(u.open.result.Checks) {
+		t.Errorf("%d check rows for %d checks", len(u.fit.checks.Objects), len(u.open.result.Checks))
+	}
+	ax := u.scan.views[viewer.Axial]
+	if u.scan.overlay == nil || u.evidence.colorBar.Image == nil || u.open.relevance == nil {
+		t.Fatalf("no relevance overlay: %q", u.evidence.ovState.Text)
+	}
+	if !strings.Contains(u.evidence.ovState.Text, "LRP map") {
+		t.Errorf("overlay state %q", u.evidence.ovState.Text)
+	}
+	u.goToPeak()
+	withOverlay := colouredPixels(ax)
+	if withOverlay == 0 {
+		t.Error("the axial plane through the relevance peak shows no overlay colour")
+	}
+	u.typedKey(keyEvent("O"))
+	if colouredPixels(ax) != 0 {
+		t.Error("overlay hidden but still drawn")
+	}
+	u.typedKey(keyEvent("O"))
+
+	u.evidence.method.SetSelected("Gradient × input")
+	h.settle()
+	if u.open.relevance == nil || u.open.relevance.Method != "gradinput" || u.scan.overlay == nil {
+		t.Fatalf("gradient × input map not shown: %q", u.evidence.ovState.Text)
+	}
+	u.evidence.method.SetSelected(methodNone)
+	h.settle()
+	if u.scan.overlay != nil || colouredPixels(ax) != 0 {
+		t.Error("method None leaves an overlay")
+	}
+}
+
+// A slow map can be cancelled from the task strip: the map is not drawn and
+// the panel says so.
+func TestCancelRelevance(t *testing.T) {
+	h := newHarness(t, Options{Model: tinyBundle(t)})
+	h.open(anatomical(t))
+	u := h.u
+	u.evidence.method.SetSelected("Occlusion")
+	if !u.tasks.busy(taskRelevance) || len(u.taskBox.Objects) == 0 {
+		t.Fatal("occlusion is not running with a progress row")
+	}
+	u.cancelTask(taskRelevance)
+	h.settle()
+	if u.scan.overlay != nil || !strings.Contains(u.evidence.ovState.Text, "cancelled") {
+		t.Errorf("after cancel: overlay %v, state %q", u.scan.overlay != nil, u.evidence.ovState.Text)
+	}
+}
