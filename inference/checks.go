@@ -28,6 +28,9 @@ const (
 	CheckMSP              = "max_softmax_probability"
 	CheckEnergy           = "energy_score"
 	CheckMahalanobis      = "feature_distance"
+	// CheckPreparation fails when the scan cannot be prepared as the card
+	// states (for example a single slice): the model is not run.
+	CheckPreparation = "preparation"
 )
 
 // ModelScores are the model-level out-of-distribution scores of one case.
@@ -50,6 +53,30 @@ func ComputeModelScores(c *Card, o Output) (ModelScores, error) {
 	var err error
 	s.Mahalanobis, s.Nearest, err = fitcheck.Mahalanobis(o.Features, c.OOD.Features.ClassMeans, c.OOD.Features.Precision)
 	return s, err
+}
+
+// RunUnpreparedChecks are the checks of a scan that preprocessing refused
+// (reason): the header checks, the Hounsfield-unit signature, and a failed
+// "preparation" check; the verdict is out-of-distribution.
+func RunUnpreparedChecks(c *Card, f CaseFacts, reason error) []fitcheck.Check {
+	out := headerChecks(c.OOD.Envelope, f)
+	for _, ch := range imageChecks(c.OOD, f) {
+		if ch.Name == CheckHUSignature {
+			out = append(out, ch)
+		}
+	}
+	for i := range out {
+		out[i].Severity = severity(c, out[i], f)
+		if !out[i].Pass && !(out[i].Severity > 1) {
+			out[i].Severity = math.Nextafter(1, 2)
+		}
+		if out[i].Pass && out[i].Severity > 1 {
+			out[i].Severity = 1
+		}
+	}
+	return append(out, fitcheck.Check{Name: CheckPreparation, Value: math.NaN(), Threshold: "the scan can be prepared as the card states",
+		Required: true, Severity: 2,
+		Explanation: fmt.Sprintf("The scan could not be prepared the way the model expects (%v), so the model was not run.", reason)})
 }
 
 // RunChecks compares one case's measurements and model scores with the
@@ -379,6 +406,8 @@ func CheckTitle(name string) string {
 		return "Energy score"
 	case CheckMahalanobis:
 		return "Feature distance (Mahalanobis)"
+	case CheckPreparation:
+		return "Preparation for the model"
 	}
 	return name
 }

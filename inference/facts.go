@@ -36,21 +36,28 @@ type CaseFacts struct {
 // MeasureCase measures a scan v and its preprocessing pr; levels are the
 // quantile levels of the intensity profile (the card's, when checking).
 func MeasureCase(v *volume.Volume, pr *Prepared, levels []float64) CaseFacts {
-	sp := v.Spacing()
-	f := CaseFacts{Modality: v.Meta.Modality, SpacingMm: sp, Dims: v.Dims, NumVolumes: max(1, v.Meta.NumVolumes),
-		ObliquityDeg: fitcheck.ObliquityDeg(v.Affine), Orientation: v.Affine.Orientation(), FOVMm: fitcheck.FOVMm(v),
-		HeadVolumeMl: pr.Head.VolumeMl, InsideFOV: pr.InsideFOV}
-	lo, hi := math.Min(sp[0], math.Min(sp[1], sp[2])), math.Max(sp[0], math.Max(sp[1], sp[2]))
-	f.SliceThicknessMm = math.Max(hi, v.Meta.SliceThicknessMm)
-	f.Anisotropy = hi / lo
+	f := MeasureHeader(v)
+	f.HeadVolumeMl, f.InsideFOV = pr.Head.VolumeMl, pr.InsideFOV
 	if e := pr.Head.ExtentMm; e[0] > 0 && e[1] > 0 {
 		f.HeadAPOverLR = e[1] / e[0]
 		f.HeadSIOverAP = e[2] / e[1]
 	}
 	f.HeadSkewSI = pr.Head.Skewness[2]
 	f.NoiseRatio = fitcheck.NoiseRatio(v, pr.Head.Threshold)
-	f.HUAirFraction, f.HUBoneFraction = fitcheck.HUSignature(v.Data)
 	f.Quantiles = headQuantiles(pr.Tensor, levels)
+	return f
+}
+
+// MeasureHeader measures what needs no preprocessing: the header facts and
+// the Hounsfield-unit signature of the raw voxels.
+func MeasureHeader(v *volume.Volume) CaseFacts {
+	sp := v.Spacing()
+	f := CaseFacts{Modality: v.Meta.Modality, SpacingMm: sp, Dims: v.Dims, NumVolumes: max(1, v.Meta.NumVolumes),
+		ObliquityDeg: fitcheck.ObliquityDeg(v.Affine), Orientation: v.Affine.Orientation(), FOVMm: fitcheck.FOVMm(v)}
+	lo, hi := math.Min(sp[0], math.Min(sp[1], sp[2])), math.Max(sp[0], math.Max(sp[1], sp[2]))
+	f.SliceThicknessMm = math.Max(hi, v.Meta.SliceThicknessMm)
+	f.Anisotropy = hi / lo
+	f.HUAirFraction, f.HUBoneFraction = fitcheck.HUSignature(v.Data)
 	return f
 }
 

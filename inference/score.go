@@ -52,8 +52,7 @@ func (s *Session) ScoreMany(vs []*volume.Volume) ([]*Result, error) {
 		t0 := time.Now()
 		pr, err := PrepareForCard(v, c)
 		if err != nil {
-			// the scan cannot be prepared as the card states: bad input
-			return nil, inputerr.Wrap(v.Source, fmt.Errorf("cannot prepare the scan for %s: %w", c.Name, err))
+			return nil, notPrepared(c, v, err)
 		}
 		res[i] = &Result{Prepared: pr}
 		ts[i] = pr.Tensor
@@ -84,6 +83,31 @@ func (s *Session) ScoreMany(vs []*volume.Volume) ([]*Result, error) {
 		r.TimingMs.Total = r.TimingMs.Preprocess + r.TimingMs.Model + r.TimingMs.FitCheck
 	}
 	return res, nil
+}
+
+// NotPreparedError says that a scan could not be prepared as the card
+// states (no head found, a single slice, ...). It is an input error; Result
+// holds what could be checked without the model (header checks, the
+// Hounsfield-unit signature, and the failed "preparation" check), with an
+// out-of-distribution verdict and no prediction, for callers that report
+// such a scan as a result rather than an error.
+type NotPreparedError struct {
+	Result *Result
+	err    error // the inputerr naming the file
+}
+
+// Error names the file and the reason.
+func (e *NotPreparedError) Error() string { return e.err.Error() }
+
+// Unwrap returns the input error.
+func (e *NotPreparedError) Unwrap() error { return e.err }
+
+func notPrepared(c *Card, v *volume.Volume, reason error) error {
+	r := &Result{Facts: MeasureHeader(v)}
+	r.Checks = RunUnpreparedChecks(c, r.Facts, reason)
+	r.Verdict = fitcheck.Verdict(r.Checks)
+	r.FitScore = fitcheck.Score(r.Checks)
+	return &NotPreparedError{Result: r, err: inputerr.Wrap(v.Source, fmt.Errorf("cannot prepare the scan for %s: %w", c.Name, reason))}
 }
 
 // FailedChecks returns the checks of r that failed, required ones first.

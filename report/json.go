@@ -23,7 +23,7 @@ type Score struct {
 	Notice     string             `json:"notice"`
 	Input      Input              `json:"input"`
 	Model      Model              `json:"model"`
-	Prediction Prediction         `json:"prediction"`
+	Prediction *Prediction        `json:"prediction"` // null when the model was not run (the scan could not be prepared)
 	OOD        OOD                `json:"ood"`
 	Relevance  *Relevance         `json:"relevance,omitempty"`
 	TimingMs   map[string]float64 `json:"timing_ms"`

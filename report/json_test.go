@@ -15,7 +15,7 @@ func TestScoreJSON(t *testing.T) {
 	s := &Score{
 		Input:      Input{Path: "scan.nii.gz", Format: "nifti", Dims: [3]int{2, 3, 4}},
 		Model:      Model{Name: "m", Version: "1", SHA256: strings.Repeat("a", 64)},
-		Prediction: Prediction{Label: "x", Probability: 0.25, Probabilities: map[string]float64{"x": 0.75, "y": 0.25}},
+		Prediction: &Prediction{Label: "x", Probability: 0.25, Probabilities: map[string]float64{"x": 0.75, "y": 0.25}},
 		OOD: OOD{Verdict: "in-distribution", Score: Number(0.5),
 			Checks: []Check{{Name: "noise_level", Value: Number(math.NaN()), Threshold: "0 to 1", Pass: true, Severity: Number(math.Inf(1))}}},
 		Relevance: &Relevance{Method: "lrp", File: "relevance.nii.gz", Checks: map[string]float64{"conservation_error": 0.003, "method": 9}},

@@ -76,6 +76,11 @@ func runScore(e *env, args []string) error {
 	}
 	loadMs := msSince(tLoad)
 	res, err := sess.Score(v)
+	var np *inference.NotPreparedError
+	if errors.As(err, &np) {
+		// a scan the model cannot take is a result: out-of-distribution, with reasons
+		res, err = np.Result, nil
+	}
 	if err != nil {
 		return err
 	}
@@ -175,13 +180,15 @@ func scoreReport(input string, v *volume.Volume, b *inference.Bundle, r *inferen
 		Input: report.Input{Path: input, Format: v.Meta.Format, Dims: v.Dims, SpacingMm: v.Spacing(),
 			Orientation: orient, Modality: v.Meta.Modality},
 		Model: report.Model{Name: c.Name, Version: c.Version, SHA256: b.SHA256, Source: b.Source},
-		Prediction: report.Prediction{Label: r.Prediction.Label, Probability: r.Prediction.Probability,
-			PositiveClass: c.PositiveClass, Probabilities: r.Prediction.Probabilities,
-			Temperature: r.Prediction.Temperature, Uncalibrated: r.Prediction.Uncalibrated},
-		OOD: report.OOD{Verdict: r.Verdict, Score: report.Number(r.FitScore)},
+		OOD:   report.OOD{Verdict: r.Verdict, Score: report.Number(r.FitScore)},
 		TimingMs: map[string]float64{"preprocess": r.TimingMs.Preprocess, "model": r.TimingMs.Model,
 			"fit_check": r.TimingMs.FitCheck},
 		Warnings: append([]string{}, v.Warnings...),
+	}
+	if r.Prepared != nil {
+		rep.Prediction = &report.Prediction{Label: r.Prediction.Label, Probability: r.Prediction.Probability,
+			PositiveClass: c.PositiveClass, Probabilities: r.Prediction.Probabilities,
+			Temperature: r.Prediction.Temperature, Uncalibrated: r.Prediction.Uncalibrated}
 	}
 	for _, ch := range r.Checks {
 		rep.OOD.Checks = append(rep.OOD.Checks, report.Check{Name: ch.Name, Value: report.Number(ch.Value),
@@ -200,9 +207,12 @@ func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result) {
 		in.Dims[0], in.Dims[1], in.Dims[2], in.SpacingMm[0], in.SpacingMm[1], in.SpacingMm[2], in.Orientation)
 	fmt.Fprintf(w, "Model:       %s %s (sha256 %.12s…)\n", rep.Model.Name, rep.Model.Version, rep.Model.SHA256)
 	fmt.Fprintln(w)
-	p := rep.Prediction
-	fmt.Fprintf(w, "Prediction:  %s\n", p.Label)
-	fmt.Fprintf(w, "Probability: %.2f that the scan shows %q (calibrated with temperature %.2f)\n", p.Probability, p.PositiveClass, p.Temperature)
+	if p := rep.Prediction; p != nil {
+		fmt.Fprintf(w, "Prediction:  %s\n", p.Label)
+		fmt.Fprintf(w, "Probability: %.2f that the scan shows %q (calibrated with temperature %.2f)\n", p.Probability, p.PositiveClass, p.Temperature)
+	} else {
+		fmt.Fprintln(w, "Prediction:  none. The scan could not be prepared for the model, so the model was not run.")
+	}
 	fmt.Fprintln(w)
 	failed := r.FailedChecks()
 	if rep.OOD.Verdict == fitcheck.OutOfDistribution {

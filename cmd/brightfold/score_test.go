@@ -127,13 +127,29 @@ func TestScoreJSONAndResultFile(t *testing.T) {
 	}
 }
 
-// Real scans from Debian's python3-nibabel test data are out of distribution
-// for a model fitted on 1 mm synthetic heads, each with reasons.
+// pydicomDir holds Debian python3-pydicom's test files.
+const pydicomDir = "/usr/lib/python3/dist-packages/pydicom/data/test_files"
+
+// realScans are the reference scans of Debian's python3-nibabel and
+// python3-pydicom test data that score must call out of distribution.
+var realScans = []string{
+	filepath.Join(nibabelDir, "anatomical.nii"), filepath.Join(nibabelDir, "example4d.nii.gz"),
+	filepath.Join(nibabelDir, "example_nifti2.nii.gz"), filepath.Join(nibabelDir, "functional.nii"),
+	filepath.Join(nibabelDir, "reoriented_anat_moved.nii"), filepath.Join(nibabelDir, "resampled_anat_moved.nii"),
+	filepath.Join(nibabelDir, "standard.nii.gz"), filepath.Join(nibabelDir, "0.dcm"),
+	filepath.Join(pydicomDir, "MR_small.dcm"), filepath.Join(pydicomDir, "CT_small.dcm"),
+}
+
+// Real scans from Debian's python3-nibabel and python3-pydicom test data are
+// out of distribution for a model fitted on 1 mm synthetic heads, each with
+// reasons (single slices and scans without a head come out with the failed
+// preparation check and no prediction).
 func TestScoreNibabelScansOutOfDistribution(t *testing.T) {
 	lib := refcheck.ORTLib(t)
 	bundle := tinyBundle(t)
-	for _, name := range []string{"anatomical.nii", "example4d.nii.gz", "reoriented_anat_moved.nii"} {
-		p := refcheck.Path(t, filepath.Join(nibabelDir, name))
+	for _, p := range realScans {
+		name := filepath.Base(p)
+		refcheck.Path(t, p)
 		code, stdout, stderr := runCLI("score", p, "--model", bundle, "--json", "--ort-lib", lib)
 		if code != 0 {
 			t.Fatalf("%s: exit %d: %s", name, code, stderr)
@@ -180,7 +196,6 @@ func TestScoreAndBundleErrors(t *testing.T) {
 		args []string
 		want string
 	}{
-		{[]string{"score", flatPath, "--model", bundle, "--ort-lib", lib}, "flat.nii: cannot prepare the scan"},
 		{[]string{"score", filepath.Join(t.TempDir(), "missing.nii"), "--model", bundle, "--ort-lib", lib}, "missing.nii"},
 		{[]string{"score", scan, "--model", tampered, "--ort-lib", lib}, "sha256"},
 		{[]string{"score", scan, "--model", bundle, "--map", "lrp", "--ort-lib", lib}, "give --out DIR"},
@@ -197,7 +212,31 @@ func TestScoreAndBundleErrors(t *testing.T) {
 			t.Errorf("%v: exit %d, stderr %q; want exit 2 and one line with %q", c.args, code, stderr, c.want)
 		}
 	}
-	code, stdout, stderr := runCLI("bundle", "check", bundle, "--ort-lib", lib)
+	// a scan the model cannot take (no head) is a result, not an error:
+	// out-of-distribution, no prediction, the failed preparation check
+	code, stdout, stderr := runCLI("score", flatPath, "--model", bundle, "--ort-lib", lib, "--json")
+	var flatRes struct {
+		Prediction *struct{} `json:"prediction"`
+		OOD        struct {
+			Verdict string
+			Checks  []struct {
+				Name        string
+				Pass        bool
+				Explanation string
+			}
+		}
+	}
+	json.Unmarshal([]byte(stdout), &flatRes)
+	last := flatRes.OOD.Checks[len(flatRes.OOD.Checks)-1]
+	if code != 0 || flatRes.Prediction != nil || flatRes.OOD.Verdict != "out-of-distribution" || last.Name != "preparation" ||
+		last.Pass || !strings.Contains(last.Explanation, "no head found") {
+		t.Errorf("flat scan: exit %d, %+v\n%s", code, flatRes, stderr)
+	}
+	code, stdout, stderr = runCLI("score", flatPath, "--model", bundle, "--ort-lib", lib)
+	if code != 0 || !strings.Contains(stdout, "Prediction:  none") || !strings.Contains(stdout, "OUT-OF-DISTRIBUTION") {
+		t.Errorf("flat scan text: exit %d\n%s\n%s", code, stdout, stderr)
+	}
+	code, stdout, stderr = runCLI("bundle", "check", bundle, "--ort-lib", lib)
 	if code != 0 || !strings.Contains(stdout, "OK") || !strings.Contains(stdout, "ran one all-zero case") {
 		t.Errorf("bundle check: exit %d\n%s\n%s", code, stdout, stderr)
 	}
