@@ -5,6 +5,7 @@ import (
 	"encoding/hex"
 	"math"
 	"math/rand/v2"
+	"os"
 	"sort"
 	"sync"
 	"testing"
@@ -201,4 +202,11 @@ func ranks(x []float32) []float64 {
 		i = j + 1
 	}
 	return r
+}
+
+func writeFile(t testing.TB, path, text string) {
+	t.Helper()
+	if err := os.WriteFile(path, []byte(text), 0o644); err != nil {
+		t.Fatal(err)
+	}
 }

@@ -9,6 +9,7 @@ import (
 
 	"brightfold/graph"
 	"brightfold/inference"
+	"brightfold/volume"
 )
 
 const testGrid = 16
@@ -273,5 +274,81 @@ func TestPatchStarts(t *testing.T) {
 				t.Errorf("patchStarts(%d, %d, %d) = %v, want %v", c.n, c.p, c.s, got, c.want)
 			}
 		}
+	}
+}
+
+// Relevance mass accuracy (Arras et al. 2022, section 4.2) by its
+// definition: only positive relevance counts; a map equal to the mask
+// scores 1, a uniform map scores the mask's share (chance).
+func TestMassAccuracyDefinition(t *testing.T) {
+	mask := []bool{true, false, false, true, false, false, false, false}
+	for _, c := range []struct {
+		v    []float32
+		want float64
+	}{
+		{[]float32{1, 0, 0, 1, 0, 0, 0, 0}, 1},
+		{[]float32{1, 1, 1, 1, 1, 1, 1, 1}, 0.25},
+		{[]float32{3, -5, 0, 1, 1, -1, 0, 0}, 0.8},
+		{[]float32{-1, -1, -1, -1, -1, -1, -1, -1}, 0},
+	} {
+		if got := MassAccuracy(c.v, mask); math.Abs(got-c.want) > 1e-12 {
+			t.Errorf("MassAccuracy(%v) = %v, want %v", c.v, got, c.want)
+		}
+	}
+}
+
+// ToScan carries a map back through the inverse of the preprocessing
+// transform: on a left-handed, anisotropic scan (LPS axes, 1 × 1.2 × 0.9 mm),
+// a single hot model-grid voxel lands on the scan voxel nearest the grid
+// voxel's RAS position (GridAffine), the result has the scan's dims and
+// affine, and an additive map keeps its sum.
+func TestToScanGeometry(t *testing.T) {
+	dims := [3]int{70, 60, 80}
+	sp := [3]float64{1, 1.2, 0.9}
+	var a volume.Affine
+	a[0][0], a[1][1], a[2][2], a[3][3] = -sp[0], -sp[1], sp[2], 1
+	a[0][3], a[1][3], a[2][3] = 40, 30, -30
+	scan, err := volume.New(dims, a)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k := 0; k < dims[2]; k++ {
+		for j := 0; j < dims[1]; j++ {
+			for i := 0; i < dims[0]; i++ {
+				p := a.Apply([3]float64{float64(i), float64(j), float64(k)})
+				d := sq((p[0]-5)/25) + sq((p[1]+2)/30) + sq((p[2]-4)/28)
+				if d < 1 {
+					scan.Data[scan.Index(i, j, k)] = float32(100 + 20*p[0]/25)
+				}
+			}
+		}
+	}
+	card := testCard(testModel(t, modelSpec{grid: testGrid}), testGrid)
+	pr, err := inference.PrepareForCard(scan, card)
+	if err != nil {
+		t.Fatal(err)
+	}
+	g := [3]int{5, 9, 7}
+	m := &Map{Grid: pr.Transform.GridDims, Values: make([]float32, testGrid*testGrid*testGrid), Additive: true}
+	m.Values[g[0]+testGrid*(g[1]+testGrid*g[2])] = 1
+	out, err := m.ToScan(pr.Transform)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if out.Dims != scan.Dims || out.Affine != scan.Affine {
+		t.Fatalf("map on %v %v, scan %v %v", out.Dims, out.Affine, scan.Dims, scan.Affine)
+	}
+	want := pr.Transform.GridAffine.Apply([3]float64{float64(g[0]), float64(g[1]), float64(g[2])})
+	pk := Peak(out)
+	got := out.Affine.Apply([3]float64{float64(pk[0]), float64(pk[1]), float64(pk[2])})
+	if d := math.Sqrt(sq(got[0]-want[0]) + sq(got[1]-want[1]) + sq(got[2]-want[2])); d > 1 {
+		t.Errorf("hot voxel at RAS %v, peak on the scan at %v (%.2f mm away)", want, got, d)
+	}
+	var s float64
+	for _, v := range out.Data {
+		s += float64(v)
+	}
+	if math.Abs(s-1) > 0.02 {
+		t.Errorf("additive map sums to %.4f on the scan, 1 on the grid", s)
 	}
 }

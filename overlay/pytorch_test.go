@@ -1,0 +1,103 @@
+package overlay
+
+import (
+	"encoding/binary"
+	"math"
+	"os"
+	"path/filepath"
+	"strconv"
+	"testing"
+
+	"brightfold/inference"
+	"brightfold/internal/refcheck"
+)
+
+// fixtureBundle is the PyTorch-exported fixture of testdata/pytorch as a
+// bundle (a card written here), and its input tensor.
+func fixtureBundle(t *testing.T) (*inference.Bundle, *inference.Tensor) {
+	t.Helper()
+	dir := filepath.Join(refcheck.RepoRoot(), "testdata", "pytorch")
+	model, err := os.ReadFile(filepath.Join(dir, "small3d.onnx"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	raw, err := os.ReadFile(filepath.Join(dir, "input.f32"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	const g = 16
+	if len(raw) != 4*g*g*g {
+		t.Fatalf("input.f32 has %d bytes", len(raw))
+	}
+	card := testCard(model, g)
+	card.Input.Name = "input"
+	b, err := inference.NewBundle(card, model)
+	if err != nil {
+		t.Fatal(err)
+	}
+	in := &inference.Tensor{Layout: inference.LayoutNCDHW, Grid: [3]int{g, g, g}, Shape: []int64{1, 1, g, g, g}, Data: make([]float32, g*g*g)}
+	for i := range in.Data {
+		in.Data[i] = math.Float32frombits(binary.LittleEndian.Uint32(raw[4*i:]))
+	}
+	return b, in
+}
+
+// On the PyTorch-exported fixture (Conv3d with bias, BatchNorm3d, ReLU,
+// MaxPool3d, adaptive average pooling, Flatten, Dropout, Linear) every
+// executor method runs, LRP conserves, and the maps agree with references
+// computed in float64 by python3-torch from the papers' definitions
+// (testdata/ref_relevance.py): gradient × input through torch.autograd
+// (Shrikumar et al. 2016), integrated gradients (Sundararajan et al. 2017,
+// eq. 3, midpoint rule, m = 64), LRP-epsilon (Bach et al. 2015, eq. 58) and
+// the composite of Montavon et al. 2019 (section 10.1) with the gradient
+// trick of their section 10.2.
+func TestPyTorchFixtureAgainstTorch(t *testing.T) {
+	refcheck.PythonModule(t, "torch")
+	b, in := fixtureBundle(t)
+	ex, err := New(b, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	const eps, steps = 0.25, 64
+	var ref struct {
+		Logit, BaselineLogit                    float64
+		GradInput, IG, LRPEpsilon, LRPComposite []float32
+	}
+	var raw map[string]any
+	refcheck.RunPython(t, filepath.Join("testdata", "ref_relevance.py"), &raw, "1", strconv.FormatFloat(eps, 'g', -1, 64), "-5", "5", strconv.Itoa(steps))
+	ref.Logit, ref.BaselineLogit = raw["logit"].(float64), raw["baseline_logit"].(float64)
+	floats := func(k string) []float32 {
+		xs := raw[k].([]any)
+		out := make([]float32, len(xs))
+		for i, x := range xs {
+			out[i] = float32(x.(float64))
+		}
+		return out
+	}
+	ref.GradInput, ref.IG, ref.LRPEpsilon, ref.LRPComposite = floats("gradinput"), floats("ig"), floats("lrp_epsilon"), floats("lrp_composite")
+
+	for _, c := range []struct {
+		name string
+		m    Method
+		opt  Options
+		want []float32
+	}{
+		{"gradient × input", GradientInput, Options{}, ref.GradInput},
+		{"integrated gradients", IntegratedGradients, Options{Steps: steps}, ref.IG},
+		{"LRP-epsilon", LRP, Options{Rule: RuleEpsilon, Epsilon: eps}, ref.LRPEpsilon},
+		{"LRP composite", LRP, Options{Epsilon: eps}, ref.LRPComposite},
+	} {
+		m := compute(t, ex, c.m, in, c.opt)
+		d := relDiff(m.Values, c.want)
+		t.Logf("%s: max difference from torch %.2g of the largest value; checks %v", c.name, d, m.Checks)
+		if d > 2e-3 {
+			t.Errorf("%s: differs from the torch reference by %.3g of the largest value", c.name, d)
+		}
+		if math.Abs(m.Target-ref.Logit) > 1e-5 {
+			t.Errorf("%s: target logit %.7g, torch %.7g", c.name, m.Target, ref.Logit)
+		}
+		if ce, ok := m.Checks["conservation_error"]; ok && ce > 1e-4 {
+			t.Errorf("%s: conservation error %.3g", c.name, ce)
+		}
+	}
+}
