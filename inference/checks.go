@@ -304,7 +304,7 @@ func imageChecks(o OODReference, f CaseFacts) []fitcheck.Check {
 			"The head's head-foot to front-back proportion (%s) is as in training (%s).",
 			"The head's head-foot to front-back proportion (%s) is unlike training (%s); the header may give the wrong orientation or the field of view differs."),
 	}
-	if e.HeadSkewSI != nil {
+	if r := e.HeadSkewSI; r != nil && !(r.Min == 0 && r.Max == 0) { // exactly [0, 0]: fitted from facts without skewness
 		out = append(out, rangeCheck(CheckHeadSkewSI, f.HeadSkewSI, *e.HeadSkewSI, "",
 			"The head's mass is distributed head-to-foot as in training (skewness %s; training %s).",
 			"The head's mass is distributed head-to-foot unlike training (skewness %s; training %s): the head may be upside down, or the header gives the wrong orientation."))

@@ -82,3 +82,28 @@ func TestLeaveOneOutScores(t *testing.T) {
 		t.Errorf("mean leave-one-out Mahalanobis %v not above in-sample %v", out/30, in/30)
 	}
 }
+
+// A head_skew_si of exactly [0, 0] (fitted from facts measured before the
+// skewness existed) is skipped rather than failing every scan.
+func TestZeroSkewRangeSkipped(t *testing.T) {
+	c := tinyCard([]byte("x"))
+	has := func() bool {
+		for _, ch := range RunChecks(c, CaseFacts{HeadSkewSI: -0.2}, ModelScores{}) {
+			if ch.Name == CheckHeadSkewSI {
+				return true
+			}
+		}
+		return false
+	}
+	c.OOD.Envelope.HeadSkewSI = &Range{}
+	if has() {
+		t.Error("head_upright run with a [0, 0] range")
+	}
+	c.OOD.Envelope.HeadSkewSI = &Range{Min: -0.5, Max: 0}
+	if !has() {
+		t.Error("head_upright missing with a fitted range")
+	}
+	if s := (span{0, 0}).widenSigned(0.6); s != nil {
+		t.Errorf("all-zero facts gave range %v", *s)
+	}
+}
