@@ -99,13 +99,34 @@ func (u *UI) screenshotWhenReady(opts Options) error {
 	}
 	time.Sleep(3 * time.Second) // a few frames so the last refresh is painted
 	var img image.Image
-	fyne.DoAndWait(func() { img = u.win.Canvas().Capture() })
+	var stateErr error
+	fyne.DoAndWait(func() {
+		img = u.win.Canvas().Capture()
+		stateErr = u.completeness()
+	})
 	var err error
 	if img, err = opaque(img); err == nil {
 		err = savePNG(opts.Screenshot, img)
 	}
 	fyne.Do(u.app.Quit)
-	return errors.Join(waitErr, err)
+	return errors.Join(waitErr, stateErr, err)
+}
+
+// completeness says what is missing from the screen for a full reading
+// view: a case, its score and, unless none was asked for, its relevance map.
+func (u *UI) completeness() error {
+	switch {
+	case u.open == nil:
+		return fmt.Errorf("screenshot: no case on screen (%s)", u.message.Text)
+	case u.open.result == nil && u.model.missing():
+		return nil // a build without the embedded model says so on screen
+	case u.open.result == nil:
+		return fmt.Errorf("screenshot: %s has no score (%s)", u.open.c.Code, u.evidence.status.Text)
+	}
+	if _, want := u.evidence.selectedMethod(); want && u.scan.overlay == nil {
+		return fmt.Errorf("screenshot: %s has no relevance map (%s)", u.open.c.Code, u.evidence.ovState.Text)
+	}
+	return nil
 }
 
 // opaque copies a captured window into an opaque RGBA image. OpenGL read-back

@@ -38,6 +38,9 @@ var shiftNotes = map[string]string{
 // with progress) when the folder holds none.
 func (u *UI) startDemo() {
 	dir := u.opts.DemoDir
+	if abs, err := filepath.Abs(dir); err == nil {
+		dir = abs
+	}
 	if phantom.IsCohort(dir) {
 		u.openCohort(dir)
 		return

@@ -28,8 +28,16 @@ type model struct {
 	exErr   error
 }
 
-// errNoBundle says there is no model to run.
-var errNoBundle = errors.New("no model bundle: the embedded demo model is not built yet; start Brightfold with --model BUNDLE")
+// errNoBundle says there is no model to run (a build whose assets lack the
+// demo bundle).
+var errNoBundle = errors.New("no model bundle: this build has no embedded demo model; start Brightfold with --model BUNDLE")
+
+// missing reports whether scoring failed for want of a model bundle.
+func (m *model) missing() bool {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	return errors.Is(m.err, errNoBundle)
+}
 
 // get returns the session, loading the library and the bundle the first time.
 func (m *model) get() (*inference.Session, error) {

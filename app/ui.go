@@ -61,6 +61,8 @@ func newUI(a fyne.App, w fyne.Window, opts Options, post func(func())) *UI {
 	u.model = &model{path: opts.Model}
 	u.meeting = opts.Meeting
 	u.build()
+	u.fit.unavailable("No case open.")
+	u.evidence.unavailable("No case open.")
 	u.applyMeeting()
 	return u
 }

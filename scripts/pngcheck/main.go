@@ -16,18 +16,19 @@ import (
 func main() {
 	minStd := flag.Float64("min-std", 12, "smallest acceptable standard deviation of luminance (0..255)")
 	minW := flag.Int("min-width", 800, "smallest acceptable width in pixels")
+	banner := flag.String("banner", "", "hex RGB colour (e.g. ece1c6) that must fill most of the top 24 pixel rows: the notice banner")
 	flag.Parse()
 	if flag.NArg() != 1 {
 		fmt.Fprintln(os.Stderr, "usage: pngcheck [-min-std S] [-min-width W] FILE.png")
 		os.Exit(2)
 	}
-	if err := check(flag.Arg(0), *minStd, *minW); err != nil {
+	if err := check(flag.Arg(0), *minStd, *minW, *banner); err != nil {
 		fmt.Fprintln(os.Stderr, "pngcheck:", err)
 		os.Exit(1)
 	}
 }
 
-func check(path string, minStd float64, minW int) error {
+func check(path string, minStd float64, minW int, banner string) error {
 	f, err := os.Open(path)
 	if err != nil {
 		return err
@@ -64,6 +65,41 @@ func check(path string, minStd float64, minW int) error {
 	}
 	if std < minStd || len(colours) < 64 {
 		return fmt.Errorf("%s: looks blank (luminance std %.1f, %d colours)", path, std, len(colours))
+	}
+	if banner != "" {
+		return checkBanner(path, img, banner)
+	}
+	return nil
+}
+
+// checkBanner requires at least half of the pixels of the top 24 rows to be
+// within 12 levels of the banner colour.
+func checkBanner(path string, img image.Image, hex string) error {
+	var want [3]int
+	if _, err := fmt.Sscanf(hex, "%02x%02x%02x", &want[0], &want[1], &want[2]); err != nil {
+		return fmt.Errorf("-banner %q: %w", hex, err)
+	}
+	b := img.Bounds()
+	hit, n := 0, 0
+	for y := b.Min.Y; y < b.Min.Y+24 && y < b.Max.Y; y++ {
+		for x := b.Min.X; x < b.Max.X; x++ {
+			r, g, bl, _ := img.At(x, y).RGBA()
+			got := [3]int{int(r >> 8), int(g >> 8), int(bl >> 8)}
+			ok := true
+			for i := range got {
+				if d := got[i] - want[i]; d > 12 || d < -12 {
+					ok = false
+				}
+			}
+			if ok {
+				hit++
+			}
+			n++
+		}
+	}
+	fmt.Printf("%s: %.0f %% of the top rows in the banner colour #%s\n", path, 100*float64(hit)/float64(max(n, 1)), hex)
+	if 2*hit < n {
+		return fmt.Errorf("%s: the notice banner (#%s) is missing from the top of the window", path, hex)
 	}
 	return nil
 }
