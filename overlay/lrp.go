@@ -488,11 +488,7 @@ func (p *lrpPlan) zB(l *linearLayer, x, z, r *graph.Tensor, lg *ledger) (*graph.
 		zb.Data[i] = float32(lin - lo*float64(onesPos.Data[i]) - hi*float64(onesNeg.Data[i]))
 	}
 	s := stabilised(r, zb, tinyEps, lg)
-	cp, err := l.vjpPos(x, zb, s)
-	if err != nil {
-		return nil, err
-	}
-	cn, err := l.vjpNeg(x, zb, s)
+	cp, cn, err := l.vjpPosNeg(x, zb, s)
 	if err != nil {
 		return nil, err
 	}

@@ -17,6 +17,10 @@ type linearLayer struct {
 	w, b           *graph.Tensor // b is nil without a bias
 	wPos, wNeg     *graph.Tensor
 	full, pos, neg *graph.Executor
+	// split holds W⁺ and W⁻ side by side along the input channels (a Conv
+	// without groups), so that one backward pass gives W⁺ᵀs and W⁻ᵀs.
+	split  *graph.Executor
+	wSplit *graph.Tensor
 
 	mu    sync.Mutex
 	cache map[string]*graph.Tensor // input-independent maps by kind and shape
@@ -42,7 +46,58 @@ func newLinearLayer(n *graph.Node, opset int64, w, b *graph.Tensor) (*linearLaye
 	if l.neg, err = graph.NewExecutor(layerModel(n, opset, l.wNeg, nil)); err != nil {
 		return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 	}
+	if g, _ := n.AttrInt("group", 1); n.OpType == "Conv" && g == 1 && len(w.Shape) >= 3 {
+		l.wSplit = stackChannels(l.wPos, l.wNeg)
+		if l.split, err = graph.NewExecutor(layerModel(n, opset, l.wSplit, nil)); err != nil {
+			return nil, fmt.Errorf("%s: %w", n.Describe(), err)
+		}
+	}
 	return l, nil
+}
+
+// stackChannels concatenates two convolution weights (M, C, k...) along
+// the input channels into (M, 2C, k...).
+func stackChannels(a, b *graph.Tensor) *graph.Tensor {
+	shape := append([]int(nil), a.Shape...)
+	shape[1] *= 2
+	out := graph.New(shape...)
+	per := a.Len() / a.Shape[0]
+	for m := 0; m < a.Shape[0]; m++ {
+		copy(out.Data[2*m*per:], a.Data[m*per:(m+1)*per])
+		copy(out.Data[(2*m+1)*per:], b.Data[m*per:(m+1)*per])
+	}
+	return out
+}
+
+// vjpPosNeg returns W⁺ᵀs and W⁻ᵀs, in one backward pass when the layer
+// allows it.
+func (l *linearLayer) vjpPosNeg(x, z, s *graph.Tensor) (*graph.Tensor, *graph.Tensor, error) {
+	if l.split == nil {
+		cp, err := l.vjpPos(x, z, s)
+		if err != nil {
+			return nil, nil, err
+		}
+		cn, err := l.vjpNeg(x, z, s)
+		return cp, cn, err
+	}
+	shape := append([]int(nil), x.Shape...)
+	shape[1] *= 2
+	c, err := vjp(l.split, l.wSplit, nil, graph.New(shape...), z, s)
+	if err != nil {
+		return nil, nil, err
+	}
+	cp, cn := graph.New(x.Shape...), graph.New(x.Shape...)
+	plane := x.Len() / (x.Shape[0] * x.Shape[1])
+	for nb := 0; nb < x.Shape[0]; nb++ {
+		for ch := 0; ch < x.Shape[1]; ch++ {
+			dst := (nb*x.Shape[1] + ch) * plane
+			src := (nb*2*x.Shape[1] + ch) * plane
+			neg := src + x.Shape[1]*plane
+			copy(cp.Data[dst:dst+plane], c.Data[src:src+plane])
+			copy(cn.Data[dst:dst+plane], c.Data[neg:neg+plane])
+		}
+	}
+	return cp, cn, nil
 }
 
 // layerModel is a one-node model computing n's operator on input "x" with

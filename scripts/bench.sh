@@ -38,3 +38,14 @@ echo "$dcmline"
 echo "$dcmline" | awk '{for (i = 3; i < NF; i++) m[$(i+1)] = $i}
   END {printf "DICOM load: %.0f ms, pydicom %.0f ms, ratio %.2f (goal <= 1.0); peak RSS %.0f MiB, pydicom %.0f MiB\n",
     m["ns/op"]/1e6, m["pydicom_ms"], m["ratio_vs_pydicom"], m["peak_MiB"], m["pydicom_peak_MiB"]}'
+
+# --- relevance maps (issue 5) -------------------------------------------------
+# One process each, on the demo model and a 1 mm pattern-positive phantom:
+# LRP (composite) time as a ratio to one Go forward pass of the executor
+# (goal: ratio_vs_forward ≤ 3); integrated gradients at m = 64 (Go forward and
+# backward per step) and occlusion (8-voxel cube, stride 4, through ONNX
+# Runtime) in seconds per map and passes per second, beside bare ONNX Runtime
+# Run passes per second in the same process and batch.
+echo "== relevance maps (overlay BenchmarkLRP, BenchmarkIntegratedGradients, BenchmarkOcclusion) =="
+go test -run '^$' -bench '^BenchmarkLRP$' -benchtime 20x ./overlay | grep -E '^(Benchmark|FAIL)'
+go test -run '^$' -bench '^Benchmark(IntegratedGradients|Occlusion)$' -benchtime 2x ./overlay | grep -E '^(Benchmark|ok|FAIL)'
