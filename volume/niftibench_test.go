@@ -17,10 +17,14 @@ var niiBenchDims = [3]int{256, 256, 176}
 // niiBenchVolume is a synthetic head-like volume: a bright ellipsoid with
 // smooth intensity changes, a darker core, and noise, so that gzip
 // compresses it about as much as it compresses a real scan.
-func niiBenchVolume() *Volume {
-	v, _ := New(niiBenchDims, Diag([3]float64{1, 1, 1}, [3]float64{-128, -128, -88}))
-	c := [3]float64{128, 128, 88}
-	r := [3]float64{90, 110, 75}
+func niiBenchVolume() *Volume { return niiHeadLike(niiBenchDims) }
+
+// niiHeadLike is niiBenchVolume's head on a grid of the given dims (the
+// ellipsoid scaled with the grid).
+func niiHeadLike(dims [3]int) *Volume {
+	v, _ := New(dims, Diag([3]float64{1, 1, 1}, [3]float64{-float64(dims[0]) / 2, -float64(dims[1]) / 2, -float64(dims[2]) / 2}))
+	c := [3]float64{float64(dims[0]) / 2, float64(dims[1]) / 2, float64(dims[2]) / 2}
+	r := [3]float64{90 * float64(dims[0]) / 256, 110 * float64(dims[1]) / 256, 75 * float64(dims[2]) / 176}
 	forSlices(v.Dims[2], func(k int) {
 		rng := rand.New(rand.NewSource(int64(k)))
 		for j := 0; j < v.Dims[1]; j++ {
@@ -126,5 +130,47 @@ func BenchmarkResampleTrilinear(b *testing.B) {
 		if _, err := Resample(v, target, niiBenchDims, Trilinear); err != nil {
 			b.Fatal(err)
 		}
+	}
+}
+
+// BenchmarkEncodeInts quantises a 256×256×176 volume for the NIfTI writer:
+// integers stored as they are (int16 and a uint8 label map), and
+// non-integral values spread over the int16 range through scl_slope/inter.
+// The "first" variants run the first, voxel-at-a-time quantiser
+// (encodeIntsMinMax) on the same data, for a ratio measured in the same run.
+func BenchmarkEncodeInts(b *testing.B) {
+	v := niiBenchVolume()
+	frac := v.Clone()
+	labels := v.Clone()
+	for i, x := range v.Data {
+		frac.Data[i] = x*0.37 + 0.25
+		labels.Data[i] = float32(int(x) % 4)
+	}
+	cases := []struct {
+		name string
+		data []float32
+		dt   DataType
+	}{{"int16-exact", v.Data, DTInt16}, {"int16-scaled", frac.Data, DTInt16}, {"uint8-labels", labels.Data, DTUint8}}
+	for _, c := range cases {
+		lo, hi, size := float64(math.MinInt16), float64(math.MaxInt16), 2
+		if c.dt == DTUint8 {
+			lo, hi, size = 0, math.MaxUint8, 1
+		}
+		b.Run(c.name, func(b *testing.B) {
+			b.SetBytes(int64(4 * len(c.data)))
+			for i := 0; i < b.N; i++ {
+				if _, _, _, err := encodeInts(c.data, lo, hi, size); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+		b.Run(c.name+"-first", func(b *testing.B) {
+			b.SetBytes(int64(4 * len(c.data)))
+			for i := 0; i < b.N; i++ {
+				if _, _, _, err := encodeIntsMinMax(c.data, lo, hi, size); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
 	}
 }

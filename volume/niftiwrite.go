@@ -215,39 +215,132 @@ func encodeVoxels(data []float32, dt DataType) (body []byte, slope, inter float3
 // encodeInts quantises data into integers in [lo, hi] of size bytes each.
 // Integral values that fit are stored exactly with slope 1 and inter 0;
 // otherwise the finite range [min, max] is spread over [lo, hi] so that the
-// rounding error is at most (max-min)/(hi-lo)/2.
+// rounding error is at most (max-min)/(hi-lo)/2. Large volumes are scanned
+// and quantised in blocks on all CPUs; the bytes do not depend on how many.
 func encodeInts(data []float32, lo, hi float64, size int) (body []byte, slope, inter float32, err error) {
-	mn, mx := math.Inf(1), math.Inf(-1)
-	integral := true
+	r, err := scanRange(data)
+	if err != nil {
+		return nil, 0, 0, err
+	}
+	// Exact means stored as is; a scaled range may still end up with slope 1
+	// and inter 0 (say 0, 0.5 and 255 into uint8), and those values round.
+	exact := len(data) == 0 || (r.integral && r.min >= lo && r.max <= hi)
+	slope, inter = 1, 0
+	if !exact {
+		if r.max > r.min {
+			slope = float32((r.max - r.min) / (hi - lo))
+		}
+		inter = float32(r.min - lo*float64(slope))
+	}
+	body = make([]byte, size*len(data))
+	forBlocks(len(data), func(a, b int) {
+		switch {
+		case exact && size == 1:
+			putExactUint8(body[a:b], data[a:b])
+		case exact:
+			putExactInt16(body[2*a:2*b], data[a:b])
+		default:
+			putScaled(body[size*a:size*b], data[a:b], float64(slope), float64(inter), lo, hi, size)
+		}
+	})
+	return body, slope, inter, nil
+}
+
+// valueRange is the minimum and maximum of some voxel values and whether
+// all of them are integers.
+type valueRange struct {
+	min, max float64
+	integral bool
+	bad      int // index of the first NaN or infinity, or -1
+}
+
+// scanRange finds the range of data, or the first value that is not finite.
+func scanRange(data []float32) (valueRange, error) {
+	nb := numBlocks(len(data))
+	parts := make([]valueRange, nb)
+	forBlocks(len(data), func(a, b int) { parts[a/encodeBlock] = blockRange(data[a:b], a) })
+	r := valueRange{min: math.Inf(1), max: math.Inf(-1), integral: true, bad: -1}
+	for _, p := range parts {
+		if p.bad >= 0 {
+			return r, fmt.Errorf("voxel %d is %v; an integer datatype cannot hold it", p.bad, data[p.bad])
+		}
+		r.min, r.max = lowerOf(r.min, p.min), max(r.max, p.max)
+		r.integral = r.integral && p.integral
+	}
+	return r, nil
+}
+
+// blockRange is scanRange of one block whose first voxel has index off.
+func blockRange(data []float32, off int) valueRange {
+	r := valueRange{min: math.Inf(1), max: math.Inf(-1), integral: true, bad: -1}
 	for i, x := range data {
 		f := float64(x)
-		if math.IsNaN(f) || math.IsInf(f, 0) {
-			return nil, 0, 0, fmt.Errorf("voxel %d is %v; an integer datatype cannot hold it", i, f)
+		if f-f != 0 { // NaN or ±Inf
+			r.bad = off + i
+			return r
 		}
-		mn, mx = math.Min(mn, f), math.Max(mx, f)
-		if f != math.Trunc(f) {
-			integral = false
+		r.min = lowerOf(r.min, f)
+		if f > r.max {
+			r.max = f
+		}
+		if r.integral && f != math.Trunc(f) {
+			r.integral = false
 		}
 	}
-	slope, inter = 1, 0
-	if len(data) > 0 && !(integral && mn >= lo && mx <= hi) {
-		if mx > mn {
-			slope = float32((mx - mn) / (hi - lo))
-		}
-		inter = float32(mn - lo*float64(slope))
+	return r
+}
+
+// lowerOf is math.Min for finite values (−0 counts as less than +0, which
+// keeps scl_inter's sign bit as math.Min gave it) without its per-call cost.
+func lowerOf(m, f float64) float64 {
+	if f < m || (f == m && math.Signbit(f)) {
+		return f
 	}
-	s, c := float64(slope), float64(inter)
-	body = make([]byte, size*len(data))
-	for i, x := range data {
+	return m
+}
+
+// putExactUint8 stores integers already known to lie in [0, 255].
+func putExactUint8(out []byte, vals []float32) {
+	for i, x := range vals {
+		out[i] = uint8(x)
+	}
+}
+
+// putExactInt16 stores integers already known to lie in [-32768, 32767].
+func putExactInt16(out []byte, vals []float32) {
+	out = out[:2*len(vals)]
+	for i, x := range vals {
+		binary.LittleEndian.PutUint16(out[2*i:], uint16(int16(x)))
+	}
+}
+
+// putScaled stores round((x - inter) / slope) clamped to [lo, hi].
+func putScaled(out []byte, vals []float32, s, c, lo, hi float64, size int) {
+	for i, x := range vals {
 		q := math.Round((float64(x) - c) / s)
-		q = math.Max(lo, math.Min(hi, q))
+		if q < lo {
+			q = lo
+		} else if q > hi {
+			q = hi
+		}
 		if size == 1 {
-			body[i] = uint8(q)
+			out[i] = uint8(q)
 		} else {
-			binary.LittleEndian.PutUint16(body[2*i:], uint16(int16(q)))
+			binary.LittleEndian.PutUint16(out[2*i:], uint16(int16(q)))
 		}
 	}
-	return body, slope, inter, nil
+}
+
+// encodeBlock is the number of voxels one goroutine of the NIfTI writer
+// scans or quantises at a time.
+const encodeBlock = 1 << 18
+
+func numBlocks(n int) int { return (n + encodeBlock - 1) / encodeBlock }
+
+// forBlocks calls f(a, b) for the blocks [a, b) of encodeBlock voxels that
+// cover [0, n), on all CPUs when there is more than one block.
+func forBlocks(n int, f func(a, b int)) {
+	forSlices(numBlocks(n), func(k int) { f(k*encodeBlock, min(n, (k+1)*encodeBlock)) })
 }
 
 // quatern is the NIfTI-1 qform parameterisation of an affine.
