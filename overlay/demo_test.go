@@ -252,8 +252,10 @@ func TestLocalisation(t *testing.T) {
 		{"LRP composite", LRP, Options{}},
 		{"LRP epsilon", LRP, Options{Rule: RuleEpsilon}},
 		{"LRP alpha1-beta0", LRP, Options{Rule: RuleAlphaBeta}},
+		{"LRP composite, contrast", LRP, Options{Contrast: true}},
 		{fmt.Sprintf("IG zero, m=%d", steps), IntegratedGradients, Options{Steps: steps}},
 		{fmt.Sprintf("IG blur, m=%d", steps), IntegratedGradients, Options{Steps: steps, Baseline: BaselineBlur}},
+		{fmt.Sprintf("IG zero, contrast, m=%d", steps), IntegratedGradients, Options{Steps: steps, Contrast: true}},
 		{"gradient × input", GradientInput, Options{}},
 		{fmt.Sprintf("occlusion 8, stride %d", stride), Occlusion, Options{Stride: stride}},
 	}
@@ -291,10 +293,10 @@ func TestLocalisation(t *testing.T) {
 	var sb strings.Builder
 	fmt.Fprintf(&sb, "relevance mass accuracy on %d pattern-positive phantoms (seed %d, %g mm), positive-class logit:\n", *locCases, freshSeed, voxel)
 	fmt.Fprintf(&sb, "chance: mask share of the scan %.4f (sd %.4f), of the intracranial voxels %.4f\n", mc, mb, cb)
-	fmt.Fprintf(&sb, "%-24s %8s %8s %10s %10s\n", "method", "mean", "sd", "x chance", "x brain")
+	fmt.Fprintf(&sb, "%-28s %8s %8s %10s %10s\n", "method", "mean", "sd", "x chance", "x brain")
 	for k, md := range methods {
 		m, sd := meanSD(acc[k])
-		fmt.Fprintf(&sb, "%-24s %8.4f %8.4f %10.2f %10.2f\n", md.name, m, sd, m/mc, m/cb)
+		fmt.Fprintf(&sb, "%-28s %8.4f %8.4f %10.2f %10.2f\n", md.name, m, sd, m/mc, m/cb)
 		for _, a := range acc[k] {
 			if !(a >= 0 && a <= 1) {
 				t.Errorf("%s: mass accuracy %v is not a share", md.name, a)

@@ -134,7 +134,7 @@ func (e *Explainer) Compute(ctx context.Context, method Method, t *inference.Ten
 	if t.Layout != e.card.Input.Layout {
 		return nil, fmt.Errorf("overlay: tensor layout %s, the card says %s", t.Layout, e.card.Input.Layout)
 	}
-	tg, err := e.target(opt.Class)
+	tg, err := e.target(opt.Class, opt.Contrast)
 	if err != nil {
 		return nil, err
 	}
@@ -159,20 +159,40 @@ func (e *Explainer) Compute(ctx context.Context, method Method, t *inference.Ten
 		return nil, err
 	}
 	m.Method, m.Class, m.Grid = method, tg.class, t.Grid
+	if m.Settings == nil {
+		m.Settings = map[string]any{}
+	}
+	m.Settings["target"] = "logit"
+	if tg.contrast {
+		m.Settings["target"] = "logit minus the mean of the other logits"
+	}
 	return m, nil
 }
 
-// target is the explained score: sign·logits[index] of each case.
+// target is the explained score of each case: sign·logits[index], or with
+// contrast, logits[index] minus the mean of the other logits.
 type target struct {
-	class string
-	index int
-	sign  float32
+	class    string
+	index    int
+	sign     float32
+	contrast bool
+}
+
+// weight is the score's coefficient of logit j of n.
+func (tg target) weight(j, n int) float32 {
+	switch {
+	case j == tg.index:
+		return tg.sign
+	case tg.contrast && n > 1:
+		return -1 / float32(n-1)
+	}
+	return 0
 }
 
 // target resolves a class name ("" = the card's positive class) to a logit.
 // For a one-logit sigmoid model the positive class's score is the logit z
 // and the other class's is −z (the log-odds of that class).
-func (e *Explainer) target(class string) (target, error) {
+func (e *Explainer) target(class string, contrast bool) (target, error) {
 	c := e.card
 	if class == "" {
 		class = c.PositiveClass
@@ -193,7 +213,7 @@ func (e *Explainer) target(class string) (target, error) {
 		}
 		return target{class: class, index: 0, sign: sign}, nil
 	}
-	return target{class: class, index: k, sign: 1}, nil
+	return target{class: class, index: k, sign: 1, contrast: contrast}, nil
 }
 
 // seed returns the one-hot gradient seed of the target for logits of the
@@ -209,7 +229,9 @@ func (tg target) seed(logits *graph.Tensor) (*graph.Tensor, error) {
 	}
 	s := graph.New(logits.Shape...)
 	for b := 0; b < n; b++ {
-		s.Data[b*per+tg.index] = tg.sign
+		for j := 0; j < per; j++ {
+			s.Data[b*per+j] = tg.weight(j, per)
+		}
 	}
 	return s, nil
 }
@@ -223,9 +245,18 @@ func (tg target) scores(logits *graph.Tensor) []float64 {
 	per := logits.Len() / max(n, 1)
 	out := make([]float64, n)
 	for b := range out {
-		out[b] = float64(tg.sign) * float64(logits.Data[b*per+tg.index])
+		out[b] = tg.score(logits.Data[b*per : (b+1)*per])
 	}
 	return out
+}
+
+// score is the target's score from one case's logits.
+func (tg target) score(logits []float32) float64 {
+	var s float64
+	for j, z := range logits {
+		s += float64(tg.weight(j, len(logits))) * float64(z)
+	}
+	return s
 }
 
 // zbBounds are the lowest and highest values the card's intensity

@@ -95,10 +95,11 @@ func (e *Explainer) computeOcclusion(ctx context.Context, t *inference.Tensor, t
 
 // score is the target's score from one case's logits.
 func (e *Explainer) score(logits []float64, tg target) float64 {
-	if tg.index >= len(logits) {
-		return 0
+	var s float64
+	for j, z := range logits {
+		s += float64(tg.weight(j, len(logits))) * z
 	}
-	return float64(tg.sign) * logits[tg.index]
+	return s
 }
 
 // occluded returns a copy of t with the cube at p set to fill.

@@ -36,6 +36,11 @@ type Options struct {
 	// Class is the class whose logit is explained; "" means the card's
 	// positive class.
 	Class string
+	// Contrast explains the class's logit minus the mean of the other
+	// logits (for two classes, the log-odds of a softmax model) instead of
+	// the logit itself; a softmax ignores what all logits share, the
+	// contrast does too.
+	Contrast bool
 
 	// Rule is the LRP rule set ("" means RuleComposite).
 	Rule LRPRule

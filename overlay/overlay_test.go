@@ -352,3 +352,27 @@ func TestToScanGeometry(t *testing.T) {
 		t.Errorf("additive map sums to %.4f on the scan, 1 on the grid", s)
 	}
 }
+
+// With Contrast the explained score is the class logit minus the other's
+// (two classes): LRP still conserves it and integrated gradients still add
+// up to its change.
+func TestContrastTarget(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid}, false)
+	in := testInput(testGrid, 3)
+	pos := compute(t, ex, GradientInput, in, Options{})
+	neg := compute(t, ex, GradientInput, in, Options{Class: "negative"})
+	con := compute(t, ex, GradientInput, in, Options{Contrast: true})
+	if math.Abs(con.Target-(pos.Target-neg.Target)) > 1e-5 {
+		t.Errorf("contrast %.6g, logits %.6g − %.6g", con.Target, pos.Target, neg.Target)
+	}
+	for i := range con.Values {
+		if d := con.Values[i] - (pos.Values[i] - neg.Values[i]); math.Abs(float64(d)) > 1e-5 {
+			t.Fatalf("voxel %d: contrast %.6g, difference of the maps %.6g", i, con.Values[i], pos.Values[i]-neg.Values[i])
+		}
+	}
+	lrp := compute(t, ex, LRP, in, Options{Contrast: true})
+	ig := compute(t, ex, IntegratedGradients, in, Options{Contrast: true})
+	if lrp.Checks["conservation_error"] > 1e-5 || ig.Checks["completeness_error"] > 0.01 {
+		t.Errorf("contrast: conservation %.3g, completeness %.3g", lrp.Checks["conservation_error"], ig.Checks["completeness_error"])
+	}
+}
