@@ -5,7 +5,7 @@ BIN := bin/brightfold
 export BRIGHTFOLD_ORT_LIB ?= $(CURDIR)/.cache/onnxruntime/libonnxruntime.so.1
 export LANG ?= C.UTF-8
 
-.PHONY: setup build run demo test vet fuzz screenshot-check bench demo-model clean
+.PHONY: setup build run demo test vet fuzz screenshot-check bench demo-model evaluate clean
 
 setup:
 	@scripts/setup.sh
@@ -40,6 +40,10 @@ bench: setup
 
 demo-model: build
 	@scripts/demo-model.sh
+
+# Figures of the demo bundle on fresh phantoms and real scans (docs/evaluation.md).
+evaluate: setup
+	@scripts/evaluate.sh
 
 clean:
 	rm -rf bin out

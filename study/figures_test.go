@@ -186,3 +186,17 @@ func TestOutputsCarryNotice(t *testing.T) {
 		t.Errorf("document without markers: %v", err)
 	}
 }
+
+// TestMarkdownRealScans: refusals and an in-distribution real scan are
+// stated plainly in the Markdown, with the notice.
+func TestMarkdownRealScans(t *testing.T) {
+	ev := &Evaluation{RealScans: []RealResult{
+		{Scan: RealScan{Name: "b.dcm", From: "pydicom"}, Status: StatusRefused, Error: "b.dcm: no head found"},
+		{Scan: RealScan{Name: "c.nii", From: "nibabel"}, Status: StatusScored, Verdict: fitcheck.InDistribution}}}
+	md := Markdown(ev)
+	for _, want := range []string{"b.dcm: no head found", "in-distribution (**not flagged**)", notice.Full} {
+		if !strings.Contains(md, want) {
+			t.Errorf("Markdown lacks %q", want)
+		}
+	}
+}
