@@ -1,6 +1,7 @@
 package volume
 
 import (
+	"compress/gzip"
 	"math"
 	"math/rand"
 	"os"
@@ -170,6 +171,30 @@ func BenchmarkEncodeInts(b *testing.B) {
 				if _, _, _, err := encodeIntsMinMax(c.data, lo, hi, size); err != nil {
 					b.Fatal(err)
 				}
+			}
+		})
+	}
+}
+
+// BenchmarkWriteNIfTIGzLevels writes the noisy 256×256×176 int16 benchmark
+// volume as .nii.gz at three NIfTIWriteOptions.GzipLevel values and reports
+// each file's size, so that speed and size can be weighed in one run.
+func BenchmarkWriteNIfTIGzLevels(b *testing.B) {
+	v := niiBenchVolume()
+	for _, l := range []struct {
+		name  string
+		level int
+	}{{"default", 0}, {"huffman-only", gzip.HuffmanOnly}, {"best-speed", gzip.BestSpeed}} {
+		b.Run(l.name, func(b *testing.B) {
+			p := filepath.Join(b.TempDir(), "bench.nii.gz")
+			for i := 0; i < b.N; i++ {
+				if err := WriteNIfTI(p, v, NIfTIWriteOptions{DataType: DTInt16, GzipLevel: l.level}); err != nil {
+					b.Fatal(err)
+				}
+			}
+			b.StopTimer()
+			if fi, err := os.Stat(p); err == nil {
+				b.ReportMetric(float64(fi.Size())/1e6, "MB-file")
 			}
 		})
 	}

@@ -51,6 +51,30 @@ type NIfTIWriteOptions struct {
 	// SformCode and QformCode are the NIfTI-1 xform codes; zero means
 	// XformScannerAnat. Use a negative value to write code 0 (unknown).
 	SformCode, QformCode int
+	// GzipLevel is the compression level of a .gz path, with the constants
+	// of compress/gzip (the same values in github.com/klauspost/compress/gzip):
+	// zero means gzip.DefaultCompression (level 5 of klauspost/compress, the
+	// writer used), as before the option existed; gzip.HuffmanOnly (-2),
+	// gzip.DefaultCompression (-1) and gzip.BestSpeed (1) through
+	// gzip.BestCompression (9) are accepted, anything else is refused (0 is
+	// taken, so there is no uncompressed .gz; write a .nii instead). Most
+	// bytes of a noisy scan are noise, which LZ77 matching cannot shorten:
+	// there HuffmanOnly is faster than the default for a file a few percent
+	// larger (BenchmarkWriteNIfTIGzLevels weighs both); on masks and label
+	// maps (long runs of zeros) BestSpeed is the better choice. Ignored for a
+	// .nii path but checked.
+	GzipLevel int
+}
+
+// gzipLevel is the klauspost/compress/gzip level of opts.GzipLevel.
+func (o NIfTIWriteOptions) gzipLevel() (int, error) {
+	switch l := o.GzipLevel; {
+	case l == 0:
+		return gzip.DefaultCompression, nil
+	case l == gzip.HuffmanOnly || l == gzip.DefaultCompression || (l >= gzip.BestSpeed && l <= gzip.BestCompression):
+		return l, nil
+	}
+	return 0, fmt.Errorf("gzip level %d is not one of -2 (Huffman only), -1 (default) or 1..9", o.GzipLevel)
 }
 
 // The NIfTI-1 single-file layout: a 348-byte header, 4 extension bytes, data at 352.
@@ -64,8 +88,13 @@ const (
 // path ends in .gz), atomically. The sform holds v.Affine exactly (to float32
 // precision); the qform holds its rigid part through the NIfTI-1 quaternion
 // decomposition, with qfac = -1 for a left-handed affine. The same volume and
-// options always give the same bytes (gzip without name or time stamp).
+// options always give the same bytes (gzip without name or time stamp, at
+// opts.GzipLevel).
 func WriteNIfTI(path string, v *Volume, opts NIfTIWriteOptions) error {
+	level, err := opts.gzipLevel()
+	if err != nil {
+		return fmt.Errorf("write NIfTI %s: %w", path, err)
+	}
 	hdr, body, err := encodeNIfTI1(v, opts)
 	if err != nil {
 		return fmt.Errorf("write NIfTI %s: %w", path, err)
@@ -75,7 +104,7 @@ func WriteNIfTI(path string, v *Volume, opts NIfTIWriteOptions) error {
 		if !gz {
 			return writeParts(w, hdr, body)
 		}
-		zw, err := gzip.NewWriterLevel(w, gzip.DefaultCompression)
+		zw, err := gzip.NewWriterLevel(w, level)
 		if err != nil {
 			return err
 		}
