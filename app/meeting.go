@@ -30,8 +30,7 @@ func (u *UI) applyMeeting() {
 	}
 	u.refreshIdentity()
 	u.casesPanel.refresh()
-	u.message.Text = u.clean(u.message.Text)
-	u.message.Refresh()
+	u.message.SetText(u.clean(u.message.Text))
 	u.refreshTasks()
 }
 

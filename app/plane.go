@@ -301,6 +301,10 @@ func (v *planeView) zoomBy(f float32, at *fyne.Position) {
 
 // Tapped sets the crosshair to the voxel under the pointer.
 func (v *planeView) Tapped(ev *fyne.PointEvent) {
+	// Take the keyboard back from any control, so that the keys work again.
+	if c := fyne.CurrentApp().Driver().CanvasForObject(v); c != nil {
+		c.Unfocus()
+	}
 	if !v.hasFrame {
 		return
 	}

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"strings"
 
 	"brightfold/inference"
 	"brightfold/overlay"
@@ -112,8 +113,8 @@ func (u *UI) showCase(oc *openCase) {
 	u.open = oc
 	u.refreshIdentity()
 	u.scan.show(oc.scene)
-	for _, w := range oc.vol.Warnings {
-		u.say("Note: " + w)
+	if len(oc.vol.Warnings) > 0 {
+		u.say("Note: " + strings.Join(oc.vol.Warnings, "; "))
 	}
 	u.startEvidence()
 }

@@ -43,7 +43,7 @@ type UI struct {
 	meetingChip  *fyne.Container
 	openBtn      *widget.Button
 	taskBox      *fyne.Container
-	message      *canvas.Text
+	message      *widget.Label
 
 	scrolls []*container.Scroll // the reading column's panes, reflowed after text changes
 
@@ -116,9 +116,10 @@ func (u *UI) build() {
 	main := container.NewHSplit(section("Cases", u.casesPanel.root), right)
 	main.Offset = 0.13
 
-	u.message = canvas.NewText("", colMuted)
+	u.message = widget.NewLabel("")
+	u.message.Truncation = fyne.TextTruncateEllipsis
 	u.taskBox = container.NewVBox()
-	bottom := container.NewVBox(u.taskBox, container.NewPadded(u.message))
+	bottom := container.NewVBox(u.taskBox, u.message)
 	u.root = container.NewBorder(container.NewVBox(banner, container.NewPadded(bar), widget.NewSeparator()),
 		bottom, nil, nil, main)
 }
@@ -177,16 +178,14 @@ func (u *UI) markReady() { u.readyOnce.Do(func() { close(u.ready) }) }
 
 // say shows a status line; in Meeting mode identifiers and paths are removed.
 func (u *UI) say(s string) {
-	u.message.Text = u.clean(s)
-	u.message.Color = colMuted
-	u.message.Refresh()
+	u.message.Importance = widget.MediumImportance
+	u.message.SetText(u.clean(s))
 }
 
 // fail shows an error line, cleaned like say.
 func (u *UI) fail(err error) {
-	u.message.Text = u.clean(err.Error())
-	u.message.Color = colOOD
-	u.message.Refresh()
+	u.message.Importance = widget.DangerImportance
+	u.message.SetText(u.clean(err.Error()))
 }
 
 // refreshTasks redraws the task strip: one row per running task with its
