@@ -12,7 +12,6 @@ import (
 	"path/filepath"
 	"runtime"
 	"strconv"
-	"strings"
 	"sync"
 	"sync/atomic"
 
@@ -331,12 +330,16 @@ func writeCase(root string, s Subject, opts WriteOptions) (Row, error) {
 		return Row{}, fmt.Errorf("make case folder: %w", err)
 	}
 	row := Row{Subject: s, NIfTIPath: s.ID + "/" + scanName(s.Shift), MaskPath: s.ID + "/mask.nii.gz"}
-	if err := writeNIfTIGz(filepath.Join(root, row.NIfTIPath), c.Volume,
-		volume.NIfTIWriteOptions{DataType: volume.DTInt16, Description: notice.Short}, gzip.HuffmanOnly); err != nil {
+	// Most bytes of a noisy scan are noise, which LZ77 matching cannot
+	// shorten: Huffman-only coding is much faster than the default level for
+	// a file a few percent larger. In masks, long runs of zeros make the
+	// fastest LZ77 level the right one.
+	if err := volume.WriteNIfTI(filepath.Join(root, row.NIfTIPath), c.Volume,
+		volume.NIfTIWriteOptions{DataType: volume.DTInt16, Description: notice.Short, GzipLevel: gzip.HuffmanOnly}); err != nil {
 		return Row{}, err
 	}
-	if err := writeNIfTIGz(filepath.Join(root, row.MaskPath), c.Mask,
-		volume.NIfTIWriteOptions{DataType: volume.DTUint8, Description: notice.Short}, gzip.BestSpeed); err != nil {
+	if err := volume.WriteNIfTI(filepath.Join(root, row.MaskPath), c.Mask,
+		volume.NIfTIWriteOptions{DataType: volume.DTUint8, Description: notice.Short, GzipLevel: gzip.BestSpeed}); err != nil {
 		return Row{}, err
 	}
 	if wantsDICOM(s, opts.DICOMEvery) {
@@ -346,36 +349,6 @@ func writeCase(root string, s Subject, opts WriteOptions) (Row, error) {
 		}
 	}
 	return row, nil
-}
-
-// writeNIfTIGz writes v to path (ending in .nii.gz): the volume package
-// writes the uncompressed file beside it, which is then compressed at the
-// given level. On noisy scans Huffman-only coding is about seven times
-// faster than the default level for files within a few percent of its size
-// (most of the bytes are noise, which LZ77 matching cannot shorten); on
-// masks, long runs of zeros make the fastest LZ77 level the right one. The
-// uncompressed file lives only inside the cohort's temporary folder.
-func writeNIfTIGz(path string, v *volume.Volume, o volume.NIfTIWriteOptions, level int) error {
-	raw := strings.TrimSuffix(path, ".gz")
-	if err := volume.WriteNIfTI(raw, v, o); err != nil {
-		return err
-	}
-	defer os.Remove(raw)
-	f, err := os.Open(raw)
-	if err != nil {
-		return fmt.Errorf("compress %s: %w", raw, err)
-	}
-	defer f.Close()
-	return atomicfile.Write(path, func(w io.Writer) error {
-		zw, err := gzip.NewWriterLevel(w, level)
-		if err != nil {
-			return err
-		}
-		if _, err := io.Copy(zw, bufio.NewReaderSize(f, 1<<20)); err != nil {
-			return err
-		}
-		return zw.Close()
-	})
 }
 
 // DICOMOptions are the fictional identifiers and acquisition tags with
