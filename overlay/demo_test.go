@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"os"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -29,10 +30,14 @@ var (
 // 20261202 and 20261203).
 const freshSeed = 20261210
 
-// demoBundle loads the demo bundle from assets/demo-bundle.
+// demoBundle loads the demo bundle from assets/demo-bundle, or the bundle
+// folder BRIGHTFOLD_OVERLAY_BUNDLE names (to measure a candidate model).
 func demoBundle(t testing.TB) *inference.Bundle {
 	t.Helper()
 	dir := filepath.Join(refcheck.RepoRoot(), "assets", "demo-bundle")
+	if d := os.Getenv("BRIGHTFOLD_OVERLAY_BUNDLE"); d != "" {
+		dir = d
+	}
 	refcheck.Path(t, filepath.Join(dir, inference.ModelFile))
 	b, err := inference.LoadBundle(dir)
 	if err != nil {
@@ -145,8 +150,10 @@ func randomised(t testing.TB, b *inference.Bundle, k int, seed uint64) (*inferen
 // randomised model's, over the head voxels, signed and of the magnitudes
 // (their Figure 2 shows both); the trained model's map against itself is 1.
 // The assertion: randomising the top two weighted layers (the dense layer
-// and the last convolution) brings the signed correlation below 0.5 for
-// every method.
+// and the last convolution) brings the signed correlation's magnitude below
+// 0.5 for every method (randomising the dense layer alone may just flip the
+// sign of the map). Measured on the trained demo model: about 0.02, with the
+// magnitude maps still correlated near 0.5 (the input's structure).
 func TestCascadingRandomisation(t *testing.T) {
 	b := demoBundle(t)
 	ex, err := New(b, nil)
@@ -177,8 +184,8 @@ func TestCascadingRandomisation(t *testing.T) {
 			rs, ra := spearman(masked(orig[i].Values, head, false), masked(m.Values, head, false)),
 				spearman(masked(orig[i].Values, head, true), masked(m.Values, head, true))
 			row += fmt.Sprintf(" | %6.3f %6.3f", rs, ra)
-			if k == 2 && !(rs < 0.5) {
-				t.Errorf("%s %s: rank correlation %.3f after randomising %v; want below 0.5", c.m, c.opt.Rule, rs, names)
+			if k == 2 && !(math.Abs(rs) < 0.5) {
+				t.Errorf("%s %s: rank correlation %.3f after randomising %v; want |ρ| below 0.5", c.m, c.opt.Rule, rs, names)
 			}
 		}
 		rows = append(rows, row)
