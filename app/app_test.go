@@ -115,6 +115,32 @@ func TestKeysAndMouse(t *testing.T) {
 	if !strings.Contains(sp.wlLabel.Text, sp.win.String()) {
 		t.Errorf("window label %q", sp.wlLabel.Text)
 	}
+
+	// + zooms about the crosshair, which stays where it is on screen.
+	c0, z0 := ax.crosshairPos(), ax.zoom
+	h.u.typedRune('+')
+	if c1 := ax.crosshairPos(); ax.zoom <= z0 || abs32(c1.X-c0.X) > 0.5 || abs32(c1.Y-c0.Y) > 0.5 {
+		t.Errorf("zoom %v -> %v moved the crosshair from %v to %v", z0, ax.zoom, c0, c1)
+	}
+
+	// In pan mode a drag moves the image and leaves the window alone.
+	sp.dragSel.SetSelected(dragPan)
+	w1, pan0 := sp.win, ax.pan
+	test.Drag(c, centre, 25, -10)
+	if sp.win != w1 || ax.pan == pan0 {
+		t.Errorf("pan drag: window %v (was %v), pan %v (was %v)", sp.win, w1, ax.pan, pan0)
+	}
+	h.u.typedKey(keyEvent("R"))
+	if ax.zoom != 1 || ax.pan != (fyne.Position{}) {
+		t.Errorf("R: zoom %v pan %v", ax.zoom, ax.pan)
+	}
+}
+
+func abs32(x float32) float32 {
+	if x < 0 {
+		return -x
+	}
+	return x
 }
 
 func hasText(texts []string, s string) bool {

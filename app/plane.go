@@ -104,6 +104,19 @@ func (r *planeRenderer) Refresh()                     { r.v.layoutContent(); r.c
 func (r *planeRenderer) Objects() []fyne.CanvasObject { return []fyne.CanvasObject{r.clip} }
 func (r *planeRenderer) Destroy()                     {}
 
+// slicePosition is the crosshair's world coordinate across plane pl, with
+// the letter of its direction: "S 12.5 mm" for an axial slice 12.5 mm above
+// the origin, "P 3.0 mm" for a coronal one behind it.
+func slicePosition(pl viewer.Plane, at [3]float64) string {
+	axis := map[viewer.Plane]int{viewer.Sagittal: 0, viewer.Coronal: 1, viewer.Axial: 2}[pl]
+	x := at[axis]
+	letter := "RAS"[axis : axis+1]
+	if x < 0 {
+		letter = "LPI"[axis : axis+1]
+	}
+	return fmt.Sprintf("%s %.1f mm", letter, math.Abs(x))
+}
+
 func titleCase(s string) string {
 	if s == "" {
 		return s
@@ -143,7 +156,7 @@ func (v *planeView) render(l viewer.Layers) {
 	for i, s := range []string{lt.Left, lt.Right, lt.Top, lt.Bottom} {
 		v.letters[i].Text = s
 	}
-	v.title.Text = fmt.Sprintf("%s  %d / %d", titleCase(v.plane.String()), f.Slice+1, s.SliceCount(v.plane))
+	v.title.Text = fmt.Sprintf("%s  %d / %d  ·  %s", titleCase(v.plane.String()), f.Slice+1, s.SliceCount(v.plane), slicePosition(v.plane, v.p.at))
 	v.img.Image = v.rgba
 	v.img.Refresh()
 	v.layoutContent()
@@ -207,11 +220,18 @@ func (v *planeView) layoutContent() {
 	v.placeLetters(o, iw, ih, size)
 }
 
+// crosshairPos is where the crosshair is in the view.
+func (v *planeView) crosshairPos() fyne.Position {
+	scale, o := v.geometry()
+	px, py := v.frame.WorldToPixel(v.p.at)
+	return fyne.NewPos(o.X+float32(px)*scale, o.Y+float32(py)*scale)
+}
+
 // placeCrosshair draws the crosshair arms through the voxel centre, leaving
 // that voxel (and a few view units around it) uncovered.
 func (v *planeView) placeCrosshair(scale float32, o fyne.Position, iw, ih float32) {
-	px, py := v.frame.WorldToPixel(v.p.at)
-	cx, cy := o.X+float32(px)*scale, o.Y+float32(py)*scale
+	c := v.crosshairPos()
+	cx, cy := c.X, c.Y
 	gap := scale/2 + 6
 	segs := [4][2]fyne.Position{
 		{fyne.NewPos(o.X, cy), fyne.NewPos(cx-gap, cy)},
@@ -345,7 +365,7 @@ func (v *planeView) Scrolled(ev *fyne.ScrollEvent) {
 
 // MouseDown decides whether the coming drag pans or changes the window.
 func (v *planeView) MouseDown(ev *desktop.MouseEvent) {
-	v.panning = ev.Button == desktop.MouseButtonTertiary || ev.Modifier&fyne.KeyModifierShift != 0 || v.p.dragPans()
+	v.panning = ev.Button == desktop.MouseButtonTertiary || ev.Modifier&fyne.KeyModifierShift != 0
 }
 
 // MouseUp ends a drag.
@@ -356,7 +376,7 @@ func (v *planeView) Dragged(ev *fyne.DragEvent) {
 	if !v.hasFrame {
 		return
 	}
-	if v.panning {
+	if v.panning || v.p.dragPans() {
 		v.pan = v.pan.Add(ev.Dragged)
 		v.layoutContent()
 		return

@@ -327,8 +327,15 @@ func (u *UI) goToPeak() {
 	u.scan.moveCrosshair(oc.overlayVol.Affine.Apply(ijk))
 }
 
-// zoomLarge zooms the large plane by factor f (keys + and -).
-func (p *scanPanel) zoomLarge(f float32) { p.views[p.order[0]].zoomBy(f, nil) }
+// zoomLarge zooms the large plane by factor f about the crosshair (keys + and -).
+func (p *scanPanel) zoomLarge(f float32) {
+	v := p.views[p.order[0]]
+	if !v.hasFrame {
+		return
+	}
+	at := v.crosshairPos()
+	v.zoomBy(f, &at)
+}
 
 // triLayout puts object 0 in a large slot on the left (two thirds of the
 // width) and objects 1 and 2 stacked on the right.
