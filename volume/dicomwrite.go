@@ -24,6 +24,9 @@ import (
 // MRImageStorage is the SOP Class UID of MR Image Storage (DICOM PS3.4 B.5).
 const MRImageStorage = "1.2.840.10008.5.1.4.1.1.4"
 
+// CTImageStorage is the SOP Class UID of CT Image Storage (DICOM PS3.4 B.5).
+const CTImageStorage = "1.2.840.10008.5.1.4.1.1.2"
+
 // explicitVRLittleEndian is the transfer syntax WriteDICOMSeries uses (PS3.5 A.2).
 const explicitVRLittleEndian = "1.2.840.10008.1.2.1"
 
@@ -57,7 +60,10 @@ type DICOMWriteOptions struct {
 	StudyID          string
 	StudyDescription string
 
-	Modality          string // default "MR"
+	// Modality is "MR" (MR Image Storage) or "CT" (CT Image Storage, the
+	// voxel values taken as Hounsfield units); empty means the volume's
+	// Meta.Modality when that is "CT", else "MR". Any other value is refused.
+	Modality          string
 	Manufacturer      string
 	ManufacturerModel string
 	InstitutionName   string
@@ -66,11 +72,16 @@ type DICOMWriteOptions struct {
 	ProtocolName      string
 	BodyPartExamined  string // default "HEAD"
 
-	FieldStrengthT   float64 // MagneticFieldStrength (0018,0087), tesla
+	// MR only: MagneticFieldStrength (0018,0087) in tesla, RepetitionTime,
+	// EchoTime, InversionTime and FlipAngle; not written for CT.
+	FieldStrengthT   float64
 	RepetitionTimeMs float64
 	EchoTimeMs       float64
 	InversionTimeMs  float64
 	FlipAngleDeg     float64
+	// KVP is CT only: KVP (0018,0060), the peak kilovoltage; 0 writes it
+	// empty (type 2 in the CT Image Module, PS3.3 C.8.2.1).
+	KVP float64
 	// SliceThicknessMm is written as SliceThickness (0018,0050); 0 means the
 	// slice spacing.
 	SliceThicknessMm float64
@@ -78,9 +89,10 @@ type DICOMWriteOptions struct {
 	WindowCenter, WindowWidth float64
 }
 
-// WriteDICOMSeries writes v as an MR Image Storage series into dir (created
-// when missing), one file per slice k named IM0001.dcm, IM0002.dcm, ... in
-// explicit VR little endian. Pixels are int16 or uint16 with RescaleSlope and
+// WriteDICOMSeries writes v as an MR Image Storage series (or CT Image
+// Storage when the modality is CT, see DICOMWriteOptions.Modality) into dir
+// (created when missing), one file per slice k named IM0001.dcm,
+// IM0002.dcm, ... in explicit VR little endian. Pixels are int16 or uint16 with RescaleSlope and
 // RescaleIntercept chosen so that integer data round-trips exactly and other
 // data keeps 16 bits of precision. Geometry comes from v.Affine (RAS,
 // converted to the LPS patient frame of PS3.3 C.7.6.2.1.1). The same volume
@@ -100,6 +112,11 @@ func WriteDICOMSeries(dir string, v *Volume, opts DICOMWriteOptions) error {
 	if err != nil {
 		return fmt.Errorf("write DICOM series: %w", err)
 	}
+	mod, err := seriesModality(opts.Modality, v.Meta.Modality)
+	if err != nil {
+		return fmt.Errorf("write DICOM series: %w", err)
+	}
+	opts.Modality = mod
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return fmt.Errorf("write DICOM series: %w", err)
 	}
@@ -121,6 +138,22 @@ func WriteDICOMSeries(dir string, v *Volume, opts DICOMWriteOptions) error {
 		}
 	}
 	return nil
+}
+
+// seriesModality is the Modality to write: opts, else the volume's when it
+// is CT, else MR. Only MR and CT have a SOP class here.
+func seriesModality(opts, vol string) (string, error) {
+	m := strings.ToUpper(strings.TrimSpace(opts))
+	if m == "" {
+		m = "MR"
+		if strings.EqualFold(strings.TrimSpace(vol), "CT") {
+			m = "CT"
+		}
+	}
+	if m != "MR" && m != "CT" {
+		return "", fmt.Errorf("modality %q: this writer makes MR Image Storage or CT Image Storage only", opts)
+	}
+	return m, nil
 }
 
 func checkWritable(v *Volume) error {
@@ -265,6 +298,7 @@ func dcmClamp(x, lo, hi float64) float64 { return math.Max(lo, math.Min(hi, x)) 
 // seriesHeader holds what every slice file of a series shares.
 type seriesHeader struct {
 	opts                    DICOMWriteOptions
+	sopClass                string
 	geo                     lpsFrame
 	enc                     pixelEncoding
 	rows, cols              int
@@ -274,10 +308,8 @@ type seriesHeader struct {
 	shared                  []*dicom.Element
 }
 
+// newSeriesHeader expects opts.Modality to be "MR" or "CT" (seriesModality).
 func newSeriesHeader(v *Volume, geo lpsFrame, enc pixelEncoding, opts DICOMWriteOptions) *seriesHeader {
-	if opts.Modality == "" {
-		opts.Modality = "MR"
-	}
 	if opts.SeriesNumber == 0 {
 		opts.SeriesNumber = 1
 	}
@@ -289,12 +321,15 @@ func newSeriesHeader(v *Volume, geo lpsFrame, enc pixelEncoding, opts DICOMWrite
 		studySeed = opts.Seed
 	}
 	h := &seriesHeader{
-		opts: opts, geo: geo, enc: enc,
+		opts: opts, geo: geo, enc: enc, sopClass: MRImageStorage,
 		rows: v.Dims[1], cols: v.Dims[0],
 		studyUID:  DeriveUID(studySeed, "study"),
 		seriesUID: DeriveUID(opts.Seed, "series"),
 		frameUID:  DeriveUID(studySeed, "frame-of-reference"),
 		implUID:   DeriveUID("brightfold", "implementation"),
+	}
+	if opts.Modality == "CT" {
+		h.sopClass = CTImageStorage
 	}
 	h.spacingSlice = geo.sliceStep.norm()
 	h.thickness = opts.SliceThicknessMm
@@ -313,6 +348,9 @@ func DeriveUID(seed, purpose string) string {
 	return uidRoot + n.String()
 }
 
+// sharedElements are the elements every slice of the series has: the
+// modules common to the MR Image and CT Image IODs (PS3.3 A.4 and A.3),
+// then the MR Image Module (C.8.3.1) or the CT Image Module (C.8.2.1).
 func (h *seriesHeader) sharedElements() []*dicom.Element {
 	o := h.opts
 	pr := 0
@@ -321,8 +359,7 @@ func (h *seriesHeader) sharedElements() []*dicom.Element {
 	}
 	els := []*dicom.Element{
 		dcmStr(tag.SpecificCharacterSet, "ISO_IR 192"),
-		dcmStr(tag.ImageType, "DERIVED", "SECONDARY"),
-		dcmStr(tag.SOPClassUID, MRImageStorage),
+		dcmStr(tag.SOPClassUID, h.sopClass),
 		dcmStr(tag.StudyDate, o.StudyDate), dcmStr(tag.SeriesDate, o.StudyDate), dcmStr(tag.ContentDate, o.StudyDate),
 		dcmStr(tag.StudyTime, o.StudyTime), dcmStr(tag.SeriesTime, o.StudyTime), dcmStr(tag.ContentTime, o.StudyTime),
 		dcmStr(tag.AccessionNumber, o.AccessionNumber),
@@ -339,18 +376,8 @@ func (h *seriesHeader) sharedElements() []*dicom.Element {
 		dcmStr(tag.PatientSex, o.PatientSex),
 		dcmStr(tag.PatientAge, o.PatientAge),
 		dcmStr(tag.BodyPartExamined, o.BodyPartExamined),
-		dcmStr(tag.ScanningSequence, "GR"),
-		dcmStr(tag.SequenceVariant, "SP"),
-		dcmStr(tag.ScanOptions, ""),
-		dcmStr(tag.MRAcquisitionType, "3D"),
 		dcmStr(tag.SliceThickness, dcmDS(h.thickness)),
-		dcmStr(tag.RepetitionTime, dcmDSOpt(o.RepetitionTimeMs)),
-		dcmStr(tag.EchoTime, dcmDSOpt(o.EchoTimeMs)),
-		dcmStr(tag.MagneticFieldStrength, dcmDSOpt(o.FieldStrengthT)),
-		dcmStr(tag.SpacingBetweenSlices, dcmDS(h.spacingSlice)),
-		dcmStr(tag.EchoTrainLength, ""),
 		dcmStr(tag.ProtocolName, o.ProtocolName),
-		dcmStr(tag.FlipAngle, dcmDSOpt(o.FlipAngleDeg)),
 		dcmStr(tag.PatientPosition, "HFS"),
 		dcmStr(tag.StudyInstanceUID, h.studyUID),
 		dcmStr(tag.SeriesInstanceUID, h.seriesUID),
@@ -373,15 +400,55 @@ func (h *seriesHeader) sharedElements() []*dicom.Element {
 		dcmStr(tag.BurnedInAnnotation, "NO"),
 		dcmStr(tag.RescaleIntercept, h.enc.interDS),
 		dcmStr(tag.RescaleSlope, h.enc.slopeDS),
-		dcmStr(tag.RescaleType, "US"),
 	}
-	if o.InversionTimeMs > 0 {
-		els = append(els, dcmStr(tag.InversionTime, dcmDS(o.InversionTimeMs)))
+	if h.sopClass == CTImageStorage {
+		els = append(els, h.ctElements()...)
+	} else {
+		els = append(els, h.mrElements()...)
 	}
 	if o.WindowWidth > 0 {
 		els = append(els, dcmStr(tag.WindowCenter, dcmDS(o.WindowCenter)), dcmStr(tag.WindowWidth, dcmDS(o.WindowWidth)))
 	}
 	return els
+}
+
+// mrElements are the MR-specific elements (MR Image Module, PS3.3 C.8.3.1),
+// with the image type and rescale type MR series have always had here.
+func (h *seriesHeader) mrElements() []*dicom.Element {
+	o := h.opts
+	els := []*dicom.Element{
+		dcmStr(tag.ImageType, "DERIVED", "SECONDARY"),
+		dcmStr(tag.ScanningSequence, "GR"),
+		dcmStr(tag.SequenceVariant, "SP"),
+		dcmStr(tag.ScanOptions, ""),
+		dcmStr(tag.MRAcquisitionType, "3D"),
+		dcmStr(tag.RepetitionTime, dcmDSOpt(o.RepetitionTimeMs)),
+		dcmStr(tag.EchoTime, dcmDSOpt(o.EchoTimeMs)),
+		dcmStr(tag.MagneticFieldStrength, dcmDSOpt(o.FieldStrengthT)),
+		dcmStr(tag.SpacingBetweenSlices, dcmDS(h.spacingSlice)),
+		dcmStr(tag.EchoTrainLength, ""),
+		dcmStr(tag.FlipAngle, dcmDSOpt(o.FlipAngleDeg)),
+		dcmStr(tag.RescaleType, "US"),
+	}
+	if o.InversionTimeMs > 0 {
+		els = append(els, dcmStr(tag.InversionTime, dcmDS(o.InversionTimeMs)))
+	}
+	return els
+}
+
+// ctElements are the CT Image Module's attributes (PS3.3 C.8.2.1) beyond
+// the shared ones: Image Type (type 1) with value 3 AXIAL (C.8.2.1.1.1),
+// KVP and Acquisition Number (type 2, empty when unknown), and Rescale Type
+// HU (type 1C: required unless the units are HU, and may be present then).
+// The shared pixel attributes meet C.8.2.1.1: one sample, MONOCHROME2, 16
+// bits allocated, 16 stored, high bit 15.
+func (h *seriesHeader) ctElements() []*dicom.Element {
+	return []*dicom.Element{
+		dcmStr(tag.ImageType, "DERIVED", "SECONDARY", "AXIAL"),
+		dcmStr(tag.KVP, dcmDSOpt(h.opts.KVP)),
+		dcmStr(tag.AcquisitionNumber, ""),
+		dcmStr(tag.RescaleType, "HU"),
+	}
 }
 
 // slice builds the dataset of slice k with its stored pixel bytes.
@@ -391,7 +458,7 @@ func (h *seriesHeader) slice(k int, pix []byte) (dicom.Dataset, error) {
 	normal := h.geo.rowDir.cross(h.geo.colDir)
 	els := []*dicom.Element{
 		dcmBytes(tag.FileMetaInformationVersion, []byte{0, 1}),
-		dcmStr(tag.MediaStorageSOPClassUID, MRImageStorage),
+		dcmStr(tag.MediaStorageSOPClassUID, h.sopClass),
 		dcmStr(tag.MediaStorageSOPInstanceUID, sop),
 		dcmStr(tag.TransferSyntaxUID, explicitVRLittleEndian),
 		dcmStr(tag.ImplementationClassUID, h.implUID),

@@ -5,7 +5,9 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
+	"strconv"
 	"testing"
 
 	"brightfold/internal/refcheck"
@@ -119,6 +121,17 @@ type dcmStrictRef struct {
 	Values                   []float64 `json:"values"`
 	Shape                    []int     `json:"shape"`
 	FieldStrengthTeslaValues float64   `json:"field_strength"`
+	SOPClassName             string    `json:"sop_class_name"`
+	ImageType                []string  `json:"image_type"`
+	RescaleType              string    `json:"rescale_type"`
+	KVP                      *float64  `json:"kvp"`
+	SamplesPerPixel          int       `json:"samples_per_pixel"`
+	Photometric              string    `json:"photometric"`
+	BitsAllocated            int       `json:"bits_allocated"`
+	BitsStored               int       `json:"bits_stored"`
+	HighBit                  int       `json:"high_bit"`
+	Keywords                 []string  `json:"keywords"`
+	Empty                    []string  `json:"empty"`
 }
 
 // TestWriteDICOMSeriesPydicom writes an oblique series and reads it back with
@@ -143,9 +156,11 @@ func TestWriteDICOMSeriesPydicom(t *testing.T) {
 	refcheck.RunPython(t, dicomRef, &refs, append([]string{"strict"}, files...)...)
 	uids := map[string]bool{}
 	for k, r := range refs {
-		// PS3.5 A.2 (explicit VR little endian); PS3.4 B.5 (MR Image Storage).
-		if r.TransferSyntax != "1.2.840.10008.1.2.1" || r.SOPClass != MRImageStorage || r.MediaSOPClass != MRImageStorage {
-			t.Errorf("%s: transfer syntax %s, SOP class %s / %s", r.File, r.TransferSyntax, r.SOPClass, r.MediaSOPClass)
+		// PS3.5 A.2 (explicit VR little endian); PS3.4 B.5 (MR Image Storage),
+		// named so by pydicom's UID dictionary (PS3.6 Annex A).
+		if r.TransferSyntax != "1.2.840.10008.1.2.1" || r.SOPClass != MRImageStorage || r.MediaSOPClass != MRImageStorage ||
+			r.SOPClassName != "MR Image Storage" {
+			t.Errorf("%s: transfer syntax %s, SOP class %s (%s) / %s", r.File, r.TransferSyntax, r.SOPClass, r.SOPClassName, r.MediaSOPClass)
 		}
 		if r.SOPInstance != r.MediaSOPInstance || uids[r.SOPInstance] {
 			t.Errorf("%s: SOP instance UID %s (meta %s) not unique or not matching", r.File, r.SOPInstance, r.MediaSOPInstance)
@@ -292,5 +307,141 @@ func TestWriteDICOMSeriesRefuses(t *testing.T) {
 	shear.Affine[0][1] = shear.Affine[0][0] // in-plane axes no longer perpendicular
 	if err := WriteDICOMSeries(t.TempDir(), shear, dcmDemoOptions("x")); err == nil {
 		t.Error("sheared in-plane axes accepted")
+	}
+}
+
+// dcmHUVolume is dcmObliqueVolume's grid holding CT-like values in
+// Hounsfield units, from air (-1000) to dense bone (about 2000).
+func dcmHUVolume(t testing.TB, dims [3]int, integer bool) *Volume {
+	t.Helper()
+	v := dcmObliqueVolume(t, dims, true)
+	for n := range v.Data {
+		x := float64(-1000 + (n*397)%3001)
+		if !integer {
+			x += 0.3 * float64(n%7)
+		}
+		v.Data[n] = float32(x)
+	}
+	return v
+}
+
+// TestWriteDICOMSeriesCT writes CT series and reads them back with pydicom
+// 2.3 in its strict mode. They must be CT Image Storage (PS3.4 B.5,
+// 1.2.840.10008.5.1.4.1.1.2, which pydicom's UID dictionary names) with
+// the CT Image Module of PS3.3 C.8.2.1 as far as we can fill it: Image
+// Type value 3 AXIAL (C.8.2.1.1.1), one sample, MONOCHROME1 or 2, 16 bits
+// allocated, 12 to 16 stored, high bit one less (C.8.2.1.1.2-6), KVP and
+// Acquisition Number present (type 2), Rescale Type HU; no MR Image Module
+// attributes; and pixel values after pydicom's modality LUT (C.11.1.1.2)
+// equal to the Hounsfield units written. One series takes CT from the
+// volume's Meta.Modality (integer values, stored as they are), the other
+// from the options (fractional values, rescaled to 16 bits).
+func TestWriteDICOMSeriesCT(t *testing.T) {
+	refcheck.PythonModule(t, "pydicom")
+	whole := dcmHUVolume(t, [3]int{6, 5, 3}, true)
+	whole.Meta.Modality = "CT"
+	frac := dcmHUVolume(t, [3]int{5, 4, 2}, false)
+	base := t.TempDir()
+	type series struct {
+		v    *Volume
+		opts DICOMWriteOptions
+		tol  float64
+		kvp  float64
+	}
+	optsWhole := dcmDemoOptions("HMRU-0005/CT")
+	optsWhole.Modality = ""
+	optsFrac := dcmDemoOptions("HMRU-0006/CT")
+	optsFrac.Modality, optsFrac.KVP = "CT", 120
+	lo, hi, _ := frac.Stats()
+	all := []series{{whole, optsWhole, 0, 0}, {frac, optsFrac, (hi - lo) / 65535 * 0.51, 120}}
+	var files []string
+	var owner []int
+	for n, s := range all {
+		dir := filepath.Join(base, strconv.Itoa(n))
+		if err := WriteDICOMSeries(dir, s.v, s.opts); err != nil {
+			t.Fatal(err)
+		}
+		for _, f := range dcmSeriesFiles(t, dir) {
+			files = append(files, f)
+			owner = append(owner, n)
+		}
+		got, err := Load([]string{dir}, LoadOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got.Meta.Modality != "CT" {
+			t.Errorf("series %d: read back as modality %q", n, got.Meta.Modality)
+		}
+	}
+	var refs []dcmStrictRef
+	refcheck.RunPython(t, dicomRef, &refs, append([]string{"strict"}, files...)...)
+	if len(refs) != len(files) {
+		t.Fatalf("%d results for %d files", len(refs), len(files))
+	}
+	mrOnly := []string{"MagneticFieldStrength", "EchoTime", "RepetitionTime", "InversionTime", "FlipAngle",
+		"ScanningSequence", "SequenceVariant", "MRAcquisitionType", "EchoTrainLength", "SpacingBetweenSlices"}
+	k := map[int]int{}
+	for i, r := range refs {
+		s := all[owner[i]]
+		slice := k[owner[i]]
+		k[owner[i]]++
+		if r.SOPClass != CTImageStorage || r.MediaSOPClass != CTImageStorage || r.SOPClassName != "CT Image Storage" || r.Modality != "CT" {
+			t.Errorf("%s: SOP class %s (%s) / %s, modality %s", r.File, r.SOPClass, r.SOPClassName, r.MediaSOPClass, r.Modality)
+		}
+		if len(r.ImageType) < 3 || r.ImageType[2] != "AXIAL" || r.RescaleType != "HU" || r.SamplesPerPixel != 1 ||
+			(r.Photometric != "MONOCHROME1" && r.Photometric != "MONOCHROME2") || r.BitsAllocated != 16 ||
+			r.BitsStored < 12 || r.BitsStored > 16 || r.HighBit != r.BitsStored-1 {
+			t.Errorf("%s: image type %v, rescale type %q, pixel attributes %d %s %d/%d/%d", r.File, r.ImageType, r.RescaleType,
+				r.SamplesPerPixel, r.Photometric, r.BitsAllocated, r.BitsStored, r.HighBit)
+		}
+		for _, kw := range []string{"KVP", "AcquisitionNumber", "RescaleIntercept", "RescaleSlope", "PatientPosition", "SliceThickness"} {
+			if !slices.Contains(r.Keywords, kw) {
+				t.Errorf("%s: %s missing", r.File, kw)
+			}
+		}
+		for _, kw := range mrOnly {
+			if slices.Contains(r.Keywords, kw) {
+				t.Errorf("%s: MR attribute %s in a CT image", r.File, kw)
+			}
+		}
+		if s.kvp == 0 && (!slices.Contains(r.Empty, "KVP") || r.KVP != nil) || s.kvp != 0 && (r.KVP == nil || *r.KVP != s.kvp) {
+			t.Errorf("%s: KVP %v, want %v (0 for empty)", r.File, r.KVP, s.kvp)
+		}
+		if r.ImageComments != notice.Full {
+			t.Errorf("%s: ImageComments %q", r.File, r.ImageComments)
+		}
+		nx, ny := s.v.Dims[0], s.v.Dims[1]
+		if len(r.Values) != nx*ny {
+			t.Fatalf("%s: %d values", r.File, len(r.Values))
+		}
+		for j := 0; j < ny; j++ {
+			for i := 0; i < nx; i++ {
+				if got, want := r.Values[j*nx+i], float64(s.v.At(i, j, slice)); math.Abs(got-want) > s.tol {
+					t.Fatalf("%s: pixel (%d,%d) = %g HU, want %g", r.File, i, j, got, want)
+				}
+			}
+		}
+	}
+}
+
+// TestWriteDICOMSeriesModality: a modality other than MR or CT is refused
+// before anything is written; lower case and spaces are tidied.
+func TestWriteDICOMSeriesModality(t *testing.T) {
+	v := dcmObliqueVolume(t, [3]int{3, 3, 2}, true)
+	for _, m := range []string{"PT", "OT", "MRI"} {
+		dir := filepath.Join(t.TempDir(), "out")
+		opts := dcmDemoOptions("x")
+		opts.Modality = m
+		if err := WriteDICOMSeries(dir, v, opts); err == nil {
+			t.Errorf("modality %q accepted", m)
+		}
+		if _, err := os.Stat(dir); err == nil {
+			t.Errorf("modality %q: folder made", m)
+		}
+	}
+	for in, want := range map[[2]string]string{{" ct ", ""}: "CT", {"", "ct"}: "CT", {"", "PT"}: "MR", {"", ""}: "MR", {"mr", "CT"}: "MR"} {
+		if got, err := seriesModality(in[0], in[1]); err != nil || got != want {
+			t.Errorf("options %q, volume %q: %q (%v), want %q", in[0], in[1], got, err, want)
+		}
 	}
 }

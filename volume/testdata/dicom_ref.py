@@ -7,7 +7,9 @@ and python3-nibabel (5.0, nibabel.nicom). Run with /usr/bin/python3.
   dicom_ref.py series FILE...   slices sorted by nibabel's slice indicator,
                                 the first slice's nibabel affine, the stacked data
   dicom_ref.py strict FILE...   read with pydicom's validation set to raise,
-                                and report the header fields we write
+                                and report the header fields we write (the
+                                SOP class named by pydicom's UID dictionary,
+                                every keyword present and those left empty)
   dicom_ref.py multiframe FILE  nibabel's MultiframeWrapper affine and data
 
 Prints JSON on standard output.
@@ -113,17 +115,35 @@ def strict(paths):
             "manufacturer": str(ds.Manufacturer),
             "institution": str(ds.InstitutionName),
             "series_description": str(ds.SeriesDescription),
-            "field_strength": float(ds.MagneticFieldStrength),
+            "field_strength": optional_float(ds, "MagneticFieldStrength"),
             "image_comments": str(ds.ImageComments),
             "iop": [float(x) for x in ds.ImageOrientationPatient],
             "ipp": [float(x) for x in ds.ImagePositionPatient],
             "pixel_spacing": [float(x) for x in ds.PixelSpacing],
             "slice_thickness": float(ds.SliceThickness),
-            "spacing_between_slices": float(ds.SpacingBetweenSlices),
+            "spacing_between_slices": optional_float(ds, "SpacingBetweenSlices"),
             "values": arr.ravel().tolist(),
             "shape": list(arr.shape),
+            # pydicom's UID dictionary (PS3.6 Annex A) names the SOP class.
+            "sop_class_name": ds.SOPClassUID.name,
+            "image_type": [str(x) for x in ds.ImageType],
+            "rescale_type": str(ds.get("RescaleType", "")),
+            "kvp": optional_float(ds, "KVP"),
+            "samples_per_pixel": int(ds.SamplesPerPixel),
+            "photometric": str(ds.PhotometricInterpretation),
+            "bits_allocated": int(ds.BitsAllocated),
+            "bits_stored": int(ds.BitsStored),
+            "high_bit": int(ds.HighBit),
+            # Every top-level keyword present, and those present with no value.
+            "keywords": sorted(e.keyword for e in ds if e.keyword),
+            "empty": sorted(e.keyword for e in ds if e.keyword and e.value in (None, "", b"")),
         })
     return out
+
+
+def optional_float(ds, keyword):
+    v = ds.get(keyword)
+    return None if v is None or v == "" else float(v)
 
 
 def multiframe(path):
