@@ -14,12 +14,14 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"runtime"
 	"time"
 
 	"fyne.io/fyne/v2"
 	fyneapp "fyne.io/fyne/v2/app"
 
 	"brightfold/atomicfile"
+	"brightfold/inputerr"
 )
 
 // Options configure one run of the viewer.
@@ -59,6 +61,9 @@ var windowSize = fyne.NewSize(1600, 960)
 // Run opens the viewer window and returns when it is closed (or, with
 // Options.Screenshot, when the screenshot is saved).
 func Run(opts Options) error {
+	if err := checkDisplay(); err != nil {
+		return err
+	}
 	if opts.DemoDir == "" {
 		d, err := DefaultDemoDir()
 		if err != nil {
@@ -82,6 +87,19 @@ func Run(opts Options) error {
 	w.ShowAndRun()
 	u.close()
 	return shotErr
+}
+
+// checkDisplay refuses to start without a display, where the window
+// toolkit would fail with an obscure message.
+func checkDisplay() error {
+	if runtime.GOOS != "linux" && runtime.GOOS != "freebsd" {
+		return nil
+	}
+	if os.Getenv("DISPLAY") == "" && os.Getenv("WAYLAND_DISPLAY") == "" {
+		return inputerr.New("", "no display: the viewer needs a desktop session (DISPLAY or WAYLAND_DISPLAY is empty); "+
+			"run it under xvfb-run for a screenshot, or `make demo` for the headless demo")
+	}
+	return nil
 }
 
 // screenshotWhenReady waits for the first case to be shown with its
