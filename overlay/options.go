@@ -51,6 +51,11 @@ type Options struct {
 
 	// Steps is the number of integrated-gradients steps m (0 means 64).
 	Steps int
+	// Tolerance, when positive, refines integrated gradients (tripling the
+	// steps) while the completeness error exceeds it, up to MaxSteps (0
+	// means 9 × Steps).
+	Tolerance float64
+	MaxSteps  int
 	// Baseline is the integrated-gradients baseline ("" means zero).
 	Baseline Baseline
 	// BlurSigmaMM is the blurred baseline's Gaussian sigma in millimetres
@@ -81,6 +86,9 @@ func (o Options) withDefaults() Options {
 	}
 	if o.Steps <= 0 {
 		o.Steps = 64
+	}
+	if o.MaxSteps <= 0 {
+		o.MaxSteps = 9 * o.Steps
 	}
 	if o.Baseline == "" {
 		o.Baseline = BaselineZero

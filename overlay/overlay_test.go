@@ -376,3 +376,27 @@ func TestContrastTarget(t *testing.T) {
 		t.Errorf("contrast: conservation %.3g, completeness %.3g", lrp.Checks["conservation_error"], ig.Checks["completeness_error"])
 	}
 }
+
+// With a tolerance, integrated gradients triple the steps while the
+// completeness error exceeds it; the refined map equals the map computed
+// directly with the final number of steps (the midpoints nest).
+func TestIGRefinement(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid}, false)
+	in := testInput(testGrid, 6)
+	coarse := compute(t, ex, IntegratedGradients, in, Options{Steps: 2})
+	if coarse.Checks["completeness_error"] < 1e-4 {
+		t.Fatalf("two steps are already complete on this input (error %.3g); the test needs a coarse error", coarse.Checks["completeness_error"])
+	}
+	ref := compute(t, ex, IntegratedGradients, in, Options{Steps: 2, Tolerance: 1e-4, MaxSteps: 54})
+	n := int(ref.Checks["steps"])
+	if n <= 2 || n > 54 || (n < 54 && ref.Checks["completeness_error"] > 1e-4) {
+		t.Errorf("refined to %d steps, error %.3g", n, ref.Checks["completeness_error"])
+	}
+	direct := compute(t, ex, IntegratedGradients, in, Options{Steps: n})
+	if d := relDiff(ref.Values, direct.Values); d > 1e-5 {
+		t.Errorf("refined and direct %d-step maps differ by %.3g", n, d)
+	}
+	if ref.Passes != n+2 {
+		t.Errorf("%d passes for %d steps", ref.Passes, n)
+	}
+}
