@@ -8,6 +8,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"sort"
 	"strings"
 	"testing"
 
@@ -267,6 +268,7 @@ func TestLocalisation(t *testing.T) {
 		{fmt.Sprintf("occlusion 8, stride %d", stride), Occlusion, Options{Stride: stride}},
 	}
 	acc := make([][]float64, len(methods))
+	checks := make([][]float64, len(methods)) // conservation or completeness error per case
 	var chance, chanceBrain []float64
 	for i := 0; i < *locCases; i++ {
 		c, pr := positiveCase(t, b.Card, i, voxel)
@@ -293,6 +295,11 @@ func TestLocalisation(t *testing.T) {
 				t.Fatal(err)
 			}
 			acc[k] = append(acc[k], MassAccuracy(onScan.Data, mask))
+			for _, name := range []string{"conservation_error", "completeness_error"} {
+				if v, ok := m.Checks[name]; ok {
+					checks[k] = append(checks[k], v)
+				}
+			}
 		}
 	}
 	mc, mb := meanSD(chance)
@@ -300,10 +307,10 @@ func TestLocalisation(t *testing.T) {
 	var sb strings.Builder
 	fmt.Fprintf(&sb, "relevance mass accuracy on %d pattern-positive phantoms (seed %d, %g mm), positive-class logit:\n", *locCases, freshSeed, voxel)
 	fmt.Fprintf(&sb, "chance: mask share of the scan %.4f (sd %.4f), of the intracranial voxels %.4f\n", mc, mb, cb)
-	fmt.Fprintf(&sb, "%-28s %8s %8s %10s %10s\n", "method", "mean", "sd", "x chance", "x brain")
+	fmt.Fprintf(&sb, "%-28s %8s %8s %10s %10s   %s\n", "method", "mean", "sd", "x chance", "x brain", "own check: median, max, share < 1 %")
 	for k, md := range methods {
 		m, sd := meanSD(acc[k])
-		fmt.Fprintf(&sb, "%-28s %8.4f %8.4f %10.2f %10.2f\n", md.name, m, sd, m/mc, m/cb)
+		fmt.Fprintf(&sb, "%-28s %8.4f %8.4f %10.2f %10.2f   %s\n", md.name, m, sd, m/mc, m/cb, summarise(checks[k]))
 		for _, a := range acc[k] {
 			if !(a >= 0 && a <= 1) {
 				t.Errorf("%s: mass accuracy %v is not a share", md.name, a)
@@ -335,6 +342,22 @@ func positiveCase(t testing.TB, card *inference.Card, i int, voxel float64) (*ph
 		}
 		return c, pr
 	}
+}
+
+// summarise gives the median, the maximum and the share below 0.01.
+func summarise(x []float64) string {
+	if len(x) == 0 {
+		return "-"
+	}
+	c := append([]float64(nil), x...)
+	sort.Float64s(c)
+	below := 0
+	for _, v := range c {
+		if v < 0.01 {
+			below++
+		}
+	}
+	return fmt.Sprintf("%.2g, %.2g, %d/%d", c[len(c)/2], c[len(c)-1], below, len(c))
 }
 
 func meanSD(x []float64) (float64, float64) {
