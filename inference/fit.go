@@ -57,8 +57,9 @@ const (
 // of Lee et al. 2018 (class-centred training features) with Ledoit-Wolf
 // shrinkage, inverted; the temperature minimising validation NLL (Guo et al.
 // 2017) on the validation cases (the training cases when there are none);
-// thresholds at the retention (see FitOptions.Retention) on the training
-// cases' leave-one-out scores pooled with the validation cases' scores (see
+// thresholds at the retention (see FitOptions.Retention): the model's scores
+// on the validation cases, the intensity distance on the training cases'
+// leave-one-out scores pooled with the validation cases' (see
 // thresholdScores). It returns the
 // reference, the calibration and validation metrics (AUROC of the
 // positive-class probability, ECE with 15 bins before and after scaling,
@@ -82,15 +83,17 @@ func FitReference(c *Card, train, val []FitCase, opt FitOptions) (OODReference, 
 	}
 	tmp := *c
 	tmp.OOD = ref
-	sc, err := thresholdScores(&tmp, train, val, opt)
+	sc, w1Pool, err := thresholdScores(&tmp, train, val, opt)
 	if err != nil {
 		return ref, Calibration{}, nil, err
 	}
-	desc := fmt.Sprintf("%s (leave-one-out) and %s", opt.TrainDescription, opt.ValidationDescription)
+	desc := opt.ValidationDescription
+	w1Desc := fmt.Sprintf("%s (leave-one-out) and %s", opt.TrainDescription, opt.ValidationDescription)
 	if len(val) == 0 {
 		desc = opt.TrainDescription + " (leave-one-out)"
+		w1Desc = desc
 	}
-	if err := fitThresholds(&tmp, sc, opt, desc); err != nil {
+	if err := fitThresholds(&tmp, sc, w1Pool, opt, desc, w1Desc); err != nil {
 		return ref, Calibration{}, nil, err
 	}
 	ref.Thresholds = tmp.OOD.Thresholds
@@ -245,39 +248,46 @@ type scored struct {
 	msp, energy, maha, w1 float64
 }
 
-// thresholdScores are the scores the thresholds are fitted on: for each
-// training case, the Mahalanobis distance to class means and shared
-// covariance fitted without it, and the intensity distance to the mean
-// quantile function of the other training cases (leave-one-out, so that
-// training cases count as unseen ones); for each validation case, the scores
-// against the full reference. MSP and energy are the model's own (on
-// training cases optimistic, which makes those two thresholds lenient).
-func thresholdScores(c *Card, train, val []FitCase, opt FitOptions) ([]scored, error) {
-	var sc []scored
+// thresholdScores are the scores the thresholds are fitted on. The model's
+// scores (MSP, energy, Mahalanobis) come from the validation cases only: on
+// the cases the model was trained on its features sit closer to the class
+// means than on unseen scans, so they would give too tight a limit. The
+// intensity distance does not depend on the model, so its scores pool the
+// validation cases with the training cases scored leave-one-out (each
+// against the mean quantile function of the other training cases). Without
+// validation cases, the training cases' leave-one-out scores serve for all
+// (the Mahalanobis distance then also against means and covariance fitted
+// without the case, which is optimistic for a model trained on them).
+func thresholdScores(c *Card, train, val []FitCase, opt FitOptions) (model []scored, w1Pool []float64, err error) {
 	for i := range train {
 		rest := make([]FitCase, 0, len(train)-1)
 		rest = append(rest, train[:i]...)
 		rest = append(rest, train[i+1:]...)
 		loo := *c
-		var err error
-		if loo.OOD.Features, err = fitFeatures(c, rest, opt); err != nil {
-			return nil, fmt.Errorf("fit thresholds: leave-one-out without training case %d: %w", i, err)
-		}
 		loo.OOD.Intensity = fitIntensity(rest, opt)
+		if len(val) == 0 {
+			if loo.OOD.Features, err = fitFeatures(c, rest, opt); err != nil {
+				return nil, nil, fmt.Errorf("fit thresholds: leave-one-out without training case %d: %w", i, err)
+			}
+		}
 		s, err := scoreCase(&loo, train[i])
 		if err != nil {
-			return nil, err
+			return nil, nil, err
 		}
-		sc = append(sc, s)
+		w1Pool = append(w1Pool, s.w1)
+		if len(val) == 0 {
+			model = append(model, s)
+		}
 	}
 	for _, fc := range val {
 		s, err := scoreCase(c, fc)
 		if err != nil {
-			return nil, err
+			return nil, nil, err
 		}
-		sc = append(sc, s)
+		model = append(model, s)
+		w1Pool = append(w1Pool, s.w1)
 	}
-	return sc, nil
+	return model, w1Pool, nil
 }
 
 func scoreCase(c *Card, fc FitCase) (scored, error) {
@@ -289,7 +299,7 @@ func scoreCase(c *Card, fc FitCase) (scored, error) {
 	return scored{ms.MSP, ms.Energy, ms.Mahalanobis, w}, nil
 }
 
-func fitThresholds(c *Card, sc []scored, opt FitOptions, desc string) error {
+func fitThresholds(c *Card, sc []scored, w1Pool []float64, opt FitOptions, desc, w1Desc string) error {
 	col := func(f func(s scored) float64) []float64 {
 		out := make([]float64, len(sc))
 		for i, s := range sc {
@@ -307,7 +317,11 @@ func fitThresholds(c *Card, sc []scored, opt FitOptions, desc string) error {
 	for q := opt.Retention; ; q = math.Min(1, q+0.0025) {
 		th = map[string]Threshold{}
 		for name, vals := range cols {
-			v, kept, err := fitcheck.ThresholdAt(vals, q, dirs[name])
+			fitOn := vals
+			if name == "wasserstein" {
+				fitOn = w1Pool
+			}
+			v, kept, err := fitcheck.ThresholdAt(fitOn, q, dirs[name])
 			if err != nil {
 				return fmt.Errorf("fit thresholds: %s: %w", name, err)
 			}
@@ -315,8 +329,12 @@ func fitThresholds(c *Card, sc []scored, opt FitOptions, desc string) error {
 		}
 		if joint := jointRetention(cols, th); joint >= opt.Retention || q >= 1 {
 			for name, t := range th {
-				t.FittedOn = fmt.Sprintf("%s: per-score quantile %.4f, chosen so that %.1f%% of the %d cases pass every required score together (target %.0f%%)",
-					desc, q, 100*joint, len(sc), 100*opt.Retention)
+				on, n := desc, len(sc)
+				if name == "wasserstein" {
+					on, n = w1Desc, len(w1Pool)
+				}
+				t.FittedOn = fmt.Sprintf("quantile %.4f of the scores of %d cases (%s), the per-score quantile chosen so that %.1f%% of %s pass every required score together (target %.0f%%)",
+					q, n, on, 100*joint, desc, 100*opt.Retention)
 				th[name] = t
 			}
 			break

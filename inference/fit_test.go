@@ -16,7 +16,11 @@ func TestFitThresholdsJointRetention(t *testing.T) {
 		sc = append(sc, scored{msp: rng.Float64(), energy: rng.NormFloat64(), maha: rng.ExpFloat64(), w1: rng.ExpFloat64()})
 	}
 	c := tinyCard([]byte("x"))
-	if err := fitThresholds(c, sc, FitOptions{}.withDefaults(), "400 synthetic"); err != nil {
+	var w1 []float64
+	for _, x := range sc {
+		w1 = append(w1, x.w1)
+	}
+	if err := fitThresholds(c, sc, w1, FitOptions{}.withDefaults(), "400 synthetic", "400 synthetic"); err != nil {
 		t.Fatal(err)
 	}
 	th := c.OOD.Thresholds
@@ -65,7 +69,7 @@ func TestLeaveOneOutScores(t *testing.T) {
 		t.Fatal(err)
 	}
 	full.OOD.Intensity = fitIntensity(train, opt)
-	loo, err := thresholdScores(&full, train, nil, opt)
+	loo, _, err := thresholdScores(&full, train, nil, opt)
 	if err != nil {
 		t.Fatal(err)
 	}
