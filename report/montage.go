@@ -22,13 +22,13 @@ type OverlayFigure struct {
 	Title     []string       // lines above the planes; no identifiers
 }
 
-// Overlay display settings (our choice): the strongest quarter of the map's
+// Overlay display settings (our choice): the strongest tenth of the map's
 // non-zero voxels is drawn, at 65 % opacity, with the colour scale
 // saturating at the 99.5th percentile of the magnitudes so that a few
 // extreme voxels do not wash out the rest.
 const (
 	overlayOpacity       = 0.65
-	overlayShowAbove     = 75
+	overlayShowAbove     = 90
 	overlaySaturationPct = 99.5
 )
 
