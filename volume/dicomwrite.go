@@ -92,9 +92,9 @@ type DICOMWriteOptions struct {
 // WriteDICOMSeries writes v as an MR Image Storage series (or CT Image
 // Storage when the modality is CT, see DICOMWriteOptions.Modality) into dir
 // (created when missing), one file per slice k named IM0001.dcm,
-// IM0002.dcm, ... in explicit VR little endian. Pixels are int16 or uint16 with RescaleSlope and
-// RescaleIntercept chosen so that integer data round-trips exactly and other
-// data keeps 16 bits of precision. Geometry comes from v.Affine (RAS,
+// IM0002.dcm, ... in explicit VR little endian. Pixels are int16 or uint16
+// with RescaleSlope and RescaleIntercept chosen so that integer data
+// round-trips exactly and other data keeps 16 bits of precision. Geometry comes from v.Affine (RAS,
 // converted to the LPS patient frame of PS3.3 C.7.6.2.1.1). The same volume
 // and options always give the same bytes. Each file is written atomically.
 func WriteDICOMSeries(dir string, v *Volume, opts DICOMWriteOptions) error {
