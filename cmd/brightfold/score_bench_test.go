@@ -116,10 +116,15 @@ func median(xs []float64) float64 {
 // checks) against the bare ONNX Runtime Run on the same tensor, and the peak
 // resident memory of the whole `brightfold score` command in a child process.
 // Goal (issue 4): overhead (score − Run)/Run ≤ 0.2; peak RSS ≤ 600 MB.
+// BRIGHTFOLD_BENCH_BUNDLE names a bundle folder to measure instead of the
+// stand-in model.
 func BenchmarkScoreOverhead(b *testing.B) {
 	lib := refcheck.ORTLib(b)
 	dir := b.TempDir()
-	bundleDir := benchBundle(b, filepath.Join(dir, "bundle"))
+	bundleDir := os.Getenv("BRIGHTFOLD_BENCH_BUNDLE") // e.g. the demo bundle folder
+	if bundleDir == "" {
+		bundleDir = benchBundle(b, filepath.Join(dir, "bundle"))
+	}
 	scan := benchScan(b, dir)
 	if err := inference.InitRuntime(lib); err != nil {
 		b.Fatal(err)
