@@ -400,7 +400,7 @@ func (v *planeView) MouseMoved(ev *desktop.MouseEvent) {
 }
 
 // MouseOut clears the pointer readout.
-func (v *planeView) MouseOut() { v.p.pointer.SetText("") }
+func (v *planeView) MouseOut() { v.p.pointer.SetText(mouseHint) }
 
 // modifiers returns the keyboard modifiers held now (none without a desktop driver).
 func modifiers() fyne.KeyModifier {

@@ -106,6 +106,9 @@ func newScanPanel(u *UI) *scanPanel {
 	return p
 }
 
+// mouseHint stands in the pointer line while the mouse is off the planes.
+const mouseHint = "Click: crosshair · wheel: slices · drag: window/level · Shift+drag: pan · Ctrl+wheel: zoom · H: all keys"
+
 // The mouse-drag modes of the planes.
 const (
 	dragWL  = "Drag: W/L"
@@ -160,7 +163,7 @@ func (p *scanPanel) clear(msg string) {
 	p.preset.ClearSelected()
 	p.wlLabel.SetText("")
 	p.readout.SetText("")
-	p.pointer.SetText("")
+	p.pointer.SetText(mouseHint)
 }
 
 // showMessage replaces the planes with a message (load failed, cancelled).
