@@ -106,14 +106,31 @@ func Examples(cs []Case) []Example {
 }
 
 // GenerateCached is Generate with a cache folder for development runs:
-// cases are stored as a gob file named after a hash of the specs,
-// preprocessing and levels. The key does not cover the phantom generator's
-// code, so the cache must be cleared when package phantom changes; release
-// runs (`make demo-model`) do not use it. An empty dir disables the cache.
+// cases are stored in gob files of up to 100 cases, each named after a hash
+// of its specs, the preprocessing and the levels. The key does not cover the
+// phantom generator's code, so the cache must be cleared when package
+// phantom changes; release runs (`make demo-model`) do not use it. An empty
+// dir disables the cache.
 func GenerateCached(dir string, specs []CaseSpec, p inference.Preprocessing, levels []float64, workers int, progress func(done, total int)) ([]Case, error) {
 	if dir == "" {
 		return Generate(specs, p, levels, workers, progress)
 	}
+	var out []Case
+	for lo := 0; lo < len(specs); lo += 100 {
+		chunk := specs[lo:min(lo+100, len(specs))]
+		cs, err := generateChunk(dir, chunk, p, levels, workers)
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, cs...)
+		if progress != nil {
+			progress(len(out), len(specs))
+		}
+	}
+	return out, nil
+}
+
+func generateChunk(dir string, specs []CaseSpec, p inference.Preprocessing, levels []float64, workers int) ([]Case, error) {
 	key, err := json.Marshal(struct {
 		S []CaseSpec
 		P inference.Preprocessing
@@ -131,7 +148,7 @@ func GenerateCached(dir string, specs []CaseSpec, p inference.Preprocessing, lev
 			return cs, nil
 		}
 	}
-	cs, err := Generate(specs, p, levels, workers, progress)
+	cs, err := Generate(specs, p, levels, workers, nil)
 	if err != nil {
 		return nil, err
 	}

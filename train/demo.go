@@ -45,7 +45,7 @@ type Recipe struct {
 func DemoRecipe() Recipe {
 	return Recipe{
 		Arch: DefaultArch(), Train: DefaultConfig(20261201),
-		CohortSeed: 1, NTrain: 400, NVal: 100,
+		CohortSeed: 1, NTrain: 600, NVal: 200,
 		TestSeed: 20261202, NTest: 200,
 		ShiftSeed: 20261203, NPerShift: 8,
 		InitSeed: 20261204, Workers: 2,
@@ -219,6 +219,7 @@ func (res *Result) evaluate(r Recipe, prep inference.Preprocessing, levels []flo
 	}
 	desc := fmt.Sprintf("held-out: %d fresh phantoms (seed %d, never used in training or fitting)", len(test), r.TestSeed)
 	card.Validation = append(card.Validation, heldOutMetrics(card, testFit, desc)...)
+	card.Validation = append(card.Validation, severityMetrics(card, test, testFit, desc)...)
 	flagged, err := flagRate(card, testFit, nil)
 	if err != nil {
 		return err
@@ -297,6 +298,30 @@ func heldOutMetrics(card *inference.Card, cs []inference.FitCase, desc string) [
 		{Name: "ece_before_scaling", Value: ece(card, cs, 1), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), temperature 1"},
 		{Name: "ece_after_scaling", Value: ece(card, cs, T), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), the card's temperature"},
 	}
+}
+
+// severityMetrics are AUROCs of the positive cases of one severity band
+// against all negative cases: they show how graded the task is.
+func severityMetrics(card *inference.Card, cs []Case, fit []inference.FitCase, desc string) []inference.Metric {
+	pos := card.PositiveIndex()
+	T := card.Calibration.Temperature
+	var out []inference.Metric
+	for _, band := range [][2]float64{{0, 0.4}, {0.4, 1}} {
+		var scores []float64
+		var labels []bool
+		for i, fc := range fit {
+			sev := cs[i].Subject.Severity
+			if fc.Label == pos && !(sev > band[0] && sev <= band[1]) {
+				continue
+			}
+			scores = append(scores, inference.ClassProbabilities(card, fc.Output.Logits, T)[pos])
+			labels = append(labels, fc.Label == pos)
+		}
+		out = append(out, inference.Metric{Name: fmt.Sprintf("auroc_severity_%.1f_to_%.1f", band[0], band[1]),
+			Value: fitcheck.AUROC(scores, labels), N: len(scores), Split: desc,
+			How: fmt.Sprintf("AUROC of the positive-class probability, positives with pattern severity in (%.1f, %.1f] against all negatives", band[0], band[1])})
+	}
+	return out
 }
 
 func predicted(card *inference.Card, logits []float64, T float64) (int, float64) {

@@ -29,6 +29,7 @@ type Config struct {
 	WeightDecay float64 // decoupled, on convolution and classifier weights
 	Momentum    float64 // batch normalisation running-statistics momentum
 	Flip        bool    // mirror left-right at random (the grid's x axis)
+	Shift       int     // translate by up to this many voxels along each axis at random (edges replicated)
 	Workers     int     // goroutines, one case each
 	// Log, when set, receives one line per epoch.
 	Log func(format string, args ...any) `json:"-"`
@@ -37,7 +38,7 @@ type Config struct {
 // DefaultConfig is the demo model's training recipe.
 func DefaultConfig(seed uint64) Config {
 	return Config{Seed: seed, Epochs: 12, BatchSize: 8, LR: 3e-3, WarmupSteps: 20, WeightDecay: 1e-4,
-		Momentum: 0.1, Flip: true, Workers: 2}
+		Momentum: 0.1, Flip: true, Shift: 1, Workers: 2}
 }
 
 // Epoch summarises one epoch.
@@ -124,10 +125,7 @@ func Fit(n *Net, trainSet, valSet []Example, cfg Config) ([]Epoch, error) {
 			idx := order[s*cfg.BatchSize : min((s+1)*cfg.BatchSize, len(order))]
 			batch := make([]Example, len(idx))
 			for i, j := range idx {
-				batch[i] = trainSet[j]
-				if cfg.Flip && r.IntN(2) == 1 {
-					batch[i].X = flipX(trainSet[j].X, n.Arch.Grid)
-				}
+				batch[i] = Example{X: augment(trainSet[j].X, n.Arch.Grid, r, cfg), Label: trainSet[j].Label}
 			}
 			loss, err := n.Step(opt, batch, Schedule(cfg, step, total), cfg)
 			if err != nil {
@@ -167,13 +165,37 @@ func Schedule(cfg Config, step, total int) float64 {
 	return cfg.LR * 0.5 * (1 + math.Cos(math.Pi*float64(step-cfg.WarmupSteps)/float64(span)))
 }
 
-// flipX mirrors a grid-order volume along x.
-func flipX(x []float32, grid [3]int) []float32 {
+// augment returns x mirrored along the grid's x axis (left-right) with
+// probability ½ when cfg.Flip, and translated by a random whole number of
+// voxels in [−cfg.Shift, cfg.Shift] per axis with the edge voxels
+// replicated; x itself when neither applies. The draws come from r in a
+// fixed order, so a seed fixes them.
+func augment(x []float32, grid [3]int, r *rand.Rand, cfg Config) []float32 {
+	flip := cfg.Flip && r.IntN(2) == 1
+	var d [3]int
+	if cfg.Shift > 0 {
+		for a := range d {
+			d[a] = r.IntN(2*cfg.Shift+1) - cfg.Shift
+		}
+	}
+	if !flip && d == [3]int{} {
+		return x
+	}
+	nx, ny, nz := grid[0], grid[1], grid[2]
+	clamp := func(v, n int) int { return max(0, min(n-1, v)) }
 	out := make([]float32, len(x))
-	nx := grid[0]
-	for r := 0; r+nx <= len(x); r += nx {
-		for i := 0; i < nx; i++ {
-			out[r+i] = x[r+nx-1-i]
+	for z := 0; z < nz; z++ {
+		sz := clamp(z-d[2], nz)
+		for y := 0; y < ny; y++ {
+			row := x[nx*(clamp(y-d[1], ny)+ny*sz):]
+			dst := out[nx*(y+ny*z):]
+			for i := 0; i < nx; i++ {
+				src := clamp(i-d[0], nx)
+				if flip {
+					src = nx - 1 - src
+				}
+				dst[i] = row[src]
+			}
 		}
 	}
 	return out

@@ -215,3 +215,39 @@ func TestExportRoundTrip(t *testing.T) {
 		t.Errorf("outputs %v", m.Graph.Outputs)
 	}
 }
+
+// TestAugment: a flip is its own inverse, and a translation moves a voxel by
+// the drawn offset.
+func TestAugment(t *testing.T) {
+	grid := [3]int{4, 3, 2}
+	x := make([]float32, 24)
+	for i := range x {
+		x[i] = float32(i)
+	}
+	r := rand.New(rand.NewPCG(1, 1))
+	cfg := Config{Flip: true}
+	var flipped []float32
+	for k := 0; k < 10 && flipped == nil; k++ {
+		if y := augment(x, grid, r, cfg); &y[0] != &x[0] {
+			flipped = y
+		}
+	}
+	if flipped == nil || flipped[0] != 3 || flipped[3] != 0 || flipped[4] != 7 {
+		t.Fatalf("flip: %v", flipped)
+	}
+	cfg = Config{Shift: 1}
+	for k := 0; k < 20; k++ {
+		y := augment(x, grid, rand.New(rand.NewPCG(uint64(k), 2)), cfg)
+		// Re-draw the offsets the same way augment does.
+		r2 := rand.New(rand.NewPCG(uint64(k), 2))
+		var d [3]int
+		for a := range d {
+			d[a] = r2.IntN(3) - 1
+		}
+		// Voxel (1, 1, 0) of the output comes from (1−dx, 1−dy, −dz) clamped.
+		sx, sy, sz := 1-d[0], 1-d[1], max(0, min(1, -d[2]))
+		if got, want := y[1+4*(1+3*0)], x[sx+4*(sy+3*sz)]; got != want {
+			t.Errorf("shift %v: voxel (1,1,0) = %v, want %v", d, got, want)
+		}
+	}
+}

@@ -62,15 +62,50 @@ func main() {
 	cache := flag.String("cache", "", "development only: cache generated phantoms in this folder")
 	quick := flag.Bool("quick", false, "smoke test: a tiny cohort and one epoch (not the demo model)")
 	workers := flag.Int("workers", 0, "goroutines (default: all CPUs)")
-	epochs := flag.Int("epochs", 0, "override the recipe's epochs")
+	var ov overrides
+	flag.IntVar(&ov.epochs, "epochs", 0, "development: override the recipe's epochs")
+	flag.IntVar(&ov.ntrain, "ntrain", 0, "development: override the number of training cases")
+	flag.IntVar(&ov.nval, "nval", 0, "development: override the number of validation cases")
+	flag.IntVar(&ov.shift, "shift", -1, "development: override the translation augmentation (voxels)")
+	flag.Float64Var(&ov.lr, "lr", 0, "development: override the peak learning rate")
+	flag.Uint64Var(&ov.testSeed, "test-seed", 0, "development: evaluate on this seed instead of the held-out one")
 	flag.Parse()
-	if err := run(*out, *report, *compare, *tol, *cache, *quick, *workers, *epochs); err != nil {
+	if err := run(*out, *report, *compare, *tol, *cache, *quick, *workers, ov); err != nil {
 		fmt.Fprintln(os.Stderr, "traindemo:", err)
 		os.Exit(1)
 	}
 }
 
-func run(out, reportPath, compare string, tol float64, cache string, quick bool, workers, epochs int) error {
+// overrides are development settings that change the recipe; the committed
+// bundle is made without any.
+type overrides struct {
+	epochs, ntrain, nval, shift int
+	lr                          float64
+	testSeed                    uint64
+}
+
+func (o overrides) apply(r *train.Recipe) {
+	if o.epochs > 0 {
+		r.Train.Epochs = o.epochs
+	}
+	if o.ntrain > 0 {
+		r.NTrain = o.ntrain
+	}
+	if o.nval > 0 {
+		r.NVal = o.nval
+	}
+	if o.shift >= 0 {
+		r.Train.Shift = o.shift
+	}
+	if o.lr > 0 {
+		r.Train.LR = o.lr
+	}
+	if o.testSeed != 0 {
+		r.TestSeed = o.testSeed
+	}
+}
+
+func run(out, reportPath, compare string, tol float64, cache string, quick bool, workers int, ov overrides) error {
 	r := train.DemoRecipe()
 	r.CacheDir = cache
 	if workers > 0 {
@@ -82,9 +117,7 @@ func run(out, reportPath, compare string, tol float64, cache string, quick bool,
 		r.NTrain, r.NVal, r.NTest, r.NPerShift = 32, 16, 16, 2
 		r.Train.Epochs = 1
 	}
-	if epochs > 0 {
-		r.Train.Epochs = epochs
-	}
+	ov.apply(&r)
 	logf := func(format string, args ...any) {
 		fmt.Fprintf(os.Stderr, "%s "+format+"\n", append([]any{time.Now().Format("15:04:05")}, args...)...)
 	}
