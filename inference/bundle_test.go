@@ -467,3 +467,62 @@ func TestExampleCard(t *testing.T) {
 		t.Fatal(err)
 	}
 }
+
+// One session serves several goroutines at once (ONNX Runtime's Run is
+// thread-safe on one session) and gives each the same outputs as alone.
+func TestSessionConcurrentRuns(t *testing.T) {
+	initORT(t)
+	model := readTiny(t)
+	b, err := NewBundle(tinyCard(model), model)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s, err := NewSession(b, SessionOptions{IntraOpThreads: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	ts := make([]*Tensor, 4)
+	for i := range ts {
+		d := make([]float32, 4096)
+		for j := range d {
+			d[j] = float32(math.Sin(float64(i*4096+j) / 97))
+		}
+		ts[i] = &Tensor{Data: d, Shape: []int64{1, 1, 16, 16, 16}, Layout: LayoutNCDHW, Grid: [3]int{16, 16, 16}}
+	}
+	var want []Output
+	for i := range ts {
+		o, err := s.Run(ts[i : i+1])
+		if err != nil {
+			t.Fatal(err)
+		}
+		want = append(want, o[0])
+	}
+	var wg sync.WaitGroup
+	errs := make(chan string, 16)
+	for g := 0; g < 8; g++ {
+		wg.Add(1)
+		go func(g int) {
+			defer wg.Done()
+			for rep := 0; rep < 5; rep++ {
+				i := (g + rep) % len(ts)
+				out, err := s.Run(ts[i : i+1])
+				if err != nil {
+					errs <- err.Error()
+					return
+				}
+				for k := range out[0].Logits {
+					if out[0].Logits[k] != want[i].Logits[k] {
+						errs <- fmt.Sprintf("goroutine %d case %d: logit %v, alone %v", g, i, out[0].Logits[k], want[i].Logits[k])
+						return
+					}
+				}
+			}
+		}(g)
+	}
+	wg.Wait()
+	close(errs)
+	for e := range errs {
+		t.Error(e)
+	}
+}
