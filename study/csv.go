@@ -25,7 +25,7 @@ const (
 // true_class is the card's index of the phantom's label; the last column
 // repeats the research-use notice on every row.
 func CasesHeader(card *inference.Card, checks []string) []string {
-	h := []string{"case_id", "index", "shift", "label", "true_class", "pattern_severity", "site", "age", "refused"}
+	h := []string{"case_id", "index", "shift", "label", "true_class", "pattern_severity", "site", "age", "not_prepared"}
 	for _, c := range card.Classes {
 		h = append(h, logitPrefix+c)
 	}
@@ -47,8 +47,8 @@ func EncodeCasesCSV(w io.Writer, card *inference.Card, ev *Evaluation) error {
 	}
 	for _, c := range ev.Cases {
 		rec := []string{c.ID, strconv.Itoa(c.Index), string(c.Shift), strconv.Itoa(c.Label), strconv.Itoa(TrueClass(card, c.Label)),
-			num(c.Severity), c.Site, num(c.Age), oneLine(c.Refused)}
-		scoredCase := c.Refused == ""
+			num(c.Severity), c.Site, num(c.Age), oneLine(c.NotPrepared)}
+		scoredCase := c.Prepared()
 		zs := make([]string, len(card.Classes))
 		if scoredCase {
 			for i, z := range inference.ClassLogits(card, c.Logits) {

@@ -11,9 +11,9 @@ import (
 
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
-	"brightfold/inputerr"
 	"brightfold/phantom"
 	"brightfold/report"
+	"brightfold/volume"
 )
 
 // DefaultSeed is the cohort seed of the committed evaluation. The demo
@@ -22,12 +22,6 @@ import (
 // own held-out cases and 20261203 for its shifted cases; this seed is none
 // of them.
 const DefaultSeed uint64 = 20261220
-
-// RefusedScore is the fit score recorded for a case that preprocessing
-// refuses (the scan cannot even be prepared, which `brightfold score`
-// reports as bad input): it ranks above every scored case, whose severities
-// inference caps at 100.
-const RefusedScore = 1000
 
 // Config says which cohort to evaluate.
 type Config struct {
@@ -62,10 +56,12 @@ type Case struct {
 	Severity float64       `json:"severity"`
 	Site     string        `json:"site"`
 	Age      float64       `json:"age"`
-	// Refused is the preprocessing error when the scan could not be
-	// prepared; the other fields below are then empty and FitScore is
-	// RefusedScore.
-	Refused      string             `json:"refused,omitempty"`
+	// NotPrepared is the reason when the scan could not be prepared as the
+	// card states: the model was not run (no logits or probabilities), and
+	// the verdict, fit score and severities are those of the checks that
+	// need no model (inference.NotPreparedError), as `brightfold score`
+	// reports them.
+	NotPrepared  string             `json:"not_prepared,omitempty"`
 	Logits       []float64          `json:"logits"`
 	Probability  float64            `json:"probability"` // calibrated, positive class
 	Uncalibrated float64            `json:"uncalibrated_probability"`
@@ -75,11 +71,11 @@ type Case struct {
 	Severities   map[string]float64 `json:"severities"`    // every check's severity by name
 }
 
-// Flagged reports whether the case's verdict is out-of-distribution (a
-// refused case counts as flagged).
-func (c Case) Flagged() bool {
-	return c.Refused != "" || c.Verdict == fitcheck.OutOfDistribution
-}
+// Flagged reports whether the case's verdict is out-of-distribution.
+func (c Case) Flagged() bool { return c.Verdict == fitcheck.OutOfDistribution }
+
+// Prepared reports whether the model was run on the case.
+func (c Case) Prepared() bool { return c.NotPrepared == "" }
 
 // Subjects lists the cohort of cfg: N in-distribution subjects, then
 // PerShift of each shift.
@@ -163,27 +159,34 @@ func scoreSubject(sess *inference.Session, sub phantom.Subject, voxelMM float64)
 	if err != nil {
 		return c, fmt.Errorf("phantom %s (%s): %w", sub.ID, sub.Shift, err)
 	}
-	r, err := sess.Score(ph.Volume)
+	r, notPrepared, err := Score(sess, ph.Volume)
 	if err != nil {
-		// Score reports scans it cannot prepare as input errors; anything
-		// else (the runtime failing) ends the evaluation.
-		if inputerr.Is(err) {
-			c.Refused = err.Error()
-			c.FitScore = RefusedScore
-			c.Verdict = fitcheck.OutOfDistribution
-			return c, nil
-		}
 		return c, fmt.Errorf("score phantom %s (%s): %w", sub.ID, sub.Shift, err)
 	}
+	c.NotPrepared = notPrepared
 	fillResult(&c, r)
 	return c, nil
 }
 
-// fillResult copies what the evaluation needs from a scored result.
+// Score scores v as `brightfold score` does: a scan that cannot be prepared
+// as the card states is a result (out-of-distribution, from the checks that
+// need no model; inference.NotPreparedError), returned with the reason.
+func Score(sess *inference.Session, v *volume.Volume) (r *inference.Result, notPrepared string, err error) {
+	r, err = sess.Score(v)
+	var np *inference.NotPreparedError
+	if errors.As(err, &np) && np.Result != nil {
+		return np.Result, np.Error(), nil
+	}
+	return r, "", err
+}
+
+// fillResult copies what the evaluation needs from a result.
 func fillResult(c *Case, r *inference.Result) {
-	c.Logits = append([]float64(nil), r.Output.Logits...)
-	c.Probability = r.Prediction.Probability
-	c.Uncalibrated = r.Prediction.Uncalibrated
+	if c.Prepared() {
+		c.Logits = append([]float64(nil), r.Output.Logits...)
+		c.Probability = r.Prediction.Probability
+		c.Uncalibrated = r.Prediction.Uncalibrated
+	}
 	c.Verdict = r.Verdict
 	c.FitScore = r.FitScore
 	c.Severities = map[string]float64{}

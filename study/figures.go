@@ -25,11 +25,11 @@ type Figures struct {
 
 // HeldOut is the discrimination on the fresh in-distribution cases.
 type HeldOut struct {
-	N         int           `json:"n"`
-	Positives int           `json:"positives"`
-	Refused   int           `json:"refused"` // not scored, left out of the figures
-	AUROC     report.Number `json:"auroc"`   // of the calibrated positive-class probability
-	Accuracy  report.Number `json:"accuracy"`
+	N           int           `json:"n"`
+	Positives   int           `json:"positives"`
+	NotPrepared int           `json:"not_prepared"` // model not run: left out of the figures
+	AUROC       report.Number `json:"auroc"`        // of the calibrated positive-class probability
+	Accuracy    report.Number `json:"accuracy"`
 }
 
 // Calibration is the expected calibration error of the top-class
@@ -58,16 +58,17 @@ type FalseAlarms struct {
 // ShiftFigure is the fit check's detection of one shift type against the
 // in-distribution cases.
 type ShiftFigure struct {
-	Shift    phantom.Shift `json:"shift"`
-	N        int           `json:"n"`
-	Flagged  int           `json:"flagged"`
-	Refused  int           `json:"refused"`
-	FlagRate report.Number `json:"flag_rate"`
+	Shift       phantom.Shift `json:"shift"`
+	N           int           `json:"n"`
+	Flagged     int           `json:"flagged"`
+	NotPrepared int           `json:"not_prepared"` // model not run; verdict and fit score from the checks that need no model
+	FlagRate    report.Number `json:"flag_rate"`
 	// AUROC of the fit score (shifted cases positive, in-distribution
-	// negative); refused cases rank above every scored one.
+	// negative).
 	AUROC report.Number `json:"auroc"`
 	// CheckAUROC is the AUROC of each single check's severity, over the
-	// scored (not refused) cases.
+	// cases that have the check (a case whose scan could not be prepared
+	// has only the checks that need no model).
 	CheckAUROC   map[string]report.Number `json:"check_auroc"`
 	FailedChecks map[string]int           `json:"failed_checks"`
 }
@@ -132,12 +133,13 @@ var checkOrder = []string{inference.CheckModality, inference.CheckSpacing, infer
 	inference.CheckFOV, inference.CheckSlices, inference.CheckAnisotropy, inference.CheckOrientation,
 	inference.CheckSingleVolume, inference.CheckHeadVolume, inference.CheckHeadAPLR, inference.CheckHeadSIAP,
 	inference.CheckHeadSkewSI, inference.CheckNoise, inference.CheckHUSignature, inference.CheckIntensityProfile,
-	inference.CheckMSP, inference.CheckEnergy, inference.CheckMahalanobis}
+	inference.CheckMSP, inference.CheckEnergy, inference.CheckMahalanobis, inference.CheckPreparation}
 
-func scored(cs []Case) []Case {
+// prepared are the cases the model ran on.
+func prepared(cs []Case) []Case {
 	var out []Case
 	for _, c := range cs {
-		if c.Refused == "" {
+		if c.Prepared() {
 			out = append(out, c)
 		}
 	}
@@ -145,8 +147,8 @@ func scored(cs []Case) []Case {
 }
 
 func heldOut(id []Case) HeldOut {
-	ok := scored(id)
-	h := HeldOut{N: len(ok), Refused: len(id) - len(ok)}
+	ok := prepared(id)
+	h := HeldOut{N: len(ok), NotPrepared: len(id) - len(ok)}
 	scores := make([]float64, len(ok))
 	pos := make([]bool, len(ok))
 	right := 0
@@ -168,7 +170,7 @@ func heldOut(id []Case) HeldOut {
 // temperature 1 and at the card's temperature with the card's own
 // probabilities (inference.ClassProbabilities).
 func calibration(card *inference.Card, id []Case) Calibration {
-	ok := scored(id)
+	ok := prepared(id)
 	T := card.Calibration.Temperature
 	k := Calibration{N: len(ok), Bins: ECEBins, Temperature: T}
 	logits := make([][]float64, len(ok))
@@ -232,9 +234,6 @@ func falseAlarms(id []Case) FalseAlarms {
 }
 
 func countFailed(m map[string]int, c Case) {
-	if c.Refused != "" {
-		m["refused by preprocessing"]++
-	}
 	for _, n := range c.Failed {
 		m[n]++
 	}
@@ -253,15 +252,14 @@ func shiftFigure(sh phantom.Shift, id, cs []Case, names []string) ShiftFigure {
 			f.Flagged++
 			countFailed(f.FailedChecks, c)
 		}
-		if c.Refused != "" {
-			f.Refused++
+		if !c.Prepared() {
+			f.NotPrepared++
 		}
 	}
 	f.FlagRate = report.Number(ratio(f.Flagged, f.N))
 	f.AUROC = report.Number(fitcheck.AUROC(scores, pos))
-	idOK, shOK := scored(id), scored(cs)
 	for _, n := range names {
-		f.CheckAUROC[n] = report.Number(checkAUROC(n, idOK, shOK))
+		f.CheckAUROC[n] = report.Number(checkAUROC(n, id, cs))
 	}
 	return f
 }

@@ -23,7 +23,7 @@ func testCard() *inference.Card {
 
 // handCases are scored cases made by hand: eight in-distribution cases
 // (logits (0, d), labels as below) and three of each of two shifts, one of
-// them refused.
+// them not prepared (the model not run; only the checks that need no model).
 func handCases(card *inference.Card) []Case {
 	ds := []float64{-2, -1, 0.5, 1, 2, 3, -0.5, 0}
 	labels := []int{0, 0, 1, 0, 1, 1, 1, 0}
@@ -47,8 +47,9 @@ func handCases(card *inference.Card) []Case {
 	for k, s := range []float64{0.9, 1.5, 3} {
 		cs = append(cs, mk(8+k, phantom.ShiftT2, 0, 0.1*float64(k), s))
 	}
-	ref := Case{ID: phantom.CaseID(11), Index: 11, Shift: phantom.ShiftCT, Refused: "x.nii: cannot prepare the scan",
-		FitScore: RefusedScore, Verdict: fitcheck.OutOfDistribution}
+	ref := Case{ID: phantom.CaseID(11), Index: 11, Shift: phantom.ShiftCT, NotPrepared: "x.nii: cannot prepare the scan",
+		FitScore: 2, Verdict: fitcheck.OutOfDistribution, Failed: []string{inference.CheckPreparation},
+		Severities: map[string]float64{inference.CheckModality: 0.5, inference.CheckPreparation: 2}}
 	cs = append(cs, ref, mk(12, phantom.ShiftCT, 0, 1, 2), mk(13, phantom.ShiftCT, 0, -1, 0.5))
 	return cs
 }
@@ -60,7 +61,7 @@ func handCases(card *inference.Card) []Case {
 //     win 3 + 4 + 4 + 2 = 13 of 16 pairs → 0.8125;
 //   - t2: fit scores 0.9, 1.5, 3 against the eight in-distribution scores
 //     (0.2 … 0.8, 1.2) win 7 + 8 + 8 = 23 of 24 pairs;
-//   - ct: refused (ranked first), 2 and 0.5 win 8 + 8 + 3.5 (one tie) = 19.5 of 24;
+//   - ct: 2 (not prepared), 2 and 0.5 win 8 + 8 + 3.5 (one tie) = 19.5 of 24;
 //   - the modality severity is 0.5 everywhere: all ties, 0.5.
 //
 // One in-distribution case (fit score 1.2) is a false alarm: 1/8.
@@ -88,12 +89,12 @@ func TestComputeHandExample(t *testing.T) {
 	near("ct AUROC", float64(f.Shifts[1].AUROC), 19.5/24)
 	near("t2 flag rate", float64(f.Shifts[0].FlagRate), 2.0/3)
 	near("ct flag rate", float64(f.Shifts[1].FlagRate), 2.0/3)
-	if f.Shifts[1].Refused != 1 || f.Shifts[1].FailedChecks["refused by preprocessing"] != 1 {
-		t.Errorf("ct refused %d, failed %v", f.Shifts[1].Refused, f.Shifts[1].FailedChecks)
+	if f.Shifts[1].NotPrepared != 1 || f.Shifts[1].FailedChecks[inference.CheckPreparation] != 1 {
+		t.Errorf("ct not prepared %d, failed %v", f.Shifts[1].NotPrepared, f.Shifts[1].FailedChecks)
 	}
 	near("t2 modality-check AUROC", float64(f.Shifts[0].CheckAUROC[inference.CheckModality]), 0.5)
-	// the noise severity equals the fit score on scored cases: the ct
-	// check AUROC leaves the refused case out: 8 + 3.5 of 16
+	// the noise severity equals the fit score where the model ran; the ct
+	// check AUROC leaves out the case without it: 8 + 3.5 of 16
 	near("ct noise-check AUROC", float64(f.Shifts[1].CheckAUROC[inference.CheckNoise]), 11.5/16)
 	if f.Calibration.Temperature != 2 || f.Calibration.Bins != 15 || !(f.Calibration.ECEBefore >= 0) {
 		t.Errorf("calibration %+v", f.Calibration)
@@ -122,9 +123,10 @@ func TestHandExampleAgreesWithSklearn(t *testing.T) {
 	if !a.OK() {
 		t.Fatalf("disagreement with sklearn: %v", a.Mismatches)
 	}
-	// 1 held-out + 2 shifts × (1 fit score + 2 checks)
-	if a.AUROCs != 7 || ref.Rows != len(cs) {
-		t.Errorf("compared %d AUROCs over %d rows, want 7 over %d", a.AUROCs, ref.Rows, len(cs))
+	// 1 held-out + 2 shifts × (1 fit score + 3 checks; preparation has no
+	// in-distribution case, so neither side can compute it)
+	if a.AUROCs != 9 || ref.Rows != len(cs) {
+		t.Errorf("compared %d AUROCs over %d rows, want 9 over %d", a.AUROCs, ref.Rows, len(cs))
 	}
 	t.Logf("%s: %d AUROCs, %d other figures, largest difference %.2g", a.Reference, a.AUROCs, a.Others, a.MaxAbsDiff)
 	bad := ev.Figures
@@ -187,14 +189,14 @@ func TestOutputsCarryNotice(t *testing.T) {
 	}
 }
 
-// TestMarkdownRealScans: refusals and an in-distribution real scan are
+// TestMarkdownRealScans: a file that cannot be read and an in-distribution real scan are
 // stated plainly in the Markdown, with the notice.
 func TestMarkdownRealScans(t *testing.T) {
 	ev := &Evaluation{RealScans: []RealResult{
-		{Scan: RealScan{Name: "b.dcm", From: "pydicom"}, Status: StatusRefused, Error: "b.dcm: no head found"},
+		{Scan: RealScan{Name: "b.dcm", From: "pydicom"}, Status: StatusNotLoaded, Error: "b.dcm: not a DICOM file"},
 		{Scan: RealScan{Name: "c.nii", From: "nibabel"}, Status: StatusScored, Verdict: fitcheck.InDistribution}}}
 	md := Markdown(ev)
-	for _, want := range []string{"b.dcm: no head found", "in-distribution (**not flagged**)", notice.Full} {
+	for _, want := range []string{"b.dcm: not a DICOM file", "in-distribution (**not flagged**)", notice.Full} {
 		if !strings.Contains(md, want) {
 			t.Errorf("Markdown lacks %q", want)
 		}

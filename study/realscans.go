@@ -1,13 +1,14 @@
 package study
 
 import (
+	"errors"
+	"fmt"
 	"os"
 	"path/filepath"
 	"sort"
 	"strings"
 
 	"brightfold/inference"
-	"brightfold/inputerr"
 	"brightfold/volume"
 )
 
@@ -55,9 +56,9 @@ func ReferenceScans() []RealScan {
 
 // Status of a real scan's evaluation.
 const (
-	StatusScored    = "scored"
-	StatusRefused   = "refused"    // loaded, but preprocessing cannot prepare it (score exits 2)
-	StatusNotLoaded = "not loaded" // Brightfold cannot read it as a scan (score exits 2)
+	StatusScored      = "scored"
+	StatusNotPrepared = "not prepared" // loaded, but it cannot be prepared for the model: checked without the model
+	StatusNotLoaded   = "not loaded"   // Brightfold cannot read it as a scan (score exits 2)
 )
 
 // FailedCheck is one failed check of a real scan, with its sentence.
@@ -74,19 +75,19 @@ type FailedCheck struct {
 type RealResult struct {
 	Scan        RealScan      `json:"scan"`
 	Status      string        `json:"status"`
-	Error       string        `json:"error,omitempty"`
+	Error       string        `json:"error,omitempty"` // why it was not loaded or not prepared
 	Format      string        `json:"format,omitempty"`
 	Dims        [3]int        `json:"dims"`
 	SpacingMm   [3]float64    `json:"spacing_mm"`
 	Modality    string        `json:"modality,omitempty"`
 	Verdict     string        `json:"verdict,omitempty"`
 	FitScore    float64       `json:"fit_score"`
-	Probability float64       `json:"probability"`
+	Probability *float64      `json:"probability"` // null when the model was not run
 	Failed      []FailedCheck `json:"failed_checks"`
 }
 
 // ScoreReal loads each scan as `brightfold score` does (volume.Load, first
-// volume, the only series) and scores it with sess.
+// volume, the only series) and scores it with sess (Score).
 func ScoreReal(sess *inference.Session, scans []RealScan) ([]RealResult, error) {
 	out := make([]RealResult, 0, len(scans))
 	for _, s := range scans {
@@ -107,15 +108,17 @@ func scoreReal(sess *inference.Session, s RealScan) (RealResult, error) {
 		return r, nil
 	}
 	r.Format, r.Dims, r.SpacingMm, r.Modality = v.Meta.Format, v.Dims, v.Spacing(), v.Meta.Modality
-	res, err := sess.Score(v)
+	res, notPrepared, err := Score(sess, v)
 	if err != nil {
-		if inputerr.Is(err) {
-			r.Status, r.Error = StatusRefused, relativeError(err, s)
-			return r, nil
-		}
-		return r, err
+		return r, fmt.Errorf("%s: %w", s.Name, err)
 	}
-	r.Status, r.Verdict, r.FitScore, r.Probability = StatusScored, res.Verdict, res.FitScore, res.Prediction.Probability
+	r.Status, r.Verdict, r.FitScore = StatusScored, res.Verdict, res.FitScore
+	if notPrepared != "" {
+		r.Status, r.Error = StatusNotPrepared, relativeError(errors.New(notPrepared), s)
+	} else {
+		p := res.Prediction.Probability
+		r.Probability = &p
+	}
 	for _, c := range res.FailedChecks() {
 		r.Failed = append(r.Failed, FailedCheck{Name: c.Name, Title: inference.CheckTitle(c.Name), Required: c.Required,
 			Value: c.Value, Threshold: c.Threshold, Explanation: c.Explanation})

@@ -59,7 +59,7 @@ def main(path):
     sev_cols = [c for c in cols if c.startswith(SEVERITY)]
     notices = {r["notice"] for r in rows}
     ind = [r for r in rows if r["shift"] == "none"]
-    ind_ok = [r for r in ind if r["refused"] == ""]
+    ind_ok = [r for r in ind if r["not_prepared"] == ""]  # the model ran
     shifts = []
     for r in rows:
         if r["shift"] != "none" and r["shift"] not in shifts:
@@ -103,7 +103,7 @@ def main(path):
         out["flag_rate"][sh] = float(np.mean([r["verdict"] == "out-of-distribution" for r in cases]))
         per = {}
         for c in sev_cols:
-            sel = [r for r in both if r["refused"] == "" and r[c] != ""]
+            sel = [r for r in both if r[c] != ""]
             per[c[len(SEVERITY):]] = auroc([int(r["shift"] == sh) for r in sel], [float(r[c]) for r in sel])
         out["check_auroc"][sh] = per
     json.dump(out, sys.stdout)

@@ -13,6 +13,7 @@ import (
 
 	"brightfold/atomicfile"
 	"brightfold/inference"
+	"brightfold/inference/fitcheck"
 	"brightfold/inputerr"
 	"brightfold/notice"
 )
@@ -184,17 +185,17 @@ func WriteTable(w io.Writer, ev *Evaluation) {
 }
 
 func realLine(r RealResult) string {
-	switch r.Status {
-	case StatusScored:
-		s := fmt.Sprintf("%s (fit score %.3g, %d failed checks)", r.Verdict, r.FitScore, len(r.Failed))
-		if r.Verdict != "out-of-distribution" {
-			s += "  <-- NOT flagged"
-		}
-		return s
-	case StatusRefused:
-		return "refused by preprocessing (score exits 2): " + r.Error
+	if r.Status == StatusNotLoaded {
+		return "not loaded (score exits 2): " + r.Error
 	}
-	return "not loaded (score exits 2): " + r.Error
+	s := fmt.Sprintf("%s (fit score %.3g, %d failed checks)", r.Verdict, r.FitScore, len(r.Failed))
+	if r.Status == StatusNotPrepared {
+		s += "; model not run"
+	}
+	if r.Verdict != fitcheck.OutOfDistribution {
+		s += "  <-- NOT flagged"
+	}
+	return s
 }
 
 func referenceLine(a *Agreement) string {
@@ -242,10 +243,14 @@ func Markdown(ev *Evaluation) string {
 			names = append(names, c.Name)
 		}
 		status := r.Verdict
-		if r.Status != StatusScored {
-			status = r.Status + " (score exits 2)"
-		} else if r.Verdict != "out-of-distribution" {
+		switch {
+		case r.Status == StatusNotLoaded:
+			status = "not loaded (score exits 2)"
+		case r.Verdict != fitcheck.OutOfDistribution:
 			status += " (**not flagged**)"
+		}
+		if r.Status == StatusNotPrepared {
+			status += "; not prepared, model not run"
 		}
 		geom := ""
 		if r.Status != StatusNotLoaded {
@@ -259,7 +264,7 @@ func Markdown(ev *Evaluation) string {
 	b.WriteString("\nWhat Brightfold tells the reader for each real scan:\n\n")
 	for _, r := range ev.RealScans {
 		fmt.Fprintf(&b, "- **%s**: ", r.Scan.Name)
-		if r.Status != StatusScored {
+		if r.Status == StatusNotLoaded {
 			fmt.Fprintf(&b, "%s: %s\n", r.Status, r.Error)
 			continue
 		}
