@@ -85,6 +85,11 @@ func LoadBundle(p string) (*Bundle, error) {
 // LoadBundleFS reads and checks a bundle whose files are at the top of fsys,
 // or inside its single top-level folder (as a zip of a folder has them).
 func LoadBundleFS(fsys fs.FS) (*Bundle, error) {
+	if zr, ok := fsys.(*zip.Reader); ok {
+		if err := checkZipSizes(zr); err != nil {
+			return nil, err
+		}
+	}
 	dir, err := bundleRoot(fsys)
 	if err != nil {
 		return nil, err
@@ -212,6 +217,38 @@ func describe(v *graph.ValueInfo) string {
 		dims[i] = d.String()
 	}
 	return fmt.Sprintf("%s %v [%s]", v.Name, v.ElemType, strings.Join(dims, " "))
+}
+
+// maxZipRatio bounds the compression ratio of a bundle member: ONNX models
+// and JSON compress a few times at most, so a far higher ratio marks a zip
+// bomb, which is refused before anything is inflated.
+const maxZipRatio = 200
+
+// checkZipSizes refuses a zip whose card or model declares more bytes than
+// the limits or an implausible compression ratio. (archive/zip also stops a
+// member that inflates beyond its declared size.)
+func checkZipSizes(zr *zip.Reader) error {
+	if len(zr.File) > 10000 {
+		return fmt.Errorf("model bundle: zip holds %d entries; a bundle holds %s and %s", len(zr.File), ModelFile, CardFile)
+	}
+	for _, f := range zr.File {
+		limit := uint64(0)
+		switch path.Base(f.Name) {
+		case ModelFile:
+			limit = MaxModelBytes
+		case CardFile:
+			limit = MaxCardBytes
+		default:
+			continue
+		}
+		if f.UncompressedSize64 > limit {
+			return fmt.Errorf("model bundle: %s declares %d bytes, more than the limit of %d", f.Name, f.UncompressedSize64, limit)
+		}
+		if f.UncompressedSize64 > 1<<20 && f.UncompressedSize64 > maxZipRatio*(f.CompressedSize64+1) {
+			return fmt.Errorf("model bundle: %s inflates %d bytes to %d, an implausible ratio (a zip bomb?)", f.Name, f.CompressedSize64, f.UncompressedSize64)
+		}
+	}
+	return nil
 }
 
 // bundleRoot finds the folder holding card.json: the top, or the only
