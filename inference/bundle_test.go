@@ -2,6 +2,7 @@ package inference
 
 import (
 	"archive/zip"
+	"bytes"
 	"crypto/sha256"
 	"encoding/hex"
 	"encoding/json"
@@ -396,6 +397,18 @@ func TestBundleRefusals(t *testing.T) {
 	// folder without a card; zip of junk
 	if _, err := LoadBundle(t.TempDir()); err == nil || !strings.Contains(err.Error(), "no card.json") {
 		t.Errorf("empty folder: %v", err)
+	}
+	// a zip member that declares 2 GiB is refused before it is inflated
+	var zb bytes.Buffer
+	zw := zip.NewWriter(&zb)
+	cw, _ := zw.Create("card.json")
+	cw.Write(cb)
+	raw, _ := zw.CreateRaw(&zip.FileHeader{Name: "model.onnx", Method: zip.Deflate, CompressedSize64: 10, UncompressedSize64: 2 << 30})
+	raw.Write(make([]byte, 10))
+	zw.Close()
+	zr, _ := zip.NewReader(bytes.NewReader(zb.Bytes()), int64(zb.Len()))
+	if _, err := LoadBundleFS(zr); err == nil || !strings.Contains(err.Error(), "more than the limit") {
+		t.Errorf("zip bomb: %v", err)
 	}
 	junk := filepath.Join(t.TempDir(), "junk.zip")
 	os.WriteFile(junk, []byte("PK\x03\x04 not really"), 0o644)
