@@ -403,8 +403,8 @@ func TestBundleRefusals(t *testing.T) {
 	zw := zip.NewWriter(&zb)
 	cw, _ := zw.Create("card.json")
 	cw.Write(cb)
-	raw, _ := zw.CreateRaw(&zip.FileHeader{Name: "model.onnx", Method: zip.Deflate, CompressedSize64: 10, UncompressedSize64: 2 << 30})
-	raw.Write(make([]byte, 10))
+	rw, _ := zw.CreateRaw(&zip.FileHeader{Name: "model.onnx", Method: zip.Deflate, CompressedSize64: 10, UncompressedSize64: 2 << 30})
+	rw.Write(make([]byte, 10))
 	zw.Close()
 	zr, _ := zip.NewReader(bytes.NewReader(zb.Bytes()), int64(zb.Len()))
 	if _, err := LoadBundleFS(zr); err == nil || !strings.Contains(err.Error(), "more than the limit") {
