@@ -95,10 +95,16 @@ func (u *UI) startEvidence() {
 		}
 		progress(-1, "running the model on the CPU")
 		r, err := s.Score(oc.vol)
+		card := s.Bundle().Card
+		var np *inference.NotPreparedError
+		if errors.As(err, &np) {
+			// A scan the model cannot take is a result: out-of-distribution,
+			// with the checks that need no model, and no probability.
+			return func() { u.showUnprepared(oc, card, np) }, nil
+		}
 		if err != nil {
 			return nil, fmt.Errorf("%s: %w", oc.c.Code, err)
 		}
-		card := s.Bundle().Card
 		return func() { u.showScore(oc, card, r) }, nil
 	}, func(err error) {
 		why := err.Error()
@@ -117,6 +123,27 @@ func (u *UI) showScore(oc *openCase, card *inference.Card, r *inference.Result) 
 	oc.result, oc.card = r, card
 	ood := r.Verdict == fitcheck.OutOfDistribution
 	u.evidence.showPrediction(card, r.Prediction, ood)
+	u.showChecks(r)
+	u.startRelevance()
+}
+
+// showUnprepared shows a scan that could not be prepared for the model: the
+// checks that need no model, an out-of-distribution verdict, no probability.
+func (u *UI) showUnprepared(oc *openCase, card *inference.Card, np *inference.NotPreparedError) {
+	if u.open != oc {
+		return
+	}
+	oc.result, oc.card = np.Result, card
+	u.evidence.unavailable("No probability: " + np.Error())
+	u.evidence.model.SetText(fmt.Sprintf("Model: %s, version %s", card.Name, card.Version))
+	u.showChecks(np.Result)
+	u.evidence.ovState.SetText("No relevance map: the model never saw this scan.")
+	u.markReady()
+}
+
+// showChecks fills the Fit check panel from a result.
+func (u *UI) showChecks(r *inference.Result) {
+	ood := r.Verdict == fitcheck.OutOfDistribution
 	// Failed checks first, so that the reasons for the verdict come first.
 	checks := append(r.FailedChecks(), passed(r.Checks)...)
 	rows := make([]checkRow, len(checks))
@@ -125,7 +152,6 @@ func (u *UI) showScore(oc *openCase, card *inference.Card, r *inference.Result) 
 			Sentence: c.Explanation, Pass: c.Pass, Required: c.Required}
 	}
 	u.fit.showChecks(ood, rows)
-	u.startRelevance()
 }
 
 // passed returns the checks that pass, in their order.
@@ -173,6 +199,10 @@ func (u *UI) startRelevance() {
 		return
 	case oc.result == nil:
 		u.evidence.ovState.SetText("The relevance map follows the score.")
+		return
+	case oc.result.Prepared == nil:
+		u.evidence.ovState.SetText("No relevance map: the scan could not be prepared for the model.")
+		u.markReady()
 		return
 	}
 	u.evidence.ovState.SetText("Computing the " + method.Title() + " map…")

@@ -9,6 +9,7 @@ import (
 
 	"brightfold/internal/refcheck"
 	"brightfold/viewer"
+	"brightfold/volume"
 )
 
 // tinyBundle makes a model bundle from the inference package's test model
@@ -110,5 +111,34 @@ func TestCancelRelevance(t *testing.T) {
 	h.settle()
 	if u.scan.overlay != nil || !strings.Contains(u.evidence.ovState.Text, "cancelled") {
 		t.Errorf("after cancel: overlay %v, state %q", u.scan.overlay != nil, u.evidence.ovState.Text)
+	}
+}
+
+// A single slice cannot be prepared for the model: the fit check says
+// out-of-distribution from the checks that need no model, and Evidence
+// shows no probability and no map.
+func TestUnpreparedScan(t *testing.T) {
+	src, err := volume.Load([]string{anatomical(t)}, volume.LoadOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	one, err := volume.New([3]int{src.Dims[0], src.Dims[1], 1}, src.Affine)
+	if err != nil {
+		t.Fatal(err)
+	}
+	k := src.Dims[2] / 2
+	copy(one.Data, src.Data[src.Index(0, 0, k):src.Index(0, 0, k+1)])
+	path := filepath.Join(t.TempDir(), "one-slice.nii")
+	if err := volume.WriteNIfTI(path, one, volume.NIfTIWriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	h := newHarness(t, Options{Model: tinyBundle(t)})
+	h.open(path)
+	u := h.u
+	if u.fit.headline.Text != verdictOOD {
+		t.Fatalf("verdict %q; evidence %q", u.fit.headline.Text, u.evidence.status.Text)
+	}
+	if u.evidence.prob.Text != "—" || !strings.Contains(u.evidence.status.Text, "No probability") || u.scan.overlay != nil {
+		t.Errorf("probability %q, status %q, overlay %v", u.evidence.prob.Text, u.evidence.status.Text, u.scan.overlay != nil)
 	}
 }
