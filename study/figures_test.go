@@ -13,6 +13,7 @@ import (
 	"brightfold/internal/refcheck"
 	"brightfold/notice"
 	"brightfold/phantom"
+	"brightfold/report"
 )
 
 func testCard() *inference.Card {
@@ -145,7 +146,9 @@ func TestOutputsCarryNotice(t *testing.T) {
 	cs := handCases(card)
 	ev := &Evaluation{Cases: cs, Checks: CheckNames(cs), Figures: Compute(card, cs),
 		RealScans: []RealResult{{Scan: RealScan{Name: "a.nii", From: "nibabel"}, Status: StatusScored, Verdict: fitcheck.OutOfDistribution,
-			Failed: []FailedCheck{{Name: inference.CheckSlices, Explanation: "The scan has only 3 slices."}}}}}
+			Failed: []FailedCheck{{Name: inference.CheckSlices, Explanation: "The scan has only 3 slices."}}},
+			{Scan: RealScan{Name: "b.dcm", From: "pydicom"}, Status: StatusNotPrepared, Verdict: fitcheck.OutOfDistribution, FitScore: 2,
+				Failed: []FailedCheck{{Name: inference.CheckPreparation, Value: report.Number(math.NaN()), Explanation: "The scan could not be prepared."}}}}}
 	dir := t.TempDir()
 	if err := WriteOutputs(dir, card, ev); err != nil {
 		t.Fatal(err)

@@ -9,6 +9,7 @@ import (
 	"strings"
 
 	"brightfold/inference"
+	"brightfold/report"
 	"brightfold/volume"
 )
 
@@ -63,12 +64,12 @@ const (
 
 // FailedCheck is one failed check of a real scan, with its sentence.
 type FailedCheck struct {
-	Name        string  `json:"name"`
-	Title       string  `json:"title"`
-	Required    bool    `json:"required"`
-	Value       float64 `json:"value"`
-	Threshold   string  `json:"threshold"`
-	Explanation string  `json:"explanation"`
+	Name        string        `json:"name"`
+	Title       string        `json:"title"`
+	Required    bool          `json:"required"`
+	Value       report.Number `json:"value"` // null when not measurable
+	Threshold   string        `json:"threshold"`
+	Explanation string        `json:"explanation"`
 }
 
 // RealResult is the evaluation of one real scan.
@@ -81,7 +82,7 @@ type RealResult struct {
 	SpacingMm   [3]float64    `json:"spacing_mm"`
 	Modality    string        `json:"modality,omitempty"`
 	Verdict     string        `json:"verdict,omitempty"`
-	FitScore    float64       `json:"fit_score"`
+	FitScore    report.Number `json:"fit_score"`
 	Probability *float64      `json:"probability"` // null when the model was not run
 	Failed      []FailedCheck `json:"failed_checks"`
 }
@@ -112,7 +113,7 @@ func scoreReal(sess *inference.Session, s RealScan) (RealResult, error) {
 	if err != nil {
 		return r, fmt.Errorf("%s: %w", s.Name, err)
 	}
-	r.Status, r.Verdict, r.FitScore = StatusScored, res.Verdict, res.FitScore
+	r.Status, r.Verdict, r.FitScore = StatusScored, res.Verdict, report.Number(res.FitScore)
 	if notPrepared != "" {
 		r.Status, r.Error = StatusNotPrepared, relativeError(errors.New(notPrepared), s)
 	} else {
@@ -121,7 +122,7 @@ func scoreReal(sess *inference.Session, s RealScan) (RealResult, error) {
 	}
 	for _, c := range res.FailedChecks() {
 		r.Failed = append(r.Failed, FailedCheck{Name: c.Name, Title: inference.CheckTitle(c.Name), Required: c.Required,
-			Value: c.Value, Threshold: c.Threshold, Explanation: c.Explanation})
+			Value: report.Number(c.Value), Threshold: c.Threshold, Explanation: c.Explanation})
 	}
 	return r, nil
 }

@@ -188,7 +188,7 @@ func realLine(r RealResult) string {
 	if r.Status == StatusNotLoaded {
 		return "not loaded (score exits 2): " + r.Error
 	}
-	s := fmt.Sprintf("%s (fit score %.3g, %d failed checks)", r.Verdict, r.FitScore, len(r.Failed))
+	s := fmt.Sprintf("%s (fit score %.3g, %d failed checks)", r.Verdict, float64(r.FitScore), len(r.Failed))
 	if r.Status == StatusNotPrepared {
 		s += "; model not run"
 	}
@@ -268,7 +268,7 @@ func Markdown(ev *Evaluation) string {
 			fmt.Fprintf(&b, "%s: %s\n", r.Status, r.Error)
 			continue
 		}
-		fmt.Fprintf(&b, "%s (fit score %.3g).\n", r.Verdict, r.FitScore)
+		fmt.Fprintf(&b, "%s (fit score %.3g).\n", r.Verdict, float64(r.FitScore))
 		for _, c := range r.Failed {
 			fmt.Fprintf(&b, "  - %s: %s\n", inference.CheckTitle(c.Name), c.Explanation)
 		}
