@@ -7,6 +7,7 @@ import (
 	"strings"
 	"sync"
 
+	"brightfold/assets"
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
 	"brightfold/ortlib"
@@ -52,10 +53,15 @@ func (m *model) get() (*inference.Session, error) {
 }
 
 func (m *model) open() (*inference.Session, error) {
+	var b *inference.Bundle
+	var err error
 	if m.path == "" {
-		return nil, errNoBundle
+		if b, err = inference.LoadBundleFS(assets.DemoBundle()); err == nil {
+			b.Source = assets.DemoBundleName
+		}
+	} else {
+		b, err = inference.LoadBundle(m.path)
 	}
-	b, err := inference.LoadBundle(m.path)
 	if err != nil {
 		return nil, err
 	}

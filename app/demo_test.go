@@ -1,0 +1,132 @@
+package app
+
+import (
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"testing"
+
+	"brightfold/internal/refcheck"
+)
+
+// demoFolder is where the tests' demo cohort is made (once, by the first
+// test that starts the viewer on it); TestMain removes it.
+var demoFolder string
+
+func TestMain(m *testing.M) {
+	dir, err := os.MkdirTemp("", "brightfold-app-demo-")
+	if err != nil {
+		panic(err)
+	}
+	demoFolder = filepath.Join(dir, "demo")
+	code := m.Run()
+	os.RemoveAll(dir)
+	os.Exit(code)
+}
+
+// startDemo opens the viewer on the tests' demo cohort (one in-distribution
+// case and one of each shifted variant) and waits for the first case.
+func startDemo(t *testing.T, opts Options) *harness {
+	t.Helper()
+	refcheck.ORTLib(t)
+	opts.DemoDir, opts.DemoCases = demoFolder, 1
+	h := newHarness(t, opts)
+	first := !fileExists(filepath.Join(demoFolder, "cohort.csv"))
+	h.u.start()
+	if first {
+		if !h.u.tasks.busy(taskDemo) || len(h.u.taskBox.Objects) == 0 {
+			t.Error("first start: no generation task with progress on screen")
+		}
+	}
+	h.settle()
+	if len(h.u.cases) != 8 {
+		t.Fatalf("demo cohort lists %d cases, want 1 + 7 shifted; status %q", len(h.u.cases), h.u.message.Text)
+	}
+	return h
+}
+
+func fileExists(p string) bool { _, err := os.Stat(p); return err == nil }
+
+// The demo opens on its first case with the probability, its calibration
+// temperature and a fit-check verdict with every check; a CT-like variant
+// is flagged out-of-distribution in large words on the vermilion block.
+func TestDemoCaseShowsEvidence(t *testing.T) {
+	h := startDemo(t, Options{})
+	u := h.u
+	if u.cur != 0 || u.open == nil || u.cases[0].Code != "HMRU-0001" {
+		t.Fatalf("first case not open: cur %d", u.cur)
+	}
+	p, err := strconv.ParseFloat(u.evidence.prob.Text, 64)
+	if err != nil || p < 0 || p > 1 {
+		t.Fatalf("probability shown as %q", u.evidence.prob.Text)
+	}
+	if !strings.Contains(u.evidence.probCaption.Text, "T = ") || !strings.Contains(u.evidence.model.Text, "Model: ") {
+		t.Errorf("caption %q, model %q", u.evidence.probCaption.Text, u.evidence.model.Text)
+	}
+	if h := u.fit.headline.Text; h != verdictIn && h != verdictOOD {
+		t.Errorf("verdict %q", h)
+	}
+	if n := len(u.open.result.Checks); n < 10 || len(u.fit.checks.Objects) != n {
+		t.Errorf("%d checks, %d rows", n, len(u.fit.checks.Objects))
+	}
+
+	ct := -1
+	for i, c := range u.cases {
+		if strings.Contains(c.Note, "CT-like") {
+			ct = i
+		}
+	}
+	if ct < 0 {
+		t.Fatal("no CT-like case in the demo cohort")
+	}
+	u.selectCase(ct)
+	h.settle()
+	if u.fit.headline.Text != verdictOOD || u.fit.block.FillColor != colOOD || u.fit.headline.TextSize < 24 {
+		t.Fatalf("CT-like case: verdict %q colour %v size %v", u.fit.headline.Text, u.fit.block.FillColor, u.fit.headline.TextSize)
+	}
+	if !strings.Contains(u.evidence.status.Text, "should not be relied on") {
+		t.Errorf("Evidence does not warn: %q", u.evidence.status.Text)
+	}
+	if !hasText(h.texts(), "FAIL") {
+		t.Error("no failed check shown")
+	}
+}
+
+// Meeting mode on the demo's DICOM case hides the fictional patient name
+// and the cohort's folder.
+func TestDemoMeetingMode(t *testing.T) {
+	h := startDemo(t, Options{Meeting: true})
+	for _, x := range h.texts() {
+		for _, s := range []string{"DEMO^SUBJECT", "SUBJECT0001", demoFolder, "20260301"} {
+			if strings.Contains(x, s) {
+				t.Errorf("Meeting mode shows %q in %q", s, x)
+			}
+		}
+	}
+	h.u.setMeeting(false)
+	if !hasText(h.texts(), "DEMO^SUBJECT0001") {
+		t.Error("outside Meeting mode the demo DICOM case should show its fictional name")
+	}
+}
+
+// Switching case while a case is loading and being scored drops the old
+// results: the screen ends on the case chosen last, with its own score.
+func TestSwitchingCaseMidwayIsSafe(t *testing.T) {
+	h := startDemo(t, Options{})
+	u := h.u
+	for i := 1; i < len(u.cases); i++ {
+		u.selectCase(i) // each cancels the previous case's tasks
+	}
+	last := len(u.cases) - 1
+	h.settle()
+	if u.cur != last || u.open == nil || u.open.c.Code != u.cases[last].Code {
+		t.Fatalf("open case %v, want %s", u.open, u.cases[last].Code)
+	}
+	if u.open.result == nil {
+		t.Fatalf("last case not scored: %q", u.evidence.status.Text)
+	}
+	if !strings.Contains(u.identity.Text, u.cases[last].Code) {
+		t.Errorf("identity %q", u.identity.Text)
+	}
+}
