@@ -3,7 +3,6 @@ package app
 import (
 	"os"
 	"path/filepath"
-	"strconv"
 	"strings"
 	"testing"
 
@@ -57,7 +56,7 @@ func TestDemoCaseShowsEvidence(t *testing.T) {
 	if u.cur != 0 || u.open == nil || u.cases[0].Code != "HMRU-0001" {
 		t.Fatalf("first case not open: cur %d", u.cur)
 	}
-	p, err := strconv.ParseFloat(u.evidence.prob.Text, 64)
+	p, err := parseProbability(u.evidence.prob.Text)
 	if err != nil || p < 0 || p > 1 {
 		t.Fatalf("probability shown as %q", u.evidence.prob.Text)
 	}

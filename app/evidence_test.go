@@ -57,7 +57,7 @@ func TestScoreAndRelevance(t *testing.T) {
 	if u.open.result == nil {
 		t.Fatalf("not scored: %q", u.evidence.status.Text)
 	}
-	p, err := strconv.ParseFloat(u.evidence.prob.Text, 64)
+	p, err := parseProbability(u.evidence.prob.Text)
 	if err != nil || p < 0 || p > 1 || !strings.Contains(u.evidence.probCaption.Text, "T = ") {
 		t.Fatalf("probability %q caption %q", u.evidence.prob.Text, u.evidence.probCaption.Text)
 	}
@@ -140,5 +140,19 @@ func TestUnpreparedScan(t *testing.T) {
 	}
 	if u.evidence.prob.Text != "—" || !strings.Contains(u.evidence.status.Text, "No probability") || u.scan.overlay != nil {
 		t.Errorf("probability %q, status %q, overlay %v", u.evidence.prob.Text, u.evidence.status.Text, u.scan.overlay != nil)
+	}
+}
+
+// parseProbability reads the probability as shown ("0.42", "> 0.99", "< 0.01").
+func parseProbability(s string) (float64, error) {
+	return strconv.ParseFloat(strings.TrimSpace(strings.TrimLeft(s, "<>")), 64)
+}
+
+// Probabilities are shown with two decimals and never as certainties.
+func TestFormatProbability(t *testing.T) {
+	for p, want := range map[float64]string{0.5: "0.50", 0.98: "0.98", 0.995: "> 0.99", 1: "> 0.99", 0.004: "< 0.01", 0.01: "0.01"} {
+		if got := formatProbability(p); got != want {
+			t.Errorf("formatProbability(%v) = %q, want %q", p, got, want)
+		}
 	}
 }
