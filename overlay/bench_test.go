@@ -11,7 +11,7 @@ import (
 
 // benchSetup loads the demo bundle with its session and one prepared
 // pattern-positive phantom (1 mm).
-func benchSetup(b *testing.B) (*Explainer, *inference.Session, *inference.Tensor) {
+func benchSetup(b testing.TB) (*Explainer, *inference.Session, *inference.Tensor) {
 	b.Helper()
 	bd := demoBundle(b)
 	s := testSession(b, bd)

@@ -374,21 +374,19 @@ func stabilised(r, z *graph.Tensor, rel float64, lg *ledger) *graph.Tensor {
 	for _, v := range z.Data {
 		ss += float64(v) * float64(v)
 	}
-	eps := rel * math.Sqrt(ss/float64(max(len(z.Data), 1)))
+	eps := float32(rel * math.Sqrt(ss/float64(max(len(z.Data), 1))))
 	s := graph.New(z.Shape...)
 	var taken float64
 	for i, zv := range z.Data {
-		d := float64(zv)
-		if d >= 0 {
-			d += eps
-		} else {
-			d -= eps
+		d := zv + eps
+		if zv < 0 {
+			d = zv - eps
 		}
-		rv := float64(r.Data[i])
-		if d != 0 && !math.IsInf(rv/d, 0) {
-			s.Data[i] = float32(rv / d)
+		rv := r.Data[i]
+		if q := rv / d; d != 0 && q-q == 0 { // finite
+			s.Data[i] = q
 		}
-		taken += rv - float64(s.Data[i])*float64(zv)
+		taken += float64(rv) - float64(s.Data[i])*float64(zv)
 	}
 	lg.stab += taken
 	return s

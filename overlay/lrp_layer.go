@@ -21,6 +21,10 @@ type linearLayer struct {
 	// without groups), so that one backward pass gives W⁺ᵀs and W⁻ᵀs.
 	split  *graph.Executor
 	wSplit *graph.Tensor
+	// geom is set for a Conv whose input-side products can be scattered
+	// from a sparse s (convt.go).
+	geom   convGeom
+	sparse bool
 
 	mu    sync.Mutex
 	cache map[string]*graph.Tensor // input-independent maps by kind and shape
@@ -46,6 +50,7 @@ func newLinearLayer(n *graph.Node, opset int64, w, b *graph.Tensor) (*linearLaye
 	if l.neg, err = graph.NewExecutor(layerModel(n, opset, l.wNeg, nil)); err != nil {
 		return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 	}
+	l.geom, l.sparse = convGeometry(n, w)
 	if g, _ := n.AttrInt("group", 1); n.OpType == "Conv" && g == 1 && len(w.Shape) >= 3 {
 		l.wSplit = stackChannels(l.wPos, l.wNeg)
 		if l.split, err = graph.NewExecutor(layerModel(n, opset, l.wSplit, nil)); err != nil {
@@ -72,6 +77,10 @@ func stackChannels(a, b *graph.Tensor) *graph.Tensor {
 // vjpPosNeg returns W⁺ᵀs and W⁻ᵀs, in one backward pass when the layer
 // allows it.
 func (l *linearLayer) vjpPosNeg(x, z, s *graph.Tensor) (*graph.Tensor, *graph.Tensor, error) {
+	if l.sparse && sparseEnough(s) {
+		c := l.geom.transpose(s, x, []*graph.Tensor{l.wPos, l.wNeg})
+		return c[0], c[1], nil
+	}
 	if l.split == nil {
 		cp, err := l.vjpPos(x, z, s)
 		if err != nil {
@@ -146,14 +155,23 @@ func vjp(e *graph.Executor, w, b, x, z, s *graph.Tensor) (*graph.Tensor, error) 
 }
 
 func (l *linearLayer) vjpFull(x, z, s *graph.Tensor) (*graph.Tensor, error) {
+	if l.sparse && sparseEnough(s) {
+		return l.geom.transpose(s, x, []*graph.Tensor{l.w})[0], nil
+	}
 	return vjp(l.full, l.w, l.b, x, z, s)
 }
 
 func (l *linearLayer) vjpPos(x, z, s *graph.Tensor) (*graph.Tensor, error) {
+	if l.sparse && sparseEnough(s) {
+		return l.geom.transpose(s, x, []*graph.Tensor{l.wPos})[0], nil
+	}
 	return vjp(l.pos, l.wPos, nil, x, z, s)
 }
 
 func (l *linearLayer) vjpNeg(x, z, s *graph.Tensor) (*graph.Tensor, error) {
+	if l.sparse && sparseEnough(s) {
+		return l.geom.transpose(s, x, []*graph.Tensor{l.wNeg})[0], nil
+	}
 	return vjp(l.neg, l.wNeg, nil, x, z, s)
 }
 
