@@ -21,17 +21,22 @@ func runBundle(e *env, args []string) error {
 	noRun := fs.Bool("no-run", false, "check the card and graph only; do not load the model in ONNX Runtime")
 	asJSON := fs.Bool("json", false, "print the card and what was found as JSON")
 	fs.Usage = func() {
-		fmt.Fprintln(e.stderr, "usage: brightfold bundle check BUNDLE [--ort-lib PATH] [--no-run] [--json]")
+		fmt.Fprintln(e.stderr, "usage: brightfold bundle check [BUNDLE] [--ort-lib PATH] [--no-run] [--json]")
 		fs.PrintDefaults()
 	}
 	paths, err := parseFlags(fs, args[1:])
 	if err != nil {
 		return err
 	}
-	if len(paths) != 1 {
-		return usageError("brightfold bundle check: give one bundle (a folder or .zip with model.onnx and card.json)")
+	if len(paths) > 1 {
+		return usageError("brightfold bundle check: give one bundle (a folder or .zip with model.onnx and card.json), or none for the embedded demo bundle")
 	}
-	b, err := inference.LoadBundle(paths[0])
+	var b *inference.Bundle
+	if len(paths) == 1 {
+		b, err = inference.LoadBundle(paths[0])
+	} else {
+		b, err = demoBundle()
+	}
 	if err != nil {
 		return err
 	}

@@ -9,6 +9,7 @@ import (
 	"strings"
 	"time"
 
+	"brightfold/assets"
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
 	"brightfold/inputerr"
@@ -121,9 +122,14 @@ func openBundle(p string) (*inference.Bundle, error) {
 	return inference.LoadBundle(p)
 }
 
-// demoBundle is the bundle used without --model.
+// demoBundle is the bundle used without --model: the embedded demo bundle.
 func demoBundle() (*inference.Bundle, error) {
-	return nil, usageError("no demo model bundle is embedded in this build yet; give --model BUNDLE (a folder or .zip with model.onnx and card.json)")
+	b, err := inference.LoadBundleFS(assets.DemoBundle())
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", assets.DemoBundleName, err)
+	}
+	b.Source = assets.DemoBundleName
+	return b, nil
 }
 
 // openSession finds and loads ONNX Runtime and makes the bundle's session.

@@ -10,6 +10,7 @@ import (
 
 	"brightfold/internal/refcheck"
 	"brightfold/notice"
+	"brightfold/phantom"
 	"brightfold/volume"
 )
 
@@ -200,7 +201,6 @@ func TestScoreAndBundleErrors(t *testing.T) {
 		{[]string{"score", scan, "--model", tampered, "--ort-lib", lib}, "sha256"},
 		{[]string{"score", scan, "--model", bundle, "--map", "lrp", "--ort-lib", lib}, "give --out DIR"},
 		{[]string{"score", scan, "--model", bundle, "--map", "fancy"}, "want one of"},
-		{[]string{"score", scan}, "--model"},
 		{[]string{"score", scan, "--model", bundle, "--ort-lib", filepath.Join(t.TempDir(), "nolib.so")}, "make setup"},
 		{[]string{"score"}, "give a scan"},
 		{[]string{"bundle", "check", tampered, "--ort-lib", lib}, "sha256"},
@@ -274,5 +274,63 @@ func TestScoreHidesIdentifiers(t *testing.T) {
 				t.Errorf("%v: output contains identifier %q", args, id)
 			}
 		}
+	}
+}
+
+// Without --model, score uses the embedded demo bundle: the reference scans
+// of Debian's nibabel and pydicom test data are out of distribution with
+// reasons, a CT-like phantom is flagged, and an in-distribution phantom gets
+// a prediction.
+func TestScoreDemoBundle(t *testing.T) {
+	lib := refcheck.ORTLib(t)
+	type result struct {
+		Model      struct{ Name string }
+		Prediction *struct{ Probability float64 }
+		OOD        struct {
+			Verdict string
+			Checks  []struct {
+				Name string
+				Pass bool
+			}
+		}
+	}
+	score := func(p string) result {
+		code, stdout, stderr := runCLI("score", p, "--json", "--ort-lib", lib)
+		if code != 0 {
+			t.Fatalf("%s: exit %d: %s", p, code, stderr)
+		}
+		var r result
+		if err := json.Unmarshal([]byte(stdout), &r); err != nil {
+			t.Fatal(err)
+		}
+		return r
+	}
+	for _, p := range realScans {
+		refcheck.Path(t, p)
+		if r := score(p); r.OOD.Verdict != "out-of-distribution" {
+			t.Errorf("%s: demo model verdict %q", filepath.Base(p), r.OOD.Verdict)
+		}
+	}
+	dir := t.TempDir()
+	for _, tc := range []struct {
+		shift phantom.Shift
+		want  string
+	}{{phantom.ShiftNone, ""}, {phantom.ShiftCT, "out-of-distribution"}} {
+		c, err := phantom.Generate(777001, 3, phantom.Options{Shift: tc.shift})
+		if err != nil {
+			t.Fatal(err)
+		}
+		p := filepath.Join(dir, string(tc.shift)+".nii.gz")
+		if err := volume.WriteNIfTI(p, c.Volume, volume.NIfTIWriteOptions{}); err != nil {
+			t.Fatal(err)
+		}
+		r := score(p)
+		if r.Prediction == nil || r.Model.Name == "" {
+			t.Errorf("%s phantom: no prediction or model name", tc.shift)
+		}
+		if tc.want != "" && r.OOD.Verdict != tc.want {
+			t.Errorf("%s phantom: verdict %q, want %q", tc.shift, r.OOD.Verdict, tc.want)
+		}
+		t.Logf("%s phantom: verdict %s", tc.shift, r.OOD.Verdict)
 	}
 }
