@@ -12,6 +12,7 @@ import (
 	"strings"
 	"testing"
 
+	"brightfold/assets"
 	"brightfold/graph"
 	"brightfold/inference"
 	"brightfold/internal/refcheck"
@@ -31,16 +32,18 @@ var (
 // 20261202 and 20261203).
 const freshSeed = 20261210
 
-// demoBundle loads the demo bundle from assets/demo-bundle, or the bundle
+// demoBundle loads the embedded demo bundle (package assets), or the bundle
 // folder BRIGHTFOLD_OVERLAY_BUNDLE names (to measure a candidate model).
 func demoBundle(t testing.TB) *inference.Bundle {
 	t.Helper()
-	dir := filepath.Join(refcheck.RepoRoot(), "assets", "demo-bundle")
 	if d := os.Getenv("BRIGHTFOLD_OVERLAY_BUNDLE"); d != "" {
-		dir = d
+		b, err := inference.LoadBundle(d)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return b
 	}
-	refcheck.Path(t, filepath.Join(dir, inference.ModelFile))
-	b, err := inference.LoadBundle(dir)
+	b, err := inference.LoadBundleFS(assets.DemoBundle())
 	if err != nil {
 		t.Fatal(err)
 	}
