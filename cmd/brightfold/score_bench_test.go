@@ -54,8 +54,7 @@ func benchScan(b *testing.B, dir string) string {
 	return p
 }
 
-// benchBundle is a stand-in for the demo bundle until it is embedded: the
-// 48³ three-stage CNN of inference/testdata/make_test_model.py --bench, with
+// benchBundle is a larger stand-in for the demo model: the 48³ three-stage CNN of inference/testdata/make_test_model.py --bench, with
 // the demo-like preprocessing (4 mm, 48³) and an unfitted reference (the
 // timing does not depend on the reference's values).
 func benchBundle(b *testing.B, dir string) string {
@@ -116,20 +115,20 @@ func median(xs []float64) float64 {
 // checks) against the bare ONNX Runtime Run on the same tensor, and the peak
 // resident memory of the whole `brightfold score` command in a child process.
 // Goal (issue 4): overhead (score − Run)/Run ≤ 0.2; peak RSS ≤ 600 MB.
-// BRIGHTFOLD_BENCH_BUNDLE names a bundle folder to measure instead of the
-// stand-in model.
+// The model is the embedded demo bundle; BRIGHTFOLD_BENCH_BUNDLE names
+// another bundle, or "standin" for the larger stand-in CNN of benchBundle.
 func BenchmarkScoreOverhead(b *testing.B) {
 	lib := refcheck.ORTLib(b)
 	dir := b.TempDir()
-	bundleDir := os.Getenv("BRIGHTFOLD_BENCH_BUNDLE") // e.g. the demo bundle folder
-	if bundleDir == "" {
+	bundleDir := os.Getenv("BRIGHTFOLD_BENCH_BUNDLE")
+	if bundleDir == "standin" {
 		bundleDir = benchBundle(b, filepath.Join(dir, "bundle"))
 	}
 	scan := benchScan(b, dir)
 	if err := inference.InitRuntime(lib); err != nil {
 		b.Fatal(err)
 	}
-	bun, err := inference.LoadBundle(bundleDir)
+	bun, err := openBundle(bundleDir) // "" is the embedded demo bundle
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -206,7 +205,10 @@ func TestScoreChildProcess(t *testing.T) {
 	if os.Getenv("BRIGHTFOLD_SCORE_CHILD") != "1" {
 		return
 	}
-	code := run([]string{"score", os.Getenv("BRIGHTFOLD_SCORE_SCAN"), "--model", os.Getenv("BRIGHTFOLD_SCORE_BUNDLE"),
-		"--ort-lib", os.Getenv("BRIGHTFOLD_SCORE_LIB"), "--json"}, &env{stdout: os.Stdout, stderr: os.Stderr})
+	args := []string{"score", os.Getenv("BRIGHTFOLD_SCORE_SCAN"), "--ort-lib", os.Getenv("BRIGHTFOLD_SCORE_LIB"), "--json"}
+	if m := os.Getenv("BRIGHTFOLD_SCORE_BUNDLE"); m != "" {
+		args = append(args, "--model", m)
+	}
+	code := run(args, &env{stdout: os.Stdout, stderr: os.Stderr})
 	os.Exit(code)
 }
