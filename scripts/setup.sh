@@ -5,7 +5,7 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
-PKGS="gcc libgl1-mesa-dev xorg-dev pkg-config python3-nibabel python3-pydicom python3-sklearn python3-scipy libonnx-testdata xvfb xauth poppler-utils"
+PKGS="gcc libgl1-mesa-dev xorg-dev pkg-config python3-nibabel python3-pydicom python3-sklearn python3-scipy libonnx-testdata xvfb xauth poppler-utils tesseract-ocr"
 missing=""
 for p in $PKGS; do
   dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed" || missing="$missing $p"
