@@ -89,6 +89,9 @@ func runScore(e *env, args []string) error {
 	rep := scoreReport(input, v, bundle, res)
 	rep.TimingMs["load"] = loadMs
 	if o.mapMethod != "none" {
+		if res.Prepared == nil {
+			return inputerr.New(input, "--map %s: the scan could not be prepared for the model, so there is no relevance map", o.mapMethod)
+		}
 		if err := addRelevance(e, o, paths, v, bundle, sess, res, rep); err != nil {
 			return err
 		}

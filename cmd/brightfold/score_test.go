@@ -232,6 +232,10 @@ func TestScoreAndBundleErrors(t *testing.T) {
 		last.Pass || !strings.Contains(last.Explanation, "no head found") {
 		t.Errorf("flat scan: exit %d, %+v\n%s", code, flatRes, stderr)
 	}
+	code, _, stderr = runCLI("score", flatPath, "--model", bundle, "--ort-lib", lib, "--map", "occlusion", "--out", t.TempDir())
+	if code != 2 || !strings.Contains(stderr, "no relevance map") {
+		t.Errorf("flat scan with --map: exit %d, %s", code, stderr)
+	}
 	code, stdout, stderr = runCLI("score", flatPath, "--model", bundle, "--ort-lib", lib)
 	if code != 0 || !strings.Contains(stdout, "Prediction:  none") || !strings.Contains(stdout, "OUT-OF-DISTRIBUTION") {
 		t.Errorf("flat scan text: exit %d\n%s\n%s", code, stdout, stderr)
