@@ -111,14 +111,12 @@ func cohort(rng *rand.Rand, n int) ([]*volume.Volume, []int) {
 	return vs, ls
 }
 
-// fittedTinyBundle fits a reference for the tiny model on synthetic heads
-// and writes a bundle folder.
-func fittedTinyBundle(t *testing.T) (dir string, card *Card) {
+// tinySession is a one-thread session on the tiny model with an unfitted card.
+func tinySession(t *testing.T) *Session {
 	t.Helper()
 	initORT(t)
 	model := readTiny(t)
-	card = tinyCard(model)
-	b, err := NewBundle(card, model)
+	b, err := NewBundle(tinyCard(model), model)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -126,7 +124,17 @@ func fittedTinyBundle(t *testing.T) (dir string, card *Card) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	return s
+}
+
+// fittedTinyBundle fits a reference for the tiny model on synthetic heads
+// and writes a bundle folder.
+func fittedTinyBundle(t *testing.T) (dir string, card *Card) {
+	t.Helper()
+	s := tinySession(t)
 	defer s.Close()
+	card = s.Bundle().Card
+	model := s.Bundle().Model
 	rng := rand.New(rand.NewPCG(5, 6))
 	vs, ls := cohort(rng, 40)
 	var cases []FitCase
@@ -484,16 +492,7 @@ func TestExampleCard(t *testing.T) {
 // One session serves several goroutines at once (ONNX Runtime's Run is
 // thread-safe on one session) and gives each the same outputs as alone.
 func TestSessionConcurrentRuns(t *testing.T) {
-	initORT(t)
-	model := readTiny(t)
-	b, err := NewBundle(tinyCard(model), model)
-	if err != nil {
-		t.Fatal(err)
-	}
-	s, err := NewSession(b, SessionOptions{IntraOpThreads: 1})
-	if err != nil {
-		t.Fatal(err)
-	}
+	s := tinySession(t)
 	defer s.Close()
 	ts := make([]*Tensor, 4)
 	for i := range ts {
