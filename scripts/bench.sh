@@ -9,7 +9,11 @@ go test -run '^$' -bench . -benchmem ./...
 # ONNX Runtime Run on the same tensor (goal: (score − Run)/Run ≤ 0.2), and the
 # peak resident memory of `brightfold score` in a child process (goal ≤ 600 MB).
 echo "== score overhead (cmd/brightfold BenchmarkScoreOverhead) =="
-go test -run '^$' -bench '^BenchmarkScoreOverhead$' -benchtime 5x ./cmd/brightfold | grep -E '^(Benchmark|ok|FAIL)'
+scoreline=$(go test -run '^$' -bench '^BenchmarkScoreOverhead$' -benchtime 5x ./cmd/brightfold | grep -E '^Benchmark')
+echo "$scoreline"
+echo "$scoreline" | awk '{for (i = 3; i < NF; i++) m[$(i+1)] = $i}
+  END {printf "score: %.0f ms (load %.0f, preprocess %.0f, fit check %.0f), ONNX Runtime Run %.1f ms; overhead ratio %.2f (goal <= 0.2), %.2f for a scan already loaded; peak RSS %.0f MB (goal <= 600)\n",
+    m["score_ms"], m["load_ms"], m["preprocess_ms"], m["fit_check_ms"], m["run_ms"], m["overhead_ratio"], m["overhead_ratio_loaded_scan"], m["peak_rss_MB"]}'
 
 # --- NIfTI loading vs nibabel (issue 2) ---------------------------------------
 # BenchmarkLoadNIfTIGz writes a 256×256×176 int16 .nii.gz into a scratch
