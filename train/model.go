@@ -22,8 +22,11 @@
 // Each case runs on its own goroutine through single-worker executors, and
 // every sum over the cases of a batch (batch statistics, parameter
 // gradients) is taken in case order, so a run depends only on the seed, not
-// on goroutine scheduling or the number of cores (on one architecture and Go
-// version; the compiler may fuse multiply-adds differently elsewhere).
+// on goroutine scheduling or the number of cores. It does depend on the
+// floating-point code that runs: package graph picks its AVX2/FMA or its
+// portable matrix kernel at run time, and another architecture or Go version
+// may round differently, so elsewhere the weights can differ in the last
+// bits and the metrics slightly (scripts/demo-model.sh allows for that).
 package train
 
 import (

@@ -17,7 +17,6 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
-	"sort"
 	"time"
 
 	"brightfold/atomicfile"
@@ -41,7 +40,6 @@ type Report struct {
 	Metrics    []inference.Metric `json:"metrics"`
 	Shifted    map[string]float64 `json:"fit_check_flag_rate_by_shift"`
 	Compared   *Comparison        `json:"comparison,omitempty"`
-	Extra      map[string]any     `json:"extra,omitempty"`
 }
 
 // Comparison is the outcome of -compare.
@@ -188,10 +186,8 @@ func compareWith(path string, card *inference.Card, tol float64) (*Comparison, e
 	for _, m := range old.Validation {
 		prev[key(m)] = m.Value
 	}
-	var keys []string
 	for _, m := range card.Validation {
 		k := key(m)
-		keys = append(keys, k)
 		v, ok := prev[k]
 		if !ok {
 			c.Differences = append(c.Differences, "new metric not in the reference: "+k)
@@ -205,7 +201,6 @@ func compareWith(path string, card *inference.Card, tol float64) (*Comparison, e
 			c.Differences = append(c.Differences, fmt.Sprintf("%s: %.4f, reference %.4f", k, m.Value, v))
 		}
 	}
-	sort.Strings(keys)
 	if d := math.Abs(old.Calibration.Temperature - card.Calibration.Temperature); d > tol*10 {
 		c.WithinBounds = false
 		c.Differences = append(c.Differences, fmt.Sprintf("temperature %.4f, reference %.4f", card.Calibration.Temperature, old.Calibration.Temperature))
