@@ -221,7 +221,7 @@ func (res *Result) evaluate(r Recipe, prep inference.Preprocessing, levels []flo
 	card.Validation = append(card.Validation, heldOutMetrics(card, testFit, desc)...)
 	sev := severityMetrics(card, test, testFit, desc)
 	card.Validation = append(card.Validation, sev...)
-	card.Cautions = append([]string{fmt.Sprintf("Slight patterns are missed more often: on fresh phantoms the AUROC is %.2f for severity up to 0.4 and %.2f above it.",
+	card.Cautions = append([]string{fmt.Sprintf("Detection depends on how strong the pattern is: on fresh phantoms the AUROC is %.2f for severity up to 0.4 and %.2f above it.",
 		sev[0].Value, sev[1].Value)}, card.Cautions...)
 	flagged, err := flagRate(card, testFit, nil)
 	if err != nil {
