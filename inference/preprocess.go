@@ -143,6 +143,9 @@ func Prepare(v *volume.Volume, p Preprocessing) (*Prepared, error) {
 	if err := normalise(vals, mask, p.Intensity); err != nil {
 		return nil, err
 	}
+	if err := checkTensorFinite(vals); err != nil {
+		return nil, err
+	}
 	scanInv, err := v.Affine.Inverse()
 	if err != nil {
 		return nil, fmt.Errorf("scan affine: %w", err)
@@ -325,6 +328,18 @@ func blockFinite(v *volume.Volume, f [3]int, I, J, K int) (sum, n float64) {
 		}
 	}
 	return sum, n
+}
+
+// checkTensorFinite refuses a model-grid tensor holding NaN or Inf, which values
+// beyond float32's range (or NaN voxels next to the head) can produce; the
+// model must never see them.
+func checkTensorFinite(vals []float32) error {
+	for _, x := range vals {
+		if !finite32(x) {
+			return errors.New("the scan's values are not finite numbers or too large to normalise (NaN, Inf or near the float32 limit)")
+		}
+	}
+	return nil
 }
 
 func finite32(x float32) bool { return !math.IsNaN(float64(x)) && !math.IsInf(float64(x), 0) }
