@@ -38,7 +38,7 @@ screenshot-check: build
 bench: setup
 	@scripts/bench.sh
 
-demo-model: build
+demo-model: setup
 	@scripts/demo-model.sh
 
 # Figures of the demo bundle on fresh phantoms and real scans (docs/evaluation.md).
