@@ -154,7 +154,7 @@ func (u *UI) showChecks(r *inference.Result) {
 	checks := append(r.FailedChecks(), passed(r.Checks)...)
 	rows := make([]checkRow, len(checks))
 	for i, c := range checks {
-		rows[i] = checkRow{Name: checkTitle(c.Name), Value: inference.FormatValue(c.Value), Limit: c.Threshold,
+		rows[i] = checkRow{Name: inference.CheckTitle(c.Name), Value: inference.FormatValue(c.Value), Limit: c.Threshold,
 			Sentence: c.Explanation, Pass: c.Pass, Required: c.Required}
 	}
 	u.fit.showChecks(ood, rows)
@@ -169,22 +169,6 @@ func passed(cs []fitcheck.Check) []fitcheck.Check {
 		}
 	}
 	return out
-}
-
-// checkTitle turns a check's key ("voxel_spacing") into words ("Voxel spacing").
-func checkTitle(key string) string {
-	words := strings.ReplaceAll(key, "_", " ")
-	switch key {
-	case inference.CheckHeadAPLR:
-		return "Head shape (AP / LR)"
-	case inference.CheckHeadSIAP:
-		return "Head shape (SI / AP)"
-	case inference.CheckHUSignature:
-		return "Hounsfield-unit signature"
-	case inference.CheckMSP:
-		return "Maximum softmax probability"
-	}
-	return strings.ToUpper(words[:1]) + words[1:]
 }
 
 // startRelevance computes the relevance map of the chosen method for the
