@@ -99,8 +99,7 @@ func (u *UI) startEvidence() {
 		if err := ctx.Err(); err != nil {
 			return nil, err
 		}
-		progress(-1, "running the model on the CPU")
-		r, err := s.Score(oc.vol)
+		r, err := s.ScoreContext(ctx, oc.vol, func(st inference.Stage, done float64) { progress(done, string(st)) })
 		card := s.Bundle().Card
 		var np *inference.NotPreparedError
 		if errors.As(err, &np) {

@@ -3,9 +3,11 @@ package inference
 import (
 	"archive/zip"
 	"bytes"
+	"context"
 	"crypto/sha256"
 	"encoding/hex"
 	"encoding/json"
+	"errors"
 	"flag"
 	"fmt"
 	"math"
@@ -536,5 +538,80 @@ func TestSessionConcurrentRuns(t *testing.T) {
 	close(errs)
 	for e := range errs {
 		t.Error(e)
+	}
+}
+
+// ScoreManyContext reports its stages in order with growing fractions,
+// gives the same results as ScoreMany, and stops with the context's error
+// when cancelled: before it starts, and from the progress callback at the
+// model stage (the cancellation then reaches the running ONNX Runtime
+// session through its terminate flag, or the check after it).
+func TestScoreContextProgressAndCancel(t *testing.T) {
+	dir, _ := fittedTinyBundle(t)
+	b, err := LoadBundle(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s, err := NewSession(b, SessionOptions{IntraOpThreads: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	ins, _ := cohort(rand.New(rand.NewPCG(91, 92)), 3)
+	var stages []Stage
+	last := -1.0
+	got, err := s.ScoreManyContext(context.Background(), ins, func(st Stage, done float64) {
+		if done < last || done > 1 {
+			t.Errorf("progress %v after %v", done, last)
+		}
+		last = done
+		if len(stages) == 0 || stages[len(stages)-1] != st {
+			stages = append(stages, st)
+		}
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want := []Stage{StagePrepare, StageModel, StageFitCheck}; fmt.Sprint(stages) != fmt.Sprint(want) || last != 1 {
+		t.Errorf("stages %v ending at %v, want %v ending at 1", stages, last, want)
+	}
+	plain, err := s.ScoreMany(ins)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range plain {
+		if plain[i].Prediction.Probability != got[i].Prediction.Probability || plain[i].Verdict != got[i].Verdict {
+			t.Errorf("case %d: with context %+v, without %+v", i, got[i].Prediction, plain[i].Prediction)
+		}
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	if _, err := s.ScoreContext(ctx, ins[0], nil); !errors.Is(err, context.Canceled) {
+		t.Errorf("cancelled before the start: %v", err)
+	}
+	ctx, cancel = context.WithCancel(context.Background())
+	defer cancel()
+	_, err = s.ScoreManyContext(ctx, ins, func(st Stage, _ float64) {
+		if st == StageModel {
+			cancel()
+		}
+	})
+	if !errors.Is(err, context.Canceled) {
+		t.Errorf("cancelled at the model stage: %v", err)
+	}
+	// inside a batch: ONNX Runtime's terminate flag set by the watcher stops
+	// the run, and the context's error comes back
+	pr, err := PrepareForCard(ins[0], b.Card)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel = context.WithCancel(context.Background())
+	cancel()
+	if _, err := s.runBatch(ctx, []*Tensor{pr.Tensor}); !errors.Is(err, context.Canceled) {
+		t.Errorf("terminated run: %v", err)
+	}
+	// the session still works after a terminated run
+	if _, err := s.ScoreContext(context.Background(), ins[0], nil); err != nil {
+		t.Errorf("after a cancelled run: %v", err)
 	}
 }

@@ -19,11 +19,17 @@ type FitCase struct {
 
 // FitOptions control FitReference.
 type FitOptions struct {
-	// Retention is the fraction of in-distribution threshold-fitting cases
-	// that the verdict must keep (default 0.95): the required score
-	// thresholds are set at one common per-score quantile, the smallest that
-	// keeps this fraction of the cases passing all of them together.
+	// Retention is the fraction of in-distribution scans that the verdict
+	// must keep (default 0.95): the required score thresholds are set at one
+	// common per-score quantile, the smallest at which the one-sided
+	// Clopper–Pearson lower bound, at Confidence, on the fraction of the
+	// threshold-fitting cases passing all of them together reaches
+	// Retention. The bound, rather than the observed fraction, leaves a
+	// margin for the sampling error of a quantile fitted on a few hundred
+	// cases, so that fresh in-distribution scans keep Retention.
 	Retention float64
+	// Confidence of that bound (default 0.9).
+	Confidence float64
 	// Levels are the intensity-profile quantile levels (default EvenLevels(99)).
 	Levels []float64
 	// Margin widens every envelope range (default 0.15): [min/(1+m), max·(1+m)].
@@ -107,6 +113,9 @@ func FitReference(c *Card, train, val []FitCase, opt FitOptions) (OODReference, 
 func (o FitOptions) withDefaults() FitOptions {
 	if o.Retention == 0 {
 		o.Retention = 0.95
+	}
+	if o.Confidence == 0 {
+		o.Confidence = 0.9
 	}
 	if len(o.Levels) == 0 {
 		o.Levels = DefaultLevels()
@@ -327,14 +336,20 @@ func fitThresholds(c *Card, sc []scored, w1Pool []float64, opt FitOptions, desc,
 			}
 			th[name] = Threshold{Value: v, Direction: dirs[name], Retention: kept, Required: req[name]}
 		}
-		if joint := jointRetention(cols, th); joint >= opt.Retention || q >= 1 {
+		pass := jointPasses(cols, th)
+		lb, err := fitcheck.BinomialLowerBound(pass, len(sc), opt.Confidence)
+		if err != nil {
+			return fmt.Errorf("fit thresholds: %w", err)
+		}
+		if lb >= opt.Retention || q >= 1 {
 			for name, t := range th {
 				on, n := desc, len(sc)
 				if name == "wasserstein" {
 					on, n = w1Desc, len(w1Pool)
 				}
-				t.FittedOn = fmt.Sprintf("quantile %.4f of the scores of %d cases (%s), the per-score quantile chosen so that %.1f%% of %s pass every required score together (target %.0f%%)",
-					q, n, on, 100*joint, desc, 100*opt.Retention)
+				t.FittedOn = fmt.Sprintf("quantile %.4f of the scores of %d cases (%s), the per-score quantile chosen so that %d of %d (%.1f%%) of %s pass every required score together, "+
+					"a one-sided %.0f%% Clopper-Pearson lower bound of %.1f%% on the pass rate of unseen in-distribution scans (target %.0f%%)",
+					q, n, on, pass, len(sc), 100*float64(pass)/float64(len(sc)), desc, 100*opt.Confidence, 100*lb, 100*opt.Retention)
 				th[name] = t
 			}
 			break
@@ -344,7 +359,8 @@ func fitThresholds(c *Card, sc []scored, w1Pool []float64, opt FitOptions, desc,
 	return nil
 }
 
-func jointRetention(cols map[string][]float64, th map[string]Threshold) float64 {
+// jointPasses counts the cases that pass every required threshold.
+func jointPasses(cols map[string][]float64, th map[string]Threshold) int {
 	n := len(cols["msp"])
 	pass := 0
 	for i := 0; i < n; i++ {
@@ -358,7 +374,7 @@ func jointRetention(cols map[string][]float64, th map[string]Threshold) float64 
 			pass++
 		}
 	}
-	return float64(pass) / float64(n)
+	return pass
 }
 
 func fitCalibration(c *Card, cases []FitCase, desc string) (Calibration, []Metric, error) {

@@ -1,6 +1,7 @@
 package inference
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"runtime"
@@ -123,10 +124,21 @@ func (s *Session) Close() error {
 // layout) through the model, batching them when the batch is dynamic, and
 // returns one Output per tensor.
 func (s *Session) Run(ts []*Tensor) ([]Output, error) {
+	return s.RunContext(context.Background(), ts)
+}
+
+// RunContext is Run that stops when ctx is done: between batches, and
+// inside a batch through ONNX Runtime's run-options terminate flag, so that
+// a long model run is cancelled within one operator. It then returns ctx's
+// error.
+func (s *Session) RunContext(ctx context.Context, ts []*Tensor) ([]Output, error) {
 	var out []Output
 	for lo := 0; lo < len(ts); lo += s.maxBatch {
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
 		hi := min(len(ts), lo+s.maxBatch)
-		o, err := s.runBatch(ts[lo:hi])
+		o, err := s.runBatch(ctx, ts[lo:hi])
 		if err != nil {
 			return nil, err
 		}
@@ -135,7 +147,7 @@ func (s *Session) Run(ts []*Tensor) ([]Output, error) {
 	return out, nil
 }
 
-func (s *Session) runBatch(ts []*Tensor) ([]Output, error) {
+func (s *Session) runBatch(ctx context.Context, ts []*Tensor) ([]Output, error) {
 	c := s.bundle.Card
 	per := 1
 	for _, d := range c.Input.Shape[1:] {
@@ -163,8 +175,8 @@ func (s *Session) runBatch(ts []*Tensor) ([]Output, error) {
 	}
 	defer in.Destroy()
 	outs := make([]ort.Value, len(s.outNames))
-	if err := s.s.Run([]ort.Value{in}, outs); err != nil {
-		return nil, fmt.Errorf("ONNX Runtime run: %w", err)
+	if err := s.runCancellable(ctx, in, outs); err != nil {
+		return nil, err
 	}
 	defer func() {
 		for _, o := range outs {
@@ -189,6 +201,48 @@ func (s *Session) runBatch(ts []*Tensor) ([]Output, error) {
 		}
 	}
 	return res, nil
+}
+
+// runCancellable runs the session once; when ctx can be cancelled, a
+// watcher sets the run's terminate flag as soon as it is.
+func (s *Session) runCancellable(ctx context.Context, in ort.Value, outs []ort.Value) error {
+	if ctx.Done() == nil {
+		if err := s.s.Run([]ort.Value{in}, outs); err != nil {
+			return fmt.Errorf("ONNX Runtime run: %w", err)
+		}
+		return nil
+	}
+	opts, err := ort.NewRunOptions()
+	if err != nil {
+		return fmt.Errorf("ONNX Runtime run options: %w", err)
+	}
+	defer opts.Destroy()
+	done := make(chan struct{})
+	stopped := make(chan struct{})
+	go func() {
+		defer close(stopped)
+		select {
+		case <-ctx.Done():
+			opts.Terminate()
+		case <-done:
+		}
+	}()
+	err = s.s.RunWithOptions([]ort.Value{in}, outs, opts)
+	close(done)
+	<-stopped
+	if cerr := ctx.Err(); cerr != nil {
+		for i, o := range outs {
+			if o != nil {
+				o.Destroy()
+				outs[i] = nil
+			}
+		}
+		return cerr
+	}
+	if err != nil {
+		return fmt.Errorf("ONNX Runtime run: %w", err)
+	}
+	return nil
 }
 
 // perCase splits a float32 output of batch n into n rows (flattening any

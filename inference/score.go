@@ -1,6 +1,7 @@
 package inference
 
 import (
+	"context"
 	"fmt"
 	"time"
 
@@ -36,7 +37,26 @@ func ms(d time.Duration) float64 { return float64(d.Microseconds()) / 1000 }
 // probability and runs every fit check. An out-of-distribution verdict is a
 // result, not an error.
 func (s *Session) Score(v *volume.Volume) (*Result, error) {
-	rs, err := s.ScoreMany([]*volume.Volume{v})
+	return s.ScoreContext(context.Background(), v, nil)
+}
+
+// Stage names the step of scoring that is starting, for progress reports.
+type Stage string
+
+// The stages of ScoreManyContext, in order.
+const (
+	StagePrepare  Stage = "preparing the scan"
+	StageModel    Stage = "running the model on the CPU"
+	StageFitCheck Stage = "running the fit checks"
+)
+
+// Progress receives the stage that starts and the fraction of the whole
+// scoring done so far (a rough share by stage, not a measured time).
+type Progress func(stage Stage, done float64)
+
+// ScoreContext is Score with cancellation and progress (nil for none).
+func (s *Session) ScoreContext(ctx context.Context, v *volume.Volume, progress Progress) (*Result, error) {
+	rs, err := s.ScoreManyContext(ctx, []*volume.Volume{v}, progress)
 	if err != nil {
 		return nil, err
 	}
@@ -45,10 +65,25 @@ func (s *Session) Score(v *volume.Volume) (*Result, error) {
 
 // ScoreMany scores several scans, running the model on them in batches.
 func (s *Session) ScoreMany(vs []*volume.Volume) ([]*Result, error) {
+	return s.ScoreManyContext(context.Background(), vs, nil)
+}
+
+// ScoreManyContext is ScoreMany that stops with ctx's error when ctx is
+// done (between scans and stages, and inside the model run) and reports
+// progress (nil for none).
+func (s *Session) ScoreManyContext(ctx context.Context, vs []*volume.Volume, progress Progress) ([]*Result, error) {
+	if progress == nil {
+		progress = func(Stage, float64) {}
+	}
 	c := s.bundle.Card
 	res := make([]*Result, len(vs))
 	ts := make([]*Tensor, len(vs))
+	n := float64(len(vs))
 	for i, v := range vs {
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
+		progress(StagePrepare, 0.3*float64(i)/n)
 		t0 := time.Now()
 		pr, err := PrepareForCard(v, c)
 		if err != nil {
@@ -58,13 +93,18 @@ func (s *Session) ScoreMany(vs []*volume.Volume) ([]*Result, error) {
 		ts[i] = pr.Tensor
 		res[i].TimingMs.Preprocess = ms(time.Since(t0))
 	}
+	progress(StageModel, 0.3)
 	t0 := time.Now()
-	outs, err := s.Run(ts)
+	outs, err := s.RunContext(ctx, ts)
 	if err != nil {
 		return nil, err
 	}
 	modelMs := ms(time.Since(t0)) / float64(len(vs))
 	for i, v := range vs {
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
+		progress(StageFitCheck, 0.8+0.2*float64(i)/n)
 		r := res[i]
 		r.TimingMs.Model = modelMs
 		t1 := time.Now()
@@ -82,6 +122,7 @@ func (s *Session) ScoreMany(vs []*volume.Volume) ([]*Result, error) {
 		r.TimingMs.FitCheck = ms(time.Since(t1))
 		r.TimingMs.Total = r.TimingMs.Preprocess + r.TimingMs.Model + r.TimingMs.FitCheck
 	}
+	progress(StageFitCheck, 1)
 	return res, nil
 }
 

@@ -22,9 +22,12 @@ type Recipe struct {
 	Arch  Arch
 	Train Config
 	// CohortSeed: cases [0, NTrain) train, [NTrain, NTrain+NVal) validate
-	// (temperature and thresholds); the split is by case.
-	CohortSeed   uint64
-	NTrain, NVal int
+	// (monitored during training), and the next NCal calibrate; the
+	// temperature and the fit-check thresholds are fitted on the validation
+	// and calibration cases together, which no gradient step has seen. The
+	// split is by case.
+	CohortSeed         uint64
+	NTrain, NVal, NCal int
 	// TestSeed: NTest fresh in-distribution cases, never used in training or
 	// fitting, for the held-out figures.
 	TestSeed uint64
@@ -45,7 +48,7 @@ type Recipe struct {
 func DemoRecipe() Recipe {
 	return Recipe{
 		Arch: DefaultArch(), Train: DefaultConfig(20261201),
-		CohortSeed: 1, NTrain: 600, NVal: 200,
+		CohortSeed: 1, NTrain: 600, NVal: 200, NCal: 300,
 		TestSeed: 20261202, NTest: 200,
 		ShiftSeed: 20261203, NPerShift: 8,
 		InitSeed: 20261204, Workers: 2,
@@ -135,7 +138,12 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	res.Timing.CPUTrainingTotal = cpuSeconds() - cpu0
 	log("trained in %.0f s (%.0f s with data generation; %.0f CPU s)", res.Timing.Train, res.Timing.TrainingTotal, res.Timing.CPUTrainingTotal)
 	t0 = time.Now()
-	if err := res.fitCard(r, prep, levels, trainCases, valCases, log); err != nil {
+	calCases, err := GenerateCached(r.CacheDir, Specs(r.CohortSeed, r.NTrain+r.NVal, r.NCal, phantom.ShiftNone), prep, levels, r.Workers, progress(log, "calibration phantoms"))
+	if err != nil {
+		return nil, err
+	}
+	fitCases := append(append([]Case(nil), valCases...), calCases...)
+	if err := res.fitCard(r, prep, levels, trainCases, fitCases, log); err != nil {
 		return nil, err
 	}
 	res.Timing.Evaluate = time.Since(t0).Seconds()
@@ -182,8 +190,8 @@ func (res *Result) fitCard(r Recipe, prep inference.Preprocessing, levels []floa
 	}
 	trainDesc := fmt.Sprintf("%d training phantoms (cohort seed %d, %s to %s)", len(trainCases), r.CohortSeed,
 		phantom.CaseID(0), phantom.CaseID(r.NTrain-1))
-	valDesc := fmt.Sprintf("%d validation phantoms (cohort seed %d, %s to %s)", len(valCases), r.CohortSeed,
-		phantom.CaseID(r.NTrain), phantom.CaseID(r.NTrain+r.NVal-1))
+	valDesc := fmt.Sprintf("%d validation and calibration phantoms (cohort seed %d, %s to %s)", len(valCases), r.CohortSeed,
+		phantom.CaseID(r.NTrain), phantom.CaseID(r.NTrain+len(valCases)-1))
 	ood, cal, metrics, err := inference.FitReference(card, trainFit, valFit, inference.FitOptions{
 		Levels: levels, TrainDescription: trainDesc, ValidationDescription: valDesc})
 	if err != nil {
@@ -374,7 +382,7 @@ func DemoCard(r Recipe, prep inference.Preprocessing) *inference.Card {
 	return &inference.Card{
 		Schema:        inference.SchemaVersion,
 		Name:          "Harbourside demo atrophy classifier",
-		Version:       "1.1.0",
+		Version:       "1.2.0",
 		Task:          "Says whether a T1-weighted-like synthetic head phantom carries the invented diffuse atrophy pattern (wider ventricles, thinner cortex, smaller medial temporal structures).",
 		Classes:       []string{"no_pattern", "atrophy_pattern"},
 		PositiveClass: "atrophy_pattern",
@@ -385,9 +393,9 @@ func DemoCard(r Recipe, prep inference.Preprocessing) *inference.Card {
 		IntendedUse: "Demonstration and testing of Brightfold on its synthetic demo cohort only. " +
 			"It is not a medical device and not for any clinical or research decision about a person. " + notice.Full,
 		TrainingData: fmt.Sprintf("Trained only on synthetic head phantoms of the invented Harbourside Memory Research Unit "+
-			"(`brightfold demo cohort`, seed %d: %d training and %d validation cases, split by case; half carry the pattern at graded severity). "+
+			"(`brightfold demo cohort`, seed %d: %d training, %d validation and %d calibration cases, split by case; half carry the pattern at graded severity). "+
 			"No real scan and no information about any person was used. Real scans are outside its training distribution and must be flagged as out-of-distribution by the fit check.",
-			r.CohortSeed, r.NTrain, r.NVal),
+			r.CohortSeed, r.NTrain, r.NVal, r.NCal),
 		Cautions: []string{
 			"Trained on synthetic phantoms only: its output on a real scan means nothing, and the fit check must flag real scans as out-of-distribution.",
 			"The pattern and the cohort are invented; performance figures describe the phantom generator, not any disease.",

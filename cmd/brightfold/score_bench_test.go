@@ -54,17 +54,41 @@ func benchScan(b *testing.B, dir string) string {
 	return p
 }
 
-// benchBundle is a larger stand-in for the demo model: the 48³ three-stage CNN of inference/testdata/make_test_model.py --bench, with
-// the demo-like preprocessing (4 mm, 48³) and an unfitted reference (the
-// timing does not depend on the reference's values).
-func benchBundle(b *testing.B, dir string) string {
+// benchModel describes a stand-in model for BenchmarkScoreOverhead, written
+// by inference/testdata/make_test_model.py (fixed seeds, untrained: only
+// the running time matters).
+type benchModel struct {
+	args    []string // arguments after the output path
+	grid    int      // cubic input grid
+	spacing float64  // mm
+	feat    int      // width of the Flatten features
+}
+
+// benchModels are the stand-ins BRIGHTFOLD_BENCH_BUNDLE can name: "standin",
+// the 48³ three-stage CNN of make_test_model.py --bench at 4 mm; "typical",
+// a CNN of the size of a typical structural brain-MRI classifier
+// (make_test_model.py --typical: 96³ at 2 mm, seven convolutions of 16 to 128
+// channels, about 8 G multiply-adds).
+var benchModels = map[string]benchModel{
+	"standin": {args: []string{"--bench", "48"}, grid: 48, spacing: 4, feat: 32},
+	"typical": {args: []string{"--typical"}, grid: 96, spacing: 2, feat: 128},
+}
+
+// benchBundle writes the stand-in bundle kind into dir, with the demo-like
+// preprocessing at the stand-in's grid and spacing and an unfitted reference
+// (the timing does not depend on the reference's values).
+func benchBundle(b *testing.B, dir, kind string) string {
+	bm, ok := benchModels[kind]
+	if !ok {
+		b.Fatalf("BRIGHTFOLD_BENCH_BUNDLE=%s: not a stand-in (standin, typical) and not a folder", kind)
+	}
 	refcheck.PythonModule(b, "torch")
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		b.Fatal(err)
 	}
 	model := filepath.Join(dir, "model.onnx")
 	script := filepath.Join(refcheck.RepoRoot(), "inference", "testdata", "make_test_model.py")
-	if out, err := exec.Command(refcheck.Python, script, model, "--bench", "48").CombinedOutput(); err != nil {
+	if out, err := exec.Command(refcheck.Python, append([]string{script, model}, bm.args...)...).CombinedOutput(); err != nil {
 		b.Fatalf("export bench model: %v\n%s", err, out)
 	}
 	mb, err := os.ReadFile(model)
@@ -72,19 +96,20 @@ func benchBundle(b *testing.B, dir string) string {
 		b.Fatal(err)
 	}
 	sum := sha256.Sum256(mb)
-	prec := make([][]float64, 32)
+	prec := make([][]float64, bm.feat)
 	for i := range prec {
-		prec[i] = make([]float64, 32)
+		prec[i] = make([]float64, bm.feat)
 		prec[i][i] = 1
 	}
 	th := func(dir string) inference.Threshold {
 		return inference.Threshold{Value: 1, Direction: dir, Required: true}
 	}
+	g, sp := bm.grid, bm.spacing
 	card := &inference.Card{
-		Schema: inference.SchemaVersion, Name: "bench-stand-in", Version: "0", Task: "benchmark only",
+		Schema: inference.SchemaVersion, Name: "bench-" + kind, Version: "0", Task: "benchmark only",
 		Classes: []string{"a", "b"}, PositiveClass: "b",
-		Input: inference.InputSpec{Name: "scan", Shape: []int64{-1, 1, 48, 48, 48}, Layout: inference.LayoutNCDHW, DataType: "float32"},
-		Preprocessing: inference.Preprocessing{Orientation: "RAS", SpacingMm: [3]float64{4, 4, 4}, Shape: [3]int{48, 48, 48},
+		Input: inference.InputSpec{Name: "scan", Shape: []int64{-1, 1, int64(g), int64(g), int64(g)}, Layout: inference.LayoutNCDHW, DataType: "float32"},
+		Preprocessing: inference.Preprocessing{Orientation: "RAS", SpacingMm: [3]float64{sp, sp, sp}, Shape: [3]int{g, g, g},
 			Crop: "head-centre", Antialias: "block-mean", Interpolation: "trilinear",
 			HeadMask:  inference.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
 			Intensity: inference.Intensity{Method: inference.NormZScoreHead}},
@@ -93,7 +118,7 @@ func benchBundle(b *testing.B, dir string) string {
 		OOD: inference.OODReference{
 			Envelope:   inference.Envelope{Modalities: []string{"MR"}},
 			Intensity:  inference.IntensityReference{Levels: inference.DefaultLevels(), Quantiles: make([]float64, 99)},
-			Features:   inference.FeatureReference{Dim: 32, ClassMeans: [][]float64{make([]float64, 32), make([]float64, 32)}, Precision: prec},
+			Features:   inference.FeatureReference{Dim: bm.feat, ClassMeans: [][]float64{make([]float64, bm.feat), make([]float64, bm.feat)}, Precision: prec},
 			Thresholds: inference.Thresholds{MSP: th("min"), Energy: th("max"), Mahalanobis: th("max"), Wasserstein: th("max")},
 		},
 		ModelSHA256: hex.EncodeToString(sum[:]), IntendedUse: "benchmark", TrainingData: "none",
@@ -116,13 +141,14 @@ func median(xs []float64) float64 {
 // resident memory of the whole `brightfold score` command in a child process.
 // Goal (issue 4): overhead (score − Run)/Run ≤ 0.2; peak RSS ≤ 600 MB.
 // The model is the embedded demo bundle; BRIGHTFOLD_BENCH_BUNDLE names
-// another bundle, or "standin" for the larger stand-in CNN of benchBundle.
+// another bundle folder, or a stand-in of benchModels ("standin",
+// "typical").
 func BenchmarkScoreOverhead(b *testing.B) {
 	lib := refcheck.ORTLib(b)
 	dir := b.TempDir()
 	bundleDir := os.Getenv("BRIGHTFOLD_BENCH_BUNDLE")
-	if bundleDir == "standin" {
-		bundleDir = benchBundle(b, filepath.Join(dir, "bundle"))
+	if _, ok := benchModels[bundleDir]; ok {
+		bundleDir = benchBundle(b, filepath.Join(dir, "bundle"), bundleDir)
 	}
 	scan := benchScan(b, dir)
 	if err := inference.InitRuntime(lib); err != nil {

@@ -2,6 +2,7 @@ package fitcheck
 
 import (
 	"encoding/json"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -222,8 +223,24 @@ func TestAgainstSklearnScipy(t *testing.T) {
 		logits = append(logits, z)
 		labels = append(labels, y)
 	}
+	type cpCase struct {
+		K          int     `json:"k"`
+		N          int     `json:"n"`
+		Confidence float64 `json:"confidence"`
+	}
+	cps := []cpCase{{190, 200, 0.9}, {481, 500, 0.9}, {1, 3, 0.5}, {499, 500, 0.99}, {7, 40, 0.95}, {3000, 3200, 0.8}}
+	type biCase struct {
+		A float64 `json:"a"`
+		B float64 `json:"b"`
+		X float64 `json:"x"`
+	}
+	var bis []biCase
+	for i := 0; i < 30; i++ {
+		bis = append(bis, biCase{A: 0.2 + rng.Float64()*60, B: 0.2 + rng.Float64()*60, X: rng.Float64()})
+	}
 	job := map[string]any{"auroc": aucs, "ledoit_wolf": lw, "wasserstein": ws,
-		"temperature": map[string]any{"logits": logits, "labels": labels}}
+		"temperature":     map[string]any{"logits": logits, "labels": labels},
+		"clopper_pearson": cps, "betainc": bis}
 	b, _ := json.Marshal(job)
 	f := filepath.Join(t.TempDir(), "job.json")
 	if err := os.WriteFile(f, b, 0o644); err != nil {
@@ -235,6 +252,8 @@ func TestAgainstSklearnScipy(t *testing.T) {
 		LWShrinkage float64     `json:"lw_shrinkage"`
 		Wasserstein []float64   `json:"wasserstein"`
 		Temperature float64     `json:"temperature"`
+		CP          []float64   `json:"clopper_pearson"`
+		BetaInc     []float64   `json:"betainc"`
 	}
 	refcheck.RunPython(t, "testdata/ref_fit.py", &ref, f)
 	for i, c := range aucs {
@@ -264,6 +283,16 @@ func TestAgainstSklearnScipy(t *testing.T) {
 	near(t, "temperature vs scipy", T, ref.Temperature, 1e-5*ref.Temperature)
 	if T <= 1 {
 		t.Errorf("temperature %v: overconfident logits should give T > 1", T)
+	}
+	for i, c := range cps {
+		lb, err := BinomialLowerBound(c.K, c.N, c.Confidence)
+		if err != nil {
+			t.Fatal(err)
+		}
+		near(t, fmt.Sprintf("Clopper-Pearson %d/%d at %v vs scipy beta.ppf", c.K, c.N, c.Confidence), lb, ref.CP[i], 1e-9)
+	}
+	for i, c := range bis {
+		near(t, fmt.Sprintf("I_%v(%v, %v) vs scipy betainc", c.X, c.A, c.B), RegIncBeta(c.A, c.B, c.X), ref.BetaInc[i], 1e-10)
 	}
 	t.Logf("AUROC cases %d agree with sklearn to 1e-12; Ledoit-Wolf shrinkage %.6f; T = %.6f", len(aucs), s, T)
 }
@@ -316,6 +345,44 @@ func sortFloats(x []float64) {
 	for i := 1; i < len(x); i++ {
 		for j := i; j > 0 && x[j] < x[j-1]; j-- {
 			x[j], x[j-1] = x[j-1], x[j]
+		}
+	}
+}
+
+// TestBetaClosedForms checks RegIncBeta and BinomialLowerBound on closed
+// forms of the beta distribution: I_x(1, 1) = x, I_x(a, 1) = x^a,
+// I_x(1, b) = 1 − (1 − x)^b, I_½(a, a) = ½ by symmetry, and the
+// Clopper–Pearson bound after n successes in n trials, (1 − confidence)^(1/n)
+// (e.g. 0.1^(1/200) = 0.98855 for 200 of 200 at 90 %).
+func TestBetaClosedForms(t *testing.T) {
+	for _, x := range []float64{0.01, 0.3, 0.5, 0.77, 0.999} {
+		near(t, "I_x(1,1)", RegIncBeta(1, 1, x), x, 1e-13)
+		near(t, "I_x(3.5,1)", RegIncBeta(3.5, 1, x), math.Pow(x, 3.5), 1e-12)
+		near(t, "I_x(1,7)", RegIncBeta(1, 7, x), 1-math.Pow(1-x, 7), 1e-12)
+	}
+	for _, a := range []float64{0.5, 2, 40, 300} {
+		near(t, "I_½(a,a)", RegIncBeta(a, a, 0.5), 0.5, 1e-12)
+	}
+	lb, err := BinomialLowerBound(200, 200, 0.9)
+	if err != nil {
+		t.Fatal(err)
+	}
+	near(t, "Clopper-Pearson n of n", lb, math.Pow(0.1, 1.0/200), 1e-14)
+	if lb0, _ := BinomialLowerBound(0, 10, 0.9); lb0 != 0 {
+		t.Errorf("0 of 10: lower bound %v, want 0", lb0)
+	}
+	// a bisection on a monotone CDF: more successes never lower the bound
+	prev := 0.0
+	for k := 1; k <= 50; k++ {
+		b, _ := BinomialLowerBound(k, 50, 0.95)
+		if b < prev {
+			t.Errorf("bound falls from %v to %v at k=%d", prev, b, k)
+		}
+		prev = b
+	}
+	for _, bad := range [][3]float64{{-1, 10, 0.9}, {11, 10, 0.9}, {5, 0, 0.9}, {5, 10, 1}, {5, 10, 0}} {
+		if _, err := BinomialLowerBound(int(bad[0]), int(bad[1]), bad[2]); err == nil {
+			t.Errorf("BinomialLowerBound%v: no error", bad)
 		}
 	}
 }

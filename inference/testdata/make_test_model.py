@@ -5,6 +5,11 @@ Run with Debian's python3-torch 1.13:  /usr/bin/python3 make_test_model.py OUT.o
 With "--bench GRID" it writes instead a larger stand-in of the same shape of
 network for the score-overhead benchmark (input [N, 1, GRID, GRID, GRID],
 three convolution stages of 8, 16 and 32 channels); nothing is printed then.
+With "--typical" it writes a stand-in of the size of a typical structural
+brain-MRI CNN (input [N, 1, 96, 96, 96], 2 mm; seven 3x3x3 convolutions in
+four stages of 16, 32, 64 and 128 channels, batch norm, max pooling, global
+average pooling, about 8 G multiply-adds per case), untrained: only its
+running time matters.
 Fixed seed, fixed weights. Input "scan" [N, 1, 16, 16, 16] (NCDHW, dynamic N);
 output "logits" [N, 2]. The penultimate features (the Flatten output, [N, 8])
 are an intermediate tensor, not a graph output, so that the bundle loader
@@ -52,6 +57,33 @@ class Bench3D(nn.Module):
         return self.fc(self.flat(self.body(x)))
 
 
+class Typical3D(nn.Module):
+    def __init__(self):
+        super().__init__()
+
+        def block(cin, cout):
+            return [nn.Conv3d(cin, cout, 3, padding=1), nn.BatchNorm3d(cout), nn.ReLU()]
+        self.body = nn.Sequential(
+            *block(1, 16), nn.MaxPool3d(2),
+            *block(16, 32), *block(32, 32), nn.MaxPool3d(2),
+            *block(32, 64), *block(64, 64), nn.MaxPool3d(2),
+            *block(64, 128), *block(128, 128), nn.AdaptiveAvgPool3d(1))
+        self.flat = nn.Flatten()
+        self.fc = nn.Linear(128, 2)
+
+    def forward(self, x):
+        return self.fc(self.flat(self.body(x)))
+
+
+def typical(out):
+    torch.manual_seed(11)
+    m = Typical3D().eval()
+    x = torch.randn(1, 1, 96, 96, 96)
+    torch.onnx.export(m, x, out, input_names=["scan"], output_names=["logits"],
+                      dynamic_axes={"scan": {0: "batch"}, "logits": {0: "batch"}},
+                      opset_version=13, do_constant_folding=True)
+
+
 def bench(out, grid):
     torch.manual_seed(7)
     m = Bench3D().eval()
@@ -63,6 +95,9 @@ def bench(out, grid):
 
 def main():
     out = sys.argv[1]
+    if len(sys.argv) == 3 and sys.argv[2] == "--typical":
+        typical(out)
+        return
     if len(sys.argv) == 4 and sys.argv[2] == "--bench":
         bench(out, int(sys.argv[3]))
         return

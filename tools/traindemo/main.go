@@ -112,7 +112,7 @@ func run(out, reportPath, compare string, tol float64, cache string, quick bool,
 		r.Workers = runtime.NumCPU()
 	}
 	if quick {
-		r.NTrain, r.NVal, r.NTest, r.NPerShift = 32, 16, 16, 2
+		r.NTrain, r.NVal, r.NCal, r.NTest, r.NPerShift = 32, 16, 16, 16, 2
 		r.Train.Epochs = 1
 	}
 	ov.apply(&r)

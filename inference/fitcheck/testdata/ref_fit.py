@@ -5,11 +5,15 @@ Reads a JSON job from the file named by the first argument:
   {"auroc": [{"scores": [...], "labels": [0/1...]}, ...],
    "ledoit_wolf": [[...], ...]           (rows, already centred),
    "wasserstein": [{"a": [...], "b": [...]}, ...],
-   "temperature": {"logits": [[...]], "labels": [...]}}
+   "temperature": {"logits": [[...]], "labels": [...]},
+   "clopper_pearson": [{"k": .., "n": .., "confidence": ..}, ...],
+   "betainc": [{"a": .., "b": .., "x": ..}, ...]}
 Writes JSON with sklearn.metrics.roc_auc_score per AUROC case,
 sklearn.covariance.ledoit_wolf(assume_centered=True) covariance and
 shrinkage, scipy.stats.wasserstein_distance per pair, and the temperature
-minimising the NLL by scipy.optimize.minimize_scalar (bounded, on 1/T).
+minimising the NLL by scipy.optimize.minimize_scalar (bounded, on 1/T),
+the one-sided Clopper-Pearson lower bound as stats.beta.ppf(1 - confidence,
+k, n - k + 1), and special.betainc(a, b, x).
 """
 import json
 import sys
@@ -38,4 +42,6 @@ def nll(beta):
 
 r = optimize.minimize_scalar(nll, bounds=(1 / 20, 20), method="bounded", options={"xatol": 1e-10})
 out["temperature"] = float(1 / r.x)
+out["clopper_pearson"] = [float(stats.beta.ppf(1 - c["confidence"], c["k"], c["n"] - c["k"] + 1)) for c in job["clopper_pearson"]]
+out["betainc"] = [float(special.betainc(c["a"], c["b"], c["x"])) for c in job["betainc"]]
 json.dump(out, sys.stdout)
