@@ -8,11 +8,13 @@ go test -run '^$' -bench . -benchmem ./...
 # One process: wall time of scoring a 256×256×176 1 mm scan against the bare
 # ONNX Runtime Run on the same tensor (goal: (score − Run)/Run ≤ 0.2), and the
 # peak resident memory of `brightfold score` in a child process (goal ≤ 600 MB).
-# The demo model is tiny (18 k parameters on a 48³ grid; Run ≈ 5–15 ms), so
+# The demo model is tiny (18 k parameters on a 48³ grid; Run ≈ 2 ms on two
+# idle cores, up to 15 ms under load), so
 # for it the ratio is set by reading and preparing the 11.5 M-voxel scan; the
-# same measure on a stand-in of the size of a typical structural brain-MRI
-# CNN (make_test_model.py --typical: 96³ at 2 mm, about 8 G multiply-adds,
-# untrained) shows the ratio for a model of realistic cost.
+# same measure on an untrained stand-in of moderate size for a structural
+# brain-MRI CNN (make_test_model.py --moderate: 96³ at 2 mm, seven
+# convolutions, about 8 G multiply-adds; many 3D classifiers cost more)
+# shows the ratio for a model whose Run is not negligible.
 scorebench() {
   local label=$1 bundle=$2 line
   echo "== score overhead, $label (cmd/brightfold BenchmarkScoreOverhead) =="
@@ -23,7 +25,7 @@ scorebench() {
       label, m["score_ms"], m["load_ms"], m["preprocess_ms"], m["fit_check_ms"], m["run_ms"], m["overhead_ratio"], m["overhead_ratio_loaded_scan"], m["peak_rss_MB"]}'
 }
 scorebench "demo model" ""
-scorebench "typical-size stand-in CNN" typical
+scorebench "moderate-size stand-in CNN" moderate
 
 # --- NIfTI loading vs nibabel (issue 2) ---------------------------------------
 # BenchmarkLoadNIfTIGz writes a 256×256×176 int16 .nii.gz into a scratch

@@ -65,13 +65,13 @@ type benchModel struct {
 }
 
 // benchModels are the stand-ins BRIGHTFOLD_BENCH_BUNDLE can name: "standin",
-// the 48³ three-stage CNN of make_test_model.py --bench at 4 mm; "typical",
-// a CNN of the size of a typical structural brain-MRI classifier
-// (make_test_model.py --typical: 96³ at 2 mm, seven convolutions of 16 to 128
+// the 48³ three-stage CNN of make_test_model.py --bench at 4 mm; "moderate",
+// an untrained CNN of moderate size for a structural brain-MRI classifier
+// (make_test_model.py --moderate: 96³ at 2 mm, seven convolutions of 16 to 128
 // channels, about 8 G multiply-adds).
 var benchModels = map[string]benchModel{
 	"standin": {args: []string{"--bench", "48"}, grid: 48, spacing: 4, feat: 32},
-	"typical": {args: []string{"--typical"}, grid: 96, spacing: 2, feat: 128},
+	"moderate": {args: []string{"--moderate"}, grid: 96, spacing: 2, feat: 128},
 }
 
 // benchBundle writes the stand-in bundle kind into dir, with the demo-like
@@ -80,7 +80,7 @@ var benchModels = map[string]benchModel{
 func benchBundle(b *testing.B, dir, kind string) string {
 	bm, ok := benchModels[kind]
 	if !ok {
-		b.Fatalf("BRIGHTFOLD_BENCH_BUNDLE=%s: not a stand-in (standin, typical) and not a folder", kind)
+		b.Fatalf("BRIGHTFOLD_BENCH_BUNDLE=%s: not a stand-in (standin, moderate) and not a folder", kind)
 	}
 	refcheck.PythonModule(b, "torch")
 	if err := os.MkdirAll(dir, 0o755); err != nil {
@@ -142,7 +142,7 @@ func median(xs []float64) float64 {
 // Goal (issue 4): overhead (score − Run)/Run ≤ 0.2; peak RSS ≤ 600 MB.
 // The model is the embedded demo bundle; BRIGHTFOLD_BENCH_BUNDLE names
 // another bundle folder, or a stand-in of benchModels ("standin",
-// "typical").
+// "moderate").
 func BenchmarkScoreOverhead(b *testing.B) {
 	lib := refcheck.ORTLib(b)
 	dir := b.TempDir()

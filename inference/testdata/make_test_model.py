@@ -5,7 +5,7 @@ Run with Debian's python3-torch 1.13:  /usr/bin/python3 make_test_model.py OUT.o
 With "--bench GRID" it writes instead a larger stand-in of the same shape of
 network for the score-overhead benchmark (input [N, 1, GRID, GRID, GRID],
 three convolution stages of 8, 16 and 32 channels); nothing is printed then.
-With "--typical" it writes a stand-in of the size of a typical structural
+With "--moderate" it writes a stand-in of moderate size for a structural
 brain-MRI CNN (input [N, 1, 96, 96, 96], 2 mm; seven 3x3x3 convolutions in
 four stages of 16, 32, 64 and 128 channels, batch norm, max pooling, global
 average pooling, about 8 G multiply-adds per case), untrained: only its
@@ -57,7 +57,7 @@ class Bench3D(nn.Module):
         return self.fc(self.flat(self.body(x)))
 
 
-class Typical3D(nn.Module):
+class Moderate3D(nn.Module):
     def __init__(self):
         super().__init__()
 
@@ -75,9 +75,9 @@ class Typical3D(nn.Module):
         return self.fc(self.flat(self.body(x)))
 
 
-def typical(out):
+def moderate(out):
     torch.manual_seed(11)
-    m = Typical3D().eval()
+    m = Moderate3D().eval()
     x = torch.randn(1, 1, 96, 96, 96)
     torch.onnx.export(m, x, out, input_names=["scan"], output_names=["logits"],
                       dynamic_axes={"scan": {0: "batch"}, "logits": {0: "batch"}},
@@ -95,8 +95,8 @@ def bench(out, grid):
 
 def main():
     out = sys.argv[1]
-    if len(sys.argv) == 3 and sys.argv[2] == "--typical":
-        typical(out)
+    if len(sys.argv) == 3 and sys.argv[2] == "--moderate":
+        moderate(out)
         return
     if len(sys.argv) == 4 and sys.argv[2] == "--bench":
         bench(out, int(sys.argv[3]))
