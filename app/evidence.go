@@ -170,14 +170,14 @@ func (p *evidencePanel) unavailable(why string) {
 func (p *evidencePanel) showPrediction(card *inference.Card, pr inference.Prediction, ood bool) {
 	p.model.SetText(fmt.Sprintf("Model: %s, version %s", card.Name, card.Version))
 	p.training.SetText(firstSentence(card.TrainingData))
-	p.prob.Text = formatProbability(pr.Probability)
+	p.prob.Text = inference.FormatProbability(pr.Probability)
 	p.prob.Color = colText
 	if ood {
 		p.prob.Color = colMuted
 	}
 	p.prob.Refresh()
 	p.probCaption.SetText(fmt.Sprintf("Probability of %s, calibrated by temperature scaling (T = %.2f; %s before calibration). Most probable class: %s.",
-		className(card.PositiveClass), pr.Temperature, formatProbability(pr.Uncalibrated), className(pr.Label)))
+		className(card.PositiveClass), pr.Temperature, inference.FormatProbability(pr.Uncalibrated), className(pr.Label)))
 	if ood {
 		p.status.SetText("Out of distribution: the fit check says this scan is unlike the training scans, so this probability should not be relied on.")
 		p.status.Importance = widget.DangerImportance
@@ -187,18 +187,6 @@ func (p *evidencePanel) showPrediction(card *inference.Card, pr inference.Predic
 	}
 	p.status.Refresh()
 	p.u.reflow()
-}
-
-// formatProbability prints a probability with two decimals, never as a
-// certainty: above 0.99 it reads "> 0.99", below 0.01 "< 0.01".
-func formatProbability(p float64) string {
-	switch {
-	case p > 0.99:
-		return "> 0.99"
-	case p < 0.01:
-		return "< 0.01"
-	}
-	return fmt.Sprintf("%.2f", p)
 }
 
 // className shows a class key ("atrophy_pattern") as words.

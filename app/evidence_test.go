@@ -147,12 +147,3 @@ func TestUnpreparedScan(t *testing.T) {
 func parseProbability(s string) (float64, error) {
 	return strconv.ParseFloat(strings.TrimSpace(strings.TrimLeft(s, "<>")), 64)
 }
-
-// Probabilities are shown with two decimals and never as certainties.
-func TestFormatProbability(t *testing.T) {
-	for p, want := range map[float64]string{0.5: "0.50", 0.98: "0.98", 0.995: "> 0.99", 1: "> 0.99", 0.004: "< 0.01", 0.01: "0.01"} {
-		if got := formatProbability(p); got != want {
-			t.Errorf("formatProbability(%v) = %q, want %q", p, got, want)
-		}
-	}
-}

@@ -61,3 +61,16 @@ func ClassLogits(c *Card, logits []float64) []float64 {
 	out[c.PositiveIndex()] = logits[0]
 	return out
 }
+
+// FormatProbability prints a probability with two decimals, never as a
+// certainty: above 0.99 it reads "> 0.99", below 0.01 "< 0.01". Every
+// screen and the command line show probabilities this way.
+func FormatProbability(p float64) string {
+	switch {
+	case p > 0.99:
+		return "> 0.99"
+	case p < 0.01:
+		return "< 0.01"
+	}
+	return fmt.Sprintf("%.2f", p)
+}

@@ -218,7 +218,7 @@ func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result) {
 	fmt.Fprintln(w)
 	if p := rep.Prediction; p != nil {
 		fmt.Fprintf(w, "Prediction:  %s\n", p.Label)
-		fmt.Fprintf(w, "Probability: %.2f that the scan shows %q (calibrated with temperature %.2f)\n", p.Probability, p.PositiveClass, p.Temperature)
+		fmt.Fprintf(w, "Probability: %s that the scan shows %q (calibrated with temperature %.2f)\n", inference.FormatProbability(p.Probability), p.PositiveClass, p.Temperature)
 	} else {
 		fmt.Fprintln(w, "Prediction:  none. The scan could not be prepared for the model, so the model was not run.")
 	}

@@ -70,7 +70,7 @@ type benchModel struct {
 // (make_test_model.py --moderate: 96³ at 2 mm, seven convolutions of 16 to 128
 // channels, about 8 G multiply-adds).
 var benchModels = map[string]benchModel{
-	"standin": {args: []string{"--bench", "48"}, grid: 48, spacing: 4, feat: 32},
+	"standin":  {args: []string{"--bench", "48"}, grid: 48, spacing: 4, feat: 32},
 	"moderate": {args: []string{"--moderate"}, grid: 96, spacing: 2, feat: 128},
 }
 
