@@ -4,11 +4,10 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"runtime"
 	"sort"
-	"sync"
 
 	"brightfold/inference/fitcheck"
+	"brightfold/internal/parallel"
 	"brightfold/volume"
 )
 
@@ -280,7 +279,7 @@ func blockMean(v *volume.Volume, f [3]int) *volume.Volume {
 		s[a][3] = float64(f[a]-1) / 2
 	}
 	out.Affine = v.Affine.Mul(s)
-	parallelRange(nd[2], func(k0, k1 int) {
+	parallel.Chunks(nd[2], func(k0, k1 int) {
 		acc := make([]float64, nd[0])
 		for K := k0; K < k1; K++ {
 			for J := 0; J < nd[1]; J++ {
@@ -343,25 +342,6 @@ func checkTensorFinite(vals []float32) error {
 }
 
 func finite32(x float32) bool { return !math.IsNaN(float64(x)) && !math.IsInf(float64(x), 0) }
-
-// parallelRange splits [0, n) into contiguous chunks run on all cores.
-func parallelRange(n int, fn func(lo, hi int)) {
-	w := min(runtime.GOMAXPROCS(0), n)
-	if w <= 1 {
-		fn(0, n)
-		return
-	}
-	var wg sync.WaitGroup
-	for i := 0; i < w; i++ {
-		lo, hi := n*i/w, n*(i+1)/w
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			fn(lo, hi)
-		}()
-	}
-	wg.Wait()
-}
 
 // maxPercentileSample bounds the values sorted for a percentile; larger
 // inputs are subsampled with a fixed stride (deterministic).

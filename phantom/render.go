@@ -6,6 +6,7 @@ import (
 	"runtime"
 	"sync"
 
+	"brightfold/internal/parallel"
 	"brightfold/notice"
 	"brightfold/volume"
 )
@@ -79,7 +80,7 @@ func Render(s Subject, opts Options) (*Case, error) {
 		workers = runtime.GOMAXPROCS(0)
 	}
 	scratch := make([]*sliceScratch, workers)
-	parallelFor(g.dims[2], workers, func(w, k int) {
+	parallel.Each(g.dims[2], workers, func(w, k int) {
 		if scratch[w] == nil {
 			scratch[w] = newSliceScratch(g.dims)
 		}
@@ -90,7 +91,7 @@ func Render(s Subject, opts Options) (*Case, error) {
 		smoothZ(tmp, r.img, g.dims)
 		r.img = tmp
 	}
-	parallelFor(g.dims[2], workers, func(_, k int) { r.finishSlice(k) })
+	parallel.Each(g.dims[2], workers, func(_, k int) { r.finishSlice(k) })
 	if s.Shift == ShiftFlipped {
 		flipZ(r.img, g.dims)
 		flipZ(r.labels, g.dims)
@@ -113,33 +114,6 @@ type renderer struct {
 
 	airOnce sync.Once
 	air     []float32
-}
-
-// parallelFor calls fn(w, k) for k in [0, n) on up to workers goroutines;
-// w in [0, workers) names the goroutine, for scratch space.
-func parallelFor(n, workers int, fn func(w, k int)) {
-	if workers <= 1 || n <= 1 {
-		for k := 0; k < n; k++ {
-			fn(0, k)
-		}
-		return
-	}
-	var wg sync.WaitGroup
-	next := make(chan int)
-	for w := 0; w < min(workers, n); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for k := range next {
-				fn(w, k)
-			}
-		}()
-	}
-	for k := 0; k < n; k++ {
-		next <- k
-	}
-	close(next)
-	wg.Wait()
 }
 
 // span returns the voxel range [lo, hi) of a row p0 + t·dp inside the

@@ -1,11 +1,9 @@
 package volume
 
 import (
+	"brightfold/internal/parallel"
 	"fmt"
 	"math"
-	"runtime"
-	"sync"
-	"sync/atomic"
 )
 
 // AxisMap says, for each voxel axis of a volume, which RAS world axis it
@@ -137,30 +135,5 @@ func permute(dst, src []float32, dims, s [3]int, base int) {
 	})
 }
 
-// forSlices runs f(k) for k in [0, n) on all cores, handing out slices one
-// at a time.
-func forSlices(n int, f func(k int)) {
-	workers := min(runtime.GOMAXPROCS(0), n)
-	if workers <= 1 {
-		for k := 0; k < n; k++ {
-			f(k)
-		}
-		return
-	}
-	var next atomic.Int64
-	var wg sync.WaitGroup
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for {
-				k := int(next.Add(1) - 1)
-				if k >= n {
-					return
-				}
-				f(k)
-			}
-		}()
-	}
-	wg.Wait()
-}
+// forSlices runs f(k) for k in [0, n) on all cores.
+func forSlices(n int, f func(k int)) { parallel.Each(n, 0, func(_, k int) { f(k) }) }

@@ -1,0 +1,51 @@
+package parallel
+
+import (
+	"sync/atomic"
+	"testing"
+)
+
+// Each visits every index exactly once, with worker names in range.
+func TestEachVisitsAll(t *testing.T) {
+	for _, tc := range []struct{ n, workers int }{{0, 4}, {1, 4}, {7, 1}, {1000, 3}, {5, 0}, {3, 16}} {
+		seen := make([]atomic.Int32, tc.n)
+		nw := Workers(tc.n, tc.workers)
+		Each(tc.n, tc.workers, func(w, k int) {
+			if w < 0 || w >= nw {
+				t.Errorf("n=%d: worker %d outside [0, %d)", tc.n, w, nw)
+			}
+			seen[k].Add(1)
+		})
+		for k := range seen {
+			if c := seen[k].Load(); c != 1 {
+				t.Errorf("n=%d workers=%d: index %d visited %d times", tc.n, tc.workers, k, c)
+			}
+		}
+	}
+}
+
+// Chunks covers [0, n) with disjoint contiguous ranges.
+func TestChunksCover(t *testing.T) {
+	for _, n := range []int{0, 1, 2, 3, 10, 1001} {
+		seen := make([]atomic.Int32, n)
+		Chunks(n, func(lo, hi int) {
+			if lo > hi || lo < 0 || hi > n {
+				t.Errorf("n=%d: chunk [%d, %d)", n, lo, hi)
+			}
+			for k := lo; k < hi; k++ {
+				seen[k].Add(1)
+			}
+		})
+		for k := range seen {
+			if c := seen[k].Load(); c != 1 {
+				t.Errorf("n=%d: index %d covered %d times", n, k, c)
+			}
+		}
+	}
+}
+
+func TestWorkers(t *testing.T) {
+	if Workers(0, 4) != 1 || Workers(3, 8) != 3 || Workers(100, 2) != 2 || Workers(100, 0) < 1 {
+		t.Errorf("Workers: %d %d %d %d", Workers(0, 4), Workers(3, 8), Workers(100, 2), Workers(100, 0))
+	}
+}
