@@ -2,7 +2,6 @@ package inference
 
 import (
 	"math"
-	"sort"
 
 	"brightfold/inference/fitcheck"
 	"brightfold/volume"
@@ -64,12 +63,12 @@ func MeasureHeader(v *volume.Volume) CaseFacts {
 // headQuantiles are the quantiles of the normalised tensor over the head mask.
 func headQuantiles(t *Tensor, levels []float64) []float64 {
 	g := t.GridValues()
-	var head []float64
+	var head []float32
 	for i, m := range t.HeadMask {
 		if m {
-			head = append(head, float64(g[i]))
+			head = append(head, g[i])
 		}
 	}
-	sort.Float64s(head)
+	fitcheck.SortFloat32(head) // the tensor is finite (checkTensorFinite)
 	return fitcheck.Quantiles(head, levels)
 }

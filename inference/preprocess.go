@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"sort"
+	"sync/atomic"
 
 	"brightfold/inference/fitcheck"
 	"brightfold/internal/parallel"
@@ -271,6 +272,9 @@ func blockFactors(v *volume.Volume, f frame, target [3]float64) [3]int {
 // are skipped), dropping incomplete blocks at the far edges so that the new
 // affine is exact: new voxel I is centred on old voxel f·I + (f−1)/2.
 func blockMean(v *volume.Volume, f [3]int) *volume.Volume {
+	if f == [3]int{1, 1, 1} && allFinite32(v.Data) {
+		return v // blocks of one voxel: the scan itself (callers only read it)
+	}
 	nd := [3]int{v.Dims[0] / f[0], v.Dims[1] / f[1], v.Dims[2] / f[2]}
 	out := &volume.Volume{Dims: nd, Meta: v.Meta, Data: make([]float32, nd[0]*nd[1]*nd[2])}
 	s := volume.Identity()
@@ -341,6 +345,21 @@ func checkTensorFinite(vals []float32) error {
 	return nil
 }
 
+// allFinite32 reports whether data holds no NaN or Inf, checking on all
+// cores.
+func allFinite32(data []float32) bool {
+	var bad atomic.Bool
+	parallel.Chunks(len(data), func(lo, hi int) {
+		for _, x := range data[lo:hi] {
+			if x-x != 0 { // NaN or ±Inf
+				bad.Store(true)
+				return
+			}
+		}
+	})
+	return !bad.Load()
+}
+
 func finite32(x float32) bool { return !math.IsNaN(float64(x)) && !math.IsInf(float64(x), 0) }
 
 // maxPercentileSample bounds the values sorted for a percentile; larger
@@ -385,28 +404,19 @@ func Percentile(sorted []float64, p float64) float64 {
 
 // headStats measures the mask {value > thr} of v in the frame's axes.
 func headStats(v *volume.Volume, f frame, thr float64) (HeadStats, error) {
-	var n float64
-	var s1 [3]float64
-	eachMasked(v, thr, func(p [3]float64) {
-		n++
-		for a := 0; a < 3; a++ {
-			s1[a] += p[a]
-		}
-	})
-	if n < 1 {
+	m := maskMoments(v, thr)
+	if m.n == 0 {
 		return HeadStats{}, errors.New("no head found: no voxel above the head-mask threshold")
 	}
-	var mean, m2, m3 [3]float64
+	n := float64(m.n)
+	var mean, m2, m3 [3]float64 // central moments per voxel axis (sums, not means)
 	for a := 0; a < 3; a++ {
-		mean[a] = s1[a] / n
+		mu := float64(m.s1[a]) / n
+		e2, e3 := float64(m.s2[a])/n, float64(m.s3[a])/n
+		mean[a] = mu
+		m2[a] = n * math.Max(0, e2-mu*mu)
+		m3[a] = n * (e3 - 3*mu*e2 + 2*mu*mu*mu)
 	}
-	eachMasked(v, thr, func(p [3]float64) {
-		for a := 0; a < 3; a++ {
-			d := p[a] - mean[a]
-			m2[a] += d * d
-			m3[a] += d * d * d
-		}
-	})
 	sp := v.Spacing()
 	h := HeadStats{Threshold: thr, Centre: v.Affine.Apply(mean), Fraction: n / float64(v.Len())}
 	h.VolumeMl = n * math.Abs(det3(v.Affine)) / 1000
@@ -421,18 +431,62 @@ func headStats(v *volume.Volume, f frame, thr float64) (HeadStats, error) {
 	return h, nil
 }
 
-// eachMasked calls fn with the voxel index of every voxel of v above thr.
-func eachMasked(v *volume.Volume, thr float64, fn func(p [3]float64)) {
-	for k := 0; k < v.Dims[2]; k++ {
+// moments are the count and the raw moments Σp, Σp², Σp³ of the voxel
+// indices of the voxels above a threshold, per axis. Integer sums are exact
+// (Σp³ < 2⁶³ for any volume under volume.MaxVoxels with axes below 2¹⁵), so
+// the result does not depend on the order the slices are summed in.
+type moments struct {
+	n          int64
+	s1, s2, s3 [3]int64
+}
+
+func (m *moments) add(o moments) {
+	m.n += o.n
+	for a := 0; a < 3; a++ {
+		m.s1[a] += o.s1[a]
+		m.s2[a] += o.s2[a]
+		m.s3[a] += o.s3[a]
+	}
+}
+
+// maskMoments sums the moments of the voxels of v above thr, one slice per
+// task on all cores.
+func maskMoments(v *volume.Volume, thr float64) moments {
+	per := make([]moments, v.Dims[2])
+	parallel.Each(v.Dims[2], 0, func(_, k int) {
+		var m moments
+		kk := int64(k)
 		for j := 0; j < v.Dims[1]; j++ {
 			o := v.Index(0, j, k)
+			var c, si, si2, si3 int64
 			for i, x := range v.Data[o : o+v.Dims[0]] {
 				if float64(x) > thr {
-					fn([3]float64{float64(i), float64(j), float64(k)})
+					ii := int64(i)
+					c++
+					si += ii
+					si2 += ii * ii
+					si3 += ii * ii * ii
 				}
 			}
+			jj := int64(j)
+			m.n += c
+			m.s1[0] += si
+			m.s2[0] += si2
+			m.s3[0] += si3
+			m.s1[1] += c * jj
+			m.s2[1] += c * jj * jj
+			m.s3[1] += c * jj * jj * jj
 		}
+		m.s1[2] = m.n * kk
+		m.s2[2] = m.n * kk * kk
+		m.s3[2] = m.n * kk * kk * kk
+		per[k] = m
+	})
+	var total moments
+	for _, m := range per {
+		total.add(m)
 	}
+	return total
 }
 
 // sampleGrid resamples v (trilinear, volume.ResampleFill) onto the grid

@@ -14,7 +14,10 @@ go test -run '^$' -bench . -benchmem ./...
 # same measure on an untrained stand-in of moderate size for a structural
 # brain-MRI CNN (make_test_model.py --moderate: 96³ at 2 mm, seven
 # convolutions, about 8 G multiply-adds; many 3D classifiers cost more)
-# shows the ratio for a model whose Run is not negligible.
+# and a larger one (--large: 128³ at 1.5 mm, about 44 G multiply-adds) show
+# the ratio for models whose Run is not negligible. Brightfold's own cost
+# (load, preprocessing, fit checks) is roughly fixed per scan, so the ratio
+# falls as the model grows.
 scorebench() {
   local label=$1 bundle=$2 line
   echo "== score overhead, $label (cmd/brightfold BenchmarkScoreOverhead) =="
@@ -26,6 +29,7 @@ scorebench() {
 }
 scorebench "demo model" ""
 scorebench "moderate-size stand-in CNN" moderate
+scorebench "large stand-in CNN (128³, 1.5 mm, ~44 G multiply-adds)" large
 
 # --- NIfTI loading vs nibabel (issue 2) ---------------------------------------
 # BenchmarkLoadNIfTIGz writes a 256×256×176 int16 .nii.gz into a scratch

@@ -68,10 +68,13 @@ type benchModel struct {
 // the 48³ three-stage CNN of make_test_model.py --bench at 4 mm; "moderate",
 // an untrained CNN of moderate size for a structural brain-MRI classifier
 // (make_test_model.py --moderate: 96³ at 2 mm, seven convolutions of 16 to 128
-// channels, about 8 G multiply-adds).
+// channels, about 8 G multiply-adds); "large", the same form at 128³ and
+// 1.5 mm with 24 to 192 channels (make_test_model.py --large, about 44 G
+// multiply-adds).
 var benchModels = map[string]benchModel{
 	"standin":  {args: []string{"--bench", "48"}, grid: 48, spacing: 4, feat: 32},
 	"moderate": {args: []string{"--moderate"}, grid: 96, spacing: 2, feat: 128},
+	"large":    {args: []string{"--large"}, grid: 128, spacing: 1.5, feat: 192},
 }
 
 // benchBundle writes the stand-in bundle kind into dir, with the demo-like
@@ -80,7 +83,7 @@ var benchModels = map[string]benchModel{
 func benchBundle(b *testing.B, dir, kind string) string {
 	bm, ok := benchModels[kind]
 	if !ok {
-		b.Fatalf("BRIGHTFOLD_BENCH_BUNDLE=%s: not a stand-in (standin, moderate) and not a folder", kind)
+		b.Fatalf("BRIGHTFOLD_BENCH_BUNDLE=%s: not a stand-in (standin, moderate, large) and not a folder", kind)
 	}
 	refcheck.PythonModule(b, "torch")
 	if err := os.MkdirAll(dir, 0o755); err != nil {

@@ -226,8 +226,9 @@ func QuantileW1(levels, q, r []float64) float64 {
 }
 
 // Quantiles returns the values of sorted at the levels (in (0, 1)), with
-// linear interpolation between order statistics (numpy's default).
-func Quantiles(sorted []float64, levels []float64) []float64 {
+// linear interpolation between order statistics (numpy's default),
+// computed in float64.
+func Quantiles[T ~float32 | ~float64](sorted []T, levels []float64) []float64 {
 	out := make([]float64, len(levels))
 	n := len(sorted)
 	for i, u := range levels {
@@ -239,11 +240,12 @@ func Quantiles(sorted []float64, levels []float64) []float64 {
 		lo := int(math.Floor(h))
 		switch {
 		case lo < 0:
-			out[i] = sorted[0]
+			out[i] = float64(sorted[0])
 		case lo >= n-1:
-			out[i] = sorted[n-1]
+			out[i] = float64(sorted[n-1])
 		default:
-			out[i] = sorted[lo] + (h-float64(lo))*(sorted[lo+1]-sorted[lo])
+			a, b := float64(sorted[lo]), float64(sorted[lo+1])
+			out[i] = a + (h-float64(lo))*(b-a)
 		}
 	}
 	return out

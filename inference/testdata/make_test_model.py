@@ -9,7 +9,9 @@ With "--moderate" it writes a stand-in of moderate size for a structural
 brain-MRI CNN (input [N, 1, 96, 96, 96], 2 mm; seven 3x3x3 convolutions in
 four stages of 16, 32, 64 and 128 channels, batch norm, max pooling, global
 average pooling, about 8 G multiply-adds per case), untrained: only its
-running time matters.
+running time matters. "--large" writes a larger one of the same form
+(input [N, 1, 128, 128, 128], 1.5 mm; stages of 24, 48, 96 and 192 channels,
+about 44 G multiply-adds per case).
 Fixed seed, fixed weights. Input "scan" [N, 1, 16, 16, 16] (NCDHW, dynamic N);
 output "logits" [N, 2]. The penultimate features (the Flatten output, [N, 8])
 are an intermediate tensor, not a graph output, so that the bundle loader
@@ -58,27 +60,27 @@ class Bench3D(nn.Module):
 
 
 class Moderate3D(nn.Module):
-    def __init__(self):
+    def __init__(self, w=16):
         super().__init__()
 
         def block(cin, cout):
             return [nn.Conv3d(cin, cout, 3, padding=1), nn.BatchNorm3d(cout), nn.ReLU()]
         self.body = nn.Sequential(
-            *block(1, 16), nn.MaxPool3d(2),
-            *block(16, 32), *block(32, 32), nn.MaxPool3d(2),
-            *block(32, 64), *block(64, 64), nn.MaxPool3d(2),
-            *block(64, 128), *block(128, 128), nn.AdaptiveAvgPool3d(1))
+            *block(1, w), nn.MaxPool3d(2),
+            *block(w, 2 * w), *block(2 * w, 2 * w), nn.MaxPool3d(2),
+            *block(2 * w, 4 * w), *block(4 * w, 4 * w), nn.MaxPool3d(2),
+            *block(4 * w, 8 * w), *block(8 * w, 8 * w), nn.AdaptiveAvgPool3d(1))
         self.flat = nn.Flatten()
-        self.fc = nn.Linear(128, 2)
+        self.fc = nn.Linear(8 * w, 2)
 
     def forward(self, x):
         return self.fc(self.flat(self.body(x)))
 
 
-def moderate(out):
+def moderate(out, w=16, grid=96):
     torch.manual_seed(11)
-    m = Moderate3D().eval()
-    x = torch.randn(1, 1, 96, 96, 96)
+    m = Moderate3D(w).eval()
+    x = torch.randn(1, 1, grid, grid, grid)
     torch.onnx.export(m, x, out, input_names=["scan"], output_names=["logits"],
                       dynamic_axes={"scan": {0: "batch"}, "logits": {0: "batch"}},
                       opset_version=13, do_constant_folding=True)
@@ -97,6 +99,9 @@ def main():
     out = sys.argv[1]
     if len(sys.argv) == 3 and sys.argv[2] == "--moderate":
         moderate(out)
+        return
+    if len(sys.argv) == 3 and sys.argv[2] == "--large":
+        moderate(out, 24, 128)
         return
     if len(sys.argv) == 4 and sys.argv[2] == "--bench":
         bench(out, int(sys.argv[3]))
