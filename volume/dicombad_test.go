@@ -257,6 +257,46 @@ var dcmBadCases = []dcmBadCase{
 		b = append(b, 0xFE, 0xFF, 0x00, 0xE0, 4, 0, 0, 0, 1, 2, 3, 4)
 		return append(b, 0xFE, 0xFF, 0xDD, 0xE0, 0, 0, 0, 0)
 	})},
+	{"RLE Lossless with native pixel data", "not encapsulated", dcmRawCase(tsRLE, func() []byte {
+		b := dcmRawElem(0x0028, 0x0002, "US", []byte{1, 0})
+		b = append(b, dcmRawElem(0x0028, 0x0010, "US", []byte{2, 0})...)
+		b = append(b, dcmRawElem(0x0028, 0x0011, "US", []byte{2, 0})...)
+		b = append(b, dcmRawElem(0x0028, 0x0100, "US", []byte{8, 0})...)
+		return append(b, dcmRawElem(0x7FE0, 0x0010, "OB", []byte{1, 2, 3, 4})...)
+	})},
+	// a 64-byte fragment cannot expand to 1000 frames of 512 × 512 16-bit
+	// pixels: refused before the 500 MB are allocated
+	{"RLE Lossless fragment far too small for the image", "too few", dcmRawCase(tsRLE, func() []byte {
+		b := dcmRawElem(0x0028, 0x0002, "US", []byte{1, 0})
+		b = append(b, dcmRawElem(0x0028, 0x0008, "IS", dcmPad("1000"))...)
+		b = append(b, dcmRawElem(0x0028, 0x0010, "US", []byte{0, 2})...)
+		b = append(b, dcmRawElem(0x0028, 0x0011, "US", []byte{0, 2})...)
+		b = append(b, dcmRawElem(0x0028, 0x0100, "US", []byte{16, 0})...)
+		b = append(b, 0xE0, 0x7F, 0x10, 0x00, 'O', 'B', 0, 0, 0xFF, 0xFF, 0xFF, 0xFF)
+		b = append(b, 0xFE, 0xFF, 0x00, 0xE0, 0, 0, 0, 0) // empty offset table
+		b = append(b, 0xFE, 0xFF, 0x00, 0xE0, 64, 0, 0, 0)
+		b = append(b, 2, 0, 0, 0, 64)
+		b = append(b, make([]byte, 59)...)
+		return append(b, 0xFE, 0xFF, 0xDD, 0xE0, 0, 0, 0, 0)
+	})},
+	{"RLE Lossless segment that ends early", "ends after", dcmRawCase(tsRLE, func() []byte {
+		b := dcmRawElem(0x0020, 0x0032, "DS", dcmPad("0\\0\\0"))
+		b = append(b, dcmRawElem(0x0020, 0x0037, "DS", dcmPad("1\\0\\0\\0\\1\\0"))...)
+		b = append(b, dcmRawElem(0x0028, 0x0002, "US", []byte{1, 0})...)
+		b = append(b, dcmRawElem(0x0028, 0x0010, "US", []byte{2, 0})...)
+		b = append(b, dcmRawElem(0x0028, 0x0011, "US", []byte{2, 0})...)
+		b = append(b, dcmRawElem(0x0028, 0x0030, "DS", dcmPad("1\\1"))...)
+		b = append(b, dcmRawElem(0x0028, 0x0100, "US", []byte{8, 0})...)
+		b = append(b, 0xE0, 0x7F, 0x10, 0x00, 'O', 'B', 0, 0, 0xFF, 0xFF, 0xFF, 0xFF)
+		b = append(b, 0xFE, 0xFF, 0x00, 0xE0, 0, 0, 0, 0) // empty offset table
+		frag := make([]byte, 64)
+		frag[0], frag[4] = 1, 64
+		frag = append(frag, 0x01, 7, 8) // two of the four pixels
+		frag = append(frag, 0x80)       // a no-op run, padding to even length
+		b = append(b, 0xFE, 0xFF, 0x00, 0xE0, byte(len(frag)), 0, 0, 0)
+		b = append(b, frag...)
+		return append(b, 0xFE, 0xFF, 0xDD, 0xE0, 0, 0, 0, 0)
+	})},
 }
 
 // TestDICOMBadInput: each malformed input gives one input error line that

@@ -19,6 +19,9 @@ const (
 	tsExplicitLE = "1.2.840.10008.1.2.1"
 	tsDeflatedLE = "1.2.840.10008.1.2.1.99"
 	tsExplicitBE = "1.2.840.10008.1.2.2"
+	// tsRLE is RLE Lossless (PS3.5 A.4.2, Annex G): an explicit VR little
+	// endian data set with encapsulated pixel data, decoded by decodeRLEFrame.
+	tsRLE = "1.2.840.10008.1.2.5"
 )
 
 // maxDICOMNesting bounds sequence nesting; real files rarely pass 6 levels.
@@ -38,6 +41,8 @@ type dcmLayout struct {
 	deflated       bool
 	hasPixelData   bool  // a top-level PixelData (7FE0,0010) element
 	encapsulated   bool  // PixelData of undefined length (compressed)
+	rle            bool  // the transfer syntax is RLE Lossless
+	fragmentBytes  int64 // total length of the encapsulated items after the offset table
 	pixelLength    int64 // value length of PixelData when defined
 	pixelErr       error // PixelData runs past the end of the file
 	pixelStart     int   // offset of the PixelData element's header in the file
@@ -89,6 +94,8 @@ func walkDICOM(data []byte, size int64) (dcmLayout, bool, error) {
 	case tsImplicitLE:
 		w.implicit, lay.implicit = true, true
 	case tsExplicitLE:
+	case tsRLE:
+		lay.rle = true
 	case tsExplicitBE:
 		w.bo, lay.bigEndian = binary.BigEndian, true
 	case tsDeflatedLE:
@@ -113,7 +120,7 @@ func unsupportedSyntax(ts string) error {
 	if info, err := uid.Lookup(ts); err == nil {
 		name = info.Name
 	}
-	return fmt.Errorf("transfer syntax %s %s is not supported (only uncompressed DICOM is read; "+
+	return fmt.Errorf("transfer syntax %s %s is not supported (only uncompressed and RLE Lossless DICOM are read; "+
 		"convert with a decompressing tool first)", dcmPrintable(ts), name)
 }
 
@@ -371,13 +378,15 @@ func (w *dcmWalker) pixelData(h elemHead, end, depth int) (int, error) {
 	if !h.undefined {
 		return h.value + int(h.vl), nil
 	}
-	return w.rawItems(h.value, end, true)
+	return w.rawItems(h.value, end, depth == 0 && w.lay != nil)
 }
 
 // rawItems walks the items of an encapsulated value (PS3.5 A.4) up to the
 // sequence delimiter.
+// With pixels set it adds the items' lengths after the first (the basic
+// offset table) to the layout's fragmentBytes.
 func (w *dcmWalker) rawItems(pos, end int, pixels bool) (int, error) {
-	for {
+	for item := 0; ; item++ {
 		if end-pos < 8 {
 			return 0, errors.New("encapsulated data ends without its sequence delimiter (FFFE,E0DD)")
 		}
@@ -392,6 +401,9 @@ func (w *dcmWalker) rawItems(pos, end int, pixels bool) (int, error) {
 		}
 		if int64(vl) > int64(end-pos) {
 			return 0, fmt.Errorf("encapsulated item of %d bytes runs past the end of the file", vl)
+		}
+		if pixels && item > 0 {
+			w.lay.fragmentBytes += int64(vl)
 		}
 		pos += int(vl)
 	}

@@ -155,8 +155,11 @@ func (f *dcmFile) fillImage(m elemMap) error {
 	if !f.layout.hasPixelData {
 		return errNoPixelData
 	}
-	if f.layout.encapsulated {
+	if f.layout.encapsulated && !f.layout.rle {
 		return errors.New("pixel data is encapsulated (compressed) although the transfer syntax is not")
+	}
+	if f.layout.rle && !f.layout.encapsulated {
+		return errors.New("the transfer syntax is RLE Lossless but the pixel data is not encapsulated (PS3.5 A.4)")
 	}
 	var err error
 	if f.rows, err = m.need(tag.Rows); err != nil {
@@ -247,6 +250,9 @@ func (f *dcmFile) pixelBytes() int64 {
 // checkPixelLength compares the header's image size with the pixel data
 // actually present, before anything is allocated.
 func (f *dcmFile) checkPixelLength() error {
+	if f.layout.rle {
+		return f.checkRLELength()
+	}
 	if need := f.pixelBytes(); f.layout.pixelLength < need {
 		return fmt.Errorf("pixel data holds %d bytes, Rows %d × Columns %d × %d frame(s) × %d bits need %d",
 			f.layout.pixelLength, f.rows, f.cols, f.frames, f.bitsAllocated, need)

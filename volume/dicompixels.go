@@ -23,6 +23,13 @@ func readPixelBytes(f *dcmFile, data []byte) ([]byte, error) {
 			continue
 		}
 		info, ok := e.Value.GetValue().(dicom.PixelDataInfo)
+		if ok && f.layout.rle && info.IsEncapsulated {
+			frags := make([][]byte, len(info.Frames))
+			for i, fr := range info.Frames {
+				frags[i] = fr.EncapsulatedData.Data
+			}
+			return f.decodeRLEFrames(frags)
+		}
 		if !ok || !info.IntentionallyUnprocessed {
 			return nil, errors.New("pixel data is not native (uncompressed)")
 		}

@@ -59,6 +59,8 @@ var dcmReadable = []struct {
 	{dcmPydicomDir + "/rtdose_1frame.dcm", true},      // uint32, implicit VR
 	{dcmPydicomDir + "/rtdose_expb_1frame.dcm", true}, // uint32, big endian
 	{dcmPydicomDir + "/image_dfl.dcm", false},         // deflated explicit VR LE, uint8
+	{dcmPydicomDir + "/MR_small_RLE.dcm", true},       // RLE Lossless (PS3.5 Annex G), int16
+	{dcmPydicomDir + "/rtdose_rle_1frame.dcm", false}, // RLE Lossless, uint32 (no position: geometry refused)
 	// 1 bit, functional groups; Load refuses these (TestDICOMReferenceErrors):
 	// they keep 3 per-frame functional group items for their 1 frame.
 	{dcmPydicomDir + "/liver_1frame.dcm", false},
@@ -169,7 +171,7 @@ func TestDICOMReferenceErrors(t *testing.T) {
 		{"JPEG2000.dcm", "1.2.840.10008.1.2.4.91 JPEG 2000"},
 		{"MR_small_jp2klossless.dcm", "1.2.840.10008.1.2.4.90 JPEG 2000"},
 		{"MR_small_jpeg_ls_lossless.dcm", "1.2.840.10008.1.2.4.80 JPEG-LS"},
-		{"MR_small_RLE.dcm", "1.2.840.10008.1.2.5 RLE Lossless"},
+		{"SC_rgb_rle_16bit.dcm", "colour"},
 		{"693_J2KI.dcm", "1.2.840.10008.1.2.4.91"},
 		{"SC_rgb_small_odd.dcm", "colour"},
 		{"SC_ybr_full_422_uncompressed.dcm", "colour"},
