@@ -267,17 +267,11 @@ var dcmBadCases = []dcmBadCase{
 	// a 64-byte fragment cannot expand to 1000 frames of 512 × 512 16-bit
 	// pixels: refused before the 500 MB are allocated
 	{"RLE Lossless fragment far too small for the image", "too few", dcmRawCase(tsRLE, func() []byte {
-		b := dcmRawElem(0x0028, 0x0002, "US", []byte{1, 0})
-		b = append(b, dcmRawElem(0x0028, 0x0008, "IS", dcmPad("1000"))...)
-		b = append(b, dcmRawElem(0x0028, 0x0010, "US", []byte{0, 2})...)
-		b = append(b, dcmRawElem(0x0028, 0x0011, "US", []byte{0, 2})...)
-		b = append(b, dcmRawElem(0x0028, 0x0100, "US", []byte{16, 0})...)
-		b = append(b, 0xE0, 0x7F, 0x10, 0x00, 'O', 'B', 0, 0, 0xFF, 0xFF, 0xFF, 0xFF)
-		b = append(b, 0xFE, 0xFF, 0x00, 0xE0, 0, 0, 0, 0) // empty offset table
-		b = append(b, 0xFE, 0xFF, 0x00, 0xE0, 64, 0, 0, 0)
-		b = append(b, 2, 0, 0, 0, 64)
-		b = append(b, make([]byte, 59)...)
-		return append(b, 0xFE, 0xFF, 0xDD, 0xE0, 0, 0, 0, 0)
+		return dcmHugeEncapsulated(append([]byte{2, 0, 0, 0, 64}, make([]byte, 59)...))
+	})},
+	// 1000 frames of 512 lines need at least 512000 bits of JPEG-LS code
+	{"JPEG-LS fragment far too small for the image", "too few", dcmRawCase(tsJPEGLS, func() []byte {
+		return dcmHugeEncapsulated(append([]byte{0xFF, 0xD8}, make([]byte, 62)...))
 	})},
 	{"RLE Lossless segment that ends early", "ends after", dcmRawCase(tsRLE, func() []byte {
 		b := dcmRawElem(0x0020, 0x0032, "DS", dcmPad("0\\0\\0"))
@@ -297,6 +291,21 @@ var dcmBadCases = []dcmBadCase{
 		b = append(b, frag...)
 		return append(b, 0xFE, 0xFF, 0xDD, 0xE0, 0, 0, 0, 0)
 	})},
+}
+
+// dcmHugeEncapsulated is the body of a file that claims 1000 frames of
+// 512 × 512 16-bit pixels (500 MB) and holds one 64-byte fragment.
+func dcmHugeEncapsulated(frag []byte) []byte {
+	b := dcmRawElem(0x0028, 0x0002, "US", []byte{1, 0})
+	b = append(b, dcmRawElem(0x0028, 0x0008, "IS", dcmPad("1000"))...)
+	b = append(b, dcmRawElem(0x0028, 0x0010, "US", []byte{0, 2})...)
+	b = append(b, dcmRawElem(0x0028, 0x0011, "US", []byte{0, 2})...)
+	b = append(b, dcmRawElem(0x0028, 0x0100, "US", []byte{16, 0})...)
+	b = append(b, 0xE0, 0x7F, 0x10, 0x00, 'O', 'B', 0, 0, 0xFF, 0xFF, 0xFF, 0xFF)
+	b = append(b, 0xFE, 0xFF, 0x00, 0xE0, 0, 0, 0, 0) // empty offset table
+	b = append(b, 0xFE, 0xFF, 0x00, 0xE0, byte(len(frag)), 0, 0, 0)
+	b = append(b, frag...)
+	return append(b, 0xFE, 0xFF, 0xDD, 0xE0, 0, 0, 0, 0)
 }
 
 // TestDICOMBadInput: each malformed input gives one input error line that

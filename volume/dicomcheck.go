@@ -22,6 +22,15 @@ const (
 	// tsRLE is RLE Lossless (PS3.5 A.4.2, Annex G): an explicit VR little
 	// endian data set with encapsulated pixel data, decoded by decodeRLEFrame.
 	tsRLE = "1.2.840.10008.1.2.5"
+	// tsJPEGLS is JPEG-LS Lossless (PS3.5 A.4.3): explicit VR little endian
+	// with encapsulated ITU-T T.87 frames, decoded by decodeJPEGLS.
+	tsJPEGLS = "1.2.840.10008.1.2.4.80"
+)
+
+// Codecs of encapsulated pixel data that are decoded.
+const (
+	codecRLE    = "RLE Lossless"
+	codecJPEGLS = "JPEG-LS Lossless"
 )
 
 // maxDICOMNesting bounds sequence nesting; real files rarely pass 6 levels.
@@ -39,13 +48,13 @@ type dcmLayout struct {
 	bigEndian      bool
 	implicit       bool
 	deflated       bool
-	hasPixelData   bool  // a top-level PixelData (7FE0,0010) element
-	encapsulated   bool  // PixelData of undefined length (compressed)
-	rle            bool  // the transfer syntax is RLE Lossless
-	fragmentBytes  int64 // total length of the encapsulated items after the offset table
-	pixelLength    int64 // value length of PixelData when defined
-	pixelErr       error // PixelData runs past the end of the file
-	pixelStart     int   // offset of the PixelData element's header in the file
+	hasPixelData   bool   // a top-level PixelData (7FE0,0010) element
+	encapsulated   bool   // PixelData of undefined length (compressed)
+	codec          string // codecRLE or codecJPEGLS for those syntaxes; "" for native ones
+	fragmentBytes  int64  // total length of the encapsulated items after the offset table
+	pixelLength    int64  // value length of PixelData when defined
+	pixelErr       error  // PixelData runs past the end of the file
+	pixelStart     int    // offset of the PixelData element's header in the file
 }
 
 // checkDICOMStructure walks every element of a DICOM file the way
@@ -95,7 +104,9 @@ func walkDICOM(data []byte, size int64) (dcmLayout, bool, error) {
 		w.implicit, lay.implicit = true, true
 	case tsExplicitLE:
 	case tsRLE:
-		lay.rle = true
+		lay.codec = codecRLE
+	case tsJPEGLS:
+		lay.codec = codecJPEGLS
 	case tsExplicitBE:
 		w.bo, lay.bigEndian = binary.BigEndian, true
 	case tsDeflatedLE:
@@ -120,7 +131,7 @@ func unsupportedSyntax(ts string) error {
 	if info, err := uid.Lookup(ts); err == nil {
 		name = info.Name
 	}
-	return fmt.Errorf("transfer syntax %s %s is not supported (only uncompressed and RLE Lossless DICOM are read; "+
+	return fmt.Errorf("transfer syntax %s %s is not supported (only uncompressed, RLE Lossless and JPEG-LS Lossless DICOM are read; "+
 		"convert with a decompressing tool first)", dcmPrintable(ts), name)
 }
 

@@ -24,8 +24,8 @@ func FuzzDICOMSeries(f *testing.F) {
 	f.Add(dcmRawFile(tsImplicitLE, nil))
 	f.Add(dcmRawFile(tsExplicitBE, dcmRawElem(0x0008, 0x1115, "SQ", nil)))
 	// Small seeds from Debian's python3-pydicom test files, when installed:
-	// big endian, deflated, multi-frame with grid offsets, RLE Lossless.
-	for _, name := range []string{"MR_small_bigendian.dcm", "image_dfl.dcm", "rtdose.dcm", "MR_small_RLE.dcm"} {
+	// big endian, deflated, multi-frame with grid offsets, RLE Lossless, JPEG-LS.
+	for _, name := range []string{"MR_small_bigendian.dcm", "image_dfl.dcm", "rtdose.dcm", "MR_small_RLE.dcm", "MR_small_jpeg_ls_lossless.dcm"} {
 		if b, err := os.ReadFile(filepath.Join(dcmPydicomDir, name)); err == nil {
 			f.Add(b)
 		}

@@ -155,11 +155,11 @@ func (f *dcmFile) fillImage(m elemMap) error {
 	if !f.layout.hasPixelData {
 		return errNoPixelData
 	}
-	if f.layout.encapsulated && !f.layout.rle {
+	if f.layout.encapsulated && f.layout.codec == "" {
 		return errors.New("pixel data is encapsulated (compressed) although the transfer syntax is not")
 	}
-	if f.layout.rle && !f.layout.encapsulated {
-		return errors.New("the transfer syntax is RLE Lossless but the pixel data is not encapsulated (PS3.5 A.4)")
+	if f.layout.codec != "" && !f.layout.encapsulated {
+		return fmt.Errorf("the transfer syntax is %s but the pixel data is not encapsulated (PS3.5 A.4)", f.layout.codec)
 	}
 	var err error
 	if f.rows, err = m.need(tag.Rows); err != nil {
@@ -250,8 +250,11 @@ func (f *dcmFile) pixelBytes() int64 {
 // checkPixelLength compares the header's image size with the pixel data
 // actually present, before anything is allocated.
 func (f *dcmFile) checkPixelLength() error {
-	if f.layout.rle {
+	switch f.layout.codec {
+	case codecRLE:
 		return f.checkRLELength()
+	case codecJPEGLS:
+		return f.checkJPEGLSLength()
 	}
 	if need := f.pixelBytes(); f.layout.pixelLength < need {
 		return fmt.Errorf("pixel data holds %d bytes, Rows %d × Columns %d × %d frame(s) × %d bits need %d",

@@ -23,12 +23,15 @@ func readPixelBytes(f *dcmFile, data []byte) ([]byte, error) {
 			continue
 		}
 		info, ok := e.Value.GetValue().(dicom.PixelDataInfo)
-		if ok && f.layout.rle && info.IsEncapsulated {
+		if ok && f.layout.codec != "" && info.IsEncapsulated {
 			frags := make([][]byte, len(info.Frames))
 			for i, fr := range info.Frames {
 				frags[i] = fr.EncapsulatedData.Data
 			}
-			return f.decodeRLEFrames(frags)
+			if f.layout.codec == codecRLE {
+				return f.decodeRLEFrames(frags)
+			}
+			return f.decodeJPEGLSFrames(frags)
 		}
 		if !ok || !info.IntentionallyUnprocessed {
 			return nil, errors.New("pixel data is not native (uncompressed)")

@@ -36,12 +36,20 @@ func (f *dcmFile) decodeRLEFrames(frags [][]byte) ([]byte, error) {
 	if len(frags) != f.frames {
 		return nil, fmt.Errorf("RLE Lossless pixel data holds %d fragment(s) for %d frame(s) (PS3.5 A.4.2: one fragment per frame)", len(frags), f.frames)
 	}
+	return f.decodeFrames(frags, codecRLE, func(frag []byte, bpp int, dst []byte) error {
+		return decodeRLEFrame(frag, f.rows*f.cols, bpp, dst)
+	})
+}
+
+// decodeFrames decodes frame k from frags[k] with decode into its place in
+// one buffer of the native little-endian layout.
+func (f *dcmFile) decodeFrames(frags [][]byte, codec string, decode func(frag []byte, bpp int, dst []byte) error) ([]byte, error) {
 	bpp := f.bitsAllocated / 8
 	per := f.rows * f.cols * bpp
 	out := make([]byte, per*f.frames)
 	for k, frag := range frags {
-		if err := decodeRLEFrame(frag, f.rows*f.cols, bpp, out[k*per:(k+1)*per]); err != nil {
-			return nil, fmt.Errorf("RLE Lossless frame %d: %w", k+1, err)
+		if err := decode(frag, bpp, out[k*per:(k+1)*per]); err != nil {
+			return nil, fmt.Errorf("%s frame %d: %w", codec, k+1, err)
 		}
 	}
 	return out, nil

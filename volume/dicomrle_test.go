@@ -79,16 +79,18 @@ func TestRLEMalformed(t *testing.T) {
 	}
 }
 
-// RLE Lossless files of Debian's python3-pydicom test data decode, every
-// frame, to the same pixels as their uncompressed twins there (pydicom
+// RLE Lossless and JPEG-LS Lossless files of Debian's python3-pydicom test
+// data decode, every frame, to the same pixels as their uncompressed twins
+// there (pydicom
 // itself finds MR_small_RLE = MR_small and rtdose_rle = rtdose pixel for
 // pixel; TestDICOMPixelsMatchPydicom compares the first frames with
 // pydicom's own RLE decoder): 16-bit signed, 1 frame; 32-bit, 15 frames.
-func TestRLEMatchesUncompressedTwin(t *testing.T) {
+func TestCompressedMatchesUncompressedTwin(t *testing.T) {
 	for _, tc := range []struct{ rle, native string }{
 		{"MR_small_RLE.dcm", "MR_small.dcm"},
 		{"rtdose_rle.dcm", "rtdose.dcm"},
 		{"rtdose_rle_1frame.dcm", "rtdose_1frame.dcm"},
+		{"MR_small_jpeg_ls_lossless.dcm", "MR_small.dcm"}, // JPEG-LS Lossless (T.87), 16-bit signed
 	} {
 		a := dcmAllFrames(t, refcheck.Path(t, dcmPydicomDir+"/"+tc.rle))
 		b := dcmAllFrames(t, refcheck.Path(t, dcmPydicomDir+"/"+tc.native))
