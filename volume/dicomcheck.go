@@ -25,12 +25,18 @@ const (
 	// tsJPEGLS is JPEG-LS Lossless (PS3.5 A.4.3): explicit VR little endian
 	// with encapsulated ITU-T T.87 frames, decoded by decodeJPEGLS.
 	tsJPEGLS = "1.2.840.10008.1.2.4.80"
+	// tsJPEGLossless and tsJPEGLosslessSV1 are JPEG Lossless, Process 14,
+	// any predictor or first-order prediction (PS3.5 A.4.1): ITU-T T.81
+	// Annex H frames, decoded by decodeLosslessJPEG.
+	tsJPEGLossless    = "1.2.840.10008.1.2.4.57"
+	tsJPEGLosslessSV1 = "1.2.840.10008.1.2.4.70"
 )
 
 // Codecs of encapsulated pixel data that are decoded.
 const (
-	codecRLE    = "RLE Lossless"
-	codecJPEGLS = "JPEG-LS Lossless"
+	codecRLE          = "RLE Lossless"
+	codecJPEGLS       = "JPEG-LS Lossless"
+	codecJPEGLossless = "JPEG Lossless"
 )
 
 // maxDICOMNesting bounds sequence nesting; real files rarely pass 6 levels.
@@ -107,6 +113,8 @@ func walkDICOM(data []byte, size int64) (dcmLayout, bool, error) {
 		lay.codec = codecRLE
 	case tsJPEGLS:
 		lay.codec = codecJPEGLS
+	case tsJPEGLossless, tsJPEGLosslessSV1:
+		lay.codec = codecJPEGLossless
 	case tsExplicitBE:
 		w.bo, lay.bigEndian = binary.BigEndian, true
 	case tsDeflatedLE:
@@ -131,7 +139,7 @@ func unsupportedSyntax(ts string) error {
 	if info, err := uid.Lookup(ts); err == nil {
 		name = info.Name
 	}
-	return fmt.Errorf("transfer syntax %s %s is not supported (only uncompressed, RLE Lossless and JPEG-LS Lossless DICOM are read; "+
+	return fmt.Errorf("transfer syntax %s %s is not supported (only uncompressed, RLE Lossless, JPEG Lossless and JPEG-LS Lossless DICOM are read; "+
 		"convert with a decompressing tool first)", dcmPrintable(ts), name)
 }
 

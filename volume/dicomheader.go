@@ -255,6 +255,8 @@ func (f *dcmFile) checkPixelLength() error {
 		return f.checkRLELength()
 	case codecJPEGLS:
 		return f.checkJPEGLSLength()
+	case codecJPEGLossless:
+		return f.checkLosslessJPEGLength()
 	}
 	if need := f.pixelBytes(); f.layout.pixelLength < need {
 		return fmt.Errorf("pixel data holds %d bytes, Rows %d × Columns %d × %d frame(s) × %d bits need %d",

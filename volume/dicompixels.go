@@ -28,10 +28,13 @@ func readPixelBytes(f *dcmFile, data []byte) ([]byte, error) {
 			for i, fr := range info.Frames {
 				frags[i] = fr.EncapsulatedData.Data
 			}
-			if f.layout.codec == codecRLE {
+			switch f.layout.codec {
+			case codecRLE:
 				return f.decodeRLEFrames(frags)
+			case codecJPEGLS:
+				return f.decodeJPEGFrames(frags, codecJPEGLS, decodeJPEGLS)
 			}
-			return f.decodeJPEGLSFrames(frags)
+			return f.decodeJPEGFrames(frags, codecJPEGLossless, decodeLosslessJPEG)
 		}
 		if !ok || !info.IntentionallyUnprocessed {
 			return nil, errors.New("pixel data is not native (uncompressed)")

@@ -228,17 +228,24 @@ func (r *jlsBits) bit() (int, error) {
 }
 
 func (r *jlsBits) bits(k int) (int, error) {
+	return takeBits(&r.acc, &r.n, k, r.fill, errJLSShort)
+}
+
+// takeBits takes the next k bits (k ≤ 32) of a bit accumulator holding n
+// bits, refilling it with fill when short; short is the error when the
+// data ends first.
+func takeBits(acc *uint64, n *uint, k int, fill func(), short error) (int, error) {
 	if k == 0 {
 		return 0, nil
 	}
-	if uint(k) > r.n {
-		r.fill()
-		if uint(k) > r.n {
-			return 0, errJLSShort
+	if uint(k) > *n {
+		fill()
+		if uint(k) > *n {
+			return 0, short
 		}
 	}
-	r.n -= uint(k)
-	return int(r.acc>>r.n) & (1<<k - 1), nil
+	*n -= uint(k)
+	return int(*acc>>*n) & (1<<k - 1), nil
 }
 
 // golomb decodes a limited-length Golomb code (T.87 A.5.3).
@@ -554,24 +561,4 @@ func (f *dcmFile) checkJPEGLSLength() error {
 			f.layout.fragmentBytes, lines, f.rows, f.frames)
 	}
 	return nil
-}
-
-// decodeJPEGLSFrames decodes the frames into the native little-endian
-// layout. A single frame may be split over several fragments (PS3.5
-// A.4); with several frames each must be one fragment, since the offset
-// table that would map fragments to frames is not kept.
-func (f *dcmFile) decodeJPEGLSFrames(frags [][]byte) ([]byte, error) {
-	if f.frames == 1 && len(frags) > 1 {
-		var all []byte
-		for _, fr := range frags {
-			all = append(all, fr...)
-		}
-		frags = [][]byte{all}
-	}
-	if len(frags) != f.frames {
-		return nil, fmt.Errorf("JPEG-LS pixel data holds %d fragment(s) for %d frame(s)", len(frags), f.frames)
-	}
-	return f.decodeFrames(frags, codecJPEGLS, func(frag []byte, bpp int, dst []byte) error {
-		return decodeJPEGLS(frag, f.rows, f.cols, bpp, dst)
-	})
 }
