@@ -41,7 +41,12 @@ type ljHuffman struct {
 	valptr  [17]int
 	mincode [17]int
 	values  []byte
+	// lut decodes codes of up to ljLUTBits bits in one step: indexed by the
+	// next ljLUTBits bits, it holds length<<8 | value, or 0 for longer codes.
+	lut [1 << ljLUTBits]uint16
 }
+
+const ljLUTBits = 9
 
 func newLJHuffman(counts [16]int, values []byte) (*ljHuffman, error) {
 	h := &ljHuffman{values: values}
@@ -65,6 +70,15 @@ func newLJHuffman(counts [16]int, values []byte) (*ljHuffman, error) {
 	h.maxcode[17] = 1 << 30
 	if k != len(values) {
 		return nil, errors.New("Huffman table counts do not match its values")
+	}
+	for l := 1; l <= ljLUTBits; l++ {
+		for c := h.mincode[l]; c <= h.maxcode[l]; c++ {
+			v := uint16(l)<<8 | uint16(values[h.valptr[l]+c-h.mincode[l]])
+			lo := c << (ljLUTBits - l)
+			for j := 0; j < 1<<(ljLUTBits-l); j++ {
+				h.lut[lo+j] = v
+			}
+		}
 	}
 	return h, nil
 }
@@ -276,6 +290,15 @@ func (r *ljBits) restart() error {
 
 // decodeSymbol decodes one Huffman symbol (T.81 F.2.2.3, DECODE).
 func (r *ljBits) decodeSymbol(h *ljHuffman) (int, error) {
+	if r.n < ljLUTBits {
+		r.fill()
+	}
+	if r.n >= ljLUTBits {
+		if e := h.lut[(r.acc>>(r.n-ljLUTBits))&(1<<ljLUTBits-1)]; e != 0 {
+			r.n -= uint(e >> 8)
+			return int(e & 0xFF), nil
+		}
+	}
 	code := 0
 	for l := 1; l <= 16; l++ {
 		b, err := r.bits(1)

@@ -231,3 +231,17 @@ func FuzzLosslessJPEG(f *testing.F) {
 		_ = decodeLosslessJPEG(data, 16, 16, 2, make([]byte, 16*16*2))
 	})
 }
+
+// BenchmarkLosslessJPEG256 decodes one 256 × 256 12-bit slice (the test
+// image of the round trips), for the per-slice cost of a compressed series.
+func BenchmarkLosslessJPEG256(b *testing.B) {
+	img := jlsImage(rand.New(rand.NewPCG(67, 68)), 256, 256, 12)
+	code := ljEncode(img, 256, 256, 12, 1, 0)
+	dst := make([]byte, 256*256*2)
+	b.SetBytes(int64(len(dst)))
+	for i := 0; i < b.N; i++ {
+		if err := decodeLosslessJPEG(code, 256, 256, 2, dst); err != nil {
+			b.Fatal(err)
+		}
+	}
+}

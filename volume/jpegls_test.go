@@ -338,3 +338,16 @@ func FuzzJPEGLS(f *testing.F) {
 		_ = decodeJPEGLS(data, 16, 16, 2, make([]byte, 16*16*2))
 	})
 }
+
+// BenchmarkJPEGLS256 decodes one 256 × 256 12-bit slice.
+func BenchmarkJPEGLS256(b *testing.B) {
+	img := jlsImage(rand.New(rand.NewPCG(69, 70)), 256, 256, 12)
+	code := jlsEncode(img, 256, 256, 12, false)
+	dst := make([]byte, 256*256*2)
+	b.SetBytes(int64(len(dst)))
+	for i := 0; i < b.N; i++ {
+		if err := decodeJPEGLS(code, 256, 256, 2, dst); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
