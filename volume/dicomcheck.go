@@ -133,6 +133,17 @@ func walkDICOM(data []byte, size int64) (dcmLayout, bool, error) {
 	return lay, w.atEnd, nil
 }
 
+// syntaxName is a transfer syntax UID with its name from PS3.6 Annex A.
+func syntaxName(ts string) string {
+	if ts == "" {
+		return ""
+	}
+	if info, err := uid.Lookup(ts); err == nil {
+		return dcmPrintable(ts) + " " + info.Name
+	}
+	return dcmPrintable(ts)
+}
+
 // unsupportedSyntax names a transfer syntax whose pixels are not decoded.
 func unsupportedSyntax(ts string) error {
 	name := "unknown transfer syntax"

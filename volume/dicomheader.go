@@ -146,6 +146,7 @@ func (f *dcmFile) fillMeta(m elemMap) {
 		WindowCenter:      m.float(tag.WindowCenter),
 		WindowWidth:       m.float(tag.WindowWidth),
 		SeriesUID:         m.str(tag.SeriesInstanceUID),
+		TransferSyntax:    syntaxName(f.layout.transferSyntax),
 	}
 	f.echoTimeMs = f.meta.EchoTimeMs
 }

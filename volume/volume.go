@@ -40,6 +40,9 @@ type Metadata struct {
 	WindowCenter      float64 `json:"window_center,omitempty"` // the scan's own window (DICOM), 0 when none
 	WindowWidth       float64 `json:"window_width,omitempty"`
 	SeriesUID         string  `json:"series_uid,omitempty"`
+	// TransferSyntax names a DICOM file's transfer syntax (PS3.5 A), e.g.
+	// "1.2.840.10008.1.2.4.80 JPEG-LS Lossless Image Compression".
+	TransferSyntax string `json:"transfer_syntax,omitempty"`
 }
 
 // Identifiers are the patient-identifying fields of a scan. They print as

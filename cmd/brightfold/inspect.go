@@ -311,7 +311,7 @@ func writeMetadataText(line func(string, string, ...any), m *volume.Metadata) {
 	}
 	for _, f := range []struct{ label, value string }{
 		{"modality", m.Modality}, {"series", m.SeriesDescription}, {"manufacturer", m.Manufacturer},
-		{"site", m.Site}, {"description", m.Description},
+		{"site", m.Site}, {"description", m.Description}, {"syntax", m.TransferSyntax},
 	} {
 		if f.value != "" {
 			line(f.label, "%s", f.value)
