@@ -347,9 +347,9 @@ func fitThresholds(c *Card, sc []scored, w1Pool []float64, opt FitOptions, desc,
 				if name == "wasserstein" {
 					on, n = w1Desc, len(w1Pool)
 				}
-				t.FittedOn = fmt.Sprintf("quantile %.4f of the scores of %d cases (%s), the per-score quantile chosen so that %d of %d (%.1f%%) of %s pass every required score together, "+
+				t.FittedOn = fmt.Sprintf("quantile %.4f of the scores of %d cases (%s), the per-score quantile chosen so that %d of the %s (%.1f%%) pass every required score together, "+
 					"a one-sided %.0f%% Clopper-Pearson lower bound of %.1f%% on the pass rate of unseen in-distribution scans (target %.0f%%)",
-					q, n, on, pass, len(sc), 100*float64(pass)/float64(len(sc)), desc, 100*opt.Confidence, 100*lb, 100*opt.Retention)
+					q, n, on, pass, desc, 100*float64(pass)/float64(len(sc)), 100*opt.Confidence, 100*lb, 100*opt.Retention)
 				th[name] = t
 			}
 			break
