@@ -38,8 +38,8 @@ func decodeJPEGLS(data []byte, rows, cols, bpp int, dst []byte) error {
 	if p.width != cols || p.height != rows {
 		return fmt.Errorf("JPEG-LS frame is %d × %d, the DICOM header says Columns %d × Rows %d", p.width, p.height, cols, rows)
 	}
-	if p.bits > 8*bpp {
-		return fmt.Errorf("JPEG-LS samples of %d bits do not fit BitsAllocated %d", p.bits, 8*bpp)
+	if p.bits > 8*bpp || p.maxval >= 1<<(8*bpp) {
+		return fmt.Errorf("JPEG-LS samples of %d bits (MAXVAL %d) do not fit BitsAllocated %d", p.bits, p.maxval, 8*bpp)
 	}
 	d := &jlsDecoder{p: p, r: jlsBits{b: data, pos: scan}}
 	d.init()
