@@ -122,19 +122,11 @@ func ljHeaders(b []byte) (*ljFrame, int, error) {
 	fr := &ljFrame{}
 	pos, sof := 2, false
 	for {
-		for pos+1 < len(b) && b[pos] == 0xFF && b[pos+1] == 0xFF {
-			pos++
+		m, seg, next, err := jpegSegment(b, pos, "lossless JPEG")
+		if err != nil {
+			return nil, 0, err
 		}
-		if pos+4 > len(b) || b[pos] != 0xFF {
-			return nil, 0, errors.New("lossless JPEG data ends or breaks before its start of scan")
-		}
-		m := b[pos+1]
-		n := int(binary.BigEndian.Uint16(b[pos+2:]))
-		if n < 2 || pos+2+n > len(b) {
-			return nil, 0, fmt.Errorf("lossless JPEG marker FF%02X has a length of %d bytes that does not fit", m, n)
-		}
-		seg := b[pos+4 : pos+2+n]
-		pos += 2 + n
+		pos = next
 		switch {
 		case m == 0xC3:
 			if err := fr.readSOF(seg); err != nil {

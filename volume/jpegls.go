@@ -57,19 +57,11 @@ func jlsHeaders(b []byte) (jlsParams, int, error) {
 	}
 	pos, sof := 2, false
 	for {
-		for pos < len(b) && b[pos] == 0xFF && pos+1 < len(b) && b[pos+1] == 0xFF {
-			pos++ // fill bytes
+		m, seg, next, err := jpegSegment(b, pos, "JPEG-LS")
+		if err != nil {
+			return p, 0, err
 		}
-		if pos+4 > len(b) || b[pos] != 0xFF {
-			return p, 0, errors.New("JPEG-LS data ends or breaks before its start of scan")
-		}
-		m := b[pos+1]
-		n := int(binary.BigEndian.Uint16(b[pos+2:]))
-		if n < 2 || pos+2+n > len(b) {
-			return p, 0, fmt.Errorf("JPEG-LS marker FF%02X has a length of %d bytes that does not fit", m, n)
-		}
-		seg := b[pos+4 : pos+2+n]
-		pos += 2 + n
+		pos = next
 		switch m {
 		case 0xF7: // SOF55: start of frame, JPEG-LS
 			if len(seg) < 6 || seg[5] != 1 || len(seg) < 9 {
@@ -118,6 +110,24 @@ func jlsHeaders(b []byte) (jlsParams, int, error) {
 			// APPn, COM and other segments carry nothing for decoding
 		}
 	}
+}
+
+// jpegSegment reads the marker segment at pos (after any 0xFF fill bytes)
+// of a JPEG-family stream (T.81 B.1.1.4, T.87 C.1): its marker, its payload
+// and the offset after it. what names the format in errors.
+func jpegSegment(b []byte, pos int, what string) (byte, []byte, int, error) {
+	for pos+1 < len(b) && b[pos] == 0xFF && b[pos+1] == 0xFF {
+		pos++
+	}
+	if pos+4 > len(b) || b[pos] != 0xFF {
+		return 0, nil, 0, fmt.Errorf("%s data ends or breaks before its start of scan", what)
+	}
+	m := b[pos+1]
+	n := int(binary.BigEndian.Uint16(b[pos+2:]))
+	if n < 2 || pos+2+n > len(b) {
+		return 0, nil, 0, fmt.Errorf("%s marker FF%02X has a length of %d bytes that does not fit", what, m, n)
+	}
+	return m, b[pos+4 : pos+2+n], pos + 2 + n, nil
 }
 
 // complete fills the defaults of T.87 C.2.4.1.1 for NEAR = 0 and the derived
