@@ -104,7 +104,8 @@ type OverlayStyle struct {
 	// Threshold: values with |v| at or below it are not drawn.
 	Threshold Threshold
 	// Signed draws negative and positive values with a diverging map
-	// (neutral at zero); otherwise only positive values are drawn, with a
+	// (neutral at zero), its opacity growing with |value| so that values
+	// near zero fade out; otherwise only positive values are drawn, with a
 	// sequential map, and negative ones are hidden.
 	Signed bool
 	// Range is the |value| at the colour map's ends (values beyond saturate);
@@ -148,6 +149,21 @@ func (st OverlayStyle) resolve(o *OverlayMap) (overlayPaint, error) {
 	p.last = float64(cm.Len() - 1)
 	p.mid = (cm.Len() - 1) / 2
 	return p, nil
+}
+
+// alphaFor is the opacity (0..256) of colour-table entry i: the style's
+// opacity for a sequential map; for a diverging map it grows linearly with
+// the distance from the neutral centre, so values near zero fade out
+// instead of laying a pale veil over the scan.
+func (p *overlayPaint) alphaFor(i int) int {
+	if !p.signed || p.mid == 0 {
+		return p.alpha
+	}
+	k := i - p.mid
+	if k < 0 {
+		k = -k
+	}
+	return p.alpha * k / p.mid
 }
 
 // entry returns the colour-table index for value v and whether v is drawn.

@@ -75,12 +75,16 @@ func TestOverlayThresholdSigned(t *testing.T) {
 		shown := math.Abs(float64(v)) > 1 // |v| above the threshold, either sign
 		want := color.RGBA{R: grey, G: grey, B: grey, A: 255}
 		if shown {
-			// Range 0 means the map's max |value| (3); mirrored entries for ±v.
+			// Range 0 means the map's max |value| (3); mirrored entries for ±v,
+			// opacity growing with the distance k from the neutral centre.
 			k := int(math.Min(1, math.Abs(float64(v))/3)*float64(mid) + 0.5)
+			a := 256 * k / mid
 			if v < 0 {
 				k = -k
 			}
-			want = cm.Entry(mid + k)
+			c := cm.Entry(mid + k)
+			mix := func(ch uint8) uint8 { return uint8((int(grey)*(256-a) + int(ch)*a) >> 8) }
+			want = color.RGBA{R: mix(c.R), G: mix(c.G), B: mix(c.B), A: 255}
 		}
 		if got != want {
 			t.Errorf("value %v: pixel %v, want %v (shown %v)", v, got, want, shown)
@@ -226,7 +230,7 @@ func TestBlendRowMatchesEntry(t *testing.T) {
 			want := [3]uint8{100, 100, 100}
 			if i, ok := p.entry(v); ok {
 				c := p.cm.Entry(i)
-				a := p.alpha
+				a := p.alphaFor(i)
 				want = [3]uint8{uint8((100*(256-a) + int(c.R)*a) >> 8), uint8((100*(256-a) + int(c.G)*a) >> 8), uint8((100*(256-a) + int(c.B)*a) >> 8)}
 			}
 			if got := [3]uint8{px[4*x], px[4*x+1], px[4*x+2]}; got != want {

@@ -79,9 +79,9 @@ func blendRow(px []uint8, ov []float32, p *overlayPaint) {
 		return
 	}
 	table := p.cm.table
-	b := 256 - a
-	put := func(x, i int) {
+	put := func(x, i, a int) {
 		c := table[i]
+		b := 256 - a
 		q := px[4*x : 4*x+3 : 4*x+3]
 		q[0] = uint8((int(q[0])*b + int(c.R)*a) >> 8)
 		q[1] = uint8((int(q[1])*b + int(c.G)*a) >> 8)
@@ -104,10 +104,11 @@ func blendRow(px []uint8, ov []float32, p *overlayPaint) {
 			if m < p.rng {
 				k = int(m*scale + 0.5)
 			}
+			ka := a * k / mid // fade towards the neutral centre
 			if f < 0 {
 				k = -k
 			}
-			put(x, mid+k)
+			put(x, mid+k, ka)
 		}
 		return
 	}
@@ -122,7 +123,7 @@ func blendRow(px []uint8, ov []float32, p *overlayPaint) {
 		if f < p.rng {
 			i = int(f*scale + 0.5)
 		}
-		put(x, i)
+		put(x, i, a)
 	}
 }
 
