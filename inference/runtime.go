@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"runtime"
+	"strings"
 	"sync"
 
 	ort "github.com/yalue/onnxruntime_go"
@@ -36,8 +37,10 @@ func InitRuntime(libPath string) error {
 	}
 	ort.SetSharedLibraryPath(libPath)
 	if err := ort.InitializeEnvironment(ort.WithLogLevelError()); err != nil {
-		return inputerr.New(libPath, "cannot use this ONNX Runtime library (Brightfold needs %s of ONNX Runtime 1.30.0, C API 24): %v; %s",
-			ortlib.FileName, err, ortlib.InstallHint)
+		// the loader's message may end in an empty dlerror ("...: ")
+		why := strings.TrimRight(strings.TrimSpace(err.Error()), ":")
+		return inputerr.New(libPath, "cannot use this ONNX Runtime library (Brightfold needs %s of ONNX Runtime 1.30.0, C API 24): %s; %s",
+			ortlib.FileName, why, ortlib.InstallHint)
 	}
 	ortEnv.lib = libPath
 	return nil
