@@ -218,7 +218,7 @@ func (p *evidencePanel) selectedMethod() (overlay.Method, bool) {
 
 // showRelevance describes a computed map and its own check.
 func (p *evidencePanel) showRelevance(m *overlay.Map, om *viewer.OverlayMap) {
-	text := fmt.Sprintf("%s map of the %s logit, %s.", m.Method.Title(), className(m.Class), plural(m.Passes, "model pass", "model passes"))
+	text := fmt.Sprintf("%s map of the %s logit, %s.", m.Method.Title(), className(m.Class), inference.Plural(m.Passes, "model pass", "model passes"))
 	// The method's own check (LRP conservation, integrated-gradients
 	// completeness), as the score JSON reports it.
 	for _, k := range sortedKeys(m.Checks) {

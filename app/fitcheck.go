@@ -2,7 +2,6 @@ package app
 
 import (
 	"image/color"
-	"strconv"
 	"strings"
 
 	"fyne.io/fyne/v2"
@@ -10,6 +9,8 @@ import (
 	"fyne.io/fyne/v2/container"
 	"fyne.io/fyne/v2/theme"
 	"fyne.io/fyne/v2/widget"
+
+	"brightfold/inference"
 )
 
 // fitPanel is the "Fit check" panel: whether the scan is the kind of scan
@@ -91,7 +92,7 @@ func (p *fitPanel) showChecks(ood bool, rows []checkRow) {
 				failed++
 			}
 		}
-		p.setBlock(colOOD, verdictOOD, plural(failed, "check fails", "checks fail")+
+		p.setBlock(colOOD, verdictOOD, inference.Plural(failed, "check fails", "checks fail")+
 			": this scan is unlike the scans the model was trained on. Do not rely on its probability.")
 	} else {
 		p.setBlock(colInDist, verdictIn, "Every check passes: the scan resembles the model's training scans. This does not make the probability a diagnosis.")
@@ -143,12 +144,4 @@ func checkDetail(r checkRow) string {
 		d += " · advisory"
 	}
 	return d
-}
-
-// plural formats "1 check fails" / "3 checks fail".
-func plural(n int, one, many string) string {
-	if n == 1 {
-		return "1 " + one
-	}
-	return strconv.Itoa(n) + " " + many
 }

@@ -264,7 +264,7 @@ func headerChecks(e Envelope, f CaseFacts) []fitcheck.Check {
 	if sc.Pass {
 		sc.Explanation = fmt.Sprintf("The scan is a 3D volume (at least %d voxels along every axis).", minDim)
 	} else {
-		sc.Explanation = fmt.Sprintf("The scan has only %s along one axis; the model needs a 3D volume with at least %d.", plural(minDim, "slice"), e.MinSlices)
+		sc.Explanation = fmt.Sprintf("The scan has only %s along one axis; the model needs a 3D volume with at least %d.", Plural(minDim, "slice", "slices"), e.MinSlices)
 	}
 	out = append(out, sc)
 	ac := fitcheck.Check{Name: CheckAnisotropy, Value: f.Anisotropy, Threshold: "≤ " + FormatValue(e.MaxAnisotropy), Pass: f.Anisotropy <= e.MaxAnisotropy, Required: true}
@@ -412,10 +412,11 @@ func CheckTitle(name string) string {
 	return name
 }
 
-// plural is "1 slice", "2 slices".
-func plural(n int, noun string) string {
+// Plural formats a count with the singular or plural words: "1 slice",
+// "3 slices"; "1 check fails", "2 checks fail". The screens use it too.
+func Plural(n int, one, many string) string {
 	if n == 1 {
-		return "1 " + noun
+		return "1 " + one
 	}
-	return fmt.Sprintf("%d %ss", n, noun)
+	return fmt.Sprintf("%d %s", n, many)
 }
