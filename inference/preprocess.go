@@ -337,10 +337,8 @@ func blockFinite(v *volume.Volume, f [3]int, I, J, K int) (sum, n float64) {
 // beyond float32's range (or NaN voxels next to the head) can produce; the
 // model must never see them.
 func checkTensorFinite(vals []float32) error {
-	for _, x := range vals {
-		if !finite32(x) {
-			return errors.New("the scan's values are not finite numbers or too large to normalise (NaN, Inf or near the float32 limit)")
-		}
+	if !allFinite32(vals) {
+		return errors.New("the scan's values are not finite numbers or too large to normalise (NaN, Inf or near the float32 limit)")
 	}
 	return nil
 }
@@ -351,7 +349,7 @@ func allFinite32(data []float32) bool {
 	var bad atomic.Bool
 	parallel.Chunks(len(data), func(lo, hi int) {
 		for _, x := range data[lo:hi] {
-			if x-x != 0 { // NaN or ±Inf
+			if !finite32(x) {
 				bad.Store(true)
 				return
 			}
