@@ -20,8 +20,8 @@ import (
 	"fyne.io/fyne/v2"
 	fyneapp "fyne.io/fyne/v2/app"
 
-	"brightfold/atomicfile"
-	"brightfold/inputerr"
+	"brightfold/internal/atomicfile"
+	"brightfold/internal/inputerr"
 )
 
 // Options configure one run of the viewer.
@@ -33,7 +33,7 @@ type Options struct {
 	Screenshot string
 	// Meeting starts the viewer in Meeting mode.
 	Meeting bool
-	// Model is a model bundle (folder or .zip); empty means the embedded demo model.
+	// Model is a model folder (folder or .zip); empty means the embedded demo model.
 	Model string
 	// DemoCases is the number of in-distribution demo cases made on first
 	// start (one of each shifted variant is added); 0 means 12.

@@ -7,7 +7,7 @@ import (
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/test"
 
-	"brightfold/notice"
+	"brightfold/internal/notice"
 	"brightfold/viewer"
 )
 

@@ -12,8 +12,8 @@ import (
 	"strings"
 	"sync"
 
-	"brightfold/inputerr"
-	"brightfold/phantom"
+	"brightfold/internal/inputerr"
+	"brightfold/internal/phantom"
 )
 
 // The demo cohort made on first start: a dozen in-distribution phantoms and

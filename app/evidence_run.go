@@ -10,16 +10,16 @@ import (
 	"brightfold/assets"
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
-	"brightfold/ortlib"
+	"brightfold/internal/ortlib"
+	"brightfold/internal/volume"
 	"brightfold/overlay"
 	"brightfold/viewer"
-	"brightfold/volume"
 )
 
 // model is the scoring session, made once on first use and shared by every
 // case. Its methods may be called from any goroutine.
 type model struct {
-	path string // bundle folder or zip; empty for the embedded demo bundle
+	path string // model folder folder or zip; empty for the embedded demo model folder
 
 	mu      sync.Mutex
 	session *inference.Session
@@ -29,18 +29,18 @@ type model struct {
 	exErr   error
 }
 
-// errNoBundle says there is no model to run (a build whose assets lack the
-// demo bundle).
-var errNoBundle = errors.New("no model bundle: this build has no embedded demo model; start Brightfold with --model BUNDLE")
+// errNoModelFolder says there is no model to run (a build whose assets lack the
+// demo model folder).
+var errNoModelFolder = errors.New("no model folder: this build has no embedded demo model; start Brightfold with --model MODEL")
 
-// missing reports whether scoring failed for want of a model bundle.
+// missing reports whether scoring failed for want of a model folder.
 func (m *model) missing() bool {
 	m.mu.Lock()
 	defer m.mu.Unlock()
-	return errors.Is(m.err, errNoBundle)
+	return errors.Is(m.err, errNoModelFolder)
 }
 
-// get returns the session, loading the library and the bundle the first time.
+// get returns the session, loading the library and the model folder the first time.
 func (m *model) get() (*inference.Session, error) {
 	m.mu.Lock()
 	defer m.mu.Unlock()
@@ -53,14 +53,14 @@ func (m *model) get() (*inference.Session, error) {
 }
 
 func (m *model) open() (*inference.Session, error) {
-	var b *inference.Bundle
+	var b *inference.ModelFolder
 	var err error
 	if m.path == "" {
-		if b, err = inference.LoadBundleFS(assets.DemoBundle()); err == nil {
-			b.Source = assets.DemoBundleName
+		if b, err = inference.LoadModelFolderFS(assets.DemoModelFolder()); err == nil {
+			b.Source = assets.DemoModelFolderName
 		}
 	} else {
-		b, err = inference.LoadBundle(m.path)
+		b, err = inference.LoadModelFolder(m.path)
 	}
 	if err != nil {
 		return nil, err
@@ -100,7 +100,7 @@ func (u *UI) startEvidence() {
 			return nil, err
 		}
 		r, err := s.ScoreContext(ctx, oc.vol, func(st inference.Stage, done float64) { progress(done, string(st)) })
-		card := s.Bundle().Card
+		card := s.ModelFolder().Card
 		var np *inference.NotPreparedError
 		if errors.As(err, &np) {
 			// A scan the model cannot take is a result: out-of-distribution,
@@ -256,7 +256,7 @@ func (m *model) explainer() (*overlay.Explainer, error) {
 	m.mu.Lock()
 	defer m.mu.Unlock()
 	if m.ex == nil && m.exErr == nil {
-		m.ex, m.exErr = overlay.New(s.Bundle(), s)
+		m.ex, m.exErr = overlay.New(s.ModelFolder(), s)
 	}
 	return m.ex, m.exErr
 }

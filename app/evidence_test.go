@@ -8,17 +8,17 @@ import (
 	"testing"
 
 	"brightfold/internal/refcheck"
+	"brightfold/internal/volume"
 	"brightfold/viewer"
-	"brightfold/volume"
 )
 
-// tinyBundle makes a model bundle from the inference package's test model
+// tinyModelFolder makes a model folder from the inference package's test model
 // (a small PyTorch export with a fitted card), which ONNX Runtime and the
 // Go executor both run.
-func tinyBundle(t *testing.T) string {
+func tinyModelFolder(t *testing.T) string {
 	t.Helper()
 	refcheck.ORTLib(t)
-	dir := filepath.Join(t.TempDir(), "tiny-bundle")
+	dir := filepath.Join(t.TempDir(), "tiny-model")
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		t.Fatal(err)
 	}
@@ -51,7 +51,7 @@ func colouredPixels(v *planeView) int {
 // the planes with its colour bar; another method replaces it, "None"
 // removes it, and the overlay key hides and shows it.
 func TestScoreAndRelevance(t *testing.T) {
-	h := newHarness(t, Options{Model: tinyBundle(t)})
+	h := newHarness(t, Options{Model: tinyModelFolder(t)})
 	h.open(anatomical(t))
 	u := h.u
 	if u.open.result == nil {
@@ -100,7 +100,7 @@ func TestScoreAndRelevance(t *testing.T) {
 // A slow map can be cancelled from the task strip: the map is not drawn and
 // the panel says so.
 func TestCancelRelevance(t *testing.T) {
-	h := newHarness(t, Options{Model: tinyBundle(t)})
+	h := newHarness(t, Options{Model: tinyModelFolder(t)})
 	h.open(anatomical(t))
 	u := h.u
 	u.evidence.method.SetSelected("Occlusion")
@@ -132,7 +132,7 @@ func TestUnpreparedScan(t *testing.T) {
 	if err := volume.WriteNIfTI(path, one, volume.NIfTIWriteOptions{}); err != nil {
 		t.Fatal(err)
 	}
-	h := newHarness(t, Options{Model: tinyBundle(t)})
+	h := newHarness(t, Options{Model: tinyModelFolder(t)})
 	h.open(path)
 	u := h.u
 	if u.fit.headline.Text != verdictOOD {

@@ -13,7 +13,7 @@ import (
 	"fyne.io/fyne/v2/dialog"
 	"fyne.io/fyne/v2/storage"
 
-	"brightfold/atomicfile"
+	"brightfold/internal/atomicfile"
 )
 
 // exportImage is the current view as shown: the notice banner across the

@@ -13,7 +13,7 @@ import (
 	"fyne.io/fyne/v2/widget"
 
 	"brightfold/internal/refcheck"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // harness drives a UI on Fyne's headless test driver. Background tasks run

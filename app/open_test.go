@@ -12,7 +12,7 @@ import (
 	"fyne.io/fyne/v2/test"
 	"fyne.io/fyne/v2/widget"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // Files dropped on the window become cases, and the first one opens.

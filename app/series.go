@@ -7,7 +7,7 @@ import (
 	"fyne.io/fyne/v2/dialog"
 	"fyne.io/fyne/v2/widget"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // seriesLine describes one DICOM series for the chooser, without identifiers.

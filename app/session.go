@@ -7,9 +7,9 @@ import (
 	"strings"
 
 	"brightfold/inference"
+	"brightfold/internal/volume"
 	"brightfold/overlay"
 	"brightfold/viewer"
-	"brightfold/volume"
 )
 
 // openCase is the loaded case: the scan as read and the scene it is shown from.

@@ -12,7 +12,7 @@ import (
 	"fyne.io/fyne/v2/theme"
 	"fyne.io/fyne/v2/widget"
 
-	"brightfold/notice"
+	"brightfold/internal/notice"
 )
 
 // UI is one viewer window and its state. Its fields are touched only on the

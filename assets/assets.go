@@ -1,7 +1,7 @@
 // Package assets embeds the files Brightfold ships inside its binary: the
-// demo model bundle (model.onnx and card.json of the demo classifier trained
+// demo model folder (model.onnx and card.json of the demo classifier trained
 // on the synthetic phantoms of the invented Harbourside Memory Research
-// Unit). `make demo-model` retrains the bundle from its seeds; see
+// Unit). `make demo-model` retrains the model folder from its seeds; see
 // tools/traindemo. Research use only. Not a diagnosis.
 package assets
 
@@ -10,20 +10,20 @@ import (
 	"io/fs"
 )
 
-//go:embed demo-bundle/model.onnx demo-bundle/card.json
+//go:embed demo-model/model.onnx demo-model/card.json
 var demo embed.FS
 
-// DemoBundleDir is the repository folder the demo bundle is embedded from.
-const DemoBundleDir = "demo-bundle"
+// DemoModelFolderDir is the repository folder the demo model folder is embedded from.
+const DemoModelFolderDir = "demo-model"
 
-// DemoBundleName names the embedded bundle in messages and results.
-const DemoBundleName = "embedded demo bundle"
+// DemoModelFolderName names the embedded model folder in messages and results.
+const DemoModelFolderName = "embedded demo model folder"
 
-// DemoBundle returns the demo bundle's files: a file system whose single
-// top-level folder, DemoBundleDir, holds model.onnx and card.json, as a zip
-// of a bundle folder has them; inference.LoadBundleFS reads it as it is.
-func DemoBundle() fs.FS { return demo }
+// DemoModelFolder returns the demo model folder's files: a file system whose single
+// top-level folder, DemoModelFolderDir, holds model.onnx and card.json, as a zip
+// of a model folder folder has them; inference.LoadModelFolderFS reads it as it is.
+func DemoModelFolder() fs.FS { return demo }
 
-// DemoFile returns one file of the demo bundle ("model.onnx" or
+// DemoFile returns one file of the demo model folder ("model.onnx" or
 // "card.json").
-func DemoFile(name string) ([]byte, error) { return demo.ReadFile(DemoBundleDir + "/" + name) }
+func DemoFile(name string) ([]byte, error) { return demo.ReadFile(DemoModelFolderDir + "/" + name) }

@@ -8,24 +8,24 @@ import (
 	"testing"
 
 	"brightfold/assets"
-	"brightfold/graph"
 	"brightfold/inference"
+	"brightfold/internal/onnx"
+	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
-	"brightfold/phantom"
 )
 
-func loadDemo(t *testing.T) *inference.Bundle {
+func loadDemo(t *testing.T) *inference.ModelFolder {
 	t.Helper()
-	b, err := inference.LoadBundleFS(assets.DemoBundle())
+	b, err := inference.LoadModelFolderFS(assets.DemoModelFolder())
 	if err != nil {
-		t.Fatalf("embedded demo bundle does not load: %v", err)
+		t.Fatalf("embedded demo model folder does not load: %v", err)
 	}
 	return b
 }
 
-// TestDemoBundleLoads loads the embedded bundle through inference's loader
+// TestDemoModelFolderLoads loads the embedded model folder through inference's loader
 // and checks the model's sha256 independently of it.
-func TestDemoBundleLoads(t *testing.T) {
+func TestDemoModelFolderLoads(t *testing.T) {
 	b := loadDemo(t)
 	model, err := assets.DemoFile(inference.ModelFile)
 	if err != nil {
@@ -59,21 +59,21 @@ func TestDemoBundleLoads(t *testing.T) {
 	}
 }
 
-// TestDemoBundleTampered: a changed model byte is refused by the sha256 check.
-func TestDemoBundleTampered(t *testing.T) {
+// TestDemoModelFolderTampered: a changed model byte is refused by the sha256 check.
+func TestDemoModelFolderTampered(t *testing.T) {
 	b := loadDemo(t)
 	model := append([]byte(nil), b.Model...)
 	model[len(model)/2] ^= 1
-	if _, err := inference.NewBundle(b.Card, model); err == nil || !strings.Contains(err.Error(), "sha256") {
+	if _, err := inference.NewModelFolder(b.Card, model); err == nil || !strings.Contains(err.Error(), "sha256") {
 		t.Errorf("tampered model: err = %v, want a sha256 mismatch", err)
 	}
 }
 
-// TestDemoBundleONNXRuntime runs the embedded model on a preprocessed
+// TestDemoModelFolderONNXRuntime runs the embedded model on a preprocessed
 // phantom in ONNX Runtime (the reference implementation of the ONNX
 // operators) and in the Go executor, and compares logits and features to
 // 1e-4 (issue 3's agreement bound).
-func TestDemoBundleONNXRuntime(t *testing.T) {
+func TestDemoModelFolderONNXRuntime(t *testing.T) {
 	lib := refcheck.ORTLib(t)
 	if err := inference.InitRuntime(lib); err != nil {
 		t.Fatal(err)
@@ -100,11 +100,11 @@ func TestDemoBundleONNXRuntime(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	m, err := graph.Decode(b.Model)
+	m, err := onnx.Decode(b.Model)
 	if err != nil {
 		t.Fatal(err)
 	}
-	e, err := graph.NewExecutor(m)
+	e, err := onnx.NewExecutor(m)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -114,7 +114,7 @@ func TestDemoBundleONNXRuntime(t *testing.T) {
 		for k, d := range tt.Shape {
 			shape[k] = int(d)
 		}
-		tr, err := e.Forward(map[string]*graph.Tensor{b.Card.Input.Name: graph.FromData(tt.Data, shape...)})
+		tr, err := e.Forward(map[string]*onnx.Tensor{b.Card.Input.Name: onnx.FromData(tt.Data, shape...)})
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -1,4 +1,4 @@
-// Package inference loads model bundles (model.onnx plus card.json), runs them
+// Package inference loads model folders (model.onnx plus card.json), runs them
 // on the CPU through ONNX Runtime, prepares scans exactly as a card states,
 // and turns logits into calibrated probabilities. The out-of-distribution
 // checks live in the subpackage fitcheck. Research use only.

@@ -4,7 +4,7 @@ import (
 	"math"
 
 	"brightfold/inference/fitcheck"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // CaseFacts are the model-free measurements of one scan that the fit checks

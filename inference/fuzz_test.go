@@ -7,11 +7,11 @@ import (
 	"math"
 	"testing"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
-// FuzzBundleZip: a hostile zip as a bundle gives an error, never a panic.
-func FuzzBundleZip(f *testing.F) {
+// FuzzModelFolderZip: a hostile zip as a model folder gives an error, never a panic.
+func FuzzModelFolderZip(f *testing.F) {
 	var buf bytes.Buffer
 	zw := zip.NewWriter(&buf)
 	w, _ := zw.Create("b/card.json")
@@ -26,8 +26,8 @@ func FuzzBundleZip(f *testing.F) {
 		if err != nil {
 			return
 		}
-		if _, err := LoadBundleFS(zr); err == nil {
-			t.Fatal("a fuzzed bundle with a non-matching model was accepted")
+		if _, err := LoadModelFolderFS(zr); err == nil {
+			t.Fatal("a fuzzed model folder with a non-matching model was accepted")
 		}
 	})
 }

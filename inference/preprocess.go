@@ -9,7 +9,7 @@ import (
 
 	"brightfold/inference/fitcheck"
 	"brightfold/internal/parallel"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // Tensor is a model input: Data in the card's layout with Shape [N, C, ...].

@@ -10,7 +10,7 @@ import (
 	"testing"
 
 	"brightfold/internal/refcheck"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // testPreprocessing is a small grid for tests.

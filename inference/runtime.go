@@ -10,13 +10,13 @@ import (
 
 	ort "github.com/yalue/onnxruntime_go"
 
-	"brightfold/inputerr"
-	"brightfold/ortlib"
+	"brightfold/internal/inputerr"
+	"brightfold/internal/ortlib"
 )
 
 // ONNX Runtime keeps one environment per process (its C library is
 // process-global), so the environment is set up once here, guarded by a
-// mutex; sessions are per bundle.
+// mutex; sessions are per model folder.
 var ortEnv struct {
 	sync.Mutex
 	lib string
@@ -55,10 +55,10 @@ type SessionOptions struct {
 	MaxBatch int
 }
 
-// Session runs one bundle's model on the CPU. It is made once per bundle and
+// Session runs one model folder's model on the CPU. It is made once per model folder and
 // reused; Run may be called from several goroutines.
 type Session struct {
-	bundle   *Bundle
+	mf       *ModelFolder
 	s        *ort.DynamicAdvancedSession
 	outNames []string
 	maxBatch int
@@ -72,7 +72,7 @@ type Output struct {
 
 // NewSession makes the ONNX Runtime session for b on the CPU execution
 // provider. InitRuntime must have been called.
-func NewSession(b *Bundle, opt SessionOptions) (*Session, error) {
+func NewSession(b *ModelFolder, opt SessionOptions) (*Session, error) {
 	if !ort.IsInitialized() {
 		return nil, errors.New("ONNX Runtime is not initialised (call InitRuntime)")
 	}
@@ -107,11 +107,11 @@ func NewSession(b *Bundle, opt SessionOptions) (*Session, error) {
 			mb = 1
 		}
 	}
-	return &Session{bundle: b, s: s, outNames: outs, maxBatch: mb}, nil
+	return &Session{mf: b, s: s, outNames: outs, maxBatch: mb}, nil
 }
 
-// Bundle is the session's bundle.
-func (s *Session) Bundle() *Bundle { return s.bundle }
+// ModelFolder is the session's model folder.
+func (s *Session) ModelFolder() *ModelFolder { return s.mf }
 
 // Close frees the session.
 func (s *Session) Close() error {
@@ -151,13 +151,13 @@ func (s *Session) RunContext(ctx context.Context, ts []*Tensor) ([]Output, error
 }
 
 func (s *Session) runBatch(ctx context.Context, ts []*Tensor) ([]Output, error) {
-	c := s.bundle.Card
+	c := s.mf.Card
 	per := 1
 	for _, d := range c.Input.Shape[1:] {
 		per *= int(d)
 	}
 	n := len(ts)
-	if !s.bundle.Graph.BatchDynamic && n != s.maxBatch {
+	if !s.mf.Graph.BatchDynamic && n != s.maxBatch {
 		// a fixed batch larger than the cases at hand: pad with zeros
 		n = s.maxBatch
 	}

@@ -6,8 +6,8 @@ import (
 	"time"
 
 	"brightfold/inference/fitcheck"
-	"brightfold/inputerr"
-	"brightfold/volume"
+	"brightfold/internal/inputerr"
+	"brightfold/internal/volume"
 )
 
 // Result is one scored case.
@@ -75,7 +75,7 @@ func (s *Session) ScoreManyContext(ctx context.Context, vs []*volume.Volume, pro
 	if progress == nil {
 		progress = func(Stage, float64) {}
 	}
-	c := s.bundle.Card
+	c := s.mf.Card
 	res := make([]*Result, len(vs))
 	ts := make([]*Tensor, len(vs))
 	n := float64(len(vs))

@@ -5,15 +5,15 @@ import (
 	"testing"
 	"time"
 
-	"brightfold/graph"
 	"brightfold/inference"
+	"brightfold/internal/onnx"
 )
 
-// benchSetup loads the demo bundle with its session and one prepared
+// benchSetup loads the demo model folder with its session and one prepared
 // pattern-positive phantom (1 mm).
 func benchSetup(b testing.TB) (*Explainer, *inference.Session, *inference.Tensor) {
 	b.Helper()
-	bd := demoBundle(b)
+	bd := demoModelFolder(b)
 	s := testSession(b, bd)
 	ex, err := New(bd, s)
 	if err != nil {
@@ -29,7 +29,7 @@ func benchSetup(b testing.TB) (*Explainer, *inference.Session, *inference.Tensor
 func BenchmarkLRP(b *testing.B) {
 	ex, _, in := benchSetup(b)
 	x := graphInput(in)
-	feed := map[string]*graph.Tensor{ex.input: x}
+	feed := map[string]*onnx.Tensor{ex.input: x}
 	var tf, tl time.Duration
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {

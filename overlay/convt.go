@@ -1,7 +1,7 @@
 package overlay
 
 import (
-	"brightfold/graph"
+	"brightfold/internal/onnx"
 )
 
 // convGeom is the geometry of a Conv node without groups and with explicit
@@ -18,7 +18,7 @@ type convGeom struct {
 
 // convGeometry reads n's attributes; ok is false for a Conv the sparse
 // path does not handle (groups, auto_pad other than NOTSET or VALID).
-func convGeometry(n *graph.Node, w *graph.Tensor) (convGeom, bool) {
+func convGeometry(n *onnx.Node, w *onnx.Tensor) (convGeom, bool) {
 	var g convGeom
 	if n.OpType != "Conv" || len(w.Shape) < 3 || len(w.Shape) > 5 {
 		return g, false
@@ -63,14 +63,14 @@ func (g convGeom) dims3(shape []int) [3]int {
 // transpose returns Wᵀs for each weight tensor of ws (one or two, all
 // M × C × k), shaped like x, visiting only the non-zero entries of s
 // (N, M, out...), both weights in the same pass.
-func (g convGeom) transpose(s, x *graph.Tensor, ws []*graph.Tensor) []*graph.Tensor {
+func (g convGeom) transpose(s, x *onnx.Tensor, ws []*onnx.Tensor) []*onnx.Tensor {
 	in, out := g.dims3(x.Shape), g.dims3(s.Shape)
 	n, c, m := x.Shape[0], x.Shape[1], s.Shape[1]
 	inPlane, outPlane := in[0]*in[1]*in[2], out[0]*out[1]*out[2]
 	taps := g.k[0] * g.k[1] * g.k[2]
-	res := make([]*graph.Tensor, len(ws))
+	res := make([]*onnx.Tensor, len(ws))
 	for j := range ws {
-		res[j] = graph.New(x.Shape...)
+		res[j] = onnx.New(x.Shape...)
 	}
 	for b := 0; b < n; b++ {
 		for mo := 0; mo < m; mo++ {
@@ -144,7 +144,7 @@ func (g convGeom) scatter(p scatterPair, src []float32, in, out [3]int) {
 
 // sparseEnough reports whether at most a quarter of s is non-zero, where
 // the scatter beats the dense backward pass.
-func sparseEnough(s *graph.Tensor) bool {
+func sparseEnough(s *onnx.Tensor) bool {
 	nz := 0
 	for _, v := range s.Data {
 		if v != 0 {

@@ -13,10 +13,10 @@ import (
 	"testing"
 
 	"brightfold/assets"
-	"brightfold/graph"
 	"brightfold/inference"
+	"brightfold/internal/onnx"
+	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
-	"brightfold/phantom"
 )
 
 // The localisation measurement runs on few coarse phantoms by default; the
@@ -32,18 +32,18 @@ var (
 // 20261202 and 20261203).
 const freshSeed = 20261210
 
-// demoBundle loads the embedded demo bundle (package assets), or the bundle
-// folder BRIGHTFOLD_OVERLAY_BUNDLE names (to measure a candidate model).
-func demoBundle(t testing.TB) *inference.Bundle {
+// demoModelFolder loads the embedded demo model folder (package assets), or the model folder
+// folder BRIGHTFOLD_OVERLAY_MODEL names (to measure a candidate model).
+func demoModelFolder(t testing.TB) *inference.ModelFolder {
 	t.Helper()
-	if d := os.Getenv("BRIGHTFOLD_OVERLAY_BUNDLE"); d != "" {
-		b, err := inference.LoadBundle(d)
+	if d := os.Getenv("BRIGHTFOLD_OVERLAY_MODEL"); d != "" {
+		b, err := inference.LoadModelFolder(d)
 		if err != nil {
 			t.Fatal(err)
 		}
 		return b
 	}
-	b, err := inference.LoadBundleFS(assets.DemoBundle())
+	b, err := inference.LoadModelFolderFS(assets.DemoModelFolder())
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -68,7 +68,7 @@ func positiveCases(t testing.TB, card *inference.Card, n int, voxel float64) ([]
 // within 1 % once the bias and stabiliser terms are booked, and integrated
 // gradients at m = 64 add up to f(x) − f(baseline) within 1 %.
 func TestDemoModelChecks(t *testing.T) {
-	b := demoBundle(t)
+	b := demoModelFolder(t)
 	ex, err := New(b, nil)
 	if err != nil {
 		t.Fatal(err)
@@ -96,18 +96,18 @@ func TestDemoModelChecks(t *testing.T) {
 	}
 }
 
-// randomised returns a copy of bundle b whose weighted layers' weights and
+// randomised returns a copy of model folder b whose weighted layers' weights and
 // biases, from the top (the last in execution order) down to and including
 // the k-th from the top, are redrawn from a normal distribution with the
 // original tensor's standard deviation (Adebayo et al. 2018, section 3.1,
 // cascading randomisation).
-func randomised(t testing.TB, b *inference.Bundle, k int, seed uint64) (*inference.Bundle, []string) {
+func randomised(t testing.TB, b *inference.ModelFolder, k int, seed uint64) (*inference.ModelFolder, []string) {
 	t.Helper()
-	m, err := graph.Decode(b.Model)
+	m, err := onnx.Decode(b.Model)
 	if err != nil {
 		t.Fatal(err)
 	}
-	var layers []*graph.Node
+	var layers []*onnx.Node
 	for _, n := range m.Graph.Nodes {
 		if n.OpType == "Conv" || n.OpType == "Gemm" {
 			layers = append(layers, n)
@@ -140,7 +140,7 @@ func randomised(t testing.TB, b *inference.Bundle, k int, seed uint64) (*inferen
 	}
 	card := *b.Card
 	card.ModelSHA256 = testCard(data, 1).ModelSHA256
-	nb, err := inference.NewBundle(&card, data)
+	nb, err := inference.NewModelFolder(&card, data)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -159,7 +159,7 @@ func randomised(t testing.TB, b *inference.Bundle, k int, seed uint64) (*inferen
 // sign of the map). Measured on the trained demo model: about 0.02, with the
 // magnitude maps still correlated near 0.5 (the input's structure).
 func TestCascadingRandomisation(t *testing.T) {
-	b := demoBundle(t)
+	b := demoModelFolder(t)
 	ex, err := New(b, nil)
 	if err != nil {
 		t.Fatal(err)
@@ -245,7 +245,7 @@ func TestSpearmanAgainstScipy(t *testing.T) {
 // 3 times chance or more) is a property of the trained model, measured
 // here, not asserted. The test asserts that every figure is a share.
 func TestLocalisation(t *testing.T) {
-	b := demoBundle(t)
+	b := demoModelFolder(t)
 	s := testSession(t, b)
 	ex, err := New(b, s)
 	if err != nil {

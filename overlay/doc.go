@@ -1,4 +1,4 @@
-// Package overlay computes relevance maps for a model bundle's positive-class
+// Package overlay computes relevance maps for a model folder's positive-class
 // score (or any class the caller picks) with published explanation methods,
 // each with the check that its own definition implies:
 //
@@ -24,7 +24,7 @@
 //   - Occlusion sensitivity (Zeiler & Fergus 2014): the drop of the target
 //     logit when a cube of the input is set to a fill value, through ONNX
 //     Runtime (inference.Session) in batches. It needs only the model's
-//     outputs, so it works on any bundle, also one whose operators the Go
+//     outputs, so it works on any model folder, also one whose operators the Go
 //     executor lacks.
 //
 // Maps are computed on the model grid (Map, in grid order: x fastest) and
@@ -32,7 +32,7 @@
 // of the preprocessing transform, so that a written map has the scan's dims
 // and affine.
 //
-// Explainer.Available lists, for a bundle, which methods can run and why not
+// Explainer.Available lists, for a model folder, which methods can run and why not
 // (an operator without a Go kernel or without an LRP rule switches off the
 // executor methods with the reason; occlusion stays). The slow methods take
 // a context.Context for cancellation and report progress through

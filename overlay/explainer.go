@@ -6,19 +6,19 @@ import (
 	"fmt"
 	"math"
 
-	"brightfold/graph"
 	"brightfold/inference"
+	"brightfold/internal/onnx"
 )
 
-// Explainer computes relevance maps for one bundle. It is made once per
-// bundle (it compiles the model for the Go executor and plans the LRP rules)
+// Explainer computes relevance maps for one model folder. It is made once per
+// model folder (it compiles the model for the Go executor and plans the LRP rules)
 // and is safe for concurrent use.
 type Explainer struct {
 	card    *inference.Card
 	session *inference.Session // for occlusion; may be nil
 
 	input, logits string
-	exec          *graph.Executor // the model as given; nil when it cannot run
+	exec          *onnx.Executor // the model as given; nil when it cannot run
 	execErr       error
 	maxBatch      int // largest batch the executor may run (1 for a fixed batch)
 
@@ -26,20 +26,20 @@ type Explainer struct {
 	lrpErr error
 }
 
-// New prepares an Explainer for bundle b. s is the bundle's ONNX Runtime
+// New prepares an Explainer for model folder b. s is the model folder's ONNX Runtime
 // session, which occlusion needs; it may be nil (occlusion is then
 // unavailable). A model the Go executor cannot run is not an error: the
 // executor methods are switched off with the reason (see Available).
-func New(b *inference.Bundle, s *inference.Session) (*Explainer, error) {
+func New(b *inference.ModelFolder, s *inference.Session) (*Explainer, error) {
 	if b == nil || b.Card == nil {
-		return nil, errors.New("overlay: no bundle")
+		return nil, errors.New("overlay: no model folder")
 	}
-	m, err := graph.Decode(b.Model)
+	m, err := onnx.Decode(b.Model)
 	if err != nil {
 		return nil, fmt.Errorf("overlay: decode %s: %w", inference.ModelFile, err)
 	}
 	e := &Explainer{card: b.Card, session: s, input: b.Card.Input.Name, logits: b.Card.Outputs.Logits, maxBatch: 1}
-	e.exec, e.execErr = graph.NewExecutor(m)
+	e.exec, e.execErr = onnx.NewExecutor(m)
 	if e.execErr != nil {
 		e.execErr = fmt.Errorf("the Go executor cannot run this model: %w", e.execErr)
 		e.lrpErr = e.execErr
@@ -54,10 +54,10 @@ func New(b *inference.Bundle, s *inference.Session) (*Explainer, error) {
 	return e, nil
 }
 
-// Card is the bundle's card.
+// Card is the model folder's card.
 func (e *Explainer) Card() *inference.Card { return e.card }
 
-// Available lists every method with whether it can run on this bundle and,
+// Available lists every method with whether it can run on this model folder and,
 // when not, the reason (for example the operator the Go executor lacks).
 func (e *Explainer) Available() []Availability {
 	var out []Availability
@@ -75,7 +75,7 @@ func (e *Explainer) Available() []Availability {
 func (e *Explainer) unavailable(m Method) error {
 	switch {
 	case m == Occlusion && e.session == nil:
-		return errors.New("occlusion needs an ONNX Runtime session for the bundle")
+		return errors.New("occlusion needs an ONNX Runtime session for the model folder")
 	case m == Occlusion:
 		return nil
 	case m == LRP && e.lrpErr != nil:
@@ -218,7 +218,7 @@ func (e *Explainer) target(class string, contrast bool) (target, error) {
 
 // seed returns the one-hot gradient seed of the target for logits of the
 // given shape (batch first).
-func (tg target) seed(logits *graph.Tensor) (*graph.Tensor, error) {
+func (tg target) seed(logits *onnx.Tensor) (*onnx.Tensor, error) {
 	n := 1
 	if len(logits.Shape) > 0 {
 		n = logits.Shape[0]
@@ -227,7 +227,7 @@ func (tg target) seed(logits *graph.Tensor) (*graph.Tensor, error) {
 	if tg.index >= per {
 		return nil, fmt.Errorf("overlay: logits %v have no entry %d", logits.Shape, tg.index)
 	}
-	s := graph.New(logits.Shape...)
+	s := onnx.New(logits.Shape...)
 	for b := 0; b < n; b++ {
 		for j := 0; j < per; j++ {
 			s.Data[b*per+j] = tg.weight(j, per)
@@ -237,7 +237,7 @@ func (tg target) seed(logits *graph.Tensor) (*graph.Tensor, error) {
 }
 
 // scores returns the target score of each case of a logits tensor.
-func (tg target) scores(logits *graph.Tensor) []float64 {
+func (tg target) scores(logits *onnx.Tensor) []float64 {
 	n := 1
 	if len(logits.Shape) > 0 {
 		n = logits.Shape[0]
@@ -272,13 +272,13 @@ func zbBounds(in inference.Intensity) [2]float64 {
 }
 
 // graphInput wraps the case's values as the executor's input tensor.
-func graphInput(t *inference.Tensor) *graph.Tensor {
+func graphInput(t *inference.Tensor) *onnx.Tensor {
 	shape := make([]int, len(t.Shape))
 	for i, d := range t.Shape {
 		shape[i] = int(d)
 	}
 	shape[0] = 1
-	return graph.FromData(t.Data, shape...)
+	return onnx.FromData(t.Data, shape...)
 }
 
 // toGrid returns values laid out as t (the card's layout) in grid order.

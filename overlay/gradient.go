@@ -5,8 +5,8 @@ import (
 	"fmt"
 	"math"
 
-	"brightfold/graph"
 	"brightfold/inference"
+	"brightfold/internal/onnx"
 )
 
 // computeLRP runs the planned LRP rules and reports their conservation.
@@ -43,7 +43,7 @@ func (e *Explainer) computeLRP(ctx context.Context, t *inference.Tensor, tg targ
 }
 
 // input1 checks t's size and wraps it as a one-case executor input.
-func (e *Explainer) input1(t *inference.Tensor) (*graph.Tensor, error) {
+func (e *Explainer) input1(t *inference.Tensor) (*onnx.Tensor, error) {
 	n := 1
 	for _, d := range t.Shape[1:] {
 		n *= int(d)
@@ -57,7 +57,7 @@ func (e *Explainer) input1(t *inference.Tensor) (*graph.Tensor, error) {
 // gradSum returns the sum over n cases (made by fill into a buffer of one's
 // size) of the gradient of the target score, and each case's score, running
 // the executor in batches of at most batch cases.
-func (e *Explainer) gradSum(ctx context.Context, one *graph.Tensor, n int, fill func(i int, dst []float32), tg target, batch int, onBatch func(done int)) ([]float64, []float64, error) {
+func (e *Explainer) gradSum(ctx context.Context, one *onnx.Tensor, n int, fill func(i int, dst []float32), tg target, batch int, onBatch func(done int)) ([]float64, []float64, error) {
 	batch = max(1, min(batch, e.maxBatch, n))
 	per := one.Len()
 	acc := make([]float64, per)
@@ -67,7 +67,7 @@ func (e *Explainer) gradSum(ctx context.Context, one *graph.Tensor, n int, fill 
 			return nil, nil, err
 		}
 		hi := min(n, lo+batch)
-		x := graph.New(append([]int{hi - lo}, one.Shape[1:]...)...)
+		x := onnx.New(append([]int{hi - lo}, one.Shape[1:]...)...)
 		for i := lo; i < hi; i++ {
 			fill(i, x.Data[(i-lo)*per:(i-lo+1)*per])
 		}
@@ -87,8 +87,8 @@ func (e *Explainer) gradSum(ctx context.Context, one *graph.Tensor, n int, fill 
 }
 
 // gradBatch is one forward and backward pass on a batch.
-func (e *Explainer) gradBatch(x *graph.Tensor, tg target) (*graph.Tensor, []float64, error) {
-	tr, err := e.exec.Forward(map[string]*graph.Tensor{e.input: x})
+func (e *Explainer) gradBatch(x *onnx.Tensor, tg target) (*onnx.Tensor, []float64, error) {
+	tr, err := e.exec.Forward(map[string]*onnx.Tensor{e.input: x})
 	if err != nil {
 		return nil, nil, err
 	}
@@ -100,29 +100,29 @@ func (e *Explainer) gradBatch(x *graph.Tensor, tg target) (*graph.Tensor, []floa
 	if err != nil {
 		return nil, nil, err
 	}
-	g, err := e.exec.BackwardWith(tr, map[string]*graph.Tensor{e.logits: seed}, graph.BackwardOptions{NoParams: true})
+	g, err := e.exec.BackwardWith(tr, map[string]*onnx.Tensor{e.logits: seed}, onnx.BackwardOptions{NoParams: true})
 	if err != nil {
 		return nil, nil, err
 	}
 	gx := g.Of(e.input)
 	if gx == nil {
-		gx = graph.New(x.Shape...)
+		gx = onnx.New(x.Shape...)
 	}
 	return gx, tg.scores(z), nil
 }
 
 // scoresOf runs the executor forward on cases and returns their scores.
-func (e *Explainer) scoresOf(one *graph.Tensor, cases [][]float32, tg target) ([]float64, error) {
+func (e *Explainer) scoresOf(one *onnx.Tensor, cases [][]float32, tg target) ([]float64, error) {
 	var out []float64
 	per := one.Len()
 	batch := max(1, min(len(cases), e.maxBatch))
 	for lo := 0; lo < len(cases); lo += batch {
 		hi := min(len(cases), lo+batch)
-		x := graph.New(append([]int{hi - lo}, one.Shape[1:]...)...)
+		x := onnx.New(append([]int{hi - lo}, one.Shape[1:]...)...)
 		for i, c := range cases[lo:hi] {
 			copy(x.Data[i*per:], c)
 		}
-		tr, err := e.exec.Forward(map[string]*graph.Tensor{e.input: x})
+		tr, err := e.exec.Forward(map[string]*onnx.Tensor{e.input: x})
 		if err != nil {
 			return nil, err
 		}

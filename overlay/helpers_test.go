@@ -10,8 +10,8 @@ import (
 	"sync"
 	"testing"
 
-	"brightfold/graph"
 	"brightfold/inference"
+	"brightfold/internal/onnx"
 	"brightfold/internal/refcheck"
 )
 
@@ -42,16 +42,16 @@ type modelSpec struct {
 	insert string // an extra unary operator after the first ReLU ("" for none), also one the executor lacks
 }
 
-func randTensor(r *rand.Rand, scale float64, shape ...int) *graph.Tensor {
-	t := graph.New(shape...)
+func randTensor(r *rand.Rand, scale float64, shape ...int) *onnx.Tensor {
+	t := onnx.New(shape...)
 	for i := range t.Data {
 		t.Data[i] = float32(r.NormFloat64() * scale)
 	}
 	return t
 }
 
-func uniform(r *rand.Rand, lo, hi float64, n int) *graph.Tensor {
-	t := graph.New(n)
+func uniform(r *rand.Rand, lo, hi float64, n int) *onnx.Tensor {
+	t := onnx.New(n)
 	for i := range t.Data {
 		t.Data[i] = float32(lo + (hi-lo)*r.Float64())
 	}
@@ -64,8 +64,8 @@ func uniform(r *rand.Rand, lo, hi float64, n int) *graph.Tensor {
 func testModel(t testing.TB, spec modelSpec) []byte {
 	t.Helper()
 	r := rand.New(rand.NewPCG(11, 12))
-	b := graph.NewBuilder("overlay-test", 13)
-	pad := graph.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}}
+	b := onnx.NewBuilder("overlay-test", 13)
+	pad := onnx.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}}
 	bn := func(name, x string, c int) string {
 		return b.BatchNorm(name, x, uniform(r, 0.5, 1.5, c), uniform(r, -0.2, 0.2, c), uniform(r, -0.3, 0.3, c), uniform(r, 0.5, 2, c), 1e-5)
 	}
@@ -100,11 +100,11 @@ func testModel(t testing.TB, spec modelSpec) []byte {
 	return data
 }
 
-// testBundle returns the bundle of testModel(spec).
-func testBundle(t testing.TB, spec modelSpec) *inference.Bundle {
+// testModelFolder returns the model folder of testModel(spec).
+func testModelFolder(t testing.TB, spec modelSpec) *inference.ModelFolder {
 	t.Helper()
 	model := testModel(t, spec)
-	b, err := inference.NewBundle(testCard(model, spec.grid), model)
+	b, err := inference.NewModelFolder(testCard(model, spec.grid), model)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -137,7 +137,7 @@ var ortOnce sync.Once
 
 // testSession loads ONNX Runtime (skipping through refcheck when the
 // library is missing) and makes b's session.
-func testSession(t testing.TB, b *inference.Bundle) *inference.Session {
+func testSession(t testing.TB, b *inference.ModelFolder) *inference.Session {
 	t.Helper()
 	lib := refcheck.ORTLib(t)
 	var err error

@@ -6,7 +6,7 @@ import (
 	"math"
 	"strings"
 
-	"brightfold/graph"
+	"brightfold/internal/onnx"
 )
 
 // nodeKind is how LRP treats a node on the path from the input to the logits.
@@ -56,7 +56,7 @@ type lrpStep struct {
 
 // lrpPlan is the LRP walk over the BatchNormalization-folded model.
 type lrpPlan struct {
-	exec          *graph.Executor
+	exec          *onnx.Executor
 	input, logits string
 	steps         []*lrpStep // aligned with exec.Nodes()
 	dep           map[string]bool
@@ -66,12 +66,12 @@ type lrpPlan struct {
 
 // newLRPPlan folds the model's batch normalisation into its convolutions
 // and checks that every node between the input and the logits has a rule.
-func newLRPPlan(m *graph.Model, input, logits string, bounds [2]float64) (*lrpPlan, error) {
-	fm, folded, err := graph.FoldBatchNorm(m)
+func newLRPPlan(m *onnx.Model, input, logits string, bounds [2]float64) (*lrpPlan, error) {
+	fm, folded, err := onnx.FoldBatchNorm(m)
 	if err != nil {
 		return nil, fmt.Errorf("fold batch normalisation: %w", err)
 	}
-	ex, err := graph.NewExecutor(fm)
+	ex, err := onnx.NewExecutor(fm)
 	if err != nil {
 		return nil, err
 	}
@@ -120,7 +120,7 @@ func anyIn(names []string, set map[string]bool) bool {
 }
 
 // classify finds the rule family of node n, or says why LRP has none.
-func (p *lrpPlan) classify(m *graph.Model, n *graph.Node) (*lrpStep, error) {
+func (p *lrpPlan) classify(m *onnx.Model, n *onnx.Node) (*lrpStep, error) {
 	kind, ok := nodeKinds[n.OpType]
 	if !ok {
 		return nil, fmt.Errorf("no LRP rule for %s", n.Describe())
@@ -144,7 +144,7 @@ func (p *lrpPlan) classify(m *graph.Model, n *graph.Node) (*lrpStep, error) {
 
 // weighted plans a linear layer: input 0 carries relevance, the weight
 // (input 1) and the bias (input 2, optional) are constants.
-func (p *lrpPlan) weighted(m *graph.Model, n *graph.Node) (*lrpStep, error) {
+func (p *lrpPlan) weighted(m *onnx.Model, n *onnx.Node) (*lrpStep, error) {
 	if !p.dep[n.Input(0)] || p.dep[n.Input(1)] || p.dep[n.Input(2)] {
 		return nil, fmt.Errorf("no LRP rule for %s: only a layer with constant weights on an input-dependent first operand has one", n.Describe())
 	}
@@ -152,7 +152,7 @@ func (p *lrpPlan) weighted(m *graph.Model, n *graph.Node) (*lrpStep, error) {
 	if w == nil {
 		return nil, fmt.Errorf("no LRP rule for %s: its weight is not a float constant", n.Describe())
 	}
-	var b *graph.Tensor
+	var b *onnx.Tensor
 	if n.OpType != "MatMul" && n.Input(2) != "" {
 		if b = constTensor(m, n.Input(2)); b == nil {
 			return nil, fmt.Errorf("no LRP rule for %s: its bias is not a float constant", n.Describe())
@@ -167,7 +167,7 @@ func (p *lrpPlan) weighted(m *graph.Model, n *graph.Node) (*lrpStep, error) {
 
 // constTensor returns the float tensor of an initializer or a Constant
 // node's value, or nil.
-func constTensor(m *graph.Model, name string) *graph.Tensor {
+func constTensor(m *onnx.Model, name string) *onnx.Tensor {
 	if in := m.Graph.Initializer(name); in != nil {
 		if in.Tensor != nil && in.Tensor.IsFloat() {
 			return in.Tensor
@@ -257,14 +257,14 @@ type ledger struct {
 
 // lrpResult is one LRP pass.
 type lrpResult struct {
-	input  *graph.Tensor
+	input  *onnx.Tensor
 	target float64
 	ledger ledger
 }
 
 // run propagates the target logit of x back to the input.
-func (p *lrpPlan) run(ctx context.Context, x *graph.Tensor, tg target, opt Options) (*lrpResult, error) {
-	tr, err := p.exec.Forward(map[string]*graph.Tensor{p.input: x})
+func (p *lrpPlan) run(ctx context.Context, x *onnx.Tensor, tg target, opt Options) (*lrpResult, error) {
+	tr, err := p.exec.Forward(map[string]*onnx.Tensor{p.input: x})
 	if err != nil {
 		return nil, err
 	}
@@ -273,12 +273,12 @@ func (p *lrpPlan) run(ctx context.Context, x *graph.Tensor, tg target, opt Optio
 	if err != nil {
 		return nil, err
 	}
-	r0 := graph.New(z.Shape...)
+	r0 := onnx.New(z.Shape...)
 	for i, s := range seed.Data {
 		r0.Data[i] = s * z.Data[i]
 	}
 	res := &lrpResult{target: tg.scores(z)[0]}
-	rel := map[string]*graph.Tensor{p.logits: r0}
+	rel := map[string]*onnx.Tensor{p.logits: r0}
 	owned := map[string]bool{p.logits: true}
 	nodes := p.exec.Nodes()
 	for i := len(nodes) - 1; i >= 0; i-- {
@@ -304,13 +304,13 @@ func (p *lrpPlan) run(ctx context.Context, x *graph.Tensor, tg target, opt Optio
 	}
 	res.input = rel[p.input]
 	if res.input == nil {
-		res.input = graph.New(x.Shape...)
+		res.input = onnx.New(x.Shape...)
 	}
 	return res, nil
 }
 
 // addRelevance adds part to rel[name], copying before the first in-place sum.
-func addRelevance(rel map[string]*graph.Tensor, owned map[string]bool, name string, part *graph.Tensor) {
+func addRelevance(rel map[string]*onnx.Tensor, owned map[string]bool, name string, part *onnx.Tensor) {
 	cur := rel[name]
 	if cur == nil {
 		rel[name], owned[name] = part, false
@@ -327,13 +327,13 @@ func addRelevance(rel map[string]*graph.Tensor, owned map[string]bool, name stri
 
 // step returns the relevance of each input of n given the relevance r of
 // its first output.
-func (p *lrpPlan) step(st *lrpStep, n *graph.Node, ins, outs []*graph.Tensor, r *graph.Tensor, opt Options, lg *ledger) ([]*graph.Tensor, error) {
-	parts := make([]*graph.Tensor, len(ins))
+func (p *lrpPlan) step(st *lrpStep, n *onnx.Node, ins, outs []*onnx.Tensor, r *onnx.Tensor, opt Options, lg *ledger) ([]*onnx.Tensor, error) {
+	parts := make([]*onnx.Tensor, len(ins))
 	switch st.kind {
 	case kindIdentity:
 		parts[0] = r
 	case kindRoute:
-		g, err := p.exec.VJP(n, ins, outs, []*graph.Tensor{r})
+		g, err := p.exec.VJP(n, ins, outs, []*onnx.Tensor{r})
 		if err != nil {
 			return nil, err
 		}
@@ -369,13 +369,13 @@ const tinyEps = 1e-9
 // stabilised returns s = R / (z + eps·sign z), with eps relative to the
 // root mean square of z, and books Σ (R − s·z), the part the stabiliser
 // takes, in the ledger. s is 0 where the denominator is 0 (R is dropped).
-func stabilised(r, z *graph.Tensor, rel float64, lg *ledger) *graph.Tensor {
+func stabilised(r, z *onnx.Tensor, rel float64, lg *ledger) *onnx.Tensor {
 	var ss float64
 	for _, v := range z.Data {
 		ss += float64(v) * float64(v)
 	}
 	eps := float32(rel * math.Sqrt(ss/float64(max(len(z.Data), 1))))
-	s := graph.New(z.Shape...)
+	s := onnx.New(z.Shape...)
 	var taken float64
 	for i, zv := range z.Data {
 		d := zv + eps
@@ -394,7 +394,7 @@ func stabilised(r, z *graph.Tensor, rel float64, lg *ledger) *graph.Tensor {
 
 // epsilonRule: R_i = x_i Σ_j w_ij R_j / (z_j + ε sign z_j) (Bach et al.
 // 2015, eq. 58). The bias takes Σ_j s_j b_j.
-func epsilonRule(l *linearLayer, x, z, r *graph.Tensor, eps float64, lg *ledger) (*graph.Tensor, error) {
+func epsilonRule(l *linearLayer, x, z, r *onnx.Tensor, eps float64, lg *ledger) (*onnx.Tensor, error) {
 	s := stabilised(r, z, eps, lg)
 	c, err := l.vjpFull(x, z, s)
 	if err != nil {
@@ -413,8 +413,8 @@ func epsilonRule(l *linearLayer, x, z, r *graph.Tensor, eps float64, lg *ledger)
 // alphaBeta is the alpha1-beta0 rule (Bach et al. 2015, eq. 60 with α = 1,
 // β = 0; the z⁺ rule of Montavon et al. 2017): R_i = Σ_j (x_i w_ij)⁺ R_j /
 // Σ_i (x_i w_ij)⁺, bias left out.
-func alphaBeta(l *linearLayer, x, r *graph.Tensor, lg *ledger) (*graph.Tensor, error) {
-	xp, xn := graph.New(x.Shape...), graph.New(x.Shape...)
+func alphaBeta(l *linearLayer, x, r *onnx.Tensor, lg *ledger) (*onnx.Tensor, error) {
+	xp, xn := onnx.New(x.Shape...), onnx.New(x.Shape...)
 	negative := false
 	for i, v := range x.Data {
 		if v > 0 {
@@ -455,7 +455,7 @@ func alphaBeta(l *linearLayer, x, r *graph.Tensor, lg *ledger) (*graph.Tensor, e
 // with deep Taylor decomposition"; Montavon et al. 2019, eq. in section
 // 10.1): R_i = Σ_j (x_i w_ij − L w⁺_ij − H w⁻_ij) R_j / Σ_i (…), which is
 // (x_i − L)·[W⁺ᵀs]_i + (x_i − H)·[W⁻ᵀs]_i.
-func (p *lrpPlan) zB(l *linearLayer, x, z, r *graph.Tensor, lg *ledger) (*graph.Tensor, error) {
+func (p *lrpPlan) zB(l *linearLayer, x, z, r *onnx.Tensor, lg *ledger) (*onnx.Tensor, error) {
 	lo, hi := p.bounds[0], p.bounds[1]
 	for _, v := range x.Data {
 		if !(float64(v) >= lo) {
@@ -477,7 +477,7 @@ func (p *lrpPlan) zB(l *linearLayer, x, z, r *graph.Tensor, lg *ledger) (*graph.
 	if err != nil {
 		return nil, err
 	}
-	zb := graph.New(z.Shape...)
+	zb := onnx.New(z.Shape...)
 	for i, v := range z.Data {
 		lin := float64(v)
 		if bias != nil {
@@ -490,7 +490,7 @@ func (p *lrpPlan) zB(l *linearLayer, x, z, r *graph.Tensor, lg *ledger) (*graph.
 	if err != nil {
 		return nil, err
 	}
-	out := graph.New(x.Shape...)
+	out := onnx.New(x.Shape...)
 	for i, v := range x.Data {
 		out.Data[i] = float32((float64(v)-lo)*float64(cp.Data[i]) + (float64(v)-hi)*float64(cn.Data[i]))
 	}
@@ -501,14 +501,14 @@ func (p *lrpPlan) zB(l *linearLayer, x, z, r *graph.Tensor, lg *ledger) (*graph.
 // their contributions, R_i = x_i·VJP(R/z)_i: average pooling and means split
 // in proportion to the inputs, a sum in proportion to its terms. Constant
 // operands (a bias added, a batch normalisation's shift) take the rest.
-func (p *lrpPlan) proportional(n *graph.Node, ins, outs []*graph.Tensor, r *graph.Tensor, lg *ledger) ([]*graph.Tensor, error) {
+func (p *lrpPlan) proportional(n *onnx.Node, ins, outs []*onnx.Tensor, r *onnx.Tensor, lg *ledger) ([]*onnx.Tensor, error) {
 	z := outs[0]
 	s := stabilised(r, z, tinyEps, lg)
-	g, err := p.exec.VJP(n, ins, outs, []*graph.Tensor{s})
+	g, err := p.exec.VJP(n, ins, outs, []*onnx.Tensor{s})
 	if err != nil {
 		return nil, err
 	}
-	parts := make([]*graph.Tensor, len(ins))
+	parts := make([]*onnx.Tensor, len(ins))
 	passed, hasConst := 0.0, false
 	for j, in := range ins {
 		if in == nil || !in.IsFloat() {
@@ -530,16 +530,16 @@ func (p *lrpPlan) proportional(n *graph.Node, ins, outs []*graph.Tensor, r *grap
 	return parts, nil
 }
 
-func mulTensors(a, b *graph.Tensor) *graph.Tensor {
-	out := graph.New(a.Shape...)
+func mulTensors(a, b *onnx.Tensor) *onnx.Tensor {
+	out := onnx.New(a.Shape...)
 	for i, v := range a.Data {
 		out.Data[i] = v * b.Data[i]
 	}
 	return out
 }
 
-func addTensors(a, b *graph.Tensor) *graph.Tensor {
-	out := graph.New(a.Shape...)
+func addTensors(a, b *onnx.Tensor) *onnx.Tensor {
+	out := onnx.New(a.Shape...)
 	for i, v := range a.Data {
 		out.Data[i] = v + b.Data[i]
 	}

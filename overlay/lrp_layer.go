@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"sync"
 
-	"brightfold/graph"
+	"brightfold/internal/onnx"
 )
 
 // linearLayer is a weighted node (Conv, Gemm, MatMul with constant weights)
@@ -13,26 +13,26 @@ import (
 // without the bias), so that the rules can run the layer forward and
 // backward (with respect to x only) on modified weights.
 type linearLayer struct {
-	node           *graph.Node
-	w, b           *graph.Tensor // b is nil without a bias
-	wPos, wNeg     *graph.Tensor
-	full, pos, neg *graph.Executor
+	node           *onnx.Node
+	w, b           *onnx.Tensor // b is nil without a bias
+	wPos, wNeg     *onnx.Tensor
+	full, pos, neg *onnx.Executor
 	// split holds W⁺ and W⁻ side by side along the input channels (a Conv
 	// without groups), so that one backward pass gives W⁺ᵀs and W⁻ᵀs.
-	split  *graph.Executor
-	wSplit *graph.Tensor
+	split  *onnx.Executor
+	wSplit *onnx.Tensor
 	// geom is set for a Conv whose input-side products can be scattered
 	// from a sparse s (convt.go).
 	geom   convGeom
 	sparse bool
 
 	mu    sync.Mutex
-	cache map[string]*graph.Tensor // input-independent maps by kind and shape
+	cache map[string]*onnx.Tensor // input-independent maps by kind and shape
 }
 
-func newLinearLayer(n *graph.Node, opset int64, w, b *graph.Tensor) (*linearLayer, error) {
-	l := &linearLayer{node: n, w: w, b: b, cache: map[string]*graph.Tensor{}}
-	l.wPos, l.wNeg = graph.New(w.Shape...), graph.New(w.Shape...)
+func newLinearLayer(n *onnx.Node, opset int64, w, b *onnx.Tensor) (*linearLayer, error) {
+	l := &linearLayer{node: n, w: w, b: b, cache: map[string]*onnx.Tensor{}}
+	l.wPos, l.wNeg = onnx.New(w.Shape...), onnx.New(w.Shape...)
 	for i, v := range w.Data {
 		if v > 0 {
 			l.wPos.Data[i] = v
@@ -41,19 +41,19 @@ func newLinearLayer(n *graph.Node, opset int64, w, b *graph.Tensor) (*linearLaye
 		}
 	}
 	var err error
-	if l.full, err = graph.NewExecutor(layerModel(n, opset, w, b)); err != nil {
+	if l.full, err = onnx.NewExecutor(layerModel(n, opset, w, b)); err != nil {
 		return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 	}
-	if l.pos, err = graph.NewExecutor(layerModel(n, opset, l.wPos, nil)); err != nil {
+	if l.pos, err = onnx.NewExecutor(layerModel(n, opset, l.wPos, nil)); err != nil {
 		return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 	}
-	if l.neg, err = graph.NewExecutor(layerModel(n, opset, l.wNeg, nil)); err != nil {
+	if l.neg, err = onnx.NewExecutor(layerModel(n, opset, l.wNeg, nil)); err != nil {
 		return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 	}
 	l.geom, l.sparse = convGeometry(n, w)
 	if g, _ := n.AttrInt("group", 1); n.OpType == "Conv" && g == 1 && len(w.Shape) >= 3 {
 		l.wSplit = stackChannels(l.wPos, l.wNeg)
-		if l.split, err = graph.NewExecutor(layerModel(n, opset, l.wSplit, nil)); err != nil {
+		if l.split, err = onnx.NewExecutor(layerModel(n, opset, l.wSplit, nil)); err != nil {
 			return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 		}
 	}
@@ -62,10 +62,10 @@ func newLinearLayer(n *graph.Node, opset int64, w, b *graph.Tensor) (*linearLaye
 
 // stackChannels concatenates two convolution weights (M, C, k...) along
 // the input channels into (M, 2C, k...).
-func stackChannels(a, b *graph.Tensor) *graph.Tensor {
+func stackChannels(a, b *onnx.Tensor) *onnx.Tensor {
 	shape := append([]int(nil), a.Shape...)
 	shape[1] *= 2
-	out := graph.New(shape...)
+	out := onnx.New(shape...)
 	per := a.Len() / a.Shape[0]
 	for m := 0; m < a.Shape[0]; m++ {
 		copy(out.Data[2*m*per:], a.Data[m*per:(m+1)*per])
@@ -76,9 +76,9 @@ func stackChannels(a, b *graph.Tensor) *graph.Tensor {
 
 // vjpPosNeg returns W⁺ᵀs and W⁻ᵀs, in one backward pass when the layer
 // allows it.
-func (l *linearLayer) vjpPosNeg(x, z, s *graph.Tensor) (*graph.Tensor, *graph.Tensor, error) {
+func (l *linearLayer) vjpPosNeg(x, z, s *onnx.Tensor) (*onnx.Tensor, *onnx.Tensor, error) {
 	if l.sparse && sparseEnough(s) {
-		c := l.geom.transpose(s, x, []*graph.Tensor{l.wPos, l.wNeg})
+		c := l.geom.transpose(s, x, []*onnx.Tensor{l.wPos, l.wNeg})
 		return c[0], c[1], nil
 	}
 	if l.split == nil {
@@ -91,11 +91,11 @@ func (l *linearLayer) vjpPosNeg(x, z, s *graph.Tensor) (*graph.Tensor, *graph.Te
 	}
 	shape := append([]int(nil), x.Shape...)
 	shape[1] *= 2
-	c, err := vjp(l.split, l.wSplit, nil, graph.New(shape...), z, s)
+	c, err := vjp(l.split, l.wSplit, nil, onnx.New(shape...), z, s)
 	if err != nil {
 		return nil, nil, err
 	}
-	cp, cn := graph.New(x.Shape...), graph.New(x.Shape...)
+	cp, cn := onnx.New(x.Shape...), onnx.New(x.Shape...)
 	plane := x.Len() / (x.Shape[0] * x.Shape[1])
 	for nb := 0; nb < x.Shape[0]; nb++ {
 		for ch := 0; ch < x.Shape[1]; ch++ {
@@ -111,25 +111,25 @@ func (l *linearLayer) vjpPosNeg(x, z, s *graph.Tensor) (*graph.Tensor, *graph.Te
 
 // layerModel is a one-node model computing n's operator on input "x" with
 // weight w and optional bias b, output "z".
-func layerModel(n *graph.Node, opset int64, w, b *graph.Tensor) *graph.Model {
+func layerModel(n *onnx.Node, opset int64, w, b *onnx.Tensor) *onnx.Model {
 	inputs := []string{"x", "w"}
-	inits := []*graph.Initializer{{Name: "w", DType: graph.Float, Tensor: w}}
+	inits := []*onnx.Initializer{{Name: "w", DType: onnx.Float, Tensor: w}}
 	if b != nil {
 		inputs = append(inputs, "b")
-		inits = append(inits, &graph.Initializer{Name: "b", DType: graph.Float, Tensor: b})
+		inits = append(inits, &onnx.Initializer{Name: "b", DType: onnx.Float, Tensor: b})
 	}
-	node := &graph.Node{Name: n.Name, OpType: n.OpType, Inputs: inputs, Outputs: []string{"z"}, Attrs: n.Attrs}
-	g := &graph.Graph{
-		Name: "lrp-layer", Nodes: []*graph.Node{node}, Initializers: inits,
-		Inputs:  []*graph.ValueInfo{{Name: "x", ElemType: graph.Float}},
-		Outputs: []*graph.ValueInfo{{Name: "z", ElemType: graph.Float}},
+	node := &onnx.Node{Name: n.Name, OpType: n.OpType, Inputs: inputs, Outputs: []string{"z"}, Attrs: n.Attrs}
+	g := &onnx.Graph{
+		Name: "lrp-layer", Nodes: []*onnx.Node{node}, Initializers: inits,
+		Inputs:  []*onnx.ValueInfo{{Name: "x", ElemType: onnx.Float}},
+		Outputs: []*onnx.ValueInfo{{Name: "z", ElemType: onnx.Float}},
 	}
-	return &graph.Model{IRVersion: 8, OpsetImports: []graph.OpsetID{{Version: opset}}, Graph: g}
+	return &onnx.Model{IRVersion: 8, OpsetImports: []onnx.OpsetID{{Version: opset}}, Graph: g}
 }
 
 // forward runs one of the layer's executors on x.
-func forward(e *graph.Executor, x *graph.Tensor) (*graph.Tensor, error) {
-	tr, err := e.Forward(map[string]*graph.Tensor{"x": x})
+func forward(e *onnx.Executor, x *onnx.Tensor) (*onnx.Tensor, error) {
+	tr, err := e.Forward(map[string]*onnx.Tensor{"x": x})
 	if err != nil {
 		return nil, err
 	}
@@ -139,38 +139,38 @@ func forward(e *graph.Executor, x *graph.Tensor) (*graph.Tensor, error) {
 // vjp returns sᵀ·∂z/∂x of one of the layer's executors (w, b its weights),
 // at input x with output shape like z. For a linear layer it does not
 // depend on x's values.
-func vjp(e *graph.Executor, w, b, x, z, s *graph.Tensor) (*graph.Tensor, error) {
-	vals := map[string]*graph.Tensor{"x": x, "w": w, "z": z}
+func vjp(e *onnx.Executor, w, b, x, z, s *onnx.Tensor) (*onnx.Tensor, error) {
+	vals := map[string]*onnx.Tensor{"x": x, "w": w, "z": z}
 	if b != nil {
 		vals["b"] = b
 	}
-	g, err := e.BackwardWith(&graph.Trace{Values: vals}, map[string]*graph.Tensor{"z": s}, graph.BackwardOptions{NoParams: true})
+	g, err := e.BackwardWith(&onnx.Trace{Values: vals}, map[string]*onnx.Tensor{"z": s}, onnx.BackwardOptions{NoParams: true})
 	if err != nil {
 		return nil, err
 	}
 	if c := g.Of("x"); c != nil {
 		return c, nil
 	}
-	return graph.New(x.Shape...), nil
+	return onnx.New(x.Shape...), nil
 }
 
-func (l *linearLayer) vjpFull(x, z, s *graph.Tensor) (*graph.Tensor, error) {
+func (l *linearLayer) vjpFull(x, z, s *onnx.Tensor) (*onnx.Tensor, error) {
 	if l.sparse && sparseEnough(s) {
-		return l.geom.transpose(s, x, []*graph.Tensor{l.w})[0], nil
+		return l.geom.transpose(s, x, []*onnx.Tensor{l.w})[0], nil
 	}
 	return vjp(l.full, l.w, l.b, x, z, s)
 }
 
-func (l *linearLayer) vjpPos(x, z, s *graph.Tensor) (*graph.Tensor, error) {
+func (l *linearLayer) vjpPos(x, z, s *onnx.Tensor) (*onnx.Tensor, error) {
 	if l.sparse && sparseEnough(s) {
-		return l.geom.transpose(s, x, []*graph.Tensor{l.wPos})[0], nil
+		return l.geom.transpose(s, x, []*onnx.Tensor{l.wPos})[0], nil
 	}
 	return vjp(l.pos, l.wPos, nil, x, z, s)
 }
 
-func (l *linearLayer) vjpNeg(x, z, s *graph.Tensor) (*graph.Tensor, error) {
+func (l *linearLayer) vjpNeg(x, z, s *onnx.Tensor) (*onnx.Tensor, error) {
 	if l.sparse && sparseEnough(s) {
-		return l.geom.transpose(s, x, []*graph.Tensor{l.wNeg})[0], nil
+		return l.geom.transpose(s, x, []*onnx.Tensor{l.wNeg})[0], nil
 	}
 	return vjp(l.neg, l.wNeg, nil, x, z, s)
 }
@@ -178,14 +178,14 @@ func (l *linearLayer) vjpNeg(x, z, s *graph.Tensor) (*graph.Tensor, error) {
 // cached returns the layer's output on a constant input (0 through the full
 // executor: the bias as broadcast into the output; 1 through W⁺ or W⁻: the
 // z^B bound maps), computing it once per input shape.
-func (l *linearLayer) cached(kind string, shape []int) (*graph.Tensor, error) {
+func (l *linearLayer) cached(kind string, shape []int) (*onnx.Tensor, error) {
 	key := fmt.Sprint(kind, shape)
 	l.mu.Lock()
 	defer l.mu.Unlock()
 	if t := l.cache[key]; t != nil {
 		return t, nil
 	}
-	in := graph.New(shape...)
+	in := onnx.New(shape...)
 	e := l.full
 	switch kind {
 	case "bias":

@@ -82,7 +82,7 @@ func (m Method) About() string {
 // opposed to ONNX Runtime).
 func (m Method) needsExecutor() bool { return m != Occlusion }
 
-// Availability says whether a method can run on a bundle and, if not, why.
+// Availability says whether a method can run on a model folder and, if not, why.
 type Availability struct {
 	Method    Method
 	Available bool

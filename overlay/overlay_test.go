@@ -8,16 +8,16 @@ import (
 	"strings"
 	"testing"
 
-	"brightfold/graph"
 	"brightfold/inference"
-	"brightfold/volume"
+	"brightfold/internal/onnx"
+	"brightfold/internal/volume"
 )
 
 const testGrid = 16
 
 func testExplainer(t *testing.T, spec modelSpec, withSession bool) *Explainer {
 	t.Helper()
-	b := testBundle(t, spec)
+	b := testModelFolder(t, spec)
 	var s *inference.Session
 	if withSession {
 		s = testSession(t, b)
@@ -191,7 +191,7 @@ func TestOcclusionDefinition(t *testing.T) {
 		t.Fatalf("passes %d, progress %v", m.Passes, calls)
 	}
 	score := func(data []float32) float64 {
-		tr, err := ex.exec.Forward(map[string]*graph.Tensor{"scan": graph.FromData(data, 1, 1, testGrid, testGrid, testGrid)})
+		tr, err := ex.exec.Forward(map[string]*onnx.Tensor{"scan": onnx.FromData(data, 1, 1, testGrid, testGrid, testGrid)})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -418,8 +418,8 @@ func TestSparseConvTranspose(t *testing.T) {
 		{[]int{1, 3, 20}, []int{2, 3, 5}, []int64{3}, []int64{1}, []int64{2, 2}},
 	} {
 		w := randTensor(r, 1, c.w...)
-		n := &graph.Node{OpType: "Conv", Name: "c", Attrs: []*graph.Attribute{
-			graph.IntsAttr("strides", c.strides...), graph.IntsAttr("dilations", c.dils...), graph.IntsAttr("pads", c.pads...)}}
+		n := &onnx.Node{OpType: "Conv", Name: "c", Attrs: []*onnx.Attribute{
+			onnx.IntsAttr("strides", c.strides...), onnx.IntsAttr("dilations", c.dils...), onnx.IntsAttr("pads", c.pads...)}}
 		l, err := newLinearLayer(n, 13, w, nil)
 		if err != nil {
 			t.Fatal(err)
@@ -432,7 +432,7 @@ func TestSparseConvTranspose(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		s := graph.New(z.Shape...)
+		s := onnx.New(z.Shape...)
 		for i := range s.Data {
 			if r.IntN(6) == 0 {
 				s.Data[i] = float32(r.NormFloat64())
@@ -442,7 +442,7 @@ func TestSparseConvTranspose(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		got := l.geom.transpose(s, x, []*graph.Tensor{w, l.wPos})
+		got := l.geom.transpose(s, x, []*onnx.Tensor{w, l.wPos})
 		if d := relDiff(got[0].Data, want.Data); d > 1e-5 {
 			t.Errorf("%v over %v: sparse Wᵀs differs from the executor by %.3g", c.w, c.x, d)
 		}

@@ -12,9 +12,9 @@ import (
 	"brightfold/internal/refcheck"
 )
 
-// fixtureBundle is the PyTorch-exported fixture of testdata/pytorch as a
-// bundle (a card written here), and its input tensor.
-func fixtureBundle(t *testing.T) (*inference.Bundle, *inference.Tensor) {
+// fixtureModelFolder is the PyTorch-exported fixture of testdata/pytorch as a
+// model folder (a card written here), and its input tensor.
+func fixtureModelFolder(t *testing.T) (*inference.ModelFolder, *inference.Tensor) {
 	t.Helper()
 	dir := filepath.Join(refcheck.RepoRoot(), "testdata", "pytorch")
 	model, err := os.ReadFile(filepath.Join(dir, "small3d.onnx"))
@@ -31,7 +31,7 @@ func fixtureBundle(t *testing.T) (*inference.Bundle, *inference.Tensor) {
 	}
 	card := testCard(model, g)
 	card.Input.Name = "input"
-	b, err := inference.NewBundle(card, model)
+	b, err := inference.NewModelFolder(card, model)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -53,7 +53,7 @@ func fixtureBundle(t *testing.T) (*inference.Bundle, *inference.Tensor) {
 // trick of their section 10.2.
 func TestPyTorchFixtureAgainstTorch(t *testing.T) {
 	refcheck.PythonModule(t, "torch")
-	b, in := fixtureBundle(t)
+	b, in := fixtureModelFolder(t)
 	ex, err := New(b, nil)
 	if err != nil {
 		t.Fatal(err)

@@ -6,7 +6,7 @@ import (
 	"math"
 
 	"brightfold/inference"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // GridVolume returns the map as a volume on the model grid (the grid's

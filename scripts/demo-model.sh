@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
-# Retrains the demo model from its seeds (tools/traindemo, recipe
+# Retrains the demo model from its seeds (cmd/traindemo, recipe
 # train.DemoRecipe) and checks that the new card's metrics reproduce those of
-# the committed bundle assets/demo-bundle/card.json.
+# the committed model folder assets/demo-model/card.json.
 #
 # Training is deterministic: every sum over cases is taken in case order and
 # each case runs on a single-worker executor, so on the same architecture
@@ -12,17 +12,17 @@
 # of DEMO_MODEL_TOL (default 0.02) on every metric (AUROC, accuracy, ECE,
 # NLL, fit-check rates) and 0.2 on the temperature.
 #
-# DEMO_MODEL_WRITE=1 writes the new bundle over assets/demo-bundle (and the
+# DEMO_MODEL_WRITE=1 writes the new model folder over assets/demo-model (and the
 # report over assets/demo-training.json) instead of comparing.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 tol=${DEMO_MODEL_TOL:-0.02}
 if [[ "${DEMO_MODEL_WRITE:-0}" == 1 ]]; then
-	go run ./tools/traindemo -out assets/demo-bundle -report assets/demo-training.json
+	go run ./cmd/traindemo -out assets/demo-model -report assets/demo-training.json
 	exit
 fi
 out=$(mktemp -d)
 trap 'rm -rf "$out"' EXIT
-go run ./tools/traindemo -out "$out/demo-bundle" -report "$out/demo-training.json" \
-	-compare assets/demo-bundle/card.json -tol "$tol"
-echo "demo-model: metrics reproduce the committed bundle within $tol (report: see above)"
+go run ./cmd/traindemo -out "$out/demo-model" -report "$out/demo-training.json" \
+	-compare assets/demo-model/card.json -tol "$tol"
+echo "demo-model: metrics reproduce the committed model folder within $tol (report: see above)"

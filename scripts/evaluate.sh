@@ -1,5 +1,5 @@
 #!/usr/bin/env bash
-# Evaluates the demo bundle (tools/evaluate, package study): fresh synthetic
+# Evaluates the demo model folder (cmd/evaluate, package study): fresh synthetic
 # phantoms generated in memory from a seed never used in training (200
 # in-distribution and 20 of each shift type by default) and the real scans of
 # Debian's nibabel and pydicom test data, scored through ONNX Runtime as
@@ -8,7 +8,7 @@
 # AUROC and ECE from cases.csv with sklearn under /usr/bin/python3, and
 # refreshes the figures block of docs/evaluation.md.
 #
-# EVAL_N, EVAL_PER_SHIFT, EVAL_SEED and EVAL_MODEL (a bundle folder or zip)
+# EVAL_N, EVAL_PER_SHIFT, EVAL_SEED and EVAL_MODEL (a model folder folder or zip)
 # change the run; EVAL_DOC= (empty) leaves docs/evaluation.md alone.
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -19,5 +19,5 @@ args=(-out out/evaluation -n "${EVAL_N:-200}" -per-shift "${EVAL_PER_SHIFT:-20}"
 doc=${EVAL_DOC-docs/evaluation.md}
 [[ -n "$doc" ]] && args+=(-doc "$doc")
 mkdir -p bin
-${GO:-go} build -o bin/evaluate ./tools/evaluate
+${GO:-go} build -o bin/evaluate ./cmd/evaluate
 exec bin/evaluate "${args[@]}"

@@ -5,7 +5,13 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
-PKGS="gcc libgl1-mesa-dev xorg-dev pkg-config python3-nibabel python3-pydicom python3-sklearn python3-scipy libonnx-testdata xvfb xauth poppler-utils tesseract-ocr"
+# Build: gcc, libgl1-mesa-dev, xorg-dev, pkg-config.
+# References the tests require: python3-nibabel, python3-pydicom, python3-sklearn,
+# python3-scipy, python3-torch, python3-statsmodels, python3-dipy, r-cran-proc,
+# libonnx-testdata. A private Slurm cluster for the sweep test: slurmctld,
+# slurmd, slurm-client, munge. Checks of outputs: xvfb, xauth (screenshots),
+# poppler-utils (pdftotext/pdftoppm on PDF reports), tesseract-ocr (exports).
+PKGS="gcc libgl1-mesa-dev xorg-dev pkg-config python3-nibabel python3-pydicom python3-sklearn python3-scipy python3-torch python3-statsmodels python3-dipy r-cran-proc libonnx-testdata slurmctld slurmd slurm-client munge xvfb xauth poppler-utils tesseract-ocr"
 missing=""
 for p in $PKGS; do
   dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed" || missing="$missing $p"
@@ -15,7 +21,7 @@ if [ -n "$missing" ]; then
     echo "setup: installing Debian packages:$missing"
     export DEBIAN_FRONTEND=noninteractive
     apt-get update -q >/dev/null
-    apt-get install -y -q $missing >/dev/null
+    apt-get install -y -q --no-install-recommends $missing >/dev/null
   else
     echo "setup: missing Debian packages. Run as root:"
     echo "  sudo apt-get update && sudo apt-get install -y$missing"

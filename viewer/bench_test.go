@@ -5,7 +5,7 @@ import (
 	"testing"
 	"time"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // benchScene is a 1 mm head phantom with a signed blob map, dims d.

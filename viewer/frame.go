@@ -4,7 +4,7 @@ import (
 	"fmt"
 	"math"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // Plane is one of the three display planes.

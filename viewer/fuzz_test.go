@@ -4,7 +4,7 @@ import (
 	"math"
 	"testing"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // FuzzRender feeds odd geometry (tiny or lopsided grids, rotations, flips,

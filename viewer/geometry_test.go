@@ -4,7 +4,7 @@ import (
 	"math"
 	"testing"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // expectedIndex gives, for an RAS volume, the voxel a pixel (u, v) must show

@@ -4,7 +4,7 @@ import (
 	"math"
 	"testing"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // newVolume makes a volume of dims with the given affine, voxel values from fn.

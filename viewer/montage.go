@@ -6,7 +6,7 @@ import (
 	"image/color"
 	"image/draw"
 
-	"brightfold/notice"
+	"brightfold/internal/notice"
 )
 
 // MontageSpec describes a report figure: the three planes through one point,

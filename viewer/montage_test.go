@@ -9,8 +9,8 @@ import (
 	"os"
 	"testing"
 
-	"brightfold/notice"
-	"brightfold/volume"
+	"brightfold/internal/notice"
+	"brightfold/internal/volume"
 )
 
 // blobMap is a signed test relevance map: a positive blob on the right, a

@@ -5,7 +5,7 @@ import (
 	"fmt"
 	"math"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // OverlayMap is a scalar map on the scan's voxel grid (a relevance map, for

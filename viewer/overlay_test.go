@@ -6,7 +6,7 @@ import (
 	"math"
 	"testing"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // overlayFixture is a 1-slice scan of constant value 50 (grey 127 under

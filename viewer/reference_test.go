@@ -5,7 +5,7 @@ import (
 	"testing"
 
 	"brightfold/internal/refcheck"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // nibabelData is Debian python3-nibabel's test data folder.

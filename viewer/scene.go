@@ -5,7 +5,7 @@ import (
 	"fmt"
 	"math"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // Scene is a volume prepared for display: where its voxel axes point in RAS

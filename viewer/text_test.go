@@ -7,7 +7,7 @@ import (
 	"strings"
 	"testing"
 
-	"brightfold/notice"
+	"brightfold/internal/notice"
 )
 
 func TestWrap(t *testing.T) {

@@ -8,7 +8,7 @@ import (
 	"testing"
 
 	"brightfold/internal/refcheck"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 func TestWindowLinearHandValues(t *testing.T) {

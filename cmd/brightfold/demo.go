@@ -10,8 +10,8 @@ import (
 	"syscall"
 	"time"
 
-	"brightfold/notice"
-	"brightfold/phantom"
+	"brightfold/internal/notice"
+	"brightfold/internal/phantom"
 )
 
 // runDemo implements `brightfold demo cohort DIR [--n N] [--seed S] [--shifts]`.

@@ -7,8 +7,8 @@ import (
 	"strings"
 	"testing"
 
-	"brightfold/notice"
-	"brightfold/volume"
+	"brightfold/internal/notice"
+	"brightfold/internal/volume"
 )
 
 func demoCLI(args ...string) (int, string, string) {

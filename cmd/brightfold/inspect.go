@@ -7,8 +7,8 @@ import (
 	"math"
 	"strings"
 
-	"brightfold/notice"
-	"brightfold/volume"
+	"brightfold/internal/notice"
+	"brightfold/internal/volume"
 )
 
 // inspectReport is the JSON of one inspected input.

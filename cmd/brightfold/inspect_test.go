@@ -11,9 +11,9 @@ import (
 	"strings"
 	"testing"
 
+	"brightfold/internal/notice"
 	"brightfold/internal/refcheck"
-	"brightfold/notice"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 const nibabelDir = "/usr/lib/python3/dist-packages/nibabel/tests/data"
@@ -29,7 +29,7 @@ func runCLI(args ...string) (code int, stdout, stderr string) {
 // nibabel 5.0 reports (volume/testdata/nifti_ref.py), plus the notice.
 func TestInspectJSONAgainstNibabel(t *testing.T) {
 	refcheck.PythonModule(t, "nibabel")
-	script := filepath.Join(refcheck.RepoRoot(), "volume", "testdata", "nifti_ref.py")
+	script := filepath.Join(refcheck.RepoRoot(), "internal", "volume", "testdata", "nifti_ref.py")
 	for _, name := range []string{"anatomical.nii", "example4d.nii.gz"} {
 		p := refcheck.Path(t, filepath.Join(nibabelDir, name))
 		code, out, errs := runCLI("inspect", p, "--json")

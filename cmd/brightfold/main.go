@@ -1,6 +1,6 @@
 // Command brightfold is the Brightfold desktop viewer and its headless
-// command line: inspect scans, score them with a model bundle, make the
-// synthetic demo cohort, and check bundles. Research use only.
+// command line: inspect scans, score them with a model folder, make the
+// synthetic demo cohort, and check model folders. Research use only.
 package main
 
 import (
@@ -11,9 +11,9 @@ import (
 	"os"
 	"runtime/debug"
 
-	"brightfold/inputerr"
+	"brightfold/internal/inputerr"
 	_ "brightfold/internal/langenv"
-	"brightfold/notice"
+	"brightfold/internal/notice"
 )
 
 // command is one sub-command: run parses its own flags from args.
@@ -31,9 +31,9 @@ func commands() []command {
 	return []command{
 		{"view", "view [PATH...]          desktop viewer on scans or folders (default: the demo cohort)", runView},
 		{"inspect", "inspect PATH [--json]   header, geometry, series summary", runInspect},
-		{"score", "score PATH [--model BUNDLE] [--map lrp|ig|gradinput|occlusion|none] [--out DIR] [--json]", runScore},
+		{"score", "score PATH [--model MODEL] [--map lrp|ig|gradinput|occlusion|none] [--out DIR] [--json]", runScore},
 		{"demo", "demo cohort DIR [--n N] [--seed S] [--shifts]", runDemo},
-		{"bundle", "bundle check BUNDLE", runBundle},
+		{"model", "model check MODEL", runModelFolder},
 	}
 }
 

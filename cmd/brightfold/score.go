@@ -12,11 +12,11 @@ import (
 	"brightfold/assets"
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
-	"brightfold/inputerr"
-	"brightfold/notice"
-	"brightfold/ortlib"
-	"brightfold/report"
-	"brightfold/volume"
+	"brightfold/internal/inputerr"
+	"brightfold/internal/notice"
+	"brightfold/internal/ortlib"
+	"brightfold/internal/report"
+	"brightfold/internal/volume"
 )
 
 type scoreOptions struct {
@@ -28,12 +28,12 @@ type scoreOptions struct {
 // relevanceMethods are the --map values (package overlay; scoremap.go).
 var relevanceMethods = []string{"none", "lrp", "ig", "gradinput", "occlusion"}
 
-// runScore scores one scan with a model bundle: prediction, calibrated
+// runScore scores one scan with a model folder: prediction, calibrated
 // probability and the fit check, as text or JSON, and result.json with --out.
 func runScore(e *env, args []string) error {
 	fs := newFlags(e, "score")
 	var o scoreOptions
-	fs.StringVar(&o.model, "model", "", "model bundle: a folder or .zip with model.onnx and card.json (default: the embedded demo bundle)")
+	fs.StringVar(&o.model, "model", "", "model folder: a folder or .zip with model.onnx and card.json (default: the embedded demo model folder)")
 	fs.StringVar(&o.out, "out", "", "folder to write result.json into (created if needed)")
 	fs.StringVar(&o.mapMethod, "map", "none", "relevance map: "+strings.Join(relevanceMethods, "|"))
 	fs.BoolVar(&o.json, "json", false, "print JSON instead of text")
@@ -44,7 +44,7 @@ func runScore(e *env, args []string) error {
 	fs.IntVar(&o.volumeIndex, "volume", 0, "volume of a 4D NIfTI input to score")
 	fs.StringVar(&o.series, "series", "", "DICOM series UID to score when the input holds several")
 	fs.Usage = func() {
-		fmt.Fprintln(e.stderr, "usage: brightfold score PATH [--model BUNDLE] [--map "+strings.Join(relevanceMethods, "|")+"] [--out DIR] [--json]")
+		fmt.Fprintln(e.stderr, "usage: brightfold score PATH [--model MODEL] [--map "+strings.Join(relevanceMethods, "|")+"] [--out DIR] [--json]")
 		fs.PrintDefaults()
 	}
 	paths, err := parseFlags(fs, args)
@@ -61,11 +61,11 @@ func runScore(e *env, args []string) error {
 		return usageError("brightfold score: --threads must be 0 (all cores) or more, got %d", o.threads)
 	}
 	t0 := time.Now()
-	bundle, err := openBundle(o.model)
+	mf, err := openModelFolder(o.model)
 	if err != nil {
 		return err
 	}
-	sess, err := openSession(bundle, o.ortLib, o.threads)
+	sess, err := openSession(mf, o.ortLib, o.threads)
 	if err != nil {
 		return err
 	}
@@ -86,13 +86,13 @@ func runScore(e *env, args []string) error {
 		return err
 	}
 	input := strings.Join(paths, " ")
-	rep := scoreReport(input, v, bundle, res)
+	rep := scoreReport(input, v, mf, res)
 	rep.TimingMs["load"] = loadMs
 	if o.mapMethod != "none" {
 		if res.Prepared == nil {
 			return inputerr.New(input, "--map %s: the scan could not be prepared for the model, so there is no relevance map", o.mapMethod)
 		}
-		if err := addRelevance(e, o, paths, v, bundle, sess, res, rep); err != nil {
+		if err := addRelevance(e, o, paths, v, mf, sess, res, rep); err != nil {
 			return err
 		}
 	}
@@ -117,26 +117,26 @@ func runScore(e *env, args []string) error {
 
 func msSince(t time.Time) float64 { return float64(time.Since(t).Microseconds()) / 1000 }
 
-// openBundle loads the bundle named by --model, or the embedded demo bundle.
-func openBundle(p string) (*inference.Bundle, error) {
+// openModelFolder loads the model folder named by --model, or the embedded demo model folder.
+func openModelFolder(p string) (*inference.ModelFolder, error) {
 	if p == "" {
-		return demoBundle()
+		return demoModelFolder()
 	}
-	return inference.LoadBundle(p)
+	return inference.LoadModelFolder(p)
 }
 
-// demoBundle is the bundle used without --model: the embedded demo bundle.
-func demoBundle() (*inference.Bundle, error) {
-	b, err := inference.LoadBundleFS(assets.DemoBundle())
+// demoModelFolder is the model folder used without --model: the embedded demo model folder.
+func demoModelFolder() (*inference.ModelFolder, error) {
+	b, err := inference.LoadModelFolderFS(assets.DemoModelFolder())
 	if err != nil {
-		return nil, fmt.Errorf("%s: %w", assets.DemoBundleName, err)
+		return nil, fmt.Errorf("%s: %w", assets.DemoModelFolderName, err)
 	}
-	b.Source = assets.DemoBundleName
+	b.Source = assets.DemoModelFolderName
 	return b, nil
 }
 
-// openSession finds and loads ONNX Runtime and makes the bundle's session.
-func openSession(b *inference.Bundle, libFlag string, threads int) (*inference.Session, error) {
+// openSession finds and loads ONNX Runtime and makes the model folder's session.
+func openSession(b *inference.ModelFolder, libFlag string, threads int) (*inference.Session, error) {
 	lib, err := ortlib.Find(libFlag)
 	if err != nil {
 		return nil, inputerr.New(libFlag, "%v", err)
@@ -179,7 +179,7 @@ func writeResult(o scoreOptions, paths []string, rep *report.Score) error {
 }
 
 // scoreReport is the JSON form of a result.
-func scoreReport(input string, v *volume.Volume, b *inference.Bundle, r *inference.Result) *report.Score {
+func scoreReport(input string, v *volume.Volume, b *inference.ModelFolder, r *inference.Result) *report.Score {
 	c := b.Card
 	orient := "?"
 	if m, err := volume.ClosestAxes(v.Affine); err == nil {

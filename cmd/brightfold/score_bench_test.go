@@ -14,7 +14,7 @@ import (
 
 	"brightfold/inference"
 	"brightfold/internal/refcheck"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // benchScan writes a 256×256×176 1 mm int16 .nii.gz head-like volume (an
@@ -64,7 +64,7 @@ type benchModel struct {
 	feat    int      // width of the Flatten features
 }
 
-// benchModels are the stand-ins BRIGHTFOLD_BENCH_BUNDLE can name: "standin",
+// benchModels are the stand-ins BRIGHTFOLD_BENCH_MODEL can name: "standin",
 // the 48³ three-stage CNN of make_test_model.py --bench at 4 mm; "moderate",
 // an untrained CNN of moderate size for a structural brain-MRI classifier
 // (make_test_model.py --moderate: 96³ at 2 mm, seven convolutions of 16 to 128
@@ -77,13 +77,13 @@ var benchModels = map[string]benchModel{
 	"large":    {args: []string{"--large"}, grid: 128, spacing: 1.5, feat: 192},
 }
 
-// benchBundle writes the stand-in bundle kind into dir, with the demo-like
+// benchModelFolder writes the stand-in model folder kind into dir, with the demo-like
 // preprocessing at the stand-in's grid and spacing and an unfitted reference
 // (the timing does not depend on the reference's values).
-func benchBundle(b *testing.B, dir, kind string) string {
+func benchModelFolder(b *testing.B, dir, kind string) string {
 	bm, ok := benchModels[kind]
 	if !ok {
-		b.Fatalf("BRIGHTFOLD_BENCH_BUNDLE=%s: not a stand-in (standin, moderate, large) and not a folder", kind)
+		b.Fatalf("BRIGHTFOLD_BENCH_MODEL=%s: not a stand-in (standin, moderate, large) and not a folder", kind)
 	}
 	refcheck.PythonModule(b, "torch")
 	if err := os.MkdirAll(dir, 0o755); err != nil {
@@ -126,7 +126,7 @@ func benchBundle(b *testing.B, dir, kind string) string {
 		},
 		ModelSHA256: hex.EncodeToString(sum[:]), IntendedUse: "benchmark", TrainingData: "none",
 	}
-	if err := inference.WriteBundleDir(dir, card, mb); err != nil {
+	if err := inference.WriteModelFolderDir(dir, card, mb); err != nil {
 		b.Fatal(err)
 	}
 	return dir
@@ -143,21 +143,21 @@ func median(xs []float64) float64 {
 // checks) against the bare ONNX Runtime Run on the same tensor, and the peak
 // resident memory of the whole `brightfold score` command in a child process.
 // Goal (issue 4): overhead (score − Run)/Run ≤ 0.2; peak RSS ≤ 600 MB.
-// The model is the embedded demo bundle; BRIGHTFOLD_BENCH_BUNDLE names
-// another bundle folder, or a stand-in of benchModels ("standin",
+// The model is the embedded demo model folder; BRIGHTFOLD_BENCH_MODEL names
+// another model folder folder, or a stand-in of benchModels ("standin",
 // "moderate").
 func BenchmarkScoreOverhead(b *testing.B) {
 	lib := refcheck.ORTLib(b)
 	dir := b.TempDir()
-	bundleDir := os.Getenv("BRIGHTFOLD_BENCH_BUNDLE")
-	if _, ok := benchModels[bundleDir]; ok {
-		bundleDir = benchBundle(b, filepath.Join(dir, "bundle"), bundleDir)
+	modelDir := os.Getenv("BRIGHTFOLD_BENCH_MODEL")
+	if _, ok := benchModels[modelDir]; ok {
+		modelDir = benchModelFolder(b, filepath.Join(dir, "model"), modelDir)
 	}
 	scan := benchScan(b, dir)
 	if err := inference.InitRuntime(lib); err != nil {
 		b.Fatal(err)
 	}
-	bun, err := openBundle(bundleDir) // "" is the embedded demo bundle
+	bun, err := openModelFolder(modelDir) // "" is the embedded demo model folder
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -202,7 +202,7 @@ func BenchmarkScoreOverhead(b *testing.B) {
 	b.ReportMetric(median(loadMs), "load_ms")
 	b.ReportMetric((median(scoreMs)-run)/run, "overhead_ratio")
 	b.ReportMetric((median(noLoadMs)-run)/run, "overhead_ratio_loaded_scan")
-	rss, wall := childScoreRSS(b, scan, bundleDir, lib)
+	rss, wall := childScoreRSS(b, scan, modelDir, lib)
 	b.ReportMetric(rss, "peak_rss_MB")
 	b.ReportMetric(wall, "cli_wall_ms")
 }
@@ -212,9 +212,9 @@ func ms(d time.Duration) float64 { return float64(d.Microseconds()) / 1000 }
 // childScoreRSS runs `brightfold score` (this test binary, dispatching to run)
 // in a child process and returns its peak resident memory in MB and its wall
 // time in ms.
-func childScoreRSS(b *testing.B, scan, bundle, lib string) (float64, float64) {
+func childScoreRSS(b *testing.B, scan, mf, lib string) (float64, float64) {
 	cmd := exec.Command(os.Args[0], "-test.run", "^TestScoreChildProcess$")
-	cmd.Env = append(os.Environ(), "BRIGHTFOLD_SCORE_CHILD=1", "BRIGHTFOLD_SCORE_SCAN="+scan, "BRIGHTFOLD_SCORE_BUNDLE="+bundle, "BRIGHTFOLD_SCORE_LIB="+lib)
+	cmd.Env = append(os.Environ(), "BRIGHTFOLD_SCORE_CHILD=1", "BRIGHTFOLD_SCORE_SCAN="+scan, "BRIGHTFOLD_SCORE_MODEL="+mf, "BRIGHTFOLD_SCORE_LIB="+lib)
 	t0 := time.Now()
 	out, err := cmd.CombinedOutput()
 	wall := ms(time.Since(t0))
@@ -235,7 +235,7 @@ func TestScoreChildProcess(t *testing.T) {
 		return
 	}
 	args := []string{"score", os.Getenv("BRIGHTFOLD_SCORE_SCAN"), "--ort-lib", os.Getenv("BRIGHTFOLD_SCORE_LIB"), "--json"}
-	if m := os.Getenv("BRIGHTFOLD_SCORE_BUNDLE"); m != "" {
+	if m := os.Getenv("BRIGHTFOLD_SCORE_MODEL"); m != "" {
 		args = append(args, "--model", m)
 	}
 	code := run(args, &env{stdout: os.Stdout, stderr: os.Stderr})

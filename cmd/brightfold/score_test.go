@@ -8,15 +8,15 @@ import (
 	"strings"
 	"testing"
 
+	"brightfold/internal/notice"
+	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
-	"brightfold/notice"
-	"brightfold/phantom"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
-// tinyBundle copies the inference package's test model and its example card
-// into a bundle folder.
-func tinyBundle(t *testing.T) string {
+// tinyModelFolder copies the inference package's test model and its example card
+// into a model folder folder.
+func tinyModelFolder(t *testing.T) string {
 	t.Helper()
 	dir := filepath.Join(t.TempDir(), "tiny")
 	os.MkdirAll(dir, 0o755)
@@ -58,10 +58,10 @@ func headNIfTI(t *testing.T) string {
 
 func TestScoreJSONAndResultFile(t *testing.T) {
 	lib := refcheck.ORTLib(t)
-	bundle := tinyBundle(t)
+	mf := tinyModelFolder(t)
 	scan := headNIfTI(t)
 	out := filepath.Join(t.TempDir(), "out")
-	code, stdout, stderr := runCLI("score", scan, "--model", bundle, "--json", "--out", out, "--ort-lib", lib, "--threads", "1")
+	code, stdout, stderr := runCLI("score", scan, "--model", mf, "--json", "--out", out, "--ort-lib", lib, "--threads", "1")
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, stderr)
 	}
@@ -113,7 +113,7 @@ func TestScoreJSONAndResultFile(t *testing.T) {
 		t.Errorf("out folder holds %d entries (temporary files left?)", len(entries))
 	}
 	// text form: notice first and last, prediction, fit check, model
-	code, stdout, stderr = runCLI("score", scan, "--model", bundle, "--ort-lib", lib)
+	code, stdout, stderr = runCLI("score", scan, "--model", mf, "--ort-lib", lib)
 	if code != 0 {
 		t.Fatalf("text: exit %d: %s", code, stderr)
 	}
@@ -147,11 +147,11 @@ var realScans = []string{
 // preparation check and no prediction).
 func TestScoreNibabelScansOutOfDistribution(t *testing.T) {
 	lib := refcheck.ORTLib(t)
-	bundle := tinyBundle(t)
+	mf := tinyModelFolder(t)
 	for _, p := range realScans {
 		name := filepath.Base(p)
 		refcheck.Path(t, p)
-		code, stdout, stderr := runCLI("score", p, "--model", bundle, "--json", "--ort-lib", lib)
+		code, stdout, stderr := runCLI("score", p, "--model", mf, "--json", "--ort-lib", lib)
 		if code != 0 {
 			t.Fatalf("%s: exit %d: %s", name, code, stderr)
 		}
@@ -179,11 +179,11 @@ func TestScoreNibabelScansOutOfDistribution(t *testing.T) {
 	}
 }
 
-func TestScoreAndBundleErrors(t *testing.T) {
+func TestScoreAndModelFolderErrors(t *testing.T) {
 	lib := refcheck.ORTLib(t)
-	bundle := tinyBundle(t)
+	mf := tinyModelFolder(t)
 	scan := headNIfTI(t)
-	tampered := tinyBundle(t)
+	tampered := tinyModelFolder(t)
 	m := filepath.Join(tampered, "model.onnx")
 	b, _ := os.ReadFile(m)
 	b[len(b)-5] ^= 0xff
@@ -197,14 +197,14 @@ func TestScoreAndBundleErrors(t *testing.T) {
 		args []string
 		want string
 	}{
-		{[]string{"score", filepath.Join(t.TempDir(), "missing.nii"), "--model", bundle, "--ort-lib", lib}, "missing.nii"},
+		{[]string{"score", filepath.Join(t.TempDir(), "missing.nii"), "--model", mf, "--ort-lib", lib}, "missing.nii"},
 		{[]string{"score", scan, "--model", tampered, "--ort-lib", lib}, "sha256"},
-		{[]string{"score", scan, "--model", bundle, "--map", "lrp", "--ort-lib", lib}, "give --out DIR"},
-		{[]string{"score", scan, "--model", bundle, "--map", "fancy"}, "want one of"},
-		{[]string{"score", scan, "--model", bundle, "--ort-lib", filepath.Join(t.TempDir(), "nolib.so")}, "make setup"},
+		{[]string{"score", scan, "--model", mf, "--map", "lrp", "--ort-lib", lib}, "give --out DIR"},
+		{[]string{"score", scan, "--model", mf, "--map", "fancy"}, "want one of"},
+		{[]string{"score", scan, "--model", mf, "--ort-lib", filepath.Join(t.TempDir(), "nolib.so")}, "make setup"},
 		{[]string{"score"}, "give a scan"},
-		{[]string{"bundle", "check", tampered, "--ort-lib", lib}, "sha256"},
-		{[]string{"bundle", "inspect"}, "usage"},
+		{[]string{"model", "check", tampered, "--ort-lib", lib}, "sha256"},
+		{[]string{"model", "inspect"}, "usage"},
 	}
 	for _, c := range cases {
 		code, _, stderr := runCLI(c.args...)
@@ -214,7 +214,7 @@ func TestScoreAndBundleErrors(t *testing.T) {
 	}
 	// a scan the model cannot take (no head) is a result, not an error:
 	// out-of-distribution, no prediction, the failed preparation check
-	code, stdout, stderr := runCLI("score", flatPath, "--model", bundle, "--ort-lib", lib, "--json")
+	code, stdout, stderr := runCLI("score", flatPath, "--model", mf, "--ort-lib", lib, "--json")
 	var flatRes struct {
 		Prediction *struct{} `json:"prediction"`
 		OOD        struct {
@@ -232,17 +232,17 @@ func TestScoreAndBundleErrors(t *testing.T) {
 		last.Pass || !strings.Contains(last.Explanation, "no head found") {
 		t.Errorf("flat scan: exit %d, %+v\n%s", code, flatRes, stderr)
 	}
-	code, _, stderr = runCLI("score", flatPath, "--model", bundle, "--ort-lib", lib, "--map", "occlusion", "--out", t.TempDir())
+	code, _, stderr = runCLI("score", flatPath, "--model", mf, "--ort-lib", lib, "--map", "occlusion", "--out", t.TempDir())
 	if code != 2 || !strings.Contains(stderr, "no relevance map") {
 		t.Errorf("flat scan with --map: exit %d, %s", code, stderr)
 	}
-	code, stdout, stderr = runCLI("score", flatPath, "--model", bundle, "--ort-lib", lib)
+	code, stdout, stderr = runCLI("score", flatPath, "--model", mf, "--ort-lib", lib)
 	if code != 0 || !strings.Contains(stdout, "Prediction:  none") || !strings.Contains(stdout, "OUT-OF-DISTRIBUTION") {
 		t.Errorf("flat scan text: exit %d\n%s\n%s", code, stdout, stderr)
 	}
-	code, stdout, stderr = runCLI("bundle", "check", bundle, "--ort-lib", lib)
+	code, stdout, stderr = runCLI("model", "check", mf, "--ort-lib", lib)
 	if code != 0 || !strings.Contains(stdout, "OK") || !strings.Contains(stdout, "ran one all-zero case") {
-		t.Errorf("bundle check: exit %d\n%s\n%s", code, stdout, stderr)
+		t.Errorf("model folder check: exit %d\n%s\n%s", code, stdout, stderr)
 	}
 }
 
@@ -250,7 +250,7 @@ func TestScoreAndBundleErrors(t *testing.T) {
 // JSON or result.json (fictional identifiers of the demo scenario).
 func TestScoreHidesIdentifiers(t *testing.T) {
 	lib := refcheck.ORTLib(t)
-	bundle := tinyBundle(t)
+	mf := tinyModelFolder(t)
 	scan := headNIfTI(t)
 	v, err := volume.Load([]string{scan}, volume.LoadOptions{})
 	if err != nil {
@@ -265,8 +265,8 @@ func TestScoreHidesIdentifiers(t *testing.T) {
 	}
 	out := filepath.Join(t.TempDir(), "out")
 	for _, args := range [][]string{
-		{"score", dir, "--model", bundle, "--ort-lib", lib},
-		{"score", dir, "--model", bundle, "--ort-lib", lib, "--json", "--out", out},
+		{"score", dir, "--model", mf, "--ort-lib", lib},
+		{"score", dir, "--model", mf, "--ort-lib", lib, "--json", "--out", out},
 	} {
 		code, stdout, stderr := runCLI(args...)
 		if code != 0 {
@@ -281,11 +281,11 @@ func TestScoreHidesIdentifiers(t *testing.T) {
 	}
 }
 
-// Without --model, score uses the embedded demo bundle: the reference scans
+// Without --model, score uses the embedded demo model folder: the reference scans
 // of Debian's nibabel and pydicom test data are out of distribution with
 // reasons, a CT-like phantom is flagged, and an in-distribution phantom gets
 // a prediction.
-func TestScoreDemoBundle(t *testing.T) {
+func TestScoreDemoModelFolder(t *testing.T) {
 	lib := refcheck.ORTLib(t)
 	type result struct {
 		Model      struct{ Name string }

@@ -13,10 +13,10 @@ import (
 
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
-	"brightfold/inputerr"
+	"brightfold/internal/inputerr"
+	"brightfold/internal/report"
+	"brightfold/internal/volume"
 	"brightfold/overlay"
-	"brightfold/report"
-	"brightfold/volume"
 )
 
 // checkMap checks --map (and that --out gives the maps somewhere to go).
@@ -37,7 +37,7 @@ func checkMap(o scoreOptions) error {
 // it onto the scan's grid, writes relevance.nii.gz, relevance.json and
 // overlay.png into --out, and adds the relevance block to the report.
 // Ctrl-C stops a slow map cleanly (nothing is written).
-func addRelevance(e *env, o scoreOptions, paths []string, v *volume.Volume, b *inference.Bundle, sess *inference.Session, res *inference.Result, rep *report.Score) error {
+func addRelevance(e *env, o scoreOptions, paths []string, v *volume.Volume, b *inference.ModelFolder, sess *inference.Session, res *inference.Result, rep *report.Score) error {
 	t0 := time.Now()
 	method, err := overlay.ParseMethod(o.mapMethod)
 	if err != nil {
@@ -112,7 +112,7 @@ func progressPrinter(w io.Writer, method overlay.Method) func(done, total int) {
 	}
 }
 
-func relevanceInfo(m *overlay.Map, method overlay.Method, b *inference.Bundle, res *inference.Result, prob float64, input string) report.RelevanceInfo {
+func relevanceInfo(m *overlay.Map, method overlay.Method, b *inference.ModelFolder, res *inference.Result, prob float64, input string) report.RelevanceInfo {
 	checks := map[string]report.Number{}
 	for k, x := range m.Checks {
 		checks[k] = report.Number(x)
@@ -145,7 +145,7 @@ func peakRAS(m *volume.Volume) [3]float64 {
 
 // figureTitle says what the figure shows: the method, the explained class
 // with its probability, the model and the fit check.
-func figureTitle(m *overlay.Map, method overlay.Method, b *inference.Bundle, res *inference.Result, prob float64) []string {
+func figureTitle(m *overlay.Map, method overlay.Method, b *inference.ModelFolder, res *inference.Result, prob float64) []string {
 	lines := []string{
 		fmt.Sprintf("Relevance map: %s (%s). Planes through the map's peak.", method.Title(), method.Reference()),
 		fmt.Sprintf("Explains the %q logit (%.3g); calibrated probability of %q: %.2f. Red-orange speaks for the class, blue against.", m.Class, m.Target, m.Class, prob),

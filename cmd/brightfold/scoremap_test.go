@@ -10,12 +10,12 @@ import (
 	"strings"
 	"testing"
 
-	"brightfold/graph"
 	"brightfold/inference"
+	"brightfold/internal/notice"
+	"brightfold/internal/onnx"
 	"brightfold/internal/refcheck"
-	"brightfold/notice"
-	"brightfold/report"
-	"brightfold/volume"
+	"brightfold/internal/report"
+	"brightfold/internal/volume"
 )
 
 // score --map writes relevance.nii.gz on the input scan's grid (dims and
@@ -24,7 +24,7 @@ import (
 // of result.json with the method's check.
 func TestScoreMapOutputs(t *testing.T) {
 	lib := refcheck.ORTLib(t)
-	bundle := tinyBundle(t)
+	mf := tinyModelFolder(t)
 	scan := headNIfTI(t)
 	in, err := volume.Load([]string{scan}, volume.LoadOptions{})
 	if err != nil {
@@ -34,7 +34,7 @@ func TestScoreMapOutputs(t *testing.T) {
 		{"lrp", "conservation_error"}, {"ig", "completeness_error"}, {"gradinput", "relevance_sum"}, {"occlusion", "passes"},
 	} {
 		out := filepath.Join(t.TempDir(), c.method)
-		code, stdout, stderr := runCLI("score", scan, "--model", bundle, "--map", c.method, "--out", out, "--ort-lib", lib, "--threads", "1")
+		code, stdout, stderr := runCLI("score", scan, "--model", mf, "--map", c.method, "--out", out, "--ort-lib", lib, "--threads", "1")
 		if code != 0 {
 			t.Fatalf("--map %s: exit %d: %s", c.method, code, stderr)
 		}
@@ -86,16 +86,16 @@ func readJSON(t *testing.T, p string, v any) {
 	}
 }
 
-// tanhBundle is the tiny bundle with its first Relu replaced by Tanh, an
+// tanhModelFolder is the tiny model folder with its first Relu replaced by Tanh, an
 // operator ONNX Runtime runs and the Go executor lacks.
-func tanhBundle(t *testing.T) string {
+func tanhModelFolder(t *testing.T) string {
 	t.Helper()
-	dir := tinyBundle(t)
+	dir := tinyModelFolder(t)
 	data, err := os.ReadFile(filepath.Join(dir, inference.ModelFile))
 	if err != nil {
 		t.Fatal(err)
 	}
-	m, err := graph.Decode(data)
+	m, err := onnx.Decode(data)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -118,7 +118,7 @@ func tanhBundle(t *testing.T) string {
 	}
 	sum := sha256.Sum256(data)
 	card.ModelSHA256 = hex.EncodeToString(sum[:])
-	if err := inference.WriteBundleDir(dir, card, data); err != nil {
+	if err := inference.WriteModelFolderDir(dir, card, data); err != nil {
 		t.Fatal(err)
 	}
 	return dir
@@ -129,22 +129,22 @@ func tanhBundle(t *testing.T) string {
 // --map without --out is a usage error.
 func TestScoreMapUnsupportedModel(t *testing.T) {
 	lib := refcheck.ORTLib(t)
-	bundle := tanhBundle(t)
+	mf := tanhModelFolder(t)
 	scan := headNIfTI(t)
 	for _, m := range []string{"lrp", "ig", "gradinput"} {
-		code, _, stderr := runCLI("score", scan, "--model", bundle, "--map", m, "--out", t.TempDir(), "--ort-lib", lib)
+		code, _, stderr := runCLI("score", scan, "--model", mf, "--map", m, "--out", t.TempDir(), "--ort-lib", lib)
 		if code != 2 || !strings.Contains(stderr, "Tanh") || !strings.Contains(stderr, "occlusion") || strings.Count(strings.TrimSpace(stderr), "\n") > 0 {
 			t.Errorf("--map %s on the Tanh model: exit %d, %q", m, code, stderr)
 		}
 	}
 	out := t.TempDir()
-	if code, _, stderr := runCLI("score", scan, "--model", bundle, "--map", "occlusion", "--out", out, "--ort-lib", lib); code != 0 {
+	if code, _, stderr := runCLI("score", scan, "--model", mf, "--map", "occlusion", "--out", out, "--ort-lib", lib); code != 0 {
 		t.Errorf("--map occlusion on the Tanh model: exit %d, %s", code, stderr)
 	}
 	if _, err := os.Stat(filepath.Join(out, report.RelevanceFile)); err != nil {
 		t.Error(err)
 	}
-	if code, _, stderr := runCLI("score", scan, "--model", bundle, "--map", "lrp"); code != 2 || !strings.Contains(stderr, "--out") {
+	if code, _, stderr := runCLI("score", scan, "--model", mf, "--map", "lrp"); code != 2 || !strings.Contains(stderr, "--out") {
 		t.Errorf("--map without --out: exit %d, %q", code, stderr)
 	}
 }

@@ -4,7 +4,7 @@ import (
 	"os"
 
 	"brightfold/app"
-	"brightfold/inputerr"
+	"brightfold/internal/inputerr"
 )
 
 // runView opens the desktop viewer: on the given scans or folders, or with
@@ -15,7 +15,7 @@ func runView(e *env, args []string) error {
 	fs := newFlags(e, "view")
 	shot := fs.String("screenshot", "", "save the rendered window as PNG to `FILE` once ready, then exit")
 	meeting := fs.Bool("meeting", false, "start in Meeting mode (identifiers, dates and paths hidden)")
-	model := fs.String("model", "", "model `BUNDLE` (folder or .zip; default: the embedded demo model)")
+	model := fs.String("model", "", "model `MODEL` (folder or .zip; default: the embedded demo model)")
 	demoDir := fs.String("demo-dir", "", "demo cohort `folder` (default: the user cache folder, brightfold/demo)")
 	paths, err := parseFlags(fs, args)
 	if err != nil {

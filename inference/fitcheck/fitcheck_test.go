@@ -10,7 +10,7 @@ import (
 	"testing"
 
 	"brightfold/internal/refcheck"
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 func near(t *testing.T, what string, got, want, tol float64) {

@@ -4,7 +4,7 @@ import (
 	"math"
 	"sort"
 
-	"brightfold/volume"
+	"brightfold/internal/volume"
 )
 
 // Hounsfield-unit windows of the CT signature: air is −1000 HU and cortical

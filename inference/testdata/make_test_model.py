@@ -14,7 +14,7 @@ running time matters. "--large" writes a larger one of the same form
 about 44 G multiply-adds per case).
 Fixed seed, fixed weights. Input "scan" [N, 1, 16, 16, 16] (NCDHW, dynamic N);
 output "logits" [N, 2]. The penultimate features (the Flatten output, [N, 8])
-are an intermediate tensor, not a graph output, so that the bundle loader
+are an intermediate tensor, not a graph output, so that the model folder loader
 must add it to the graph outputs. The script prints, as JSON, the feature
 tensor's name, three fixed inputs and PyTorch's logits and features for them,
 for the tests to compare with ONNX Runtime.
