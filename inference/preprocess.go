@@ -417,7 +417,7 @@ func headStats(v *volume.Volume, f frame, thr float64) (HeadStats, error) {
 	}
 	sp := v.Spacing()
 	h := HeadStats{Threshold: thr, Centre: v.Affine.Apply(mean), Fraction: n / float64(v.Len())}
-	h.VolumeMl = n * math.Abs(det3(v.Affine)) / 1000
+	h.VolumeMl = n * math.Abs(v.Affine.Det()) / 1000
 	for g := 0; g < 3; g++ {
 		ax := f.Axis[g]
 		sd := math.Sqrt(m2[ax] / n)
@@ -552,10 +552,4 @@ func normalise(vals []float32, mask []bool, in Intensity) error {
 		return fmt.Errorf("unknown intensity normalisation %q", in.Method)
 	}
 	return nil
-}
-
-func det3(a volume.Affine) float64 {
-	return a[0][0]*(a[1][1]*a[2][2]-a[1][2]*a[2][1]) -
-		a[0][1]*(a[1][0]*a[2][2]-a[1][2]*a[2][0]) +
-		a[0][2]*(a[1][0]*a[2][1]-a[1][1]*a[2][0])
 }

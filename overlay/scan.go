@@ -48,7 +48,7 @@ func (m *Map) ToScan(tr inference.Transform) (*volume.Volume, error) {
 		return nil, fmt.Errorf("overlay: resample onto the scan grid: %w", err)
 	}
 	if m.Additive {
-		ratio := math.Abs(det3(tr.ScanAffine) / det3(tr.GridAffine))
+		ratio := math.Abs(tr.ScanAffine.Det() / tr.GridAffine.Det())
 		if !(ratio > 0) || math.IsInf(ratio, 0) {
 			return nil, errors.New("overlay: degenerate voxel size in the transform")
 		}
@@ -58,13 +58,6 @@ func (m *Map) ToScan(tr inference.Transform) (*volume.Volume, error) {
 	}
 	out.Meta.Format = "relevance"
 	return out, nil
-}
-
-// det3 is the determinant of an affine's 3×3 part: the voxel volume in mm³.
-func det3(a volume.Affine) float64 {
-	return a[0][0]*(a[1][1]*a[2][2]-a[1][2]*a[2][1]) -
-		a[0][1]*(a[1][0]*a[2][2]-a[1][2]*a[2][0]) +
-		a[0][2]*(a[1][0]*a[2][1]-a[1][1]*a[2][0])
 }
 
 // Peak returns the voxel of v with the largest value (the strongest

@@ -15,6 +15,7 @@ import (
 	"brightfold/inference"
 	"brightfold/internal/refcheck"
 	"brightfold/internal/volume"
+	"brightfold/internal/volume/nifti"
 )
 
 // benchScan writes a 256×256×176 1 mm int16 .nii.gz head-like volume (an
@@ -48,7 +49,7 @@ func benchScan(b *testing.B, dir string) string {
 		}
 	}
 	p := filepath.Join(dir, "bench-T1w.nii.gz")
-	if err := volume.WriteNIfTI(p, v, volume.NIfTIWriteOptions{DataType: volume.DTInt16}); err != nil {
+	if err := nifti.Write(p, v, nifti.WriteOptions{DataType: nifti.DTInt16}); err != nil {
 		b.Fatal(err)
 	}
 	return p
