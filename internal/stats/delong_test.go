@@ -181,6 +181,9 @@ func TestPlacementValuesDefinition(t *testing.T) {
 	if want := sum / float64(len(pos)*len(neg)); math.Abs(p.AUC-want) > 1e-12 {
 		t.Fatalf("AUC %g, definition %g", p.AUC, want)
 	}
+	if a := AUROC(scores, truth); math.Abs(a-p.AUC) > 1e-12 {
+		t.Fatalf("AUC %g, stats.AUROC %g", p.AUC, a)
+	}
 }
 
 func TestPlacementValuesBadInput(t *testing.T) {
