@@ -13,6 +13,7 @@ import (
 	"brightfold/inference/fitcheck"
 	"brightfold/internal/notice"
 	"brightfold/internal/phantom"
+	"brightfold/internal/stats"
 )
 
 // Recipe is everything that determines the demo model: architecture,
@@ -304,7 +305,7 @@ func heldOutMetrics(card *inference.Card, cs []inference.FitCase, desc string) [
 	}
 	n := len(cs)
 	return []inference.Metric{
-		{Name: "auroc", Value: fitcheck.AUROC(scores, isPos), N: n, Split: desc, How: "AUROC of the positive-class probability (Mann-Whitney; equals sklearn roc_auc_score)"},
+		{Name: "auroc", Value: stats.AUROC(scores, isPos), N: n, Split: desc, How: "AUROC of the positive-class probability (Mann-Whitney; equals sklearn roc_auc_score)"},
 		accuracyMetric(card, cs, desc),
 		{Name: "ece_before_scaling", Value: ece(card, cs, 1), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), temperature 1"},
 		{Name: "ece_after_scaling", Value: ece(card, cs, T), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), the card's temperature"},
@@ -329,7 +330,7 @@ func severityMetrics(card *inference.Card, cs []Case, fit []inference.FitCase, d
 			labels = append(labels, fc.Label == pos)
 		}
 		out = append(out, inference.Metric{Name: fmt.Sprintf("auroc_severity_%.1f_to_%.1f", band[0], band[1]),
-			Value: fitcheck.AUROC(scores, labels), N: len(scores), Split: desc,
+			Value: stats.AUROC(scores, labels), N: len(scores), Split: desc,
 			How: fmt.Sprintf("AUROC of the positive-class probability, positives with pattern severity in (%.1f, %.1f] against all negatives", band[0], band[1])})
 	}
 	return out
@@ -364,7 +365,7 @@ func ece(card *inference.Card, cs []inference.FitCase, T float64) float64 {
 		k, p := predicted(card, fc.Output.Logits, T)
 		conf[i], ok[i] = p, k == fc.Label
 	}
-	return fitcheck.ECE(conf, ok, 15)
+	return stats.ECE(conf, ok, 15)
 }
 
 func metricLine(ms []inference.Metric) string {

@@ -1,4 +1,4 @@
-"""Reference values for inference/fitcheck tests, computed with Debian's
+"""Reference values for internal/stats tests, computed with Debian's
 python3-sklearn 1.2 and python3-scipy.
 
 Reads a JSON job from the file named by the first argument:

@@ -1,4 +1,4 @@
-package fitcheck
+package stats
 
 import (
 	"fmt"
@@ -52,14 +52,14 @@ func RegIncBeta(a, b, x float64) float64 {
 	lab, _ := math.Lgamma(a + b)
 	front := math.Exp(lab - la - lb + a*math.Log(x) + b*math.Log1p(-x))
 	if x < (a+1)/(a+b+2) {
-		return front * betaCF(a, b, x) / a
+		return front * binomialBetaCF(a, b, x) / a
 	}
-	return 1 - front*betaCF(b, a, 1-x)/b
+	return 1 - front*binomialBetaCF(b, a, 1-x)/b
 }
 
-// betaCF evaluates the continued fraction of I_x(a, b) (Numerical Recipes
+// binomialBetaCF evaluates the continued fraction of I_x(a, b) (Numerical Recipes
 // betacf).
-func betaCF(a, b, x float64) float64 {
+func binomialBetaCF(a, b, x float64) float64 {
 	const tiny, eps = 1e-300, 1e-16
 	qab, qap, qam := a+b, a+1, a-1
 	c, d := 1.0, 1-qab*x/qap
@@ -72,10 +72,10 @@ func betaCF(a, b, x float64) float64 {
 		fm := float64(m)
 		m2 := 2 * fm
 		aa := fm * (b - fm) * x / ((qam + m2) * (a + m2))
-		d, c = lentz(d, c, aa)
+		d, c = binomialLentz(d, c, aa)
 		h *= d * c
 		aa = -(a + fm) * (qab + fm) * x / ((a + m2) * (qap + m2))
-		d, c = lentz(d, c, aa)
+		d, c = binomialLentz(d, c, aa)
 		del := d * c
 		h *= del
 		if math.Abs(del-1) < eps {
@@ -85,8 +85,8 @@ func betaCF(a, b, x float64) float64 {
 	return h
 }
 
-// lentz is one step of the modified Lentz recurrence.
-func lentz(d, c, aa float64) (float64, float64) {
+// binomialLentz is one step of the modified Lentz recurrence.
+func binomialLentz(d, c, aa float64) (float64, float64) {
 	const tiny = 1e-300
 	d = 1 + aa*d
 	if math.Abs(d) < tiny {
