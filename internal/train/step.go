@@ -5,13 +5,14 @@ import (
 	"math"
 
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 	"brightfold/internal/parallel"
 )
 
 // batchState keeps what one training forward pass needs for its backward
 // pass: each segment's trace per case and each normalisation's statistics.
 type batchState struct {
-	traces [][]*onnx.Trace // [segment][case]
+	traces [][]*exec.Trace // [segment][case]
 	mean   [][]float64     // [bn][channel] batch mean
 	invStd [][]float64     // [bn][channel] 1/√(var + ε)
 	logits [][]float64     // [case][class]
@@ -21,13 +22,13 @@ type batchState struct {
 // xs are the cases' input values ([1, 1, z, y, x] each). momentum updates
 // the running statistics (0 leaves them unchanged).
 func (n *Net) trainForward(xs [][]float32, workers int, momentum float64) (*batchState, error) {
-	st := &batchState{traces: make([][]*onnx.Trace, len(n.segs))}
+	st := &batchState{traces: make([][]*exec.Trace, len(n.segs))}
 	acts := make([]*onnx.Tensor, len(xs))
 	for i, x := range xs {
 		acts[i] = onnx.FromData(x, n.segs[0].shape...)
 	}
 	for k, seg := range n.segs {
-		st.traces[k] = make([]*onnx.Trace, len(xs))
+		st.traces[k] = make([]*exec.Trace, len(xs))
 		err := parallel.EachErr(len(xs), workers, func(_, i int) error {
 			tr, err := seg.exec.Forward(map[string]*onnx.Tensor{seg.in: acts[i]})
 			if err != nil {
@@ -219,10 +220,10 @@ func (n *Net) trainBackward(st *batchState, gLogits [][]float64, workers int) (m
 	}
 	for k := len(n.segs) - 1; k >= 0; k-- {
 		seg := n.segs[k]
-		res := make([]*onnx.Grads, cases)
+		res := make([]*exec.Grads, cases)
 		err := parallel.EachErr(cases, workers, func(_, i int) error {
 			g, err := seg.exec.BackwardWith(st.traces[k][i], map[string]*onnx.Tensor{seg.out: gOut[i]},
-				onnx.BackwardOptions{NoInputs: k == 0})
+				exec.BackwardOptions{NoInputs: k == 0})
 			if err != nil {
 				return fmt.Errorf("segment %d: %w", k, err)
 			}

@@ -1,6 +1,10 @@
-package onnx
+package exec
 
-import "fmt"
+import (
+	"fmt"
+
+	"brightfold/internal/onnx"
+)
 
 // window is the sliding-window geometry shared by convolution and pooling,
 // for 1 to 3 spatial dimensions. Shorter problems are padded to three
@@ -98,7 +102,7 @@ func (ws windowSpec) geometry(spatial []int, kernel []int) (window, error) {
 	if w.k[0]*w.k[1]*w.k[2] > maxTaps {
 		return w, fmt.Errorf("window of %v taps exceeds %d", kernel, maxTaps)
 	}
-	if _, err := checkedNumel(w.spatialOut); err != nil {
+	if _, err := onnx.CheckedNumel(w.spatialOut); err != nil {
 		return w, err
 	}
 	return w, nil
@@ -169,3 +173,6 @@ func (w *window) validRange(j, t int) (int, int) {
 	}
 	return lo, hi
 }
+
+// maxTaps bounds the number of taps of a convolution or pooling window.
+const maxTaps = 1 << 16

@@ -1,8 +1,11 @@
-package onnx
+package exec
 
 import (
 	"fmt"
 	"math"
+
+	"brightfold/internal/onnx"
+	"brightfold/internal/parallel"
 )
 
 func init() {
@@ -39,7 +42,7 @@ func buildPool(c *buildCtx, isMax bool) (kernel, error) {
 	return k, nil
 }
 
-func (k *poolKernel) plan(x *Tensor) (window, []int, error) {
+func (k *poolKernel) plan(x *onnx.Tensor) (window, []int, error) {
 	if len(x.Shape) < 3 || len(x.Shape) > 5 {
 		return window{}, nil, fmt.Errorf("X has shape %v; want (N, C, spatial...) with 1 to 3 spatial axes", x.Shape)
 	}
@@ -55,7 +58,7 @@ func (k *poolKernel) plan(x *Tensor) (window, []int, error) {
 		return w, nil, err
 	}
 	shape := append([]int{x.Shape[0], x.Shape[1]}, w.spatialOut...)
-	_, err = checkedNumel(shape)
+	_, err = onnx.CheckedNumel(shape)
 	return w, shape, err
 }
 
@@ -113,10 +116,10 @@ func (w *window) each(fn func(o int, taps []int, padCount int)) {
 	}
 }
 
-func (k *poolKernel) forward(in []*Tensor) ([]*Tensor, error) {
+func (k *poolKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	if k.isMax && optional(in, 0) && !in[0].IsFloat() {
 		// Integer max pooling through float32, exact below 2^24.
-		out, err := k.forward([]*Tensor{castTo(in[0], Float)})
+		out, err := k.forward([]*onnx.Tensor{castTo(in[0], onnx.Float)})
 		if err != nil {
 			return nil, err
 		}
@@ -131,14 +134,14 @@ func (k *poolKernel) forward(in []*Tensor) ([]*Tensor, error) {
 	if err != nil {
 		return nil, err
 	}
-	y := New(shape...)
-	var ind *Tensor
+	y := onnx.New(shape...)
+	var ind *onnx.Tensor
 	if k.isMax {
-		ind = &Tensor{Shape: append([]int{}, shape...), Ints: make([]int64, len(y.Data)), DType: Int64}
+		ind = &onnx.Tensor{Shape: append([]int{}, shape...), Ints: make([]int64, len(y.Data)), DType: onnx.Int64}
 	}
 	planes := x.Shape[0] * x.Shape[1]
 	inP, outP := w.inCount(), w.outCount()
-	parallel(k.workers, planes, func(pl int) {
+	parallel.Each(planes, k.workers, func(_, pl int) {
 		xs, ys := x.Data[pl*inP:(pl+1)*inP], y.Data[pl*outP:(pl+1)*outP]
 		w.each(func(o int, taps []int, padCount int) {
 			if k.isMax {
@@ -164,9 +167,9 @@ func (k *poolKernel) forward(in []*Tensor) ([]*Tensor, error) {
 		})
 	})
 	if k.isMax {
-		return []*Tensor{y, ind}, nil
+		return []*onnx.Tensor{y, ind}, nil
 	}
-	return []*Tensor{y}, nil
+	return []*onnx.Tensor{y}, nil
 }
 
 // argmax returns the largest of xs[t] for t in taps and the first t that
@@ -191,27 +194,27 @@ func (k *poolKernel) storedIndex(w *window, off int) int {
 	return (x*w.in[1]+y)*w.in[0] + z
 }
 
-func (k *poolKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
+func (k *poolKernel) backward(in, out, gout []*onnx.Tensor, need []bool) ([]*onnx.Tensor, error) {
 	x := in[0]
 	if k.isMax && k.storageOrder == 0 && len(out) > 1 && out[1] != nil && len(out[1].Ints) == len(gout[0].Data) {
 		// The forward pass's Indices route each gradient to its winner.
-		gx := New(x.Shape...)
+		gx := onnx.New(x.Shape...)
 		for i, idx := range out[1].Ints {
 			if idx >= 0 && int(idx) < len(gx.Data) {
 				gx.Data[idx] += gout[0].Data[i]
 			}
 		}
-		return []*Tensor{gx}, nil
+		return []*onnx.Tensor{gx}, nil
 	}
 	w, _, err := k.plan(x)
 	if err != nil {
 		return nil, err
 	}
 	g := gout[0]
-	gx := New(x.Shape...)
+	gx := onnx.New(x.Shape...)
 	planes := x.Shape[0] * x.Shape[1]
 	inP, outP := w.inCount(), w.outCount()
-	parallel(k.workers, planes, func(pl int) {
+	parallel.Each(planes, k.workers, func(_, pl int) {
 		xs, gs, gxs := x.Data[pl*inP:(pl+1)*inP], g.Data[pl*outP:(pl+1)*outP], gx.Data[pl*inP:(pl+1)*inP]
 		w.each(func(o int, taps []int, padCount int) {
 			if k.isMax {
@@ -233,14 +236,14 @@ func (k *poolKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, 
 			}
 		})
 	})
-	return []*Tensor{gx}, nil
+	return []*onnx.Tensor{gx}, nil
 }
 
 // globalPool is ONNX GlobalAveragePool or GlobalMaxPool: one value per
 // channel, spatial dimensions kept as size 1.
 type globalPool struct{ isMax bool }
 
-func (k *globalPool) forward(in []*Tensor) ([]*Tensor, error) {
+func (k *globalPool) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	x, err := floatIn(in, 0)
 	if err != nil {
 		return nil, err
@@ -252,8 +255,8 @@ func (k *globalPool) forward(in []*Tensor) ([]*Tensor, error) {
 	for range x.Shape[2:] {
 		shape = append(shape, 1)
 	}
-	y := New(shape...)
-	inner := numel(x.Shape[2:])
+	y := onnx.New(shape...)
+	inner := onnx.Numel(x.Shape[2:])
 	for p := range y.Data {
 		seg := x.Data[p*inner : (p+1)*inner]
 		if k.isMax {
@@ -272,13 +275,13 @@ func (k *globalPool) forward(in []*Tensor) ([]*Tensor, error) {
 			y.Data[p] = float32(s / float64(inner))
 		}
 	}
-	return []*Tensor{y}, nil
+	return []*onnx.Tensor{y}, nil
 }
 
-func (k *globalPool) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
+func (k *globalPool) backward(in, out, gout []*onnx.Tensor, need []bool) ([]*onnx.Tensor, error) {
 	x, g := in[0], gout[0]
-	gx := New(x.Shape...)
-	inner := numel(x.Shape[2:])
+	gx := onnx.New(x.Shape...)
+	inner := onnx.Numel(x.Shape[2:])
 	for p, gv := range g.Data {
 		seg := x.Data[p*inner : (p+1)*inner]
 		dst := gx.Data[p*inner : (p+1)*inner]
@@ -299,5 +302,5 @@ func (k *globalPool) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, 
 			dst[i] = v
 		}
 	}
-	return []*Tensor{gx}, nil
+	return []*onnx.Tensor{gx}, nil
 }

@@ -1,15 +1,17 @@
-package onnx
+package exec
 
 import (
 	"fmt"
-	"sync"
+
+	"brightfold/internal/onnx"
+	"brightfold/internal/parallel"
 )
 
 // funcKernel adapts two functions to the kernel interface; bwd nil means the
 // op passes no gradient to any input.
 type funcKernel struct {
-	fwd func(in []*Tensor) ([]*Tensor, error)
-	bwd func(in, out, gout []*Tensor) ([]*Tensor, error)
+	fwd func(in []*onnx.Tensor) ([]*onnx.Tensor, error)
+	bwd func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error)
 }
 
 // needAll asks for every input's gradient.
@@ -21,11 +23,11 @@ func needAll(n int) []bool {
 	return need
 }
 
-func (k funcKernel) forward(in []*Tensor) ([]*Tensor, error) { return k.fwd(in) }
+func (k funcKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) { return k.fwd(in) }
 
-func (k funcKernel) backward(in, out, gout []*Tensor, _ []bool) ([]*Tensor, error) {
+func (k funcKernel) backward(in, out, gout []*onnx.Tensor, _ []bool) ([]*onnx.Tensor, error) {
 	if k.bwd == nil {
-		return make([]*Tensor, len(in)), nil
+		return make([]*onnx.Tensor, len(in)), nil
 	}
 	return k.bwd(in, out, gout)
 }
@@ -34,7 +36,7 @@ func (k funcKernel) backward(in, out, gout []*Tensor, _ []bool) ([]*Tensor, erro
 func register(op string, b func(c *buildCtx) (kernel, error)) { opBuilders[op] = b }
 
 // floatIn returns input i, checking that it is present and float.
-func floatIn(in []*Tensor, i int) (*Tensor, error) {
+func floatIn(in []*onnx.Tensor, i int) (*onnx.Tensor, error) {
 	if i >= len(in) || in[i] == nil {
 		return nil, fmt.Errorf("input %d missing", i)
 	}
@@ -48,7 +50,7 @@ func floatIn(in []*Tensor, i int) (*Tensor, error) {
 }
 
 // anyIn returns input i (float or integer), checking that it is present.
-func anyIn(in []*Tensor, i int) (*Tensor, error) {
+func anyIn(in []*onnx.Tensor, i int) (*onnx.Tensor, error) {
 	if i >= len(in) || in[i] == nil {
 		return nil, fmt.Errorf("input %d missing", i)
 	}
@@ -59,7 +61,7 @@ func anyIn(in []*Tensor, i int) (*Tensor, error) {
 }
 
 // intsIn returns input i as int64 values (a shape, axes or indices tensor).
-func intsIn(in []*Tensor, i int) ([]int64, error) {
+func intsIn(in []*onnx.Tensor, i int) ([]int64, error) {
 	t, err := anyIn(in, i)
 	if err != nil {
 		return nil, err
@@ -71,7 +73,7 @@ func intsIn(in []*Tensor, i int) ([]int64, error) {
 }
 
 // optional reports whether input i is present.
-func optional(in []*Tensor, i int) bool { return i < len(in) && in[i] != nil }
+func optional(in []*onnx.Tensor, i int) bool { return i < len(in) && in[i] != nil }
 
 // normAxis resolves a possibly negative axis against rank r.
 func normAxis(axis int64, r int) (int, error) {
@@ -97,14 +99,14 @@ func strides(shape []int) []int {
 }
 
 // withShape returns a tensor sharing t's elements under another shape.
-func withShape(t *Tensor, shape []int) *Tensor {
-	return &Tensor{Shape: append([]int{}, shape...), Data: t.Data, Ints: t.Ints, DType: t.DType}
+func withShape(t *onnx.Tensor, shape []int) *onnx.Tensor {
+	return &onnx.Tensor{Shape: append([]int{}, shape...), Data: t.Data, Ints: t.Ints, DType: t.DType}
 }
 
 // gatherElems builds a tensor of the given shape whose element i is src's
 // element idx[i] (works for float and integer tensors).
-func gatherElems(src *Tensor, idx []int, shape []int) *Tensor {
-	out := &Tensor{Shape: append([]int{}, shape...), DType: src.DType}
+func gatherElems(src *onnx.Tensor, idx []int, shape []int) *onnx.Tensor {
+	out := &onnx.Tensor{Shape: append([]int{}, shape...), DType: src.DType}
 	if src.IsFloat() {
 		out.Data = make([]float32, len(idx))
 		for i, j := range idx {
@@ -120,8 +122,8 @@ func gatherElems(src *Tensor, idx []int, shape []int) *Tensor {
 }
 
 // scatterAdd is the adjoint of gatherElems for float tensors.
-func scatterAdd(g *Tensor, idx []int, shape []int) *Tensor {
-	out := New(shape...)
+func scatterAdd(g *onnx.Tensor, idx []int, shape []int) *onnx.Tensor {
+	out := onnx.New(shape...)
 	for i, j := range idx {
 		out.Data[j] += g.Data[i]
 	}
@@ -134,52 +136,10 @@ func chunks(workers, n int, fn func(lo, hi int)) {
 	const minChunk = 1 << 16
 	parts := min(workers, max(1, n/minChunk))
 	per := (n + parts - 1) / max(parts, 1)
-	parallel(parts, parts, func(i int) {
+	parallel.Each(parts, parts, func(_, i int) {
 		lo := i * per
 		if lo < n {
 			fn(lo, min(n, lo+per))
 		}
 	})
-}
-
-// parallel runs fn(i) for i in [0, n) on up to workers goroutines.
-func parallel(workers, n int, fn func(i int)) {
-	parallelWorkers(workers, n, func(_, i int) { fn(i) })
-}
-
-// parallelWorkers runs fn(w, i) like parallel, also passing the worker
-// index w in [0, workers) so that fn can use per-worker buffers.
-func parallelWorkers(workers, n int, fn func(w, i int)) {
-	if workers < 1 {
-		workers = 1
-	}
-	if workers > n {
-		workers = n
-	}
-	if workers <= 1 {
-		for i := 0; i < n; i++ {
-			fn(0, i)
-		}
-		return
-	}
-	var wg sync.WaitGroup
-	var mu sync.Mutex
-	next := 0
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func(w int) {
-			defer wg.Done()
-			for {
-				mu.Lock()
-				i := next
-				next++
-				mu.Unlock()
-				if i >= n {
-					return
-				}
-				fn(w, i)
-			}
-		}(w)
-	}
-	wg.Wait()
 }

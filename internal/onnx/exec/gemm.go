@@ -1,4 +1,6 @@
-package onnx
+package exec
+
+import "brightfold/internal/parallel"
 
 // mat is a strided matrix view: element (i, j) is d[i*rs+j*cs]. Transposed
 // operands are views with the strides swapped.
@@ -195,7 +197,7 @@ func gemmParallel(workers, m, n, k int, a, b mat, c []float32, ldc int, accumula
 	}
 	per := (n + chunks - 1) / chunks
 	per = (per + gemmNR - 1) / gemmNR * gemmNR
-	parallel(workers, chunks, func(i int) {
+	parallel.Each(chunks, workers, func(_, i int) {
 		j0 := i * per
 		if j0 >= n {
 			return

@@ -1,8 +1,11 @@
-package onnx
+package exec
 
 import (
 	"fmt"
 	"math"
+
+	"brightfold/internal/onnx"
+	"brightfold/internal/parallel"
 )
 
 func init() {
@@ -35,7 +38,7 @@ func buildBatchNorm(c *buildCtx) (kernel, error) {
 
 // channelParams returns the per-channel multiplier a = scale/sqrt(var+eps)
 // and the inputs, after checking shapes.
-func (k *batchNormKernel) channelParams(in []*Tensor) (x *Tensor, a []float64, err error) {
+func (k *batchNormKernel) channelParams(in []*onnx.Tensor) (x *onnx.Tensor, a []float64, err error) {
 	if x, err = floatIn(in, 0); err != nil {
 		return
 	}
@@ -59,14 +62,14 @@ func (k *batchNormKernel) channelParams(in []*Tensor) (x *Tensor, a []float64, e
 	return x, a, nil
 }
 
-func (k *batchNormKernel) forward(in []*Tensor) ([]*Tensor, error) {
+func (k *batchNormKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	x, a, err := k.channelParams(in)
 	if err != nil {
 		return nil, err
 	}
-	y := New(x.Shape...)
-	ch, inner := x.Shape[1], numel(x.Shape[2:])
-	parallel(k.workers, x.Shape[0]*ch, func(plane int) {
+	y := onnx.New(x.Shape...)
+	ch, inner := x.Shape[1], onnx.Numel(x.Shape[2:])
+	parallel.Each(x.Shape[0]*ch, k.workers, func(_, plane int) {
 		c := plane % ch
 		mul := float32(a[c])
 		add := in[2].Data[c] - mul*in[3].Data[c]
@@ -76,17 +79,17 @@ func (k *batchNormKernel) forward(in []*Tensor) ([]*Tensor, error) {
 			dst[i] = v*mul + add
 		}
 	})
-	return []*Tensor{y}, nil
+	return []*onnx.Tensor{y}, nil
 }
 
-func (k *batchNormKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
+func (k *batchNormKernel) backward(in, out, gout []*onnx.Tensor, need []bool) ([]*onnx.Tensor, error) {
 	x, a, err := k.channelParams(in)
 	if err != nil {
 		return nil, err
 	}
 	g := gout[0]
-	ch, inner := x.Shape[1], numel(x.Shape[2:])
-	gx := New(x.Shape...)
+	ch, inner := x.Shape[1], onnx.Numel(x.Shape[2:])
+	gx := onnx.New(x.Shape...)
 	sumG, sumGX := make([]float64, ch), make([]float64, ch) // Σ dY and Σ dY·(X−mean)
 	for n := 0; n < x.Shape[0]; n++ {
 		for c := 0; c < ch; c++ {
@@ -102,7 +105,7 @@ func (k *batchNormKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Ten
 			sumGX[c] += sx
 		}
 	}
-	gScale, gB, gMean, gVar := New(in[1].Shape...), New(in[2].Shape...), New(in[3].Shape...), New(in[4].Shape...)
+	gScale, gB, gMean, gVar := onnx.New(in[1].Shape...), onnx.New(in[2].Shape...), onnx.New(in[3].Shape...), onnx.New(in[4].Shape...)
 	for c := 0; c < ch; c++ {
 		inv := 1 / math.Sqrt(float64(in[4].Data[c])+float64(k.eps))
 		gScale.Data[c] = float32(sumGX[c] * inv)
@@ -110,7 +113,7 @@ func (k *batchNormKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Ten
 		gMean.Data[c] = float32(-sumG[c] * a[c])
 		gVar.Data[c] = float32(-0.5 * sumGX[c] * float64(in[1].Data[c]) * inv * inv * inv)
 	}
-	return []*Tensor{gx, gScale, gB, gMean, gVar}, nil
+	return []*onnx.Tensor{gx, gScale, gB, gMean, gVar}, nil
 }
 
 // softmaxKernel is ONNX Softmax. Before opset 13 the input is coerced to 2D
@@ -145,15 +148,15 @@ func (k *softmaxKernel) groups(shape []int) (int, int, int, error) {
 		if ax < 0 || ax > r {
 			return 0, 0, 0, fmt.Errorf("axis %d out of range for rank %d", k.axis, r)
 		}
-		return numel(shape[:ax]), numel(shape[ax:]), 1, nil
+		return onnx.Numel(shape[:ax]), onnx.Numel(shape[ax:]), 1, nil
 	}
 	if ax < 0 || ax >= r {
 		return 0, 0, 0, fmt.Errorf("axis %d out of range for rank %d", k.axis, r)
 	}
-	return numel(shape[:ax]), shape[ax], numel(shape[ax+1:]), nil
+	return onnx.Numel(shape[:ax]), shape[ax], onnx.Numel(shape[ax+1:]), nil
 }
 
-func (k *softmaxKernel) forward(in []*Tensor) ([]*Tensor, error) {
+func (k *softmaxKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	x, err := floatIn(in, 0)
 	if err != nil {
 		return nil, err
@@ -162,7 +165,7 @@ func (k *softmaxKernel) forward(in []*Tensor) ([]*Tensor, error) {
 	if err != nil {
 		return nil, err
 	}
-	y := New(x.Shape...)
+	y := onnx.New(x.Shape...)
 	for o := 0; o < outer; o++ {
 		for i := 0; i < inner; i++ {
 			base := o*length*inner + i
@@ -181,16 +184,16 @@ func (k *softmaxKernel) forward(in []*Tensor) ([]*Tensor, error) {
 			}
 		}
 	}
-	return []*Tensor{y}, nil
+	return []*onnx.Tensor{y}, nil
 }
 
-func (k *softmaxKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
+func (k *softmaxKernel) backward(in, out, gout []*onnx.Tensor, need []bool) ([]*onnx.Tensor, error) {
 	y, g := out[0], gout[0]
 	outer, length, inner, err := k.groups(y.Shape)
 	if err != nil {
 		return nil, err
 	}
-	gx := New(y.Shape...)
+	gx := onnx.New(y.Shape...)
 	for o := 0; o < outer; o++ {
 		for i := 0; i < inner; i++ {
 			base := o*length*inner + i
@@ -204,5 +207,5 @@ func (k *softmaxKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tenso
 			}
 		}
 	}
-	return []*Tensor{gx}, nil
+	return []*onnx.Tensor{gx}, nil
 }

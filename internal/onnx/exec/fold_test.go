@@ -1,8 +1,10 @@
-package onnx
+package exec
 
 import (
 	"math/rand/v2"
 	"testing"
+
+	"brightfold/internal/onnx"
 )
 
 // TestFoldBatchNorm: the folded model has no BatchNormalization left after
@@ -14,14 +16,14 @@ func TestFoldBatchNorm(t *testing.T) {
 	fixture, fixFeed, _ := loadFixture(t, fixtureDir(t))
 	for _, c := range []struct {
 		name string
-		m    *Model
-		feed map[string]*Tensor
+		m    *onnx.Model
+		feed map[string]*onnx.Tensor
 		want int
 	}{
-		{"small CNN", orig, map[string]*Tensor{"input": randTensor(r, 1, 2, 1, 8, 8, 8)}, 1},
+		{"small CNN", orig, map[string]*onnx.Tensor{"input": randTensor(r, 1, 2, 1, 8, 8, 8)}, 1},
 		{"PyTorch fixture", fixture, fixFeed, 2},
 	} {
-		folded, n, err := FoldBatchNorm(c.m)
+		folded, n, err := onnx.FoldBatchNorm(c.m)
 		if err != nil {
 			t.Fatalf("%s: %v", c.name, err)
 		}

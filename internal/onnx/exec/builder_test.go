@@ -1,15 +1,17 @@
-package onnx
+package exec
 
 import (
 	"bytes"
 	"errors"
 	"math/rand/v2"
 	"testing"
+
+	"brightfold/internal/onnx"
 )
 
 // randTensor returns a tensor of uniform values in [-scale, scale).
-func randTensor(r *rand.Rand, scale float32, shape ...int) *Tensor {
-	t := New(shape...)
+func randTensor(r *rand.Rand, scale float32, shape ...int) *onnx.Tensor {
+	t := onnx.New(shape...)
 	for i := range t.Data {
 		t.Data[i] = (r.Float32()*2 - 1) * scale
 	}
@@ -17,13 +19,13 @@ func randTensor(r *rand.Rand, scale float32, shape ...int) *Tensor {
 }
 
 // smallCNN builds a 3D CNN of the demo model's kind at a test size.
-func smallCNN(t testing.TB, r *rand.Rand, size int) *Model {
+func smallCNN(t testing.TB, r *rand.Rand, size int) *onnx.Model {
 	t.Helper()
 	b := NewBuilder("small", 13)
 	x := b.Input("input", -1, 1, size, size, size)
 	x = b.Conv("conv1", x, randTensor(r, 0.5, 4, 1, 3, 3, 3), randTensor(r, 0.1, 4), ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}})
 	x = b.BatchNorm("bn1", x, randTensor(r, 1, 4), randTensor(r, 0.1, 4), randTensor(r, 0.1, 4),
-		FromData([]float32{1.1, 0.9, 1.3, 0.7}, 4), 1e-5)
+		onnx.FromData([]float32{1.1, 0.9, 1.3, 0.7}, 4), 1e-5)
 	x = b.Relu(x)
 	x = b.MaxPool(x, []int{2, 2, 2}, []int{2, 2, 2})
 	x = b.Conv("conv2", x, randTensor(r, 0.3, 6, 4, 3, 3, 3), randTensor(r, 0.1, 6), ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}})
@@ -48,7 +50,7 @@ func TestBuilderRoundTrip(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	m2, err := Decode(enc)
+	m2, err := onnx.Decode(enc)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -67,15 +69,15 @@ func TestBuilderRoundTrip(t *testing.T) {
 		t.Fatal(err)
 	}
 	x := randTensor(r, 1, 2, 1, 8, 8, 8)
-	tr, err := e.Forward(map[string]*Tensor{"input": x})
+	tr, err := e.Forward(map[string]*onnx.Tensor{"input": x})
 	if err != nil {
 		t.Fatal(err)
 	}
 	logits := tr.Value("logits")
-	if !sameShape(logits.Shape, []int{2, 2}) {
+	if !onnx.SameShape(logits.Shape, []int{2, 2}) {
 		t.Fatalf("logits shape %v", logits.Shape)
 	}
-	g, err := e.Backward(tr, map[string]*Tensor{"logits": FromData([]float32{1, 0, 0, 1}, 2, 2)})
+	g, err := e.Backward(tr, map[string]*onnx.Tensor{"logits": onnx.FromData([]float32{1, 0, 0, 1}, 2, 2)})
 	if err != nil {
 		t.Fatal(err)
 	}

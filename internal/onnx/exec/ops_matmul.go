@@ -1,6 +1,10 @@
-package onnx
+package exec
 
-import "fmt"
+import (
+	"fmt"
+
+	"brightfold/internal/onnx"
+)
 
 func init() {
 	register("Gemm", buildGemm)
@@ -26,7 +30,7 @@ func buildGemm(c *buildCtx) (kernel, error) {
 }
 
 // views returns A' and B' and the sizes M, K, N.
-func (g *gemmKernel) views(a, b *Tensor) (mat, mat, int, int, int, error) {
+func (g *gemmKernel) views(a, b *onnx.Tensor) (mat, mat, int, int, int, error) {
 	if len(a.Shape) != 2 || len(b.Shape) != 2 {
 		return mat{}, mat{}, 0, 0, 0, fmt.Errorf("A %v and B %v must be matrices", a.Shape, b.Shape)
 	}
@@ -45,7 +49,7 @@ func (g *gemmKernel) views(a, b *Tensor) (mat, mat, int, int, int, error) {
 	return av, bv, m, k, n, nil
 }
 
-func (g *gemmKernel) forward(in []*Tensor) ([]*Tensor, error) {
+func (g *gemmKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	a, err := floatIn(in, 0)
 	if err != nil {
 		return nil, err
@@ -58,7 +62,7 @@ func (g *gemmKernel) forward(in []*Tensor) ([]*Tensor, error) {
 	if err != nil {
 		return nil, err
 	}
-	y := New(m, n)
+	y := onnx.New(m, n)
 	gemmParallel(g.workers, m, n, k, av, bv, y.Data, n, false)
 	if g.alpha != 1 {
 		for i := range y.Data {
@@ -70,7 +74,7 @@ func (g *gemmKernel) forward(in []*Tensor) ([]*Tensor, error) {
 		if err != nil {
 			return nil, err
 		}
-		if bs, err := broadcastShape(cT.Shape, y.Shape); err != nil || !sameShape(bs, y.Shape) {
+		if bs, err := broadcastShape(cT.Shape, y.Shape); err != nil || !onnx.SameShape(bs, y.Shape) {
 			return nil, fmt.Errorf("C %v does not broadcast to %v", cT.Shape, y.Shape)
 		}
 		idx := broadcastIndex(cT.Shape, y.Shape)
@@ -78,26 +82,26 @@ func (g *gemmKernel) forward(in []*Tensor) ([]*Tensor, error) {
 			y.Data[i] += g.beta * cT.Data[idx[i]]
 		}
 	}
-	return []*Tensor{y}, nil
+	return []*onnx.Tensor{y}, nil
 }
 
-func (g *gemmKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
+func (g *gemmKernel) backward(in, out, gout []*onnx.Tensor, need []bool) ([]*onnx.Tensor, error) {
 	a, b, gy := in[0], in[1], gout[0]
 	av, bv, m, k, n, err := g.views(a, b)
 	if err != nil {
 		return nil, err
 	}
-	grads := make([]*Tensor, len(in))
+	grads := make([]*onnx.Tensor, len(in))
 	dy := rowMajor(gy.Data, n)
 	// dA' = alpha·dY·B'ᵀ (m×k); stored transposed when transA.
-	ga := New(a.Shape...)
+	ga := onnx.New(a.Shape...)
 	if g.transA {
 		gemmParallel(g.workers, k, m, n, bv, dy.t(), ga.Data, m, false)
 	} else {
 		gemmParallel(g.workers, m, k, n, dy, bv.t(), ga.Data, k, false)
 	}
 	// dB' = alpha·A'ᵀ·dY (k×n); stored transposed when transB.
-	gb := New(b.Shape...)
+	gb := onnx.New(b.Shape...)
 	if g.transB {
 		gemmParallel(g.workers, n, k, m, dy.t(), av, gb.Data, k, false)
 	} else {
@@ -107,7 +111,7 @@ func (g *gemmKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, 
 	scale(gb.Data, g.alpha)
 	grads[0], grads[1] = ga, gb
 	if optional(in, 2) && in[2].IsFloat() {
-		gc := New(in[2].Shape...)
+		gc := onnx.New(in[2].Shape...)
 		if g.beta != 0 {
 			idx := broadcastIndex(in[2].Shape, gy.Shape)
 			for i, v := range gy.Data {
@@ -177,7 +181,7 @@ func planMatMul(a, b []int) (*matmulPlan, error) {
 	return p, nil
 }
 
-func (mk *matmulKernel) forward(in []*Tensor) ([]*Tensor, error) {
+func (mk *matmulKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	a, err := floatIn(in, 0)
 	if err != nil {
 		return nil, err
@@ -190,22 +194,22 @@ func (mk *matmulKernel) forward(in []*Tensor) ([]*Tensor, error) {
 	if err != nil {
 		return nil, err
 	}
-	y := New(p.outShape...)
+	y := onnx.New(p.outShape...)
 	mn := p.m * p.n
 	for i := range p.aOff {
 		gemmParallel(mk.workers, p.m, p.n, p.k, rowMajor(a.Data[p.aOff[i]:], p.k),
 			rowMajor(b.Data[p.bOff[i]:], p.n), y.Data[i*mn:], p.n, false)
 	}
-	return []*Tensor{y}, nil
+	return []*onnx.Tensor{y}, nil
 }
 
-func (mk *matmulKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
+func (mk *matmulKernel) backward(in, out, gout []*onnx.Tensor, need []bool) ([]*onnx.Tensor, error) {
 	a, b, gy := in[0], in[1], gout[0]
 	p, err := planMatMul(a.Shape, b.Shape)
 	if err != nil {
 		return nil, err
 	}
-	ga, gb := New(a.Shape...), New(b.Shape...)
+	ga, gb := onnx.New(a.Shape...), onnx.New(b.Shape...)
 	mn := p.m * p.n
 	for i := range p.aOff {
 		dy := rowMajor(gy.Data[i*mn:], p.n)
@@ -213,5 +217,5 @@ func (mk *matmulKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tenso
 		gemm(p.m, p.k, p.n, dy, rowMajor(b.Data[p.bOff[i]:], p.n).t(), ga.Data[p.aOff[i]:], p.k, true)
 		gemm(p.k, p.n, p.m, rowMajor(a.Data[p.aOff[i]:], p.k).t(), dy, gb.Data[p.bOff[i]:], p.n, true)
 	}
-	return []*Tensor{ga, gb}, nil
+	return []*onnx.Tensor{ga, gb}, nil
 }

@@ -1,4 +1,4 @@
-package onnx
+package exec
 
 import (
 	"bytes"
@@ -9,6 +9,7 @@ import (
 	"path/filepath"
 	"testing"
 
+	"brightfold/internal/onnx"
 	"brightfold/internal/refcheck"
 )
 
@@ -35,24 +36,24 @@ func fixtureDir(t *testing.T) string {
 	return refcheck.Path(t, filepath.Join(refcheck.RepoRoot(), "testdata", "pytorch"))
 }
 
-func readF32(t *testing.T, path string, shape []int) *Tensor {
+func readF32(t *testing.T, path string, shape []int) *onnx.Tensor {
 	t.Helper()
 	b, err := os.ReadFile(path)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if len(b) != 4*numel(shape) {
+	if len(b) != 4*onnx.Numel(shape) {
 		t.Fatalf("%s: %d bytes for shape %v", path, len(b), shape)
 	}
-	d := make([]float32, numel(shape))
+	d := make([]float32, onnx.Numel(shape))
 	for i := range d {
 		d[i] = math.Float32frombits(binary.LittleEndian.Uint32(b[4*i:]))
 	}
-	return FromData(d, shape...)
+	return onnx.FromData(d, shape...)
 }
 
 // loadFixture returns the model, its input and PyTorch's outputs by name.
-func loadFixture(t *testing.T, dir string) (*Model, map[string]*Tensor, map[string]*Tensor) {
+func loadFixture(t *testing.T, dir string) (*onnx.Model, map[string]*onnx.Tensor, map[string]*onnx.Tensor) {
 	t.Helper()
 	var meta fixtureMeta
 	b, err := os.ReadFile(filepath.Join(dir, "fixture.json"))
@@ -62,12 +63,12 @@ func loadFixture(t *testing.T, dir string) (*Model, map[string]*Tensor, map[stri
 	if err := json.Unmarshal(b, &meta); err != nil {
 		t.Fatal(err)
 	}
-	m, err := Load(filepath.Join(dir, meta.Model))
+	m, err := onnx.Load(filepath.Join(dir, meta.Model))
 	if err != nil {
 		t.Fatal(err)
 	}
-	feed := map[string]*Tensor{meta.Input.Name: readF32(t, filepath.Join(dir, meta.Input.File), meta.Input.Shape)}
-	want := map[string]*Tensor{}
+	feed := map[string]*onnx.Tensor{meta.Input.Name: readF32(t, filepath.Join(dir, meta.Input.File), meta.Input.Shape)}
+	want := map[string]*onnx.Tensor{}
 	for _, o := range meta.Outputs {
 		want[o.Name] = readF32(t, filepath.Join(dir, o.File), o.Shape)
 	}
@@ -99,14 +100,14 @@ func TestPyTorchFixtureGo(t *testing.T) {
 		if msg := compareTol(tr.Value(name), w, 1e-4); msg != "" {
 			t.Errorf("Go executor vs PyTorch, %s: %s", name, msg)
 		}
-		t.Logf("Go vs PyTorch %s: max abs diff %.2e", name, MaxAbsDiff(tr.Value(name), w))
+		t.Logf("Go vs PyTorch %s: max abs diff %.2e", name, onnx.MaxAbsDiff(tr.Value(name), w))
 	}
 	// The backward pass runs through every node of the export.
-	g, err := e.Backward(tr, map[string]*Tensor{"logits": FromData([]float32{0, 1}, 1, 2)})
+	g, err := e.Backward(tr, map[string]*onnx.Tensor{"logits": onnx.FromData([]float32{0, 1}, 1, 2)})
 	if err != nil {
 		t.Fatal(err)
 	}
-	if gi := g.Of("input"); gi == nil || MaxAbsDiff(gi, New(gi.Shape...)) == 0 {
+	if gi := g.Of("input"); gi == nil || onnx.MaxAbsDiff(gi, onnx.New(gi.Shape...)) == 0 {
 		t.Error("no input gradient through the PyTorch export")
 	}
 }

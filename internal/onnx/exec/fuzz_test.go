@@ -1,4 +1,4 @@
-package onnx
+package exec
 
 import (
 	"math/rand/v2"
@@ -6,6 +6,7 @@ import (
 	"path/filepath"
 	"testing"
 
+	"brightfold/internal/onnx"
 	"brightfold/internal/refcheck"
 )
 
@@ -30,8 +31,8 @@ func FuzzDecode(f *testing.F) {
 	f.Add([]byte{})
 	f.Add([]byte{0x3a, 0x05, 0x0a, 0x03, 0x0a, 0x01, 0x78})
 	f.Fuzz(func(t *testing.T, b []byte) {
-		_, _, _ = DecodeTensor(b)
-		m, err := Decode(b)
+		_, _, _ = onnx.DecodeTensor(b)
+		m, err := onnx.Decode(b)
 		if err != nil {
 			return
 		}
@@ -39,7 +40,7 @@ func FuzzDecode(f *testing.F) {
 		if err != nil {
 			return // e.g. a tensor attribute whose values do not match its shape
 		}
-		if _, err := Decode(enc); err != nil {
+		if _, err := onnx.Decode(enc); err != nil {
 			t.Fatalf("re-decode of an encoded model failed: %v", err)
 		}
 		_, _ = NewExecutor(m)
@@ -65,7 +66,7 @@ func FuzzExecute(f *testing.F) {
 		}
 	}
 	f.Fuzz(func(t *testing.T, b []byte) {
-		m, err := Decode(b)
+		m, err := onnx.Decode(b)
 		if err != nil {
 			return
 		}
@@ -73,7 +74,7 @@ func FuzzExecute(f *testing.F) {
 		if err != nil {
 			return
 		}
-		feed := map[string]*Tensor{}
+		feed := map[string]*onnx.Tensor{}
 		for _, vi := range e.Inputs() {
 			shape := make([]int, len(vi.Shape))
 			for i, d := range vi.Shape {
@@ -82,12 +83,12 @@ func FuzzExecute(f *testing.F) {
 					shape[i] = int(d.Value)
 				}
 			}
-			if n, err := checkedNumel(shape); err != nil || n > 4096 {
+			if n, err := onnx.CheckedNumel(shape); err != nil || n > 4096 {
 				return
 			}
-			x := New(shape...)
-			if vi.ElemType != Float && vi.ElemType != Undefined {
-				x = &Tensor{Shape: shape, Ints: make([]int64, numel(shape)), DType: vi.ElemType}
+			x := onnx.New(shape...)
+			if vi.ElemType != onnx.Float && vi.ElemType != onnx.Undefined {
+				x = &onnx.Tensor{Shape: shape, Ints: make([]int64, onnx.Numel(shape)), DType: vi.ElemType}
 			}
 			for i := range x.Data {
 				x.Data[i] = float32(i%7) - 3
@@ -98,10 +99,10 @@ func FuzzExecute(f *testing.F) {
 		if err != nil {
 			return
 		}
-		seeds := map[string]*Tensor{}
+		seeds := map[string]*onnx.Tensor{}
 		for name, v := range e.Outputs(tr) {
 			if v != nil && v.IsFloat() {
-				s := New(v.Shape...)
+				s := onnx.New(v.Shape...)
 				for i := range s.Data {
 					s.Data[i] = 1
 				}

@@ -1,8 +1,10 @@
-package onnx
+package exec
 
 import (
 	"fmt"
 	"math"
+
+	"brightfold/internal/onnx"
 )
 
 func init() {
@@ -33,24 +35,24 @@ func sigmoid(x float32) float32 {
 // output y.
 func unary(f func(float32) float32, d func(x, y float32) float32) kernel {
 	return funcKernel{
-		fwd: func(in []*Tensor) ([]*Tensor, error) {
+		fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			x, err := floatIn(in, 0)
 			if err != nil {
 				return nil, err
 			}
-			y := New(x.Shape...)
+			y := onnx.New(x.Shape...)
 			for i, v := range x.Data {
 				y.Data[i] = f(v)
 			}
-			return []*Tensor{y}, nil
+			return []*onnx.Tensor{y}, nil
 		},
-		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
+		bwd: func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			x, y, g := in[0], out[0], gout[0]
-			gx := New(x.Shape...)
+			gx := onnx.New(x.Shape...)
 			for i, v := range x.Data {
 				gx.Data[i] = g.Data[i] * d(v, y.Data[i])
 			}
-			return []*Tensor{gx}, nil
+			return []*onnx.Tensor{gx}, nil
 		},
 	}
 }
@@ -60,12 +62,12 @@ func unary(f func(float32) float32, d func(x, y float32) float32) kernel {
 // because these run on every activation of a CNN.
 func leaky(alpha float32, workers int) kernel {
 	return funcKernel{
-		fwd: func(in []*Tensor) ([]*Tensor, error) {
+		fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			x, err := floatIn(in, 0)
 			if err != nil {
 				return nil, err
 			}
-			y := New(x.Shape...)
+			y := onnx.New(x.Shape...)
 			chunks(workers, len(x.Data), func(lo, hi int) {
 				yd := y.Data[lo:hi]
 				for i, v := range x.Data[lo:hi] {
@@ -75,11 +77,11 @@ func leaky(alpha float32, workers int) kernel {
 					yd[i] = v
 				}
 			})
-			return []*Tensor{y}, nil
+			return []*onnx.Tensor{y}, nil
 		},
-		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
+		bwd: func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			x, g := in[0], gout[0]
-			gx := New(x.Shape...)
+			gx := onnx.New(x.Shape...)
 			chunks(workers, len(x.Data), func(lo, hi int) {
 				gd, gs := gx.Data[lo:hi], g.Data[lo:hi]
 				for i, v := range x.Data[lo:hi] {
@@ -90,7 +92,7 @@ func leaky(alpha float32, workers int) kernel {
 					}
 				}
 			})
-			return []*Tensor{gx}, nil
+			return []*onnx.Tensor{gx}, nil
 		},
 	}
 }
@@ -99,15 +101,15 @@ func leaky(alpha float32, workers int) kernel {
 // inference).
 func passThrough() kernel {
 	return funcKernel{
-		fwd: func(in []*Tensor) ([]*Tensor, error) {
+		fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			x, err := anyIn(in, 0)
 			if err != nil {
 				return nil, err
 			}
-			return []*Tensor{x}, nil
+			return []*onnx.Tensor{x}, nil
 		},
-		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
-			g := make([]*Tensor, len(in))
+		bwd: func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error) {
+			g := make([]*onnx.Tensor, len(in))
 			g[0] = gout[0]
 			return g, nil
 		},
@@ -130,7 +132,7 @@ func buildDropout(c *buildCtx) (kernel, error) {
 	}
 	unsupported := c.unsupported("Dropout in training mode with a nonzero ratio draws random numbers")
 	return funcKernel{
-		fwd: func(in []*Tensor) ([]*Tensor, error) {
+		fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			x, err := anyIn(in, 0)
 			if err != nil {
 				return nil, err
@@ -147,14 +149,14 @@ func buildDropout(c *buildCtx) (kernel, error) {
 					return nil, unsupported
 				}
 			}
-			mask := &Tensor{Shape: append([]int{}, x.Shape...), Ints: make([]int64, x.Len()), DType: Bool}
+			mask := &onnx.Tensor{Shape: append([]int{}, x.Shape...), Ints: make([]int64, x.Len()), DType: onnx.Bool}
 			for i := range mask.Ints {
 				mask.Ints[i] = 1
 			}
-			return []*Tensor{x, mask}, nil
+			return []*onnx.Tensor{x, mask}, nil
 		},
-		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
-			g := make([]*Tensor, len(in))
+		bwd: func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error) {
+			g := make([]*onnx.Tensor, len(in))
 			g[0] = gout[0]
 			return g, nil
 		},

@@ -1,4 +1,4 @@
-package onnx
+package exec
 
 import (
 	"flag"
@@ -8,8 +8,8 @@ import (
 	"path/filepath"
 	"testing"
 
+	"brightfold/internal/onnx"
 	"brightfold/internal/refcheck"
-
 	ort "github.com/yalue/onnxruntime_go"
 )
 
@@ -59,7 +59,7 @@ func needORT(t *testing.T) {
 
 // runORT runs the encoded model in ONNX Runtime (one thread) on float
 // inputs and returns its float outputs by name.
-func runORT(t *testing.T, m *Model, feed map[string]*Tensor) map[string]*Tensor {
+func runORT(t *testing.T, m *onnx.Model, feed map[string]*onnx.Tensor) map[string]*onnx.Tensor {
 	t.Helper()
 	data, err := m.Encode()
 	if err != nil {
@@ -101,7 +101,7 @@ func runORT(t *testing.T, m *Model, feed map[string]*Tensor) map[string]*Tensor 
 	if err := s.Run(inputs, outputs); err != nil {
 		t.Fatalf("ONNX Runtime run: %v", err)
 	}
-	res := map[string]*Tensor{}
+	res := map[string]*onnx.Tensor{}
 	for i, v := range outputs {
 		defer v.Destroy()
 		ft, ok := v.(*ort.Tensor[float32])
@@ -112,14 +112,14 @@ func runORT(t *testing.T, m *Model, feed map[string]*Tensor) map[string]*Tensor 
 		for _, d := range ft.GetShape() {
 			shape = append(shape, int(d))
 		}
-		res[outNames[i]] = FromData(append([]float32{}, ft.GetData()...), shape...)
+		res[outNames[i]] = onnx.FromData(append([]float32{}, ft.GetData()...), shape...)
 	}
 	return res
 }
 
 // compareWithORT runs m in the executor and in ONNX Runtime and requires
 // every output to agree within tol·(1 + |ORT value|).
-func compareWithORT(t *testing.T, name string, m *Model, feed map[string]*Tensor, tol float64) {
+func compareWithORT(t *testing.T, name string, m *onnx.Model, feed map[string]*onnx.Tensor, tol float64) {
 	t.Helper()
 	e, err := NewExecutor(m)
 	if err != nil {
@@ -137,8 +137,8 @@ func compareWithORT(t *testing.T, name string, m *Model, feed map[string]*Tensor
 	}
 }
 
-func compareTol(got, want *Tensor, tol float64) string {
-	if got == nil || !sameShape(got.Shape, want.Shape) {
+func compareTol(got, want *onnx.Tensor, tol float64) string {
+	if got == nil || !onnx.SameShape(got.Shape, want.Shape) {
 		return fmt.Sprintf("shape %v, ONNX Runtime %v", got, want.Shape)
 	}
 	for i := range want.Data {
@@ -164,7 +164,7 @@ func abs(x float64) float64 {
 func TestORTAgreesOnBuiltModels(t *testing.T) {
 	needORT(t)
 	r := rand.New(rand.NewPCG(11, 12))
-	conv := func(name string, x []int, w []int, attrs ...*Attribute) {
+	conv := func(name string, x []int, w []int, attrs ...*onnx.Attribute) {
 		b := NewBuilder(name, 13)
 		in := b.Input("x", x...)
 		y := b.Node("Conv", []string{in, b.Param("w", randTensor(r, 0.5, w...)), b.Param("b", randTensor(r, 0.5, w[0]))}, attrs...)
@@ -173,38 +173,38 @@ func TestORTAgreesOnBuiltModels(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		compareWithORT(t, name, m, map[string]*Tensor{"x": randTensor(r, 1, x...)}, 1e-4)
+		compareWithORT(t, name, m, map[string]*onnx.Tensor{"x": randTensor(r, 1, x...)}, 1e-4)
 	}
 	conv("conv3d pads strides", []int{2, 3, 9, 8, 7}, []int{5, 3, 3, 3, 3},
-		IntsAttr("pads", 1, 0, 2, 0, 1, 1), IntsAttr("strides", 2, 1, 3))
+		onnx.IntsAttr("pads", 1, 0, 2, 0, 1, 1), onnx.IntsAttr("strides", 2, 1, 3))
 	conv("conv3d dilations groups", []int{1, 4, 10, 9, 8}, []int{6, 2, 3, 2, 3},
-		IntsAttr("dilations", 2, 3, 1), IntAttr("group", 2))
+		onnx.IntsAttr("dilations", 2, 3, 1), onnx.IntAttr("group", 2))
 	conv("conv3d same_upper", []int{1, 2, 7, 8, 9}, []int{3, 2, 4, 3, 2},
-		StringAttr("auto_pad", "SAME_UPPER"), IntsAttr("strides", 2, 2, 3))
+		onnx.StringAttr("auto_pad", "SAME_UPPER"), onnx.IntsAttr("strides", 2, 2, 3))
 	conv("conv3d same_lower", []int{1, 2, 7, 8, 9}, []int{3, 2, 4, 3, 2},
-		StringAttr("auto_pad", "SAME_LOWER"), IntsAttr("strides", 2, 1, 2))
+		onnx.StringAttr("auto_pad", "SAME_LOWER"), onnx.IntsAttr("strides", 2, 1, 2))
 	conv("conv3d valid depthwise", []int{1, 3, 6, 6, 6}, []int{3, 1, 3, 3, 3},
-		StringAttr("auto_pad", "VALID"), IntAttr("group", 3))
-	conv("conv2d dilations", []int{2, 3, 11, 10}, []int{4, 3, 3, 3}, IntsAttr("dilations", 2, 3), IntsAttr("pads", 2, 1, 0, 3))
-	conv("conv1d", []int{3, 2, 17}, []int{4, 2, 5}, IntsAttr("strides", 3), IntsAttr("pads", 2, 2))
+		onnx.StringAttr("auto_pad", "VALID"), onnx.IntAttr("group", 3))
+	conv("conv2d dilations", []int{2, 3, 11, 10}, []int{4, 3, 3, 3}, onnx.IntsAttr("dilations", 2, 3), onnx.IntsAttr("pads", 2, 1, 0, 3))
+	conv("conv1d", []int{3, 2, 17}, []int{4, 2, 5}, onnx.IntsAttr("strides", 3), onnx.IntsAttr("pads", 2, 2))
 	conv("conv3d pointwise", []int{2, 5, 4, 5, 6}, []int{7, 5, 1, 1, 1})
 	// Rows and whole column blocks that read only padding (a case fuzzing found).
-	conv("conv2d pads wider than input", []int{1, 2, 5, 4}, []int{3, 2, 3, 3}, IntsAttr("pads", 3, 48, 2, 40))
-	conv("conv3d large block", []int{1, 2, 20, 20, 20}, []int{4, 2, 3, 3, 3}, IntsAttr("pads", 1, 1, 1, 1, 1, 1))
+	conv("conv2d pads wider than input", []int{1, 2, 5, 4}, []int{3, 2, 3, 3}, onnx.IntsAttr("pads", 3, 48, 2, 40))
+	conv("conv3d large block", []int{1, 2, 20, 20, 20}, []int{4, 2, 3, 3, 3}, onnx.IntsAttr("pads", 1, 1, 1, 1, 1, 1))
 
-	pool := func(name, op string, x []int, attrs ...*Attribute) {
+	pool := func(name, op string, x []int, attrs ...*onnx.Attribute) {
 		b := NewBuilder(name, 13)
 		b.Output(b.Node(op, []string{b.Input("x", x...)}, attrs...), "y")
 		m, err := b.Model()
 		if err != nil {
 			t.Fatal(err)
 		}
-		compareWithORT(t, name, m, map[string]*Tensor{"x": randTensor(r, 1, x...)}, 1e-4)
+		compareWithORT(t, name, m, map[string]*onnx.Tensor{"x": randTensor(r, 1, x...)}, 1e-4)
 	}
-	pool("maxpool3d pads", "MaxPool", []int{1, 2, 7, 6, 5}, IntsAttr("kernel_shape", 3, 2, 3), IntsAttr("strides", 2, 2, 1), IntsAttr("pads", 1, 0, 1, 1, 1, 0))
-	pool("maxpool3d dilations", "MaxPool", []int{1, 2, 9, 8, 7}, IntsAttr("kernel_shape", 2, 2, 2), IntsAttr("dilations", 2, 3, 1))
-	pool("avgpool3d include pad", "AveragePool", []int{2, 2, 6, 7, 5}, IntsAttr("kernel_shape", 3, 3, 2), IntsAttr("pads", 1, 1, 1, 1, 1, 0), IntAttr("count_include_pad", 1))
-	pool("avgpool3d exclude pad", "AveragePool", []int{1, 3, 6, 7, 5}, IntsAttr("kernel_shape", 2, 3, 2), IntsAttr("strides", 2, 2, 2), IntsAttr("pads", 0, 1, 1, 1, 1, 0))
+	pool("maxpool3d pads", "MaxPool", []int{1, 2, 7, 6, 5}, onnx.IntsAttr("kernel_shape", 3, 2, 3), onnx.IntsAttr("strides", 2, 2, 1), onnx.IntsAttr("pads", 1, 0, 1, 1, 1, 0))
+	pool("maxpool3d dilations", "MaxPool", []int{1, 2, 9, 8, 7}, onnx.IntsAttr("kernel_shape", 2, 2, 2), onnx.IntsAttr("dilations", 2, 3, 1))
+	pool("avgpool3d include pad", "AveragePool", []int{2, 2, 6, 7, 5}, onnx.IntsAttr("kernel_shape", 3, 3, 2), onnx.IntsAttr("pads", 1, 1, 1, 1, 1, 0), onnx.IntAttr("count_include_pad", 1))
+	pool("avgpool3d exclude pad", "AveragePool", []int{1, 3, 6, 7, 5}, onnx.IntsAttr("kernel_shape", 2, 3, 2), onnx.IntsAttr("strides", 2, 2, 2), onnx.IntsAttr("pads", 0, 1, 1, 1, 1, 0))
 	pool("globalavg3d", "GlobalAveragePool", []int{2, 3, 4, 5, 6})
 
 	// The int64 shape arithmetic older PyTorch exports use for flattening:
@@ -213,19 +213,19 @@ func TestORTAgreesOnBuiltModels(t *testing.T) {
 		b := NewBuilder("shape-chain", 13)
 		x := b.Input("x", 2, 3, 4, 5)
 		shape := b.Node("Shape", []string{x})
-		n0 := b.Node("Gather", []string{shape, b.Param("zero", FromInts([]int64{0}))}, IntAttr("axis", 0))
-		n0 = b.Node("Unsqueeze", []string{n0, b.Param("axes0", FromInts([]int64{0}, 1))})
-		target := b.Node("Concat", []string{n0, b.Param("minus1", FromInts([]int64{-1}, 1))}, IntAttr("axis", 0))
-		target = b.Node("Cast", []string{b.Node("Cast", []string{target}, IntAttr("to", int64(Float)))}, IntAttr("to", int64(Int64)))
+		n0 := b.Node("Gather", []string{shape, b.Param("zero", onnx.FromInts([]int64{0}))}, onnx.IntAttr("axis", 0))
+		n0 = b.Node("Unsqueeze", []string{n0, b.Param("axes0", onnx.FromInts([]int64{0}, 1))})
+		target := b.Node("Concat", []string{n0, b.Param("minus1", onnx.FromInts([]int64{-1}, 1))}, onnx.IntAttr("axis", 0))
+		target = b.Node("Cast", []string{b.Node("Cast", []string{target}, onnx.IntAttr("to", int64(onnx.Float)))}, onnx.IntAttr("to", int64(onnx.Int64)))
 		y := b.Node("Reshape", []string{x, target})
-		b.Output(b.Node("Softmax", []string{y}, IntAttr("axis", 1)), "y")
+		b.Output(b.Node("Softmax", []string{y}, onnx.IntAttr("axis", 1)), "y")
 		m, err := b.Model()
 		if err != nil {
 			t.Fatal(err)
 		}
-		compareWithORT(t, "shape chain", m, map[string]*Tensor{"x": randTensor(r, 1, 2, 3, 4, 5)}, 1e-4)
+		compareWithORT(t, "shape chain", m, map[string]*onnx.Tensor{"x": randTensor(r, 1, 2, 3, 4, 5)}, 1e-4)
 	}
 
 	m := smallCNN(t, r, 10)
-	compareWithORT(t, "small 3D CNN", m, map[string]*Tensor{"input": randTensor(r, 1, 3, 1, 10, 10, 10)}, 1e-4)
+	compareWithORT(t, "small 3D CNN", m, map[string]*onnx.Tensor{"input": randTensor(r, 1, 3, 1, 10, 10, 10)}, 1e-4)
 }

@@ -1,8 +1,10 @@
-package onnx
+package exec
 
 import (
 	"fmt"
 	"sort"
+
+	"brightfold/internal/onnx"
 )
 
 func init() {
@@ -20,9 +22,9 @@ func init() {
 
 // reshapeKernel gives its input a new shape computed from the input (and
 // other inputs); the gradient is reshaped back.
-func reshapeKernel(shapeOf func(in []*Tensor) ([]int, error)) kernel {
+func reshapeKernel(shapeOf func(in []*onnx.Tensor) ([]int, error)) kernel {
 	return funcKernel{
-		fwd: func(in []*Tensor) ([]*Tensor, error) {
+		fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			x, err := anyIn(in, 0)
 			if err != nil {
 				return nil, err
@@ -31,13 +33,13 @@ func reshapeKernel(shapeOf func(in []*Tensor) ([]int, error)) kernel {
 			if err != nil {
 				return nil, err
 			}
-			if numel(s) != x.Len() {
+			if onnx.Numel(s) != x.Len() {
 				return nil, fmt.Errorf("cannot reshape %v to %v", x.Shape, s)
 			}
-			return []*Tensor{withShape(x, s)}, nil
+			return []*onnx.Tensor{withShape(x, s)}, nil
 		},
-		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
-			g := make([]*Tensor, len(in))
+		bwd: func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error) {
+			g := make([]*onnx.Tensor, len(in))
 			g[0] = withShape(gout[0], in[0].Shape)
 			return g, nil
 		},
@@ -47,7 +49,7 @@ func reshapeKernel(shapeOf func(in []*Tensor) ([]int, error)) kernel {
 // buildFlatten: ONNX Flatten, output (prod d[:axis], prod d[axis:]).
 func buildFlatten(c *buildCtx) (kernel, error) {
 	axis := c.attrs.int("axis", 1)
-	return reshapeKernel(func(in []*Tensor) ([]int, error) {
+	return reshapeKernel(func(in []*onnx.Tensor) ([]int, error) {
 		r := len(in[0].Shape)
 		a := int(axis)
 		if a < 0 {
@@ -56,7 +58,7 @@ func buildFlatten(c *buildCtx) (kernel, error) {
 		if a < 0 || a > r {
 			return nil, fmt.Errorf("axis %d out of range for rank %d", axis, r)
 		}
-		return []int{numel(in[0].Shape[:a]), numel(in[0].Shape[a:])}, nil
+		return []int{onnx.Numel(in[0].Shape[:a]), onnx.Numel(in[0].Shape[a:])}, nil
 	}), nil
 }
 
@@ -66,7 +68,7 @@ func buildReshape(c *buildCtx) (kernel, error) {
 	allowZero := c.attrs.int("allowzero", 0) != 0
 	attrShape := c.attrs.ints("shape", nil)
 	legacy := c.opset < 5
-	return reshapeKernel(func(in []*Tensor) ([]int, error) {
+	return reshapeKernel(func(in []*onnx.Tensor) ([]int, error) {
 		spec := attrShape
 		if !legacy {
 			var err error
@@ -95,17 +97,17 @@ func resolveShape(inShape []int, spec []int64, allowZero bool) ([]int, error) {
 				return nil, fmt.Errorf("shape %v copies dimension %d of a rank-%d input", spec, i, len(inShape))
 			}
 			out[i] = inShape[i]
-		case d < 0 || d > maxElements:
+		case d < 0 || d > onnx.MaxElements:
 			return nil, fmt.Errorf("invalid dimension %d in shape %v", d, spec)
 		default:
 			out[i] = int(d)
 		}
-		if out[i] != 0 && known > maxElements/out[i] {
+		if out[i] != 0 && known > onnx.MaxElements/out[i] {
 			return nil, fmt.Errorf("shape %v too large", spec)
 		}
 		known *= out[i]
 	}
-	total := numel(inShape)
+	total := onnx.Numel(inShape)
 	if infer >= 0 {
 		if known == 0 || total%known != 0 {
 			return nil, fmt.Errorf("cannot infer -1 in shape %v for %d elements", spec, total)
@@ -140,7 +142,7 @@ func buildTranspose(c *buildCtx) (kernel, error) {
 		return p, nil
 	}
 	return funcKernel{
-		fwd: func(in []*Tensor) ([]*Tensor, error) {
+		fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			x, err := anyIn(in, 0)
 			if err != nil {
 				return nil, err
@@ -150,15 +152,15 @@ func buildTranspose(c *buildCtx) (kernel, error) {
 				return nil, err
 			}
 			idx, shape := transposeIndex(x.Shape, p)
-			return []*Tensor{gatherElems(x, idx, shape)}, nil
+			return []*onnx.Tensor{gatherElems(x, idx, shape)}, nil
 		},
-		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
+		bwd: func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			p, err := permOf(len(in[0].Shape))
 			if err != nil {
 				return nil, err
 			}
 			idx, _ := transposeIndex(in[0].Shape, p)
-			return []*Tensor{scatterAdd(gout[0], idx, in[0].Shape)}, nil
+			return []*onnx.Tensor{scatterAdd(gout[0], idx, in[0].Shape)}, nil
 		},
 	}, nil
 }
@@ -182,7 +184,7 @@ func transposeIndex(shape []int, p []int) ([]int, []int) {
 func buildSqueeze(c *buildCtx, unsq bool) (kernel, error) {
 	attrAxes := c.attrs.ints("axes", nil)
 	fromInput := c.opset >= 13
-	return reshapeKernel(func(in []*Tensor) ([]int, error) {
+	return reshapeKernel(func(in []*onnx.Tensor) ([]int, error) {
 		axes := attrAxes
 		if fromInput {
 			if optional(in, 1) {
@@ -257,12 +259,12 @@ func unsqueezeShape(shape []int, axes []int64) ([]int, error) {
 func buildConcat(c *buildCtx) (kernel, error) {
 	axis := c.attrs.int("axis", 1)
 	return funcKernel{
-		fwd: func(in []*Tensor) ([]*Tensor, error) { return concat(in, axis) },
-		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) { return concatBackward(in, gout[0], axis) },
+		fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) { return concat(in, axis) },
+		bwd: func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error) { return concatBackward(in, gout[0], axis) },
 	}, nil
 }
 
-func concat(in []*Tensor, axis int64) ([]*Tensor, error) {
+func concat(in []*onnx.Tensor, axis int64) ([]*onnx.Tensor, error) {
 	if len(in) == 0 {
 		return nil, fmt.Errorf("no inputs")
 	}
@@ -290,12 +292,12 @@ func concat(in []*Tensor, axis int64) ([]*Tensor, error) {
 		}
 		shape[ax] += t.Shape[ax]
 	}
-	out := &Tensor{Shape: shape, DType: first.DType}
-	outer, inner := numel(shape[:ax]), numel(shape[ax+1:])
+	out := &onnx.Tensor{Shape: shape, DType: first.DType}
+	outer, inner := onnx.Numel(shape[:ax]), onnx.Numel(shape[ax+1:])
 	if first.IsFloat() {
-		out.Data = make([]float32, 0, numel(shape))
+		out.Data = make([]float32, 0, onnx.Numel(shape))
 	} else {
-		out.Ints = make([]int64, 0, numel(shape))
+		out.Ints = make([]int64, 0, onnx.Numel(shape))
 	}
 	for o := 0; o < outer; o++ {
 		for _, t := range in {
@@ -307,11 +309,11 @@ func concat(in []*Tensor, axis int64) ([]*Tensor, error) {
 			}
 		}
 	}
-	return []*Tensor{out}, nil
+	return []*onnx.Tensor{out}, nil
 }
 
-func concatBackward(in []*Tensor, g *Tensor, axis int64) ([]*Tensor, error) {
-	grads := make([]*Tensor, len(in))
+func concatBackward(in []*onnx.Tensor, g *onnx.Tensor, axis int64) ([]*onnx.Tensor, error) {
+	grads := make([]*onnx.Tensor, len(in))
 	if !in[0].IsFloat() {
 		return grads, nil
 	}
@@ -319,9 +321,9 @@ func concatBackward(in []*Tensor, g *Tensor, axis int64) ([]*Tensor, error) {
 	if err != nil {
 		return nil, err
 	}
-	outer, inner := numel(g.Shape[:ax]), numel(g.Shape[ax+1:])
+	outer, inner := onnx.Numel(g.Shape[:ax]), onnx.Numel(g.Shape[ax+1:])
 	for i, t := range in {
-		grads[i] = New(t.Shape...)
+		grads[i] = onnx.New(t.Shape...)
 	}
 	off := 0
 	for o := 0; o < outer; o++ {
@@ -339,7 +341,7 @@ func buildShape(c *buildCtx) (kernel, error) {
 	start := c.attrs.int("start", 0)
 	endAttr := c.node.Attr("end")
 	end := c.attrs.int("end", 0)
-	return funcKernel{fwd: func(in []*Tensor) ([]*Tensor, error) {
+	return funcKernel{fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 		x, err := anyIn(in, 0)
 		if err != nil {
 			return nil, err
@@ -356,7 +358,7 @@ func buildShape(c *buildCtx) (kernel, error) {
 		if v == nil {
 			v = []int64{}
 		}
-		return []*Tensor{FromInts(v, len(v))}, nil
+		return []*onnx.Tensor{onnx.FromInts(v, len(v))}, nil
 	}}, nil
 }
 
@@ -371,7 +373,7 @@ func clampRange(i, r int64) int64 {
 // buildGather: ONNX Gather along axis; negative indices count from the end.
 func buildGather(c *buildCtx) (kernel, error) {
 	axis := c.attrs.int("axis", 0)
-	index := func(in []*Tensor) ([]int, []int, error) {
+	index := func(in []*onnx.Tensor) ([]int, []int, error) {
 		x, err := anyIn(in, 0)
 		if err != nil {
 			return nil, nil, err
@@ -383,37 +385,37 @@ func buildGather(c *buildCtx) (kernel, error) {
 		return gatherIndex(x.Shape, ind, axis)
 	}
 	return funcKernel{
-		fwd: func(in []*Tensor) ([]*Tensor, error) {
+		fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			idx, shape, err := index(in)
 			if err != nil {
 				return nil, err
 			}
-			return []*Tensor{gatherElems(in[0], idx, shape)}, nil
+			return []*onnx.Tensor{gatherElems(in[0], idx, shape)}, nil
 		},
-		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
+		bwd: func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			if !in[0].IsFloat() {
-				return []*Tensor{nil, nil}, nil
+				return []*onnx.Tensor{nil, nil}, nil
 			}
 			idx, _, err := index(in)
 			if err != nil {
 				return nil, err
 			}
-			return []*Tensor{scatterAdd(gout[0], idx, in[0].Shape), nil}, nil
+			return []*onnx.Tensor{scatterAdd(gout[0], idx, in[0].Shape), nil}, nil
 		},
 	}, nil
 }
 
-func gatherIndex(shape []int, ind *Tensor, axis int64) ([]int, []int, error) {
+func gatherIndex(shape []int, ind *onnx.Tensor, axis int64) ([]int, []int, error) {
 	ax, err := normAxis(axis, len(shape))
 	if err != nil {
 		return nil, nil, err
 	}
-	outer, inner, dim := numel(shape[:ax]), numel(shape[ax+1:]), shape[ax]
+	outer, inner, dim := onnx.Numel(shape[:ax]), onnx.Numel(shape[ax+1:]), shape[ax]
 	out := append(append(append([]int{}, shape[:ax]...), ind.Shape...), shape[ax+1:]...)
-	if _, err := checkedNumel(out); err != nil {
+	if _, err := onnx.CheckedNumel(out); err != nil {
 		return nil, nil, err
 	}
-	idx := make([]int, 0, numel(out))
+	idx := make([]int, 0, onnx.Numel(out))
 	for o := 0; o < outer; o++ {
 		for _, k := range ind.Ints {
 			if k < 0 {
@@ -433,33 +435,33 @@ func gatherIndex(shape []int, ind *Tensor, axis int64) ([]int, []int, error) {
 
 // buildCast: ONNX Cast between float32 and the integer/boolean types.
 func buildCast(c *buildCtx) (kernel, error) {
-	to := DataType(c.attrs.int("to", int64(Float)))
-	if to != Float && !to.isIntKind() {
+	to := onnx.DataType(c.attrs.int("to", int64(onnx.Float)))
+	if to != onnx.Float && !to.IsInt() {
 		return nil, c.unsupported("Cast to %v", to)
 	}
 	return funcKernel{
-		fwd: func(in []*Tensor) ([]*Tensor, error) {
+		fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 			x, err := anyIn(in, 0)
 			if err != nil {
 				return nil, err
 			}
-			return []*Tensor{castTo(x, to)}, nil
+			return []*onnx.Tensor{castTo(x, to)}, nil
 		},
-		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) {
-			if in[0].IsFloat() && to == Float {
-				return []*Tensor{gout[0]}, nil
+		bwd: func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error) {
+			if in[0].IsFloat() && to == onnx.Float {
+				return []*onnx.Tensor{gout[0]}, nil
 			}
-			return []*Tensor{nil}, nil
+			return []*onnx.Tensor{nil}, nil
 		},
 	}, nil
 }
 
-func castTo(x *Tensor, to DataType) *Tensor {
-	out := &Tensor{Shape: append([]int{}, x.Shape...), DType: to}
+func castTo(x *onnx.Tensor, to onnx.DataType) *onnx.Tensor {
+	out := &onnx.Tensor{Shape: append([]int{}, x.Shape...), DType: to}
 	switch {
-	case to == Float && x.IsFloat():
+	case to == onnx.Float && x.IsFloat():
 		out.Data = x.Data
-	case to == Float:
+	case to == onnx.Float:
 		out.Data = make([]float32, len(x.Ints))
 		for i, v := range x.Ints {
 			out.Data[i] = float32(v)
@@ -467,18 +469,18 @@ func castTo(x *Tensor, to DataType) *Tensor {
 	case x.IsFloat():
 		out.Ints = make([]int64, len(x.Data))
 		for i, v := range x.Data {
-			if to == Bool {
+			if to == onnx.Bool {
 				if v != 0 {
 					out.Ints[i] = 1
 				}
 				continue
 			}
-			out.Ints[i] = normaliseInt(to, int64(v))
+			out.Ints[i] = onnx.NormaliseInt(to, int64(v))
 		}
 	default:
 		out.Ints = make([]int64, len(x.Ints))
 		for i, v := range x.Ints {
-			out.Ints[i] = normaliseInt(to, v)
+			out.Ints[i] = onnx.NormaliseInt(to, v)
 		}
 	}
 	return out
@@ -487,7 +489,7 @@ func castTo(x *Tensor, to DataType) *Tensor {
 // buildConstant: ONNX Constant with value, or value_float(s)/value_int(s)
 // (opset 12).
 func buildConstant(c *buildCtx) (kernel, error) {
-	var t *Tensor
+	var t *onnx.Tensor
 	n := c.node
 	switch {
 	case n.Attr("value") != nil:
@@ -497,15 +499,15 @@ func buildConstant(c *buildCtx) (kernel, error) {
 		}
 		t = a.T
 	case n.Attr("value_float") != nil:
-		t = FromData([]float32{c.attrs.float("value_float", 0)})
+		t = onnx.FromData([]float32{c.attrs.float("value_float", 0)})
 	case n.Attr("value_floats") != nil:
 		v := n.Attr("value_floats").Floats
-		t = FromData(append([]float32{}, v...), len(v))
+		t = onnx.FromData(append([]float32{}, v...), len(v))
 	case n.Attr("value_int") != nil:
-		t = FromInts([]int64{c.attrs.int("value_int", 0)})
+		t = onnx.FromInts([]int64{c.attrs.int("value_int", 0)})
 	case n.Attr("value_ints") != nil:
 		v := c.attrs.ints("value_ints", nil)
-		t = FromInts(append([]int64{}, v...), len(v))
+		t = onnx.FromInts(append([]int64{}, v...), len(v))
 	default:
 		var names []string
 		for _, a := range n.Attrs {
@@ -517,5 +519,5 @@ func buildConstant(c *buildCtx) (kernel, error) {
 	if err := t.Check(); err != nil {
 		return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 	}
-	return funcKernel{fwd: func(in []*Tensor) ([]*Tensor, error) { return []*Tensor{t}, nil }}, nil
+	return funcKernel{fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) { return []*onnx.Tensor{t}, nil }}, nil
 }

@@ -1,10 +1,12 @@
-package onnx
+package exec
 
 import (
 	"errors"
 	"fmt"
 	"runtime"
 	"sort"
+
+	"brightfold/internal/onnx"
 )
 
 // UnsupportedError reports an operator (or an attribute value of one) that
@@ -32,26 +34,26 @@ const inputKind = "graph input"
 type kernel interface {
 	// forward computes the node's outputs from its inputs (nil for an
 	// omitted optional input).
-	forward(in []*Tensor) ([]*Tensor, error)
+	forward(in []*onnx.Tensor) ([]*onnx.Tensor, error)
 	// backward returns the gradient for each input given the gradient of
 	// each output (never nil for a float output; zeros when unseeded).
 	// need[i] false allows the kernel to skip input i. Entries may be nil
 	// for inputs that carry no gradient or were not needed.
-	backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error)
+	backward(in, out, gout []*onnx.Tensor, need []bool) ([]*onnx.Tensor, error)
 }
 
 // buildCtx is what an op constructor sees.
 type buildCtx struct {
-	node    *Node
+	node    *onnx.Node
 	opset   int64
 	workers int
 	attrs   attrReader
-	consts  map[string]*Tensor // initializers and Constant outputs known at build time
+	consts  map[string]*onnx.Tensor // initializers and Constant outputs known at build time
 }
 
 // constInput returns input i's value when it is known when the executor is
 // built (an initializer or a Constant's output), else nil.
-func (c *buildCtx) constInput(i int) *Tensor {
+func (c *buildCtx) constInput(i int) *onnx.Tensor {
 	return c.consts[c.node.Input(i)]
 }
 
@@ -84,12 +86,12 @@ func SupportedOps() []string {
 // holds no per-run state: Forward and Backward may run concurrently as long
 // as nobody mutates the model meanwhile.
 type Executor struct {
-	model   *Model
-	graph   *Graph
+	model   *onnx.Model
+	graph   *onnx.Graph
 	opset   int64
-	order   []*Node  // execution order (topological)
-	kernels []kernel // per entry of order
-	inputs  []*ValueInfo
+	order   []*onnx.Node // execution order (topological)
+	kernels []kernel     // per entry of order
+	inputs  []*onnx.ValueInfo
 	workers int
 	isInit  map[string]bool // initializer names
 	isInput map[string]bool // graph input names
@@ -99,13 +101,13 @@ type Executor struct {
 // GOMAXPROCS. It rejects unknown operators, unsupported attribute values,
 // other operator domains, graphs whose values nothing produces, and cycles,
 // with an error naming the node (an *UnsupportedError for the first two).
-func NewExecutor(m *Model) (*Executor, error) {
+func NewExecutor(m *onnx.Model) (*Executor, error) {
 	return NewExecutorWorkers(m, runtime.GOMAXPROCS(0))
 }
 
 // NewExecutorWorkers is NewExecutor with an explicit number of goroutines
 // for the heavy kernels (convolution, matrix products); at least 1.
-func NewExecutorWorkers(m *Model, workers int) (*Executor, error) {
+func NewExecutorWorkers(m *onnx.Model, workers int) (*Executor, error) {
 	if m == nil || m.Graph == nil {
 		return nil, errors.New("executor: model has no graph")
 	}
@@ -131,7 +133,7 @@ func NewExecutorWorkers(m *Model, workers int) (*Executor, error) {
 	for _, in := range m.Graph.Inputs {
 		e.isInput[in.Name] = true
 	}
-	consts := map[string]*Tensor{}
+	consts := map[string]*onnx.Tensor{}
 	for _, in := range m.Graph.Initializers {
 		if in.Tensor != nil {
 			consts[in.Name] = in.Tensor
@@ -147,7 +149,7 @@ func NewExecutorWorkers(m *Model, workers int) (*Executor, error) {
 	return e, nil
 }
 
-func (e *Executor) build(n *Node, consts map[string]*Tensor) (kernel, error) {
+func (e *Executor) build(n *onnx.Node, consts map[string]*onnx.Tensor) (kernel, error) {
 	c := &buildCtx{node: n, opset: e.opset, workers: e.workers, attrs: attrReader{n: n}, consts: consts}
 	if n.Domain != "" && n.Domain != "ai.onnx" {
 		return nil, c.unsupported("operator domain %q (only the default ONNX domain is supported)", n.Domain)
@@ -174,12 +176,12 @@ func (e *Executor) build(n *Node, consts map[string]*Tensor) (kernel, error) {
 // Unsupported lists, for each node the executor cannot run, the reason; an
 // empty list means NewExecutor would accept the operators (it may still
 // reject the graph's structure).
-func Unsupported(m *Model) []error {
+func Unsupported(m *onnx.Model) []error {
 	if m == nil || m.Graph == nil {
 		return []error{errors.New("model has no graph")}
 	}
 	e := &Executor{opset: m.Opset(""), workers: 1}
-	consts := map[string]*Tensor{}
+	consts := map[string]*onnx.Tensor{}
 	for _, in := range m.Graph.Initializers {
 		if in.Tensor != nil {
 			consts[in.Name] = in.Tensor
@@ -195,12 +197,12 @@ func Unsupported(m *Model) []error {
 }
 
 // checkInputTypes refuses graph inputs of types the executor cannot hold.
-func checkInputTypes(inputs []*ValueInfo) error {
+func checkInputTypes(inputs []*onnx.ValueInfo) error {
 	for _, vi := range inputs {
 		if !vi.IsTensor() {
 			return &UnsupportedError{Op: inputKind, Node: vi.Name, Reason: "not a tensor type (sequence, map or optional)"}
 		}
-		if vi.ElemType != Float && vi.ElemType != Undefined && !vi.ElemType.isIntKind() {
+		if vi.ElemType != onnx.Float && vi.ElemType != onnx.Undefined && !vi.ElemType.IsInt() {
 			return &UnsupportedError{Op: inputKind, Node: vi.Name, Reason: "element type " + vi.ElemType.String()}
 		}
 	}
@@ -209,7 +211,7 @@ func checkInputTypes(inputs []*ValueInfo) error {
 
 // topoOrder sorts the nodes so that every value is produced before it is
 // read, and checks that every read value has a source.
-func topoOrder(g *Graph) ([]*Node, error) {
+func topoOrder(g *onnx.Graph) ([]*onnx.Node, error) {
 	avail := map[string]bool{"": true}
 	for _, in := range g.Initializers {
 		avail[in.Name] = true
@@ -217,7 +219,7 @@ func topoOrder(g *Graph) ([]*Node, error) {
 	for _, in := range g.Inputs {
 		avail[in.Name] = true
 	}
-	producer := map[string]*Node{}
+	producer := map[string]*onnx.Node{}
 	for _, n := range g.Nodes {
 		for _, o := range n.Outputs {
 			if o == "" {
@@ -229,8 +231,8 @@ func topoOrder(g *Graph) ([]*Node, error) {
 			producer[o] = n
 		}
 	}
-	var order []*Node
-	done := map[*Node]bool{}
+	var order []*onnx.Node
+	done := map[*onnx.Node]bool{}
 	// The nodes are normally sorted already; repeated sweeps handle the rest.
 	for len(order) < len(g.Nodes) {
 		progress := false
@@ -251,7 +253,7 @@ func topoOrder(g *Graph) ([]*Node, error) {
 	return order, nil
 }
 
-func inputsReady(n *Node, avail map[string]bool) bool {
+func inputsReady(n *onnx.Node, avail map[string]bool) bool {
 	for _, in := range n.Inputs {
 		if !avail[in] {
 			return false
@@ -260,7 +262,7 @@ func inputsReady(n *Node, avail map[string]bool) bool {
 	return true
 }
 
-func missingInput(g *Graph, done map[*Node]bool, avail map[string]bool, producer map[string]*Node) error {
+func missingInput(g *onnx.Graph, done map[*onnx.Node]bool, avail map[string]bool, producer map[string]*onnx.Node) error {
 	for _, n := range g.Nodes {
 		if done[n] {
 			continue
@@ -275,36 +277,36 @@ func missingInput(g *Graph, done map[*Node]bool, avail map[string]bool, producer
 }
 
 // Model returns the model the executor runs.
-func (e *Executor) Model() *Model { return e.model }
+func (e *Executor) Model() *onnx.Model { return e.model }
 
 // Opset is the default-domain operator set version the model imports.
 func (e *Executor) Opset() int64 { return e.opset }
 
 // Nodes returns the nodes in execution order. Relevance rules walk this
 // list backwards, reading each node's values from a Trace.
-func (e *Executor) Nodes() []*Node { return e.order }
+func (e *Executor) Nodes() []*onnx.Node { return e.order }
 
 // Inputs returns the graph inputs a caller must feed (those without an
 // initializer).
-func (e *Executor) Inputs() []*ValueInfo { return e.inputs }
+func (e *Executor) Inputs() []*onnx.ValueInfo { return e.inputs }
 
 // Trace holds every value of one forward pass by name: the fed inputs, the
 // initializers, and each node's outputs.
 type Trace struct {
-	Values map[string]*Tensor
+	Values map[string]*onnx.Tensor
 }
 
 // Value returns the value called name, or nil.
-func (t *Trace) Value(name string) *Tensor { return t.Values[name] }
+func (t *Trace) Value(name string) *onnx.Tensor { return t.Values[name] }
 
 // NodeInputs returns the values of n's inputs (nil for omitted ones).
-func (t *Trace) NodeInputs(n *Node) []*Tensor { return t.collect(n.Inputs) }
+func (t *Trace) NodeInputs(n *onnx.Node) []*onnx.Tensor { return t.collect(n.Inputs) }
 
 // NodeOutputs returns the values of n's outputs.
-func (t *Trace) NodeOutputs(n *Node) []*Tensor { return t.collect(n.Outputs) }
+func (t *Trace) NodeOutputs(n *onnx.Node) []*onnx.Tensor { return t.collect(n.Outputs) }
 
-func (t *Trace) collect(names []string) []*Tensor {
-	out := make([]*Tensor, len(names))
+func (t *Trace) collect(names []string) []*onnx.Tensor {
+	out := make([]*onnx.Tensor, len(names))
 	for i, s := range names {
 		if s != "" {
 			out[i] = t.Values[s]
@@ -316,8 +318,8 @@ func (t *Trace) collect(names []string) []*Tensor {
 // Forward runs the graph on inputs (by graph input name) and keeps every
 // intermediate value. Inputs are checked against the graph's declared
 // element types and fixed dimensions; they are not modified.
-func (e *Executor) Forward(inputs map[string]*Tensor) (*Trace, error) {
-	vals := make(map[string]*Tensor, len(e.order)+len(inputs))
+func (e *Executor) Forward(inputs map[string]*onnx.Tensor) (*Trace, error) {
+	vals := make(map[string]*onnx.Tensor, len(e.order)+len(inputs))
 	for _, in := range e.graph.Initializers {
 		if in.Tensor != nil {
 			vals[in.Name] = in.Tensor
@@ -354,7 +356,7 @@ func (e *Executor) Forward(inputs map[string]*Tensor) (*Trace, error) {
 	return tr, nil
 }
 
-func (e *Executor) runNode(tr *Trace, n *Node, k kernel) error {
+func (e *Executor) runNode(tr *Trace, n *onnx.Node, k kernel) error {
 	outs, err := k.forward(tr.NodeInputs(n))
 	var ue *UnsupportedError
 	if errors.As(err, &ue) {
@@ -375,15 +377,15 @@ func (e *Executor) runNode(tr *Trace, n *Node, k kernel) error {
 }
 
 // checkInput compares a fed tensor with the graph's declaration.
-func checkInput(vi *ValueInfo, t *Tensor) error {
+func checkInput(vi *onnx.ValueInfo, t *onnx.Tensor) error {
 	if err := t.Check(); err != nil {
 		return fmt.Errorf("input %q: %w", vi.Name, err)
 	}
 	dt := t.DType
-	if dt == Undefined {
-		dt = Float
+	if dt == onnx.Undefined {
+		dt = onnx.Float
 	}
-	if vi.IsTensor() && vi.ElemType != Undefined && vi.ElemType != dt {
+	if vi.IsTensor() && vi.ElemType != onnx.Undefined && vi.ElemType != dt {
 		return fmt.Errorf("input %q is %v, the model expects %v", vi.Name, dt, vi.ElemType)
 	}
 	if !vi.HasShape {
@@ -401,8 +403,8 @@ func checkInput(vi *ValueInfo, t *Tensor) error {
 }
 
 // Outputs returns the graph's output values from a trace, by name.
-func (e *Executor) Outputs(tr *Trace) map[string]*Tensor {
-	out := map[string]*Tensor{}
+func (e *Executor) Outputs(tr *Trace) map[string]*onnx.Tensor {
+	out := map[string]*onnx.Tensor{}
 	for _, o := range e.graph.Outputs {
 		out[o.Name] = tr.Values[o.Name]
 	}
@@ -413,12 +415,12 @@ func (e *Executor) Outputs(tr *Trace) map[string]*Tensor {
 // that the seeds reach (inputs, initializers, intermediates), the gradient
 // of sum_k <seed_k, value_k> with respect to it.
 type Grads struct {
-	Values map[string]*Tensor
+	Values map[string]*onnx.Tensor
 }
 
 // Of returns the gradient with respect to value name, or nil when no seed
 // reaches it (the gradient is zero).
-func (g *Grads) Of(name string) *Tensor { return g.Values[name] }
+func (g *Grads) Of(name string) *onnx.Tensor { return g.Values[name] }
 
 // BackwardOptions trims a backward pass.
 type BackwardOptions struct {
@@ -430,19 +432,19 @@ type BackwardOptions struct {
 // usually graph outputs; same shapes) back through the graph. The result
 // has gradients with respect to the inputs and every float initializer the
 // seeds depend on, and every intermediate on the way.
-func (e *Executor) Backward(tr *Trace, seeds map[string]*Tensor) (*Grads, error) {
+func (e *Executor) Backward(tr *Trace, seeds map[string]*onnx.Tensor) (*Grads, error) {
 	return e.BackwardWith(tr, seeds, BackwardOptions{})
 }
 
 // BackwardWith is Backward with options that skip work nobody needs.
-func (e *Executor) BackwardWith(tr *Trace, seeds map[string]*Tensor, opt BackwardOptions) (*Grads, error) {
+func (e *Executor) BackwardWith(tr *Trace, seeds map[string]*onnx.Tensor, opt BackwardOptions) (*Grads, error) {
 	acc := newAccumulator()
 	for name, s := range seeds {
 		v := tr.Values[name]
 		if v == nil {
 			return nil, fmt.Errorf("backward: seed %q is not a value of the trace", name)
 		}
-		if !v.IsFloat() || s == nil || !s.IsFloat() || !sameShape(v.Shape, s.Shape) || len(s.Data) != v.Len() {
+		if !v.IsFloat() || s == nil || !s.IsFloat() || !onnx.SameShape(v.Shape, s.Shape) || len(s.Data) != v.Len() {
 			return nil, fmt.Errorf("backward: seed %q is %v, the value is %v", name, s, v)
 		}
 		acc.add(name, s)
@@ -455,15 +457,15 @@ func (e *Executor) BackwardWith(tr *Trace, seeds map[string]*Tensor, opt Backwar
 	return &Grads{Values: acc.grads}, nil
 }
 
-func (e *Executor) backNode(tr *Trace, n *Node, k kernel, acc *accumulator, opt BackwardOptions) error {
+func (e *Executor) backNode(tr *Trace, n *onnx.Node, k kernel, acc *accumulator, opt BackwardOptions) error {
 	outs := tr.NodeOutputs(n)
-	gout := make([]*Tensor, len(outs))
+	gout := make([]*onnx.Tensor, len(outs))
 	any := false
 	for j, o := range n.Outputs {
 		if g := acc.grads[o]; g != nil && o != "" {
 			gout[j], any = g, true
 		} else if outs[j] != nil && outs[j].IsFloat() {
-			gout[j] = New(outs[j].Shape...)
+			gout[j] = onnx.New(outs[j].Shape...)
 		}
 	}
 	if !any {
@@ -490,7 +492,7 @@ func (e *Executor) backNode(tr *Trace, n *Node, k kernel, acc *accumulator, opt 
 		if g == nil || j >= len(n.Inputs) || !need[j] {
 			continue
 		}
-		if !sameShape(g.Shape, ins[j].Shape) {
+		if !onnx.SameShape(g.Shape, ins[j].Shape) {
 			return fmt.Errorf("backward: %s: gradient for input %d has shape %v, input has %v", n.Describe(), j, g.Shape, ins[j].Shape)
 		}
 		acc.add(n.Inputs[j], g)
@@ -501,15 +503,15 @@ func (e *Executor) backNode(tr *Trace, n *Node, k kernel, acc *accumulator, opt 
 // accumulator sums gradient contributions, copying a tensor before the
 // first in-place addition so that no kernel's output is modified.
 type accumulator struct {
-	grads map[string]*Tensor
+	grads map[string]*onnx.Tensor
 	owned map[string]bool
 }
 
 func newAccumulator() *accumulator {
-	return &accumulator{grads: map[string]*Tensor{}, owned: map[string]bool{}}
+	return &accumulator{grads: map[string]*onnx.Tensor{}, owned: map[string]bool{}}
 }
 
-func (a *accumulator) add(name string, g *Tensor) {
+func (a *accumulator) add(name string, g *onnx.Tensor) {
 	cur := a.grads[name]
 	if cur == nil {
 		a.grads[name] = g
@@ -527,7 +529,7 @@ func (a *accumulator) add(name string, g *Tensor) {
 // Apply runs node n's operator on the given input values (as a Trace holds
 // them) and returns its outputs. n must be one of e.Nodes(). Relevance
 // rules use it to re-run a layer with modified weights.
-func (e *Executor) Apply(n *Node, inputs []*Tensor) ([]*Tensor, error) {
+func (e *Executor) Apply(n *onnx.Node, inputs []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	k, err := e.kernelOf(n)
 	if err != nil {
 		return nil, err
@@ -544,17 +546,17 @@ func (e *Executor) Apply(n *Node, inputs []*Tensor) ([]*Tensor, error) {
 // count as zero). outputs must be the node's outputs at inputs (Apply's
 // result). Entries are nil for inputs without a gradient (integers,
 // indices, shapes).
-func (e *Executor) VJP(n *Node, inputs, outputs, gout []*Tensor) ([]*Tensor, error) {
+func (e *Executor) VJP(n *onnx.Node, inputs, outputs, gout []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	k, err := e.kernelOf(n)
 	if err != nil {
 		return nil, err
 	}
-	g := make([]*Tensor, len(outputs))
+	g := make([]*onnx.Tensor, len(outputs))
 	for j := range outputs {
 		if j < len(gout) && gout[j] != nil {
 			g[j] = gout[j]
 		} else if outputs[j] != nil && outputs[j].IsFloat() {
-			g[j] = New(outputs[j].Shape...)
+			g[j] = onnx.New(outputs[j].Shape...)
 		}
 	}
 	gin, err := k.backward(inputs, outputs, g, needAll(len(inputs)))
@@ -564,7 +566,7 @@ func (e *Executor) VJP(n *Node, inputs, outputs, gout []*Tensor) ([]*Tensor, err
 	return gin, nil
 }
 
-func (e *Executor) kernelOf(n *Node) (kernel, error) {
+func (e *Executor) kernelOf(n *onnx.Node) (kernel, error) {
 	for i, m := range e.order {
 		if m == n {
 			return e.kernels[i], nil

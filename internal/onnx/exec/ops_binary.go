@@ -1,6 +1,10 @@
-package onnx
+package exec
 
-import "fmt"
+import (
+	"fmt"
+
+	"brightfold/internal/onnx"
+)
 
 func init() {
 	register("Add", func(c *buildCtx) (kernel, error) { return binaryOp(c, opAdd) })
@@ -26,8 +30,8 @@ func binaryOp(c *buildCtx, kind binKind) (kernel, error) {
 		return nil, c.unsupported("legacy broadcast attribute (opset < 7)")
 	}
 	return funcKernel{
-		fwd: func(in []*Tensor) ([]*Tensor, error) { return binaryForward(kind, in) },
-		bwd: func(in, out, gout []*Tensor) ([]*Tensor, error) { return binaryBackward(kind, in, gout[0]) },
+		fwd: func(in []*onnx.Tensor) ([]*onnx.Tensor, error) { return binaryForward(kind, in) },
+		bwd: func(in, out, gout []*onnx.Tensor) ([]*onnx.Tensor, error) { return binaryBackward(kind, in, gout[0]) },
 	}, nil
 }
 
@@ -79,7 +83,7 @@ func broadcastIndex(s, out []int) []int {
 // for each, the source offset sum_a pos[a]*src[a].
 func stridedIndex(out, src []int) []int {
 	r := len(out)
-	idx := make([]int, numel(out))
+	idx := make([]int, onnx.Numel(out))
 	pos := make([]int, r)
 	cur := 0
 	for i := range idx {
@@ -97,7 +101,7 @@ func stridedIndex(out, src []int) []int {
 	return idx
 }
 
-func binaryForward(kind binKind, in []*Tensor) ([]*Tensor, error) {
+func binaryForward(kind binKind, in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	a, err := anyIn(in, 0)
 	if err != nil {
 		return nil, err
@@ -114,18 +118,18 @@ func binaryForward(kind binKind, in []*Tensor) ([]*Tensor, error) {
 		return nil, err
 	}
 	if !a.IsFloat() {
-		return []*Tensor{intBinary(kind, a, b, shape)}, nil
+		return []*onnx.Tensor{intBinary(kind, a, b, shape)}, nil
 	}
-	out := New(shape...)
-	if sameShape(a.Shape, shape) && sameShape(b.Shape, shape) {
+	out := onnx.New(shape...)
+	if onnx.SameShape(a.Shape, shape) && onnx.SameShape(b.Shape, shape) {
 		floatBinarySame(kind, a.Data, b.Data, out.Data)
-		return []*Tensor{out}, nil
+		return []*onnx.Tensor{out}, nil
 	}
 	ia, ib := broadcastIndex(a.Shape, shape), broadcastIndex(b.Shape, shape)
 	for i := range out.Data {
 		out.Data[i] = apply(kind, a.Data[ia[i]], b.Data[ib[i]])
 	}
-	return []*Tensor{out}, nil
+	return []*onnx.Tensor{out}, nil
 }
 
 func floatBinarySame(kind binKind, a, b, out []float32) {
@@ -163,9 +167,9 @@ func apply(kind binKind, x, y float32) float32 {
 	return x / y
 }
 
-func intBinary(kind binKind, a, b *Tensor, shape []int) *Tensor {
+func intBinary(kind binKind, a, b *onnx.Tensor, shape []int) *onnx.Tensor {
 	ia, ib := broadcastIndex(a.Shape, shape), broadcastIndex(b.Shape, shape)
-	out := &Tensor{Shape: shape, Ints: make([]int64, len(ia)), DType: a.DType}
+	out := &onnx.Tensor{Shape: shape, Ints: make([]int64, len(ia)), DType: a.DType}
 	for i := range out.Ints {
 		x, y := a.Ints[ia[i]], b.Ints[ib[i]]
 		switch kind {
@@ -180,32 +184,32 @@ func intBinary(kind binKind, a, b *Tensor, shape []int) *Tensor {
 				out.Ints[i] = x / y
 			}
 		}
-		out.Ints[i] = normaliseInt(a.DType, out.Ints[i])
+		out.Ints[i] = onnx.NormaliseInt(a.DType, out.Ints[i])
 	}
 	return out
 }
 
 // binaryBackward returns the gradients of both operands, summed over the
 // broadcast axes.
-func binaryBackward(kind binKind, in []*Tensor, g *Tensor) ([]*Tensor, error) {
+func binaryBackward(kind binKind, in []*onnx.Tensor, g *onnx.Tensor) ([]*onnx.Tensor, error) {
 	a, b := in[0], in[1]
 	if !a.IsFloat() {
-		return []*Tensor{nil, nil}, nil
+		return []*onnx.Tensor{nil, nil}, nil
 	}
 	shape := g.Shape
 	n := len(g.Data)
-	same := sameShape(a.Shape, shape) && sameShape(b.Shape, shape)
+	same := onnx.SameShape(a.Shape, shape) && onnx.SameShape(b.Shape, shape)
 	var ia, ib []int
 	if !same {
 		ia, ib = broadcastIndex(a.Shape, shape), broadcastIndex(b.Shape, shape)
 	}
-	at := func(t *Tensor, idx []int, i int) float32 {
+	at := func(t *onnx.Tensor, idx []int, i int) float32 {
 		if idx == nil {
 			return t.Data[i]
 		}
 		return t.Data[idx[i]]
 	}
-	ga, gb := New(a.Shape...), New(b.Shape...)
+	ga, gb := onnx.New(a.Shape...), onnx.New(b.Shape...)
 	for i := 0; i < n; i++ {
 		var da, db float32
 		gi := g.Data[i]
@@ -229,5 +233,5 @@ func binaryBackward(kind binKind, in []*Tensor, g *Tensor) ([]*Tensor, error) {
 			gb.Data[ib[i]] += db
 		}
 	}
-	return []*Tensor{ga, gb}, nil
+	return []*onnx.Tensor{ga, gb}, nil
 }

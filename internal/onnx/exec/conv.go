@@ -1,6 +1,11 @@
-package onnx
+package exec
 
-import "fmt"
+import (
+	"fmt"
+
+	"brightfold/internal/onnx"
+	"brightfold/internal/parallel"
+)
 
 func init() { register("Conv", buildConv) }
 
@@ -42,7 +47,7 @@ type convPlan struct {
 	kernelSize []int
 }
 
-func (k *convKernel) plan(x, wt *Tensor) (*convPlan, error) {
+func (k *convKernel) plan(x, wt *onnx.Tensor) (*convPlan, error) {
 	if len(x.Shape) < 3 || len(x.Shape) > 5 {
 		return nil, fmt.Errorf("X has shape %v; want (N, C, spatial...) with 1 to 3 spatial axes", x.Shape)
 	}
@@ -71,7 +76,7 @@ func (k *convKernel) plan(x, wt *Tensor) (*convPlan, error) {
 	p.p = w.outCount()
 	p.inPlane = w.inCount()
 	p.outShape = append([]int{p.n, p.m}, w.spatialOut...)
-	if _, err := checkedNumel(p.outShape); err != nil {
+	if _, err := onnx.CheckedNumel(p.outShape); err != nil {
 		return nil, err
 	}
 	p.pointwise = w.kCount() == 1 && w.s == [3]int{1, 1, 1} && w.padLo == [3]int{} && w.padHi == [3]int{}
@@ -244,7 +249,7 @@ func (p *convPlan) panelBufLen() int {
 	return (p.kdim + gemmNR) * (p.block + gemmNR)
 }
 
-func (k *convKernel) inputs(in []*Tensor) (x, wt, b *Tensor, p *convPlan, err error) {
+func (k *convKernel) inputs(in []*onnx.Tensor) (x, wt, b *onnx.Tensor, p *convPlan, err error) {
 	if x, err = floatIn(in, 0); err != nil {
 		return
 	}
@@ -265,15 +270,15 @@ func (k *convKernel) inputs(in []*Tensor) (x, wt, b *Tensor, p *convPlan, err er
 	return
 }
 
-func (k *convKernel) forward(in []*Tensor) ([]*Tensor, error) {
+func (k *convKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	x, wt, b, p, err := k.inputs(in)
 	if err != nil {
 		return nil, err
 	}
-	y := New(p.outShape...)
+	y := onnx.New(p.outShape...)
 	tasks := p.tasks()
 	bufs := make([][]float32, k.workers)
-	parallelWorkers(k.workers, len(tasks), func(w, i int) {
+	parallel.Each(len(tasks), k.workers, func(w, i int) {
 		t := tasks[i]
 		wv := rowMajor(wt.Data[t.g*p.mg*p.kdim:], p.kdim)
 		yv := y.Data[(t.n*p.m+t.g*p.mg)*p.p+t.j0:]
@@ -296,10 +301,10 @@ func (k *convKernel) forward(in []*Tensor) ([]*Tensor, error) {
 			}
 		}
 	})
-	return []*Tensor{y}, nil
+	return []*onnx.Tensor{y}, nil
 }
 
-func (k *convKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
+func (k *convKernel) backward(in, out, gout []*onnx.Tensor, need []bool) ([]*onnx.Tensor, error) {
 	x, wt, b, p, err := k.inputs(in)
 	if err != nil {
 		return nil, err
@@ -310,10 +315,10 @@ func (k *convKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, 
 	workers := min(k.workers, len(tasks))
 	type scratch struct {
 		col, dcol []float32
-		dw, dx    *Tensor
+		dw, dx    *onnx.Tensor
 	}
 	sc := make([]scratch, workers)
-	parallelWorkers(workers, len(tasks), func(w, i int) {
+	parallel.Each(len(tasks), workers, func(w, i int) {
 		t := tasks[i]
 		s := &sc[w]
 		if s.col == nil {
@@ -323,7 +328,7 @@ func (k *convKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, 
 		dyv := mat{d: gy.Data[(t.n*p.m+t.g*p.mg)*p.p+t.j0:], rs: p.p, cs: 1}
 		if needW {
 			if s.dw == nil {
-				s.dw = New(wt.Shape...)
+				s.dw = onnx.New(wt.Shape...)
 			}
 			// dW_g += dY_block · colᵀ
 			dw := s.dw.Data[t.g*p.mg*p.kdim:]
@@ -336,7 +341,7 @@ func (k *convKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, 
 		}
 		if needX {
 			if s.dx == nil {
-				s.dx = New(x.Shape...)
+				s.dx = onnx.New(x.Shape...)
 			}
 			wv := rowMajor(wt.Data[t.g*p.mg*p.kdim:], p.kdim)
 			dxs := s.dx.Data[(t.n*p.c+t.g*p.cg)*p.inPlane:]
@@ -350,15 +355,15 @@ func (k *convKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, 
 			p.col2im(s.dcol, t.j0, t.cols, dxs)
 		}
 	})
-	grads := make([]*Tensor, len(in))
+	grads := make([]*onnx.Tensor, len(in))
 	if needX {
-		grads[0] = sumScratch(x.Shape, workers, func(w int) *Tensor { return sc[w].dx })
+		grads[0] = sumScratch(x.Shape, workers, func(w int) *onnx.Tensor { return sc[w].dx })
 	}
 	if needW {
-		grads[1] = sumScratch(wt.Shape, workers, func(w int) *Tensor { return sc[w].dw })
+		grads[1] = sumScratch(wt.Shape, workers, func(w int) *onnx.Tensor { return sc[w].dw })
 	}
 	if b != nil && len(need) > 2 && need[2] {
-		gb := New(p.m)
+		gb := onnx.New(p.m)
 		for n := 0; n < p.n; n++ {
 			for o := 0; o < p.m; o++ {
 				var s float64
@@ -374,8 +379,8 @@ func (k *convKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, 
 }
 
 // sumScratch adds up per-worker partial results (nil ones are skipped).
-func sumScratch(shape []int, workers int, get func(w int) *Tensor) *Tensor {
-	var total *Tensor
+func sumScratch(shape []int, workers int, get func(w int) *onnx.Tensor) *onnx.Tensor {
+	var total *onnx.Tensor
 	for w := 0; w < workers; w++ {
 		t := get(w)
 		if t == nil {
@@ -390,7 +395,7 @@ func sumScratch(shape []int, workers int, get func(w int) *Tensor) *Tensor {
 		}
 	}
 	if total == nil {
-		total = New(shape...)
+		total = onnx.New(shape...)
 	}
 	return total
 }

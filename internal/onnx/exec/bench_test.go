@@ -1,4 +1,4 @@
-package onnx
+package exec
 
 import (
 	"fmt"
@@ -7,6 +7,7 @@ import (
 	"testing"
 	"time"
 
+	"brightfold/internal/onnx"
 	ort "github.com/yalue/onnxruntime_go"
 )
 
@@ -58,7 +59,7 @@ var convBenches = []convBench{
 	{"12cube_16to32", 4, 16, 32, 12},
 }
 
-func convBenchModel(b *testing.B, cb convBench, r *rand.Rand) (*Executor, map[string]*Tensor, float64) {
+func convBenchModel(b *testing.B, cb convBench, r *rand.Rand) (*Executor, map[string]*onnx.Tensor, float64) {
 	bl := NewBuilder("bench", 13)
 	x := bl.Input("x", -1, cb.c, cb.size, cb.size, cb.size)
 	y := bl.Conv("conv", x, randTensor(r, 0.2, cb.m, cb.c, 3, 3, 3), randTensor(r, 0.1, cb.m), ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}})
@@ -73,7 +74,7 @@ func convBenchModel(b *testing.B, cb convBench, r *rand.Rand) (*Executor, map[st
 	}
 	vox := float64(cb.size * cb.size * cb.size)
 	flops := 2 * float64(cb.n) * vox * float64(cb.m*cb.c*27)
-	return e, map[string]*Tensor{"x": randTensor(r, 1, cb.n, cb.c, cb.size, cb.size, cb.size)}, flops
+	return e, map[string]*onnx.Tensor{"x": randTensor(r, 1, cb.n, cb.c, cb.size, cb.size, cb.size)}, flops
 }
 
 func BenchmarkConv3DForward(b *testing.B) {
@@ -101,7 +102,7 @@ func BenchmarkConv3DBackward(b *testing.B) {
 			if err != nil {
 				b.Fatal(err)
 			}
-			seed := map[string]*Tensor{"y": randTensor(rand.New(rand.NewPCG(2, 2)), 1, tr.Value("y").Shape...)}
+			seed := map[string]*onnx.Tensor{"y": randTensor(rand.New(rand.NewPCG(2, 2)), 1, tr.Value("y").Shape...)}
 			cm := startCPU(b)
 			for i := 0; i < b.N; i++ {
 				if _, err := e.Backward(tr, seed); err != nil {
@@ -116,7 +117,7 @@ func BenchmarkConv3DBackward(b *testing.B) {
 // demoSizeCNN is a network of the demo model's kind on a 48³ grid: three
 // conv–BN–ReLU–pool stages (8, 16, 32 channels), global average pooling
 // and a linear layer.
-func demoSizeCNN(b *testing.B) *Model {
+func demoSizeCNN(b *testing.B) *onnx.Model {
 	r := rand.New(rand.NewPCG(9, 9))
 	bl := NewBuilder("demo-size", 13)
 	x := bl.Input("input", -1, 1, 48, 48, 48)
@@ -124,7 +125,7 @@ func demoSizeCNN(b *testing.B) *Model {
 	for i, m := range []int{8, 16, 32} {
 		name := fmt.Sprintf("conv%d", i+1)
 		x = bl.Conv(name, x, randTensor(r, 0.3, m, c, 3, 3, 3), randTensor(r, 0.1, m), ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}})
-		x = bl.BatchNorm(fmt.Sprintf("bn%d", i+1), x, randTensor(r, 1, m), randTensor(r, 0.1, m), randTensor(r, 0.1, m), FromData(onesPlus(r, m), m), 1e-5)
+		x = bl.BatchNorm(fmt.Sprintf("bn%d", i+1), x, randTensor(r, 1, m), randTensor(r, 0.1, m), randTensor(r, 0.1, m), onnx.FromData(onesPlus(r, m), m), 1e-5)
 		x = bl.Relu(x)
 		if i < 2 {
 			x = bl.MaxPool(x, []int{2, 2, 2}, []int{2, 2, 2})
@@ -155,7 +156,7 @@ func BenchmarkCNNForward48(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	feed := map[string]*Tensor{"input": randTensor(rand.New(rand.NewPCG(3, 3)), 1, 1, 1, 48, 48, 48)}
+	feed := map[string]*onnx.Tensor{"input": randTensor(rand.New(rand.NewPCG(3, 3)), 1, 1, 1, 48, 48, 48)}
 	cm := startCPU(b)
 	for i := 0; i < b.N; i++ {
 		if _, err := e.Forward(feed); err != nil {
@@ -173,8 +174,8 @@ func BenchmarkCNNTrainStep48(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	feed := map[string]*Tensor{"input": randTensor(rand.New(rand.NewPCG(3, 3)), 1, 8, 1, 48, 48, 48)}
-	seed := map[string]*Tensor{"logits": randTensor(rand.New(rand.NewPCG(4, 4)), 1, 8, 2)}
+	feed := map[string]*onnx.Tensor{"input": randTensor(rand.New(rand.NewPCG(3, 3)), 1, 8, 1, 48, 48, 48)}
+	seed := map[string]*onnx.Tensor{"logits": randTensor(rand.New(rand.NewPCG(4, 4)), 1, 8, 2)}
 	cm := startCPU(b)
 	for i := 0; i < b.N; i++ {
 		tr, err := e.Forward(feed)

@@ -1,8 +1,10 @@
-package onnx
+package exec
 
 import (
 	"errors"
 	"fmt"
+
+	"brightfold/internal/onnx"
 )
 
 // Builder assembles a Model in Go, layer by layer, with named initializers
@@ -18,8 +20,8 @@ import (
 //	b.Output(x, "logits")
 //	m, err := b.Model()
 type Builder struct {
-	m     *Model
-	g     *Graph
+	m     *onnx.Model
+	g     *onnx.Graph
 	count map[string]int
 	names map[string]bool
 	err   error
@@ -31,10 +33,10 @@ const Batch = "N"
 // NewBuilder starts a model whose graph is called name, importing the default
 // ONNX operator set at version opset (13 or later is a good choice).
 func NewBuilder(name string, opset int64) *Builder {
-	g := &Graph{Name: name}
-	m := &Model{
+	g := &onnx.Graph{Name: name}
+	m := &onnx.Model{
 		IRVersion:       8,
-		OpsetImports:    []OpsetID{{Domain: "", Version: opset}},
+		OpsetImports:    []onnx.OpsetID{{Domain: "", Version: opset}},
 		ProducerName:    "brightfold",
 		ProducerVersion: "1",
 		Graph:           g,
@@ -72,12 +74,12 @@ func (b *Builder) fresh(prefix string) string {
 // Input declares a float32 graph input; a dimension of -1 becomes the
 // symbolic dimension Batch.
 func (b *Builder) Input(name string, shape ...int) string {
-	vi := &ValueInfo{Name: b.claim(name), ElemType: Float, HasShape: true, hasType: true}
+	vi := &onnx.ValueInfo{Name: b.claim(name), ElemType: onnx.Float, HasShape: true}
 	for _, d := range shape {
 		if d < 0 {
-			vi.Shape = append(vi.Shape, Dim{Param: Batch})
+			vi.Shape = append(vi.Shape, onnx.Dim{Param: Batch})
 		} else {
-			vi.Shape = append(vi.Shape, Dim{Value: int64(d), Known: true})
+			vi.Shape = append(vi.Shape, onnx.Dim{Value: int64(d), Known: true})
 		}
 	}
 	b.g.Inputs = append(b.g.Inputs, vi)
@@ -86,7 +88,7 @@ func (b *Builder) Input(name string, shape ...int) string {
 
 // Param adds t as an initializer called name (the tensor is used, not
 // copied) and returns the name.
-func (b *Builder) Param(name string, t *Tensor) string {
+func (b *Builder) Param(name string, t *onnx.Tensor) string {
 	if t == nil {
 		b.fail("parameter %q is nil", name)
 		return name
@@ -95,26 +97,26 @@ func (b *Builder) Param(name string, t *Tensor) string {
 		b.fail("parameter %q: %v", name, err)
 	}
 	dt := t.DType
-	if dt == Undefined {
-		dt = Float
+	if dt == onnx.Undefined {
+		dt = onnx.Float
 	}
-	b.g.Initializers = append(b.g.Initializers, &Initializer{Name: b.claim(name), DType: dt, Tensor: t})
+	b.g.Initializers = append(b.g.Initializers, &onnx.Initializer{Name: b.claim(name), DType: dt, Tensor: t})
 	return name
 }
 
 // Node appends a node of operator op reading inputs, with one output, and
 // returns the output's name.
-func (b *Builder) Node(op string, inputs []string, attrs ...*Attribute) string {
+func (b *Builder) Node(op string, inputs []string, attrs ...*onnx.Attribute) string {
 	return b.NodeN(op, inputs, 1, attrs...)[0]
 }
 
 // NodeN appends a node with n outputs and returns their names.
-func (b *Builder) NodeN(op string, inputs []string, n int, attrs ...*Attribute) []string {
+func (b *Builder) NodeN(op string, inputs []string, n int, attrs ...*onnx.Attribute) []string {
 	outs := make([]string, n)
 	for i := range outs {
 		outs[i] = b.fresh(op)
 	}
-	b.g.Nodes = append(b.g.Nodes, &Node{
+	b.g.Nodes = append(b.g.Nodes, &onnx.Node{
 		Name:    fmt.Sprintf("%s_node_%d", op, len(b.g.Nodes)),
 		OpType:  op,
 		Inputs:  append([]string{}, inputs...),
@@ -134,7 +136,7 @@ type ConvOpts struct {
 
 // Conv adds a convolution with weight w (M, C/group, k...) and optional bias
 // (M), stored as initializers name+".weight" and name+".bias".
-func (b *Builder) Conv(name, x string, w, bias *Tensor, o ConvOpts) string {
+func (b *Builder) Conv(name, x string, w, bias *onnx.Tensor, o ConvOpts) string {
 	if w == nil || len(w.Shape) < 3 {
 		b.fail("conv %q: weight must have rank 3 to 5", name)
 		return x
@@ -143,24 +145,24 @@ func (b *Builder) Conv(name, x string, w, bias *Tensor, o ConvOpts) string {
 	if bias != nil {
 		in = append(in, b.Param(name+".bias", bias))
 	}
-	attrs := []*Attribute{IntsAttr("kernel_shape", toInt64(w.Shape[2:])...)}
+	attrs := []*onnx.Attribute{onnx.IntsAttr("kernel_shape", toInt64(w.Shape[2:])...)}
 	if o.Strides != nil {
-		attrs = append(attrs, IntsAttr("strides", toInt64(o.Strides)...))
+		attrs = append(attrs, onnx.IntsAttr("strides", toInt64(o.Strides)...))
 	}
 	if o.Pads != nil {
-		attrs = append(attrs, IntsAttr("pads", toInt64(o.Pads)...))
+		attrs = append(attrs, onnx.IntsAttr("pads", toInt64(o.Pads)...))
 	}
 	if o.Dilations != nil {
-		attrs = append(attrs, IntsAttr("dilations", toInt64(o.Dilations)...))
+		attrs = append(attrs, onnx.IntsAttr("dilations", toInt64(o.Dilations)...))
 	}
 	if o.Group > 1 {
-		attrs = append(attrs, IntAttr("group", int64(o.Group)))
+		attrs = append(attrs, onnx.IntAttr("group", int64(o.Group)))
 	}
 	return b.named(name, "Conv", in, attrs...)
 }
 
 // named appends a single-output node called name.
-func (b *Builder) named(name, op string, inputs []string, attrs ...*Attribute) string {
+func (b *Builder) named(name, op string, inputs []string, attrs ...*onnx.Attribute) string {
 	out := b.Node(op, inputs, attrs...)
 	b.g.Nodes[len(b.g.Nodes)-1].Name = name
 	return out
@@ -169,11 +171,11 @@ func (b *Builder) named(name, op string, inputs []string, attrs ...*Attribute) s
 // BatchNorm adds inference-mode batch normalisation with per-channel scale,
 // bias, running mean and variance (initializers name+".weight", ".bias",
 // ".running_mean", ".running_var").
-func (b *Builder) BatchNorm(name, x string, scale, bias, mean, variance *Tensor, eps float32) string {
+func (b *Builder) BatchNorm(name, x string, scale, bias, mean, variance *onnx.Tensor, eps float32) string {
 	in := []string{x,
 		b.Param(name+".weight", scale), b.Param(name+".bias", bias),
 		b.Param(name+".running_mean", mean), b.Param(name+".running_var", variance)}
-	return b.named(name, "BatchNormalization", in, FloatAttr("epsilon", eps))
+	return b.named(name, "BatchNormalization", in, onnx.FloatAttr("epsilon", eps))
 }
 
 // Relu adds max(x, 0).
@@ -181,7 +183,7 @@ func (b *Builder) Relu(x string) string { return b.Node("Relu", []string{x}) }
 
 // LeakyRelu adds x for x ≥ 0 and alpha·x otherwise.
 func (b *Builder) LeakyRelu(x string, alpha float32) string {
-	return b.Node("LeakyRelu", []string{x}, FloatAttr("alpha", alpha))
+	return b.Node("LeakyRelu", []string{x}, onnx.FloatAttr("alpha", alpha))
 }
 
 // Sigmoid adds the logistic function.
@@ -197,10 +199,10 @@ func (b *Builder) AveragePool(x string, kernel, strides []int) string {
 	return b.Node("AveragePool", []string{x}, poolAttrs(kernel, strides)...)
 }
 
-func poolAttrs(kernel, strides []int) []*Attribute {
-	a := []*Attribute{IntsAttr("kernel_shape", toInt64(kernel)...)}
+func poolAttrs(kernel, strides []int) []*onnx.Attribute {
+	a := []*onnx.Attribute{onnx.IntsAttr("kernel_shape", toInt64(kernel)...)}
 	if strides != nil {
-		a = append(a, IntsAttr("strides", toInt64(strides)...))
+		a = append(a, onnx.IntsAttr("strides", toInt64(strides)...))
 	}
 	return a
 }
@@ -212,7 +214,7 @@ func (b *Builder) GlobalAveragePool(x string) string {
 
 // Flatten adds a reshape to (prod d[:axis], prod d[axis:]).
 func (b *Builder) Flatten(x string, axis int) string {
-	return b.Node("Flatten", []string{x}, IntAttr("axis", int64(axis)))
+	return b.Node("Flatten", []string{x}, onnx.IntAttr("axis", int64(axis)))
 }
 
 // Dropout adds a dropout node, which is the identity at inference (the
@@ -222,17 +224,17 @@ func (b *Builder) Dropout(x string) string { return b.Node("Dropout", []string{x
 
 // Gemm adds a fully connected layer y = x·wᵀ + bias with w (out, in) and
 // bias (out), as initializers name+".weight" and name+".bias".
-func (b *Builder) Gemm(name, x string, w, bias *Tensor) string {
+func (b *Builder) Gemm(name, x string, w, bias *onnx.Tensor) string {
 	in := []string{x, b.Param(name+".weight", w)}
 	if bias != nil {
 		in = append(in, b.Param(name+".bias", bias))
 	}
-	return b.named(name, "Gemm", in, FloatAttr("alpha", 1), FloatAttr("beta", 1), IntAttr("transB", 1))
+	return b.named(name, "Gemm", in, onnx.FloatAttr("alpha", 1), onnx.FloatAttr("beta", 1), onnx.IntAttr("transB", 1))
 }
 
 // Softmax adds a softmax along axis (opset 13 semantics).
 func (b *Builder) Softmax(x string, axis int) string {
-	return b.Node("Softmax", []string{x}, IntAttr("axis", int64(axis)))
+	return b.Node("Softmax", []string{x}, onnx.IntAttr("axis", int64(axis)))
 }
 
 // Add adds an elementwise (broadcasting) sum.
@@ -255,7 +257,7 @@ func (b *Builder) Output(v, name string) string {
 		}
 		b.names[name] = true
 	}
-	b.g.Outputs = append(b.g.Outputs, &ValueInfo{Name: name, ElemType: Float, hasType: true})
+	b.g.Outputs = append(b.g.Outputs, &onnx.ValueInfo{Name: name, ElemType: onnx.Float})
 	return name
 }
 
@@ -285,7 +287,7 @@ func (b *Builder) rename(old, new string) bool {
 // Model returns the built model after checking that the executor accepts
 // it, and fills in the outputs' shapes by running it once on zeros (with 1
 // for the symbolic batch dimension, which stays symbolic in the outputs).
-func (b *Builder) Model() (*Model, error) {
+func (b *Builder) Model() (*onnx.Model, error) {
 	if b.err != nil {
 		return nil, b.err
 	}
@@ -296,7 +298,7 @@ func (b *Builder) Model() (*Model, error) {
 	if err != nil {
 		return nil, fmt.Errorf("graph builder: %w", err)
 	}
-	feed := map[string]*Tensor{}
+	feed := map[string]*onnx.Tensor{}
 	symbolic := false
 	for _, vi := range e.Inputs() {
 		shape := make([]int, len(vi.Shape))
@@ -306,7 +308,7 @@ func (b *Builder) Model() (*Model, error) {
 				shape[i], symbolic = 1, true
 			}
 		}
-		feed[vi.Name] = New(shape...)
+		feed[vi.Name] = onnx.New(shape...)
 	}
 	tr, err := e.Forward(feed)
 	if err != nil {
@@ -317,9 +319,9 @@ func (b *Builder) Model() (*Model, error) {
 		o.HasShape, o.Shape = true, nil
 		for i, d := range v.Shape {
 			if i == 0 && symbolic {
-				o.Shape = append(o.Shape, Dim{Param: Batch})
+				o.Shape = append(o.Shape, onnx.Dim{Param: Batch})
 			} else {
-				o.Shape = append(o.Shape, Dim{Value: int64(d), Known: true})
+				o.Shape = append(o.Shape, onnx.Dim{Value: int64(d), Known: true})
 			}
 		}
 	}

@@ -1,8 +1,10 @@
-package onnx
+package exec
 
 import (
 	"fmt"
 	"math"
+
+	"brightfold/internal/onnx"
 )
 
 func init() {
@@ -49,7 +51,7 @@ type reducePlan struct {
 	noop     bool
 }
 
-func (k *reduceKernel) plan(in []*Tensor) (*reducePlan, error) {
+func (k *reduceKernel) plan(in []*onnx.Tensor) (*reducePlan, error) {
 	x := in[0]
 	axes := k.attrAxes
 	if k.axesInput {
@@ -93,7 +95,7 @@ func (k *reduceKernel) plan(in []*Tensor) (*reducePlan, error) {
 		acc *= keep[i]
 	}
 	p.index = stridedIndex(x.Shape, src)
-	p.counts = make([]int, numel(keep))
+	p.counts = make([]int, onnx.Numel(keep))
 	for _, o := range p.index {
 		p.counts[o]++
 	}
@@ -105,7 +107,7 @@ func (k *reduceKernel) plan(in []*Tensor) (*reducePlan, error) {
 	return p, nil
 }
 
-func (k *reduceKernel) forward(in []*Tensor) ([]*Tensor, error) {
+func (k *reduceKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	x, err := floatIn(in, 0)
 	if err != nil {
 		return nil, err
@@ -115,9 +117,9 @@ func (k *reduceKernel) forward(in []*Tensor) ([]*Tensor, error) {
 		return nil, err
 	}
 	if p.noop {
-		return []*Tensor{x}, nil
+		return []*onnx.Tensor{x}, nil
 	}
-	y := New(p.outShape...)
+	y := onnx.New(p.outShape...)
 	if k.kind == reduceMax {
 		for i := range y.Data {
 			y.Data[i] = float32(math.Inf(-1))
@@ -125,7 +127,7 @@ func (k *reduceKernel) forward(in []*Tensor) ([]*Tensor, error) {
 		for i, o := range p.index {
 			y.Data[o] = max(y.Data[o], x.Data[i])
 		}
-		return []*Tensor{y}, nil
+		return []*onnx.Tensor{y}, nil
 	}
 	acc := make([]float64, len(y.Data))
 	for i, o := range p.index {
@@ -137,21 +139,21 @@ func (k *reduceKernel) forward(in []*Tensor) ([]*Tensor, error) {
 		}
 		y.Data[o] = float32(v)
 	}
-	return []*Tensor{y}, nil
+	return []*onnx.Tensor{y}, nil
 }
 
-func (k *reduceKernel) backward(in, out, gout []*Tensor, need []bool) ([]*Tensor, error) {
+func (k *reduceKernel) backward(in, out, gout []*onnx.Tensor, need []bool) ([]*onnx.Tensor, error) {
 	p, err := k.plan(in)
 	if err != nil {
 		return nil, err
 	}
-	grads := make([]*Tensor, len(in))
+	grads := make([]*onnx.Tensor, len(in))
 	if p.noop {
 		grads[0] = gout[0]
 		return grads, nil
 	}
 	x, y, g := in[0], out[0], gout[0]
-	gx := New(x.Shape...)
+	gx := onnx.New(x.Shape...)
 	taken := make([]bool, len(y.Data)) // ReduceMax routes to the first maximum
 	for i, o := range p.index {
 		switch k.kind {

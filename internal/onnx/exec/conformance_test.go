@@ -1,4 +1,4 @@
-package onnx
+package exec
 
 import (
 	"errors"
@@ -10,6 +10,7 @@ import (
 	"strings"
 	"testing"
 
+	"brightfold/internal/onnx"
 	"brightfold/internal/refcheck"
 )
 
@@ -55,7 +56,7 @@ func TestConformance(t *testing.T) {
 }
 
 // caseOp decides which supported operator a case tests, if any.
-func caseOp(name string, m *Model) (string, bool) {
+func caseOp(name string, m *onnx.Model) (string, bool) {
 	supported := map[string]bool{}
 	for _, op := range SupportedOps() {
 		supported[op] = true
@@ -80,7 +81,7 @@ func runCase(dir string) (caseResult, bool) {
 	if err != nil {
 		return caseResult{}, false
 	}
-	m, err := Decode(b)
+	m, err := onnx.Decode(b)
 	if err != nil {
 		// A model we cannot even decode is a failure only if its name
 		// claims one of our operators.
@@ -100,7 +101,7 @@ func runCase(dir string) (caseResult, bool) {
 	return res, true
 }
 
-func checkCase(dir string, m *Model) (string, string) {
+func checkCase(dir string, m *onnx.Model) (string, string) {
 	e, err := NewExecutorWorkers(m, 2)
 	var ue *UnsupportedError
 	if errors.As(err, &ue) {
@@ -109,7 +110,7 @@ func checkCase(dir string, m *Model) (string, string) {
 	if err != nil {
 		return "fail", err.Error()
 	}
-	inputs := map[string]*Tensor{}
+	inputs := map[string]*onnx.Tensor{}
 	real := e.Inputs()
 	for i, vi := range real {
 		_, tt, err := readTensorFile(filepath.Join(dir, "test_data_set_0", fmt.Sprintf("input_%d.pb", i)))
@@ -143,12 +144,12 @@ func checkCase(dir string, m *Model) (string, string) {
 	return "pass", ""
 }
 
-func readTensorFile(path string) (string, *Tensor, error) {
+func readTensorFile(path string) (string, *onnx.Tensor, error) {
 	b, err := os.ReadFile(path)
 	if err != nil {
 		return "", nil, err
 	}
-	name, t, err := DecodeTensor(b)
+	name, t, err := onnx.DecodeTensor(b)
 	if err != nil {
 		return "", nil, fmt.Errorf("%s: %w", filepath.Base(path), err)
 	}
@@ -157,11 +158,11 @@ func readTensorFile(path string) (string, *Tensor, error) {
 
 // compareTensors returns "" when got matches want within conformanceTol
 // (floats) or exactly (integers), else what differs.
-func compareTensors(got, want *Tensor) string {
+func compareTensors(got, want *onnx.Tensor) string {
 	if got == nil {
 		return "not computed"
 	}
-	if !sameShape(got.Shape, want.Shape) {
+	if !onnx.SameShape(got.Shape, want.Shape) {
 		return fmt.Sprintf("shape %v, want %v", got.Shape, want.Shape)
 	}
 	if got.IsFloat() != want.IsFloat() {

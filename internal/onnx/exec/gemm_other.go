@@ -1,6 +1,6 @@
 //go:build !amd64
 
-package onnx
+package exec
 
 // kernel4x16 adds the product of a packed 4×kb A panel and a packed kb×16 B
 // panel to the 4×16 block of c (leading dimension ldc).

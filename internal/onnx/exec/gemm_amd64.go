@@ -1,4 +1,4 @@
-package onnx
+package exec
 
 import "golang.org/x/sys/cpu"
 
