@@ -10,6 +10,7 @@ import (
 	"brightfold/assets"
 	"brightfold/inference"
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
 )
@@ -104,7 +105,7 @@ func TestDemoModelFolderONNXRuntime(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	e, err := onnx.NewExecutor(m)
+	e, err := exec.NewExecutor(m)
 	if err != nil {
 		t.Fatal(err)
 	}

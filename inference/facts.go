@@ -4,6 +4,7 @@ import (
 	"math"
 
 	"brightfold/inference/fitcheck"
+	"brightfold/internal/stats"
 	"brightfold/internal/volume"
 )
 
@@ -70,5 +71,5 @@ func headQuantiles(t *Tensor, levels []float64) []float64 {
 		}
 	}
 	fitcheck.SortFloat32(head) // the tensor is finite (checkTensorFinite)
-	return fitcheck.Quantiles(head, levels)
+	return stats.Quantiles(head, levels)
 }

@@ -7,8 +7,8 @@ import (
 	"sort"
 	"sync/atomic"
 
-	"brightfold/inference/fitcheck"
 	"brightfold/internal/parallel"
+	"brightfold/internal/stats"
 	"brightfold/internal/volume"
 )
 
@@ -378,26 +378,7 @@ func percentilePair(data []float32, p1, p2 float64) (float64, float64) {
 	if len(vals) == 0 {
 		return math.NaN(), math.NaN()
 	}
-	return fitcheck.SelectQuantile(vals, p1/100), fitcheck.SelectQuantile(vals, p2/100)
-}
-
-// Percentile is the p-th percentile (0–100) of sorted values, interpolating
-// linearly between order statistics (numpy.percentile's default "linear"
-// method); NaN for no values.
-func Percentile(sorted []float64, p float64) float64 {
-	n := len(sorted)
-	if n == 0 {
-		return math.NaN()
-	}
-	h := p / 100 * float64(n-1)
-	lo := int(math.Floor(h))
-	if lo < 0 {
-		return sorted[0]
-	}
-	if lo >= n-1 {
-		return sorted[n-1]
-	}
-	return sorted[lo] + (h-float64(lo))*(sorted[lo+1]-sorted[lo])
+	return stats.SelectQuantile(vals, p1/100), stats.SelectQuantile(vals, p2/100)
 }
 
 // headStats measures the mask {value > thr} of v in the frame's axes.
@@ -541,7 +522,7 @@ func normalise(vals []float32, mask []bool, in Intensity) error {
 		}
 	case NormPercentileMinMax:
 		sort.Float64s(head)
-		lo, hi := Percentile(head, in.LowPercentile), Percentile(head, in.HighPercentile)
+		lo, hi := stats.Quantile(head, in.LowPercentile/100), stats.Quantile(head, in.HighPercentile/100)
 		if !(hi > lo) {
 			return errors.New("head voxels have no intensity spread between the normalisation percentiles")
 		}

@@ -10,6 +10,7 @@ import (
 	"testing"
 
 	"brightfold/internal/refcheck"
+	"brightfold/internal/stats"
 	"brightfold/internal/volume"
 )
 
@@ -271,7 +272,7 @@ func TestLayoutNCXYZ(t *testing.T) {
 }
 
 // The canonical frame agrees with nibabel's as_closest_canonical (nibabel
-// 5.0, orientations.io_orientation); Percentile agrees with
+// 5.0, orientations.io_orientation); stats.Quantile at p/100 agrees with
 // numpy.percentile's default linear method. (Trilinear sampling is
 // volume.ResampleFill, checked against scipy in package volume.)
 func TestPreprocessAgainstNibabelScipy(t *testing.T) {
@@ -315,7 +316,7 @@ func TestPreprocessAgainstNibabelScipy(t *testing.T) {
 	sorted := append([]float64(nil), vals...)
 	sort.Float64s(sorted)
 	for i, p := range ps {
-		if got := Percentile(sorted, p); math.Abs(got-ref.Percentiles[i]) > 1e-12 {
+		if got := stats.Quantile(sorted, p/100); math.Abs(got-ref.Percentiles[i]) > 1e-12 {
 			t.Errorf("percentile %g = %v, numpy %v", p, got, ref.Percentiles[i])
 		}
 	}

@@ -8,6 +8,7 @@ import (
 
 	"brightfold/inference"
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 )
 
 // Explainer computes relevance maps for one model folder. It is made once per
@@ -18,7 +19,7 @@ type Explainer struct {
 	session *inference.Session // for occlusion; may be nil
 
 	input, logits string
-	exec          *onnx.Executor // the model as given; nil when it cannot run
+	exec          *exec.Executor // the model as given; nil when it cannot run
 	execErr       error
 	maxBatch      int // largest batch the executor may run (1 for a fixed batch)
 
@@ -39,7 +40,7 @@ func New(b *inference.ModelFolder, s *inference.Session) (*Explainer, error) {
 		return nil, fmt.Errorf("overlay: decode %s: %w", inference.ModelFile, err)
 	}
 	e := &Explainer{card: b.Card, session: s, input: b.Card.Input.Name, logits: b.Card.Outputs.Logits, maxBatch: 1}
-	e.exec, e.execErr = onnx.NewExecutor(m)
+	e.exec, e.execErr = exec.NewExecutor(m)
 	if e.execErr != nil {
 		e.execErr = fmt.Errorf("the Go executor cannot run this model: %w", e.execErr)
 		e.lrpErr = e.execErr

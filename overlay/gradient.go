@@ -7,6 +7,7 @@ import (
 
 	"brightfold/inference"
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 )
 
 // computeLRP runs the planned LRP rules and reports their conservation.
@@ -100,7 +101,7 @@ func (e *Explainer) gradBatch(x *onnx.Tensor, tg target) (*onnx.Tensor, []float6
 	if err != nil {
 		return nil, nil, err
 	}
-	g, err := e.exec.BackwardWith(tr, map[string]*onnx.Tensor{e.logits: seed}, onnx.BackwardOptions{NoParams: true})
+	g, err := e.exec.BackwardWith(tr, map[string]*onnx.Tensor{e.logits: seed}, exec.BackwardOptions{NoParams: true})
 	if err != nil {
 		return nil, nil, err
 	}

@@ -12,6 +12,7 @@ import (
 
 	"brightfold/inference"
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 	"brightfold/internal/refcheck"
 )
 
@@ -64,8 +65,8 @@ func uniform(r *rand.Rand, lo, hi float64, n int) *onnx.Tensor {
 func testModel(t testing.TB, spec modelSpec) []byte {
 	t.Helper()
 	r := rand.New(rand.NewPCG(11, 12))
-	b := onnx.NewBuilder("overlay-test", 13)
-	pad := onnx.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}}
+	b := exec.NewBuilder("overlay-test", 13)
+	pad := exec.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}}
 	bn := func(name, x string, c int) string {
 		return b.BatchNorm(name, x, uniform(r, 0.5, 1.5, c), uniform(r, -0.2, 0.2, c), uniform(r, -0.3, 0.3, c), uniform(r, 0.5, 2, c), 1e-5)
 	}

@@ -14,6 +14,7 @@ import (
 
 	"brightfold/inference"
 	"brightfold/internal/atomicfile"
+	"brightfold/internal/parallel"
 	"brightfold/internal/phantom"
 )
 
@@ -60,7 +61,7 @@ func Generate(specs []CaseSpec, p inference.Preprocessing, levels []float64, wor
 	out := make([]Case, len(specs))
 	var done atomic.Int64
 	var mu sync.Mutex
-	err := forEach(workers, len(specs), func(i int) error {
+	err := parallel.EachErr(len(specs), workers, func(_, i int) error {
 		c, err := makeCase(specs[i], p, levels)
 		if err != nil {
 			return err

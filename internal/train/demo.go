@@ -5,14 +5,14 @@ import (
 	"encoding/hex"
 	"errors"
 	"fmt"
-	"math"
-	"syscall"
 	"time"
 
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
+	"brightfold/internal/cputime"
 	"brightfold/internal/notice"
 	"brightfold/internal/phantom"
+	"brightfold/internal/stats"
 )
 
 // Recipe is everything that determines the demo model: architecture,
@@ -82,16 +82,6 @@ type Timing struct {
 	CPUTotal         float64 `json:"cpu_total_s"`
 }
 
-// cpuSeconds is the process's user plus system CPU time so far.
-func cpuSeconds() float64 {
-	var ru syscall.Rusage
-	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
-		return math.NaN()
-	}
-	tv := func(t syscall.Timeval) float64 { return float64(t.Sec) + float64(t.Usec)/1e6 }
-	return tv(ru.Utime) + tv(ru.Stime)
-}
-
 // Result is one demo run's outcome.
 type Result struct {
 	Net     *Net
@@ -110,7 +100,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	if log == nil {
 		log = func(string, ...any) {}
 	}
-	start, cpu0 := time.Now(), cpuSeconds()
+	start, cpu0 := time.Now(), cputime.Seconds()
 	prep := DemoPreprocessing(r.Arch)
 	levels := inference.DefaultLevels()
 	n, err := NewNet(r.Arch, r.InitSeed)
@@ -135,7 +125,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	}
 	res.Timing.Train = time.Since(t0).Seconds()
 	res.Timing.TrainingTotal = time.Since(start).Seconds()
-	res.Timing.CPUTrainingTotal = cpuSeconds() - cpu0
+	res.Timing.CPUTrainingTotal = cputime.Seconds() - cpu0
 	log("trained in %.0f s (%.0f s with data generation; %.0f CPU s)", res.Timing.Train, res.Timing.TrainingTotal, res.Timing.CPUTrainingTotal)
 	t0 = time.Now()
 	calCases, err := GenerateCached(r.CacheDir, Specs(r.CohortSeed, r.NTrain+r.NVal, r.NCal, phantom.ShiftNone), prep, levels, r.Workers, progress(log, "calibration phantoms"))
@@ -148,7 +138,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	}
 	res.Timing.Evaluate = time.Since(t0).Seconds()
 	res.Timing.Total = time.Since(start).Seconds()
-	res.Timing.CPUTotal = cpuSeconds() - cpu0
+	res.Timing.CPUTotal = cputime.Seconds() - cpu0
 	return res, nil
 }
 
@@ -304,7 +294,7 @@ func heldOutMetrics(card *inference.Card, cs []inference.FitCase, desc string) [
 	}
 	n := len(cs)
 	return []inference.Metric{
-		{Name: "auroc", Value: fitcheck.AUROC(scores, isPos), N: n, Split: desc, How: "AUROC of the positive-class probability (Mann-Whitney; equals sklearn roc_auc_score)"},
+		{Name: "auroc", Value: stats.AUROC(scores, isPos), N: n, Split: desc, How: "AUROC of the positive-class probability (Mann-Whitney; equals sklearn roc_auc_score)"},
 		accuracyMetric(card, cs, desc),
 		{Name: "ece_before_scaling", Value: ece(card, cs, 1), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), temperature 1"},
 		{Name: "ece_after_scaling", Value: ece(card, cs, T), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), the card's temperature"},
@@ -329,7 +319,7 @@ func severityMetrics(card *inference.Card, cs []Case, fit []inference.FitCase, d
 			labels = append(labels, fc.Label == pos)
 		}
 		out = append(out, inference.Metric{Name: fmt.Sprintf("auroc_severity_%.1f_to_%.1f", band[0], band[1]),
-			Value: fitcheck.AUROC(scores, labels), N: len(scores), Split: desc,
+			Value: stats.AUROC(scores, labels), N: len(scores), Split: desc,
 			How: fmt.Sprintf("AUROC of the positive-class probability, positives with pattern severity in (%.1f, %.1f] against all negatives", band[0], band[1])})
 	}
 	return out
@@ -364,7 +354,7 @@ func ece(card *inference.Card, cs []inference.FitCase, T float64) float64 {
 		k, p := predicted(card, fc.Output.Logits, T)
 		conf[i], ok[i] = p, k == fc.Label
 	}
-	return fitcheck.ECE(conf, ok, 15)
+	return stats.ECE(conf, ok, 15)
 }
 
 func metricLine(ms []inference.Metric) string {

@@ -35,6 +35,7 @@ import (
 	"math/rand/v2"
 
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 )
 
 // Arch describes the network. Blocks are Conv3d (3×3×3, padding 1, no bias)
@@ -104,7 +105,7 @@ type bnLayer struct {
 
 // segment is a piece of the network between batch normalisations.
 type segment struct {
-	exec    *onnx.Executor
+	exec    *exec.Executor
 	in, out string
 	params  []string // parameter names the segment reads
 	shape   []int    // input shape of one case
@@ -115,7 +116,7 @@ type segment struct {
 type Net struct {
 	Arch  Arch
 	Model *onnx.Model
-	infer *onnx.Executor
+	infer *exec.Executor
 	segs  []*segment
 	bns   []*bnLayer
 	param map[string]*onnx.Tensor // every trainable tensor by name
@@ -152,7 +153,7 @@ func NewNet(a Arch, seed uint64) (*Net, error) {
 	for name, t := range m.Graph.Params() {
 		n.param[name] = t
 	}
-	if n.infer, err = onnx.NewExecutorWorkers(m, 1); err != nil {
+	if n.infer, err = exec.NewExecutorWorkers(m, 1); err != nil {
 		return nil, fmt.Errorf("net: %w", err)
 	}
 	if err := n.buildSegments(convW, fcW, fcB); err != nil {
@@ -178,7 +179,7 @@ func fill(t *onnx.Tensor, v float32) *onnx.Tensor {
 }
 
 var (
-	convOpts = onnx.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}}
+	convOpts = exec.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}}
 	pool     = []int{2, 2, 2}
 )
 
@@ -186,7 +187,7 @@ func convName(i int) string { return fmt.Sprintf("conv%d", i+1) }
 
 // buildFull assembles the exported model.
 func buildFull(a Arch, convW []*onnx.Tensor, bns []*bnLayer, fcW, fcB *onnx.Tensor) (*onnx.Model, error) {
-	b := onnx.NewBuilder("harbourside_demo_cnn", a.Opset)
+	b := exec.NewBuilder("harbourside_demo_cnn", a.Opset)
 	x := b.Input(a.Input, -1, 1, a.Grid[2], a.Grid[1], a.Grid[0])
 	for i := range convW {
 		x = b.Conv(convName(i), x, convW[i], nil, convOpts)
@@ -212,7 +213,7 @@ func (n *Net) buildSegments(convW []*onnx.Tensor, fcW, fcB *onnx.Tensor) error {
 	a := n.Arch
 	shape := []int{1, 1, a.Grid[2], a.Grid[1], a.Grid[0]}
 	for i := 0; i <= len(convW); i++ {
-		b := onnx.NewBuilder(fmt.Sprintf("segment%d", i), a.Opset)
+		b := exec.NewBuilder(fmt.Sprintf("segment%d", i), a.Opset)
 		x := b.Input("in", shape...)
 		if i > 0 {
 			x = b.MaxPool(b.Relu(x), pool, pool)
@@ -227,7 +228,7 @@ func (n *Net) buildSegments(convW []*onnx.Tensor, fcW, fcB *onnx.Tensor) error {
 		if err != nil {
 			return fmt.Errorf("net: segment %d: %w", i, err)
 		}
-		e, err := onnx.NewExecutorWorkers(m, 1)
+		e, err := exec.NewExecutorWorkers(m, 1)
 		if err != nil {
 			return fmt.Errorf("net: segment %d: %w", i, err)
 		}
