@@ -10,16 +10,15 @@ import (
 	"io"
 	"os"
 	"path/filepath"
-	"runtime"
 	"strconv"
 	"sync"
-	"sync/atomic"
 
 	"github.com/klauspost/compress/gzip"
 
 	"brightfold/internal/atomicfile"
 	"brightfold/internal/inputerr"
 	"brightfold/internal/notice"
+	"brightfold/internal/parallel"
 	"brightfold/internal/volume"
 )
 
@@ -235,60 +234,28 @@ func replaceDir(tmp, dir string) error {
 func writeCases(root string, opts WriteOptions) ([]Row, error) {
 	subs := Cohort(opts.Seed, opts.N, opts.Shifts)
 	rows := make([]Row, len(subs))
-	workers := opts.Workers
-	if workers <= 0 {
-		workers = runtime.GOMAXPROCS(0)
-	}
-	jobs := make(chan int)
-	type result struct {
-		i   int
-		err error
-	}
-	results := make(chan result)
-	var wg sync.WaitGroup
-	var stop atomic.Bool
-	for w := 0; w < min(workers, len(subs)); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for i := range jobs {
-				if opts.Context != nil && opts.Context.Err() != nil {
-					stop.Store(true)
-				}
-				if stop.Load() {
-					results <- result{i, errStopped}
-					continue
-				}
-				r, err := writeCase(root, subs[i], opts)
-				if err != nil {
-					stop.Store(true)
-				}
-				rows[i] = r
-				results <- result{i, err}
-			}
-		}()
-	}
-	go func() {
-		defer close(jobs)
-		for i := range subs {
-			jobs <- i
+	var mu sync.Mutex // serialises progress lines
+	done := 0
+	err := parallel.EachErr(len(subs), opts.Workers, func(_, i int) error {
+		if opts.Context != nil && opts.Context.Err() != nil {
+			return errStopped
 		}
-	}()
-	go func() { wg.Wait(); close(results) }()
-	var first error
-	n := 0
-	for res := range results {
-		n++
-		if res.err != nil && !errors.Is(res.err, errStopped) && first == nil {
-			first = res.err
+		r, err := writeCase(root, subs[i], opts)
+		if err != nil {
+			return err
 		}
-		if opts.Progress != nil && res.err == nil {
-			s := subs[res.i]
-			fmt.Fprintf(opts.Progress, "phantom: %s written (shift %s, label %d) [%d/%d]\n", s.ID, s.Shift, s.Label, n, len(subs))
+		rows[i] = r
+		if opts.Progress != nil {
+			mu.Lock()
+			done++
+			s := subs[i]
+			fmt.Fprintf(opts.Progress, "phantom: %s written (shift %s, label %d) [%d/%d]\n", s.ID, s.Shift, s.Label, done, len(subs))
+			mu.Unlock()
 		}
-	}
-	if first != nil {
-		return nil, first
+		return nil
+	})
+	if err != nil && !errors.Is(err, errStopped) {
+		return nil, err
 	}
 	if opts.Context != nil && opts.Context.Err() != nil {
 		return nil, fmt.Errorf("cohort not written: %w", context.Cause(opts.Context))
@@ -296,7 +263,8 @@ func writeCases(root string, opts WriteOptions) ([]Row, error) {
 	return rows, nil
 }
 
-var errStopped = errors.New("stopped after an earlier failure")
+// errStopped marks cases skipped because the context was cancelled.
+var errStopped = errors.New("stopped: the context was cancelled")
 
 // scanName is the NIfTI file name of a case's scan.
 func scanName(sh Shift) string {

@@ -15,6 +15,7 @@ import (
 	"brightfold/inference"
 	"brightfold/inference/preprocess"
 	"brightfold/internal/atomicfile"
+	"brightfold/internal/parallel"
 	"brightfold/internal/phantom"
 )
 
@@ -61,7 +62,7 @@ func Generate(specs []CaseSpec, p preprocess.Spec, levels []float64, workers int
 	out := make([]Case, len(specs))
 	var done atomic.Int64
 	var mu sync.Mutex
-	err := forEach(workers, len(specs), func(i int) error {
+	err := parallel.EachErr(len(specs), workers, func(_, i int) error {
 		c, err := makeCase(specs[i], p, levels)
 		if err != nil {
 			return err

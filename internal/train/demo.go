@@ -5,13 +5,12 @@ import (
 	"encoding/hex"
 	"errors"
 	"fmt"
-	"math"
-	"syscall"
 	"time"
 
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
 	"brightfold/inference/preprocess"
+	"brightfold/internal/cputime"
 	"brightfold/internal/notice"
 	"brightfold/internal/phantom"
 	"brightfold/internal/stats"
@@ -84,16 +83,6 @@ type Timing struct {
 	CPUTotal         float64 `json:"cpu_total_s"`
 }
 
-// cpuSeconds is the process's user plus system CPU time so far.
-func cpuSeconds() float64 {
-	var ru syscall.Rusage
-	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
-		return math.NaN()
-	}
-	tv := func(t syscall.Timeval) float64 { return float64(t.Sec) + float64(t.Usec)/1e6 }
-	return tv(ru.Utime) + tv(ru.Stime)
-}
-
 // Result is one demo run's outcome.
 type Result struct {
 	Net     *Net
@@ -112,7 +101,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	if log == nil {
 		log = func(string, ...any) {}
 	}
-	start, cpu0 := time.Now(), cpuSeconds()
+	start, cpu0 := time.Now(), cputime.Seconds()
 	prep := DemoPreprocessing(r.Arch)
 	levels := inference.DefaultLevels()
 	n, err := NewNet(r.Arch, r.InitSeed)
@@ -137,7 +126,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	}
 	res.Timing.Train = time.Since(t0).Seconds()
 	res.Timing.TrainingTotal = time.Since(start).Seconds()
-	res.Timing.CPUTrainingTotal = cpuSeconds() - cpu0
+	res.Timing.CPUTrainingTotal = cputime.Seconds() - cpu0
 	log("trained in %.0f s (%.0f s with data generation; %.0f CPU s)", res.Timing.Train, res.Timing.TrainingTotal, res.Timing.CPUTrainingTotal)
 	t0 = time.Now()
 	calCases, err := GenerateCached(r.CacheDir, Specs(r.CohortSeed, r.NTrain+r.NVal, r.NCal, phantom.ShiftNone), prep, levels, r.Workers, progress(log, "calibration phantoms"))
@@ -150,7 +139,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	}
 	res.Timing.Evaluate = time.Since(t0).Seconds()
 	res.Timing.Total = time.Since(start).Seconds()
-	res.Timing.CPUTotal = cpuSeconds() - cpu0
+	res.Timing.CPUTotal = cputime.Seconds() - cpu0
 	return res, nil
 }
 
