@@ -5,13 +5,13 @@ import (
 	"fmt"
 	"math"
 
-	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/volume"
 )
 
 // GridVolume returns the map as a volume on the model grid (the grid's
 // voxel-to-RAS affine from the preprocessing transform).
-func (m *Map) GridVolume(tr inference.Transform) (*volume.Volume, error) {
+func (m *Map) GridVolume(tr preprocess.Transform) (*volume.Volume, error) {
 	if m.Grid != tr.GridDims {
 		return nil, fmt.Errorf("overlay: map grid %v, transform grid %v", m.Grid, tr.GridDims)
 	}
@@ -35,7 +35,7 @@ func (m *Map) GridVolume(tr inference.Transform) (*volume.Volume, error) {
 // so that its sum over the scan stays close to its sum over the model grid
 // (the values are relevance per scan voxel); occlusion drops keep their
 // units.
-func (m *Map) ToScan(tr inference.Transform) (*volume.Volume, error) {
+func (m *Map) ToScan(tr preprocess.Transform) (*volume.Volume, error) {
 	g, err := m.GridVolume(tr)
 	if err != nil {
 		return nil, err

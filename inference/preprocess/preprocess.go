@@ -1,4 +1,8 @@
-package inference
+// Package preprocess turns a Volume into the model-grid tensor a card's
+// "preprocessing" object states (Spec), and keeps the exact transform back
+// from the model grid to the scan, with the head statistics the fit checks
+// use. Research use only.
+package preprocess
 
 import (
 	"errors"
@@ -98,7 +102,7 @@ type Prepared struct {
 // (volume.ResampleFill) onto the model grid, whose axes are the reoriented
 // scan's axes, so voxels are interpolated once. It is the one implementation for the
 // command line, the app, training and evaluation.
-func Preprocess(v *volume.Volume, p Preprocessing) (*Tensor, Transform, error) {
+func Preprocess(v *volume.Volume, p Spec) (*Tensor, Transform, error) {
 	pr, err := Prepare(v, p)
 	if err != nil {
 		return nil, Transform{}, err
@@ -107,7 +111,7 @@ func Preprocess(v *volume.Volume, p Preprocessing) (*Tensor, Transform, error) {
 }
 
 // Prepare is Preprocess with the head statistics and field-of-view coverage.
-func Prepare(v *volume.Volume, p Preprocessing) (*Prepared, error) {
+func Prepare(v *volume.Volume, p Spec) (*Prepared, error) {
 	if err := p.Validate(); err != nil {
 		return nil, err
 	}
@@ -120,7 +124,7 @@ func Prepare(v *volume.Volume, p Preprocessing) (*Prepared, error) {
 	}
 	src := v
 	if p.Antialias == "block-mean" {
-		src = blockMean(v, blockFactors(v, frame, p.SpacingMm))
+		src = BlockMean(v, blockFactors(v, frame, p.SpacingMm))
 	}
 	lo, hi := percentilePair(src.Data, p.HeadMask.LowPercentile, p.HeadMask.HighPercentile)
 	if !(hi > lo) {
@@ -178,17 +182,6 @@ func (t *Tensor) ToLayout(layout string) *Tensor {
 		}
 	}
 	return out
-}
-
-// PrepareForCard runs Prepare with the card's preprocessing and puts the
-// tensor in the card's input layout.
-func PrepareForCard(v *volume.Volume, c *Card) (*Prepared, error) {
-	pr, err := Prepare(v, c.Preprocessing)
-	if err != nil {
-		return nil, err
-	}
-	pr.Tensor = pr.Tensor.ToLayout(c.Input.Layout)
-	return pr, nil
 }
 
 func checkVolume(v *volume.Volume) error {
@@ -268,10 +261,10 @@ func blockFactors(v *volume.Volume, f frame, target [3]float64) [3]int {
 	return out
 }
 
-// blockMean averages non-overlapping blocks of f voxels (non-finite values
+// BlockMean averages non-overlapping blocks of f voxels (non-finite values
 // are skipped), dropping incomplete blocks at the far edges so that the new
 // affine is exact: new voxel I is centred on old voxel f·I + (f−1)/2.
-func blockMean(v *volume.Volume, f [3]int) *volume.Volume {
+func BlockMean(v *volume.Volume, f [3]int) *volume.Volume {
 	if f == [3]int{1, 1, 1} && allFinite32(v.Data) {
 		return v // blocks of one voxel: the scan itself (callers only read it)
 	}
@@ -303,7 +296,7 @@ func blockMean(v *volume.Volume, f [3]int) *volume.Volume {
 				o := out.Index(0, J, K)
 				n := float64(f[0] * f[1] * f[2])
 				for I, s := range acc {
-					if !finite(s) { // a NaN or Inf in the block: average its finite voxels
+					if math.IsNaN(s) || math.IsInf(s, 0) { // a NaN or Inf in the block: average its finite voxels
 						s, n := blockFinite(v, f, I, J, K)
 						if n > 0 {
 							out.Data[o+I] = float32(s / n)
