@@ -1,9 +1,10 @@
 package volume
 
 import (
-	"brightfold/internal/parallel"
 	"fmt"
 	"math"
+
+	"brightfold/internal/parallel"
 )
 
 // AxisMap says, for each voxel axis of a volume, which RAS world axis it
