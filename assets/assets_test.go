@@ -9,6 +9,7 @@ import (
 
 	"brightfold/assets"
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/onnx"
 	"brightfold/internal/onnx/exec"
 	"brightfold/internal/phantom"
@@ -85,7 +86,7 @@ func TestDemoModelFolderONNXRuntime(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer s.Close()
-	var ts []*inference.Tensor
+	var ts []*preprocess.Tensor
 	for i := 0; i < 2; i++ {
 		ph, err := phantom.Generate(77, i, phantom.Options{})
 		if err != nil {

@@ -76,7 +76,7 @@ func New(shape ...int) *Tensor {
 // and for code that already knows the sizes.
 func FromData(data []float32, shape ...int) *Tensor {
 	if len(data) != Numel(shape) {
-		panic(fmt.Sprintf("graph.FromData: %d values for shape %v", len(data), shape))
+		panic(fmt.Sprintf("onnx.FromData: %d values for shape %v", len(data), shape))
 	}
 	return &Tensor{Shape: append([]int(nil), shape...), Data: data, DType: Float}
 }
@@ -85,7 +85,7 @@ func FromData(data []float32, shape ...int) *Tensor {
 // It panics on a size mismatch, like FromData.
 func FromInts(v []int64, shape ...int) *Tensor {
 	if len(v) != Numel(shape) {
-		panic(fmt.Sprintf("graph.FromInts: %d values for shape %v", len(v), shape))
+		panic(fmt.Sprintf("onnx.FromInts: %d values for shape %v", len(v), shape))
 	}
 	return &Tensor{Shape: append([]int(nil), shape...), Ints: v, DType: Int64}
 }

@@ -19,7 +19,8 @@ import (
 	"brightfold/internal/inputerr"
 	"brightfold/internal/notice"
 	"brightfold/internal/parallel"
-	"brightfold/internal/volume"
+	"brightfold/internal/volume/dicom"
+	"brightfold/internal/volume/nifti"
 )
 
 // Cohort lists the subjects of a cohort: n in-distribution cases (indices
@@ -306,17 +307,17 @@ func writeCase(root string, s Subject, opts WriteOptions) (Row, error) {
 	// shorten: Huffman-only coding is much faster than the default level for
 	// a file a few percent larger. In masks, long runs of zeros make the
 	// fastest LZ77 level the right one.
-	if err := volume.WriteNIfTI(filepath.Join(root, row.NIfTIPath), c.Volume,
-		volume.NIfTIWriteOptions{DataType: volume.DTInt16, Description: notice.Short, GzipLevel: gzip.HuffmanOnly}); err != nil {
+	if err := nifti.Write(filepath.Join(root, row.NIfTIPath), c.Volume,
+		nifti.WriteOptions{DataType: nifti.DTInt16, Description: notice.Short, GzipLevel: gzip.HuffmanOnly}); err != nil {
 		return Row{}, err
 	}
-	if err := volume.WriteNIfTI(filepath.Join(root, row.MaskPath), c.Mask,
-		volume.NIfTIWriteOptions{DataType: volume.DTUint8, Description: notice.Short, GzipLevel: gzip.BestSpeed}); err != nil {
+	if err := nifti.Write(filepath.Join(root, row.MaskPath), c.Mask,
+		nifti.WriteOptions{DataType: nifti.DTUint8, Description: notice.Short, GzipLevel: gzip.BestSpeed}); err != nil {
 		return Row{}, err
 	}
 	if wantsDICOM(s, opts.DICOMEvery) {
 		row.DICOMPath = s.ID + "/dicom"
-		if err := volume.WriteDICOMSeries(filepath.Join(root, row.DICOMPath), c.Volume, DICOMOptions(c)); err != nil {
+		if err := dicom.WriteSeries(filepath.Join(root, row.DICOMPath), c.Volume, DICOMOptions(c)); err != nil {
 			return Row{}, err
 		}
 	}
@@ -325,9 +326,9 @@ func writeCase(root string, s Subject, opts WriteOptions) (Row, error) {
 
 // DICOMOptions are the fictional identifiers and acquisition tags with
 // which a case is written as a DICOM series.
-func DICOMOptions(c *Case) volume.DICOMWriteOptions {
+func DICOMOptions(c *Case) dicom.WriteOptions {
 	s, m := c.Subject, c.Volume.Meta
-	return volume.DICOMWriteOptions{
+	return dicom.WriteOptions{
 		Seed:              s.ID + "/" + string(s.Shift) + "/" + strconv.FormatUint(s.Seed, 10),
 		PatientName:       c.Volume.Patient.Name,
 		PatientID:         c.Volume.Patient.ID,

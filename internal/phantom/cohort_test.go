@@ -17,6 +17,7 @@ import (
 	"brightfold/internal/notice"
 	"brightfold/internal/refcheck"
 	"brightfold/internal/volume"
+	_ "brightfold/internal/volume/formats"
 )
 
 // cohortVoxel is coarse so that a whole cohort with shifts takes seconds.

@@ -9,6 +9,7 @@ import (
 
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/cputime"
 	"brightfold/internal/notice"
 	"brightfold/internal/phantom"
@@ -59,12 +60,12 @@ func DemoRecipe() Recipe {
 // canonical RAS, 4 mm grid of the arch's shape centred on the head,
 // block-mean anti-aliasing, head mask at 10 % between the 1st and 99th
 // percentiles, z-score over the head clipped to ±5.
-func DemoPreprocessing(a Arch) inference.Preprocessing {
-	return inference.Preprocessing{
+func DemoPreprocessing(a Arch) preprocess.Spec {
+	return preprocess.Spec{
 		Orientation: "RAS", SpacingMm: [3]float64{4, 4, 4}, Shape: a.Grid,
 		Crop: "head-centre", Antialias: "block-mean", Interpolation: "trilinear",
-		HeadMask:  inference.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
-		Intensity: inference.Intensity{Method: inference.NormZScoreHead, Clip: 5},
+		HeadMask:  preprocess.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
+		Intensity: preprocess.Intensity{Method: preprocess.NormZScoreHead, Clip: 5},
 	}
 }
 
@@ -168,7 +169,7 @@ func (res *Result) fitCases(cs []Case, workers int) ([]inference.FitCase, error)
 	return fc, nil
 }
 
-func (res *Result) fitCard(r Recipe, prep inference.Preprocessing, levels []float64, trainCases, valCases []Case, log func(string, ...any)) error {
+func (res *Result) fitCard(r Recipe, prep preprocess.Spec, levels []float64, trainCases, valCases []Case, log func(string, ...any)) error {
 	card := DemoCard(r, prep)
 	trainFit, err := res.fitCases(trainCases, r.Workers)
 	if err != nil {
@@ -205,7 +206,7 @@ func (res *Result) fitCard(r Recipe, prep inference.Preprocessing, levels []floa
 // evaluate adds the held-out figures: the fresh in-distribution phantoms
 // (discrimination, calibration, fit-check false alarms) and each shifted
 // variant (fit-check flag rate).
-func (res *Result) evaluate(r Recipe, prep inference.Preprocessing, levels []float64, log func(string, ...any)) error {
+func (res *Result) evaluate(r Recipe, prep preprocess.Spec, levels []float64, log func(string, ...any)) error {
 	card := res.Card
 	test, err := GenerateCached(r.CacheDir, Specs(r.TestSeed, 0, r.NTest, phantom.ShiftNone), prep, levels, r.Workers, progress(log, "held-out phantoms"))
 	if err != nil {
@@ -367,7 +368,7 @@ func metricLine(ms []inference.Metric) string {
 
 // DemoCard is the demo model's card without the fitted parts (calibration,
 // out-of-distribution reference, metrics, sha256).
-func DemoCard(r Recipe, prep inference.Preprocessing) *inference.Card {
+func DemoCard(r Recipe, prep preprocess.Spec) *inference.Card {
 	a := r.Arch
 	return &inference.Card{
 		Schema:        inference.SchemaVersion,
@@ -376,7 +377,7 @@ func DemoCard(r Recipe, prep inference.Preprocessing) *inference.Card {
 		Task:          "Says whether a T1-weighted-like synthetic head phantom carries the invented diffuse atrophy pattern (wider ventricles, thinner cortex, smaller medial temporal structures).",
 		Classes:       []string{"no_pattern", "atrophy_pattern"},
 		PositiveClass: "atrophy_pattern",
-		Input: inference.InputSpec{Name: a.Input, Layout: inference.LayoutNCDHW, DataType: "float32",
+		Input: inference.InputSpec{Name: a.Input, Layout: preprocess.LayoutNCDHW, DataType: "float32",
 			Shape: []int64{-1, 1, int64(a.Grid[2]), int64(a.Grid[1]), int64(a.Grid[0])}},
 		Preprocessing: prep,
 		Outputs:       inference.OutputSpec{Logits: a.Logits, Features: a.Features, Activation: inference.ActivationSoftmax},

@@ -1,6 +1,6 @@
 // Package train trains Brightfold's demo model in Go: a small 3D CNN on the
 // synthetic phantoms of the invented Harbourside Memory Research Unit, with
-// the gradients of package graph's executor, Adam, and batch-statistics
+// the gradients of package exec's executor (internal/onnx/exec), Adam, and batch-statistics
 // batch normalisation computed here (the executor implements
 // BatchNormalization in inference mode only). It also fits the card's
 // calibration and out-of-distribution reference from the trained model's
@@ -23,7 +23,7 @@
 // every sum over the cases of a batch (batch statistics, parameter
 // gradients) is taken in case order, so a run depends only on the seed, not
 // on goroutine scheduling or the number of cores. It does depend on the
-// floating-point code that runs: package graph picks its AVX2/FMA or its
+// floating-point code that runs: package exec picks its AVX2/FMA or its
 // portable matrix kernel at run time, and another architecture or Go version
 // may round differently, so elsewhere the weights can differ in the last
 // bits and the metrics slightly (scripts/demo-model.sh allows for that).

@@ -30,7 +30,7 @@ func ClosestAxes(a Affine) (AxisMap, error) {
 			r[k][c] = a[k][c] / n
 		}
 	}
-	r = polar3(r)
+	r = Polar3(r)
 	var m AxisMap
 	for in := 0; in < 3; in++ {
 		best := -1

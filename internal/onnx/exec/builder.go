@@ -12,9 +12,9 @@ import (
 // to be passed to the next layer. The first error is kept and reported by
 // Model, so calls can be chained without checks.
 //
-//	b := graph.NewBuilder("demo", 13)
+//	b := exec.NewBuilder("demo", 13)
 //	x := b.Input("input", -1, 1, 48, 48, 48) // -1: symbolic batch dimension "N"
-//	x = b.Conv("conv1", x, w1, b1, graph.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}})
+//	x = b.Conv("conv1", x, w1, b1, exec.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}})
 //	x = b.Relu(x)
 //	...
 //	b.Output(x, "logits")
