@@ -49,12 +49,15 @@ func Cohort(seed uint64, n int, shifts bool) []Subject {
 	return out
 }
 
-// CohortColumns are the columns of cohort.csv. Paths are relative to the
-// cohort folder; dicom_path is empty for cases written as NIfTI only. The
-// last column repeats the research-use notice on every row, so that the
-// notice travels with any copy of the table.
-var CohortColumns = []string{"case_id", "nifti_path", "dicom_path", "mask_path", "label",
-	"severity", "age", "sex", "site", "shift", "head_scale", "notice"}
+// CohortColumns returns the columns of cohort.csv (a new slice on each
+// call). Paths are relative to the cohort folder; dicom_path is empty for
+// cases written as NIfTI only. The last column repeats the research-use
+// notice on every row, so that the notice travels with any copy of the
+// table.
+func CohortColumns() []string {
+	return []string{"case_id", "nifti_path", "dicom_path", "mask_path", "label",
+		"severity", "age", "sex", "site", "shift", "head_scale", "notice"}
+}
 
 // CohortFile and NoticeFile are the names of the table and the notice in a cohort folder.
 const (
@@ -194,10 +197,11 @@ func IsCohort(dir string) bool {
 	}
 	defer f.Close()
 	rec, err := csv.NewReader(bufio.NewReader(io.LimitReader(f, 1<<16))).Read()
-	if err != nil || len(rec) != len(CohortColumns) {
+	cols := CohortColumns()
+	if err != nil || len(rec) != len(cols) {
 		return false
 	}
-	for i, c := range CohortColumns {
+	for i, c := range cols {
 		if rec[i] != c {
 			return false
 		}
@@ -357,7 +361,7 @@ func DICOMOptions(c *Case) dicom.WriteOptions {
 func writeTable(path string, rows []Row) error {
 	var buf bytes.Buffer
 	w := csv.NewWriter(&buf)
-	w.Write(CohortColumns)
+	w.Write(CohortColumns())
 	for _, r := range rows {
 		w.Write(r.record())
 	}

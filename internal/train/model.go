@@ -178,10 +178,12 @@ func fill(t *onnx.Tensor, v float32) *onnx.Tensor {
 	return t
 }
 
-var (
-	convOpts = exec.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}}
-	pool     = []int{2, 2, 2}
-)
+// convOpts are the options of every convolution: 3×3×3 kernels padded by
+// one voxel on each side.
+func convOpts() exec.ConvOpts { return exec.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}} }
+
+// pool is the kernel and stride of every max-pool: 2×2×2.
+func pool() []int { return []int{2, 2, 2} }
 
 func convName(i int) string { return fmt.Sprintf("conv%d", i+1) }
 
@@ -190,10 +192,10 @@ func buildFull(a Arch, convW []*onnx.Tensor, bns []*bnLayer, fcW, fcB *onnx.Tens
 	b := exec.NewBuilder("harbourside_demo_cnn", a.Opset)
 	x := b.Input(a.Input, -1, 1, a.Grid[2], a.Grid[1], a.Grid[0])
 	for i := range convW {
-		x = b.Conv(convName(i), x, convW[i], nil, convOpts)
+		x = b.Conv(convName(i), x, convW[i], nil, convOpts())
 		x = b.BatchNorm(bns[i].name, x, bns[i].scale, bns[i].bias, bns[i].runMean, bns[i].runVar, a.Epsilon)
 		x = b.Relu(x)
-		x = b.MaxPool(x, pool, pool)
+		x = b.MaxPool(x, pool(), pool())
 	}
 	f := b.Flatten(b.GlobalAveragePool(x), 1)
 	f = b.Output(f, a.Features)
@@ -216,10 +218,10 @@ func (n *Net) buildSegments(convW []*onnx.Tensor, fcW, fcB *onnx.Tensor) error {
 		b := exec.NewBuilder(fmt.Sprintf("segment%d", i), a.Opset)
 		x := b.Input("in", shape...)
 		if i > 0 {
-			x = b.MaxPool(b.Relu(x), pool, pool)
+			x = b.MaxPool(b.Relu(x), pool(), pool())
 		}
 		if i < len(convW) {
-			x = b.Conv(convName(i), x, convW[i], nil, convOpts)
+			x = b.Conv(convName(i), x, convW[i], nil, convOpts())
 		} else {
 			x = b.Gemm("fc", b.Flatten(b.GlobalAveragePool(x), 1), fcW, fcB)
 		}
