@@ -74,6 +74,15 @@ func newEvaluator(fixed, moving *image, mask []bool, metric Metric, centre [3]fl
 	return e
 }
 
+// minSamples is the fewest overlapping samples a level needs: 64 for NCC,
+// 16 per histogram bin for MI (so that the joint histogram is not mostly empty).
+func (e *evaluator) minSamples() int {
+	if e.metric == MI {
+		return 16 * e.mi.bins
+	}
+	return 64
+}
+
 // gradient is d(metric)/d(transform): gL[r][c] for the linear part L and
 // gT[r] for the translation t of y = L·(x − c) + c + t.
 type gradient struct {

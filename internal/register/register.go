@@ -55,6 +55,9 @@ type Stage struct {
 	Iterations  int     `json:"iterations"`
 	Evaluations int     `json:"evaluations"`
 	Value       float64 `json:"value"` // the metric (higher is better) at the end of the stage
+	// Skipped is set when the overlap at this level held too few samples to
+	// optimise (fewer than 64 for NCC, 16 per histogram bin for MI).
+	Skipped bool `json:"skipped,omitempty"`
 }
 
 // Result is the outcome of Register.
@@ -102,12 +105,9 @@ func Register(ctx context.Context, fixed, moving *volume.Volume, opts Options) (
 	res := &Result{Metric: o.Metric}
 	a := start
 	var last *evaluator
-	stages := []int{6}
-	if o.DOF == 12 {
-		stages = []int{6, 12}
-	}
-	for _, dof := range stages {
-		for li, lv := range o.LevelsMM {
+	for _, sg := range o.schedule() {
+		{
+			li, lv, dof := sg.level, o.LevelsMM[sg.level], sg.dof
 			ev, err := newLevel(fixed, moving, o, lv, fc)
 			if err != nil {
 				return nil, err
@@ -147,6 +147,26 @@ func Apply(scan, template *volume.Volume, a volume.Affine) (*volume.Volume, erro
 	}
 	out.Affine = template.Affine
 	return out, nil
+}
+
+type step struct{ level, dof int }
+
+// schedule lists the stages: for a rigid registration every level; for an
+// affine one a rigid stage on the coarsest level (the large rotations and
+// shifts), then affine stages on every level.
+func (o Options) schedule() []step {
+	if o.DOF == 6 {
+		var s []step
+		for i := range o.LevelsMM {
+			s = append(s, step{i, 6})
+		}
+		return s
+	}
+	s := []step{{0, 6}}
+	for i := range o.LevelsMM {
+		s = append(s, step{i, 12})
+	}
+	return s
 }
 
 func countMask(e *evaluator) int {
@@ -243,24 +263,37 @@ func optimiseStage(ctx context.Context, ev *evaluator, dof int, start volume.Aff
 	if math.IsInf(f0, 1) {
 		return Stage{}, start, ErrNoOverlap
 	}
-	settings := &optimize.Settings{
-		MajorIterations:   maxIter,
-		GradientThreshold: 1e-9,
-		Converger:         &optimize.FunctionConverge{Absolute: 1e-7, Relative: 1e-7, Iterations: 6},
-	}
-	method := &optimize.LBFGS{Store: 10, Linesearcher: &optimize.MoreThuente{}}
-	r, err := optimize.Minimize(prob, x0, settings, method)
-	if cerr := ctx.Err(); cerr != nil {
-		return Stage{}, start, cerr
+	if _, _, n := ev.eval(p.affine(x0)); n < ev.minSamples() {
+		// too few samples for a meaningful metric at this level (a thin slab at a coarse level)
+		return Stage{DOF: dof, Evaluations: evals, Value: -f0, Skipped: true}, start, nil
 	}
 	best, bestF, iters := x0, f0, 0
-	if r != nil {
-		iters = r.Stats.MajorIterations
-		if r.F <= f0 && !math.IsNaN(r.F) {
-			best, bestF = r.X, r.F
+	// L-BFGS with a backtracking (Armijo) line search may build a
+	// non-descent direction where the metric is not convex; it then stops,
+	// and a restart from the best point with a fresh memory goes on.
+	for restart := 0; restart < 10 && iters < maxIter; restart++ {
+		settings := &optimize.Settings{
+			MajorIterations:   maxIter - iters,
+			FuncEvaluations:   3 * (maxIter - iters),
+			GradientThreshold: 1e-9,
+			Converger:         &optimize.FunctionConverge{Absolute: 1e-7, Relative: 1e-7, Iterations: 6},
 		}
-	} else if err != nil {
-		return Stage{}, start, fmt.Errorf("register: optimiser: %w", err)
+		method := &optimize.LBFGS{Store: 10, Linesearcher: &optimize.Backtracking{}}
+		r, err := optimize.Minimize(prob, best, settings, method)
+		if cerr := ctx.Err(); cerr != nil {
+			return Stage{}, start, cerr
+		}
+		if r == nil {
+			return Stage{}, start, fmt.Errorf("register: optimiser: %w", err)
+		}
+		iters += max(1, r.Stats.MajorIterations)
+		improved := r.F < bestF-1e-7*math.Abs(bestF) && !math.IsNaN(r.F)
+		if r.F < bestF {
+			best, bestF = append([]float64(nil), r.X...), r.F
+		}
+		if err == nil || !improved {
+			break
+		}
 	}
 	return Stage{DOF: dof, Iterations: iters, Evaluations: evals, Value: -bestF}, p.affine(best), nil
 }
