@@ -10,6 +10,7 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"brightfold/internal/atomicfile"
 	"brightfold/internal/notice"
@@ -194,4 +195,35 @@ func writeDescription(out string, d *Dataset, g Generator) error {
 		return err
 	}
 	return atomicfile.WriteBytes(p, b)
+}
+
+// ReadOutputs reads every file below dir (relative path → content) with
+// the "timing_ms" objects of result JSONs left out: two sweeps of the same
+// cohort, model folder and options give equal maps.
+func ReadOutputs(dir string) (map[string]string, error) {
+	out := map[string]string{}
+	err := filepath.Walk(dir, func(p string, info os.FileInfo, err error) error {
+		if err != nil || info.IsDir() {
+			return err
+		}
+		b, err := os.ReadFile(p)
+		if err != nil {
+			return err
+		}
+		rel, _ := filepath.Rel(dir, p)
+		out[rel] = withoutTiming(string(b))
+		return nil
+	})
+	return out, err
+}
+
+// withoutTiming removes a result JSON's "timing_ms" object (which holds
+// no nested objects).
+func withoutTiming(s string) string {
+	i := strings.Index(s, `"timing_ms": {`)
+	if i < 0 {
+		return s
+	}
+	j := strings.Index(s[i:], "}")
+	return s[:i] + s[i+j+1:]
 }
