@@ -10,8 +10,9 @@ require (
 	github.com/suyashkumar/dicom v1.1.0
 	github.com/vbauerster/mpb/v8 v8.16.2
 	github.com/yalue/onnxruntime_go v1.27.0
-	golang.org/x/image v0.24.0
+	golang.org/x/image v0.25.0
 	golang.org/x/sys v0.48.0
+	gonum.org/v1/gonum v0.17.0
 	google.golang.org/protobuf v1.36.12
 )
 
@@ -50,6 +51,6 @@ require (
 	github.com/yuin/goldmark v1.7.8 // indirect
 	golang.org/x/exp v0.0.0-20240525044651-4c93da0ed11d // indirect
 	golang.org/x/net v0.35.0 // indirect
-	golang.org/x/text v0.22.0 // indirect
+	golang.org/x/text v0.23.0 // indirect
 	gopkg.in/yaml.v3 v3.0.1 // indirect
 )

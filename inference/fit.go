@@ -6,6 +6,7 @@ import (
 	"math"
 
 	"brightfold/inference/fitcheck"
+	"brightfold/internal/stats"
 )
 
 // FitCase is one training or validation case for FitReference: its
@@ -46,7 +47,7 @@ type FitOptions struct {
 }
 
 // DefaultLevels are the intensity-profile quantile levels: 99 levels (k−½)/99.
-func DefaultLevels() []float64 { return fitcheck.EvenLevels(99) }
+func DefaultLevels() []float64 { return stats.EvenLevels(99) }
 
 // HU signature limits (chosen here, not from a standard): a head MR has no
 // voxels near −1000, a head CT in Hounsfield units has a large fraction of
@@ -238,11 +239,11 @@ func fitFeatures(c *Card, train []FitCase, opt FitOptions) (FeatureReference, er
 	if err != nil {
 		return FeatureReference{}, fmt.Errorf("fit reference: %w", err)
 	}
-	cov, shrink, err := fitcheck.LedoitWolf(centred)
+	cov, shrink, err := stats.LedoitWolf(centred)
 	if err != nil {
 		return FeatureReference{}, fmt.Errorf("fit reference: %w", err)
 	}
-	prec, err := fitcheck.InverseSPD(cov)
+	prec, err := stats.InverseSPD(cov)
 	if err != nil {
 		// all-zero feature columns (dead units) make the covariance singular
 		// even after shrinkage only when every feature is constant
@@ -304,7 +305,7 @@ func scoreCase(c *Card, fc FitCase) (scored, error) {
 	if err != nil {
 		return scored{}, fmt.Errorf("fit thresholds: %w", err)
 	}
-	w := fitcheck.QuantileW1(c.OOD.Intensity.Levels, fc.Facts.Quantiles, c.OOD.Intensity.Quantiles)
+	w := stats.QuantileW1(c.OOD.Intensity.Levels, fc.Facts.Quantiles, c.OOD.Intensity.Quantiles)
 	return scored{ms.MSP, ms.Energy, ms.Mahalanobis, w}, nil
 }
 
@@ -337,7 +338,7 @@ func fitThresholds(c *Card, sc []scored, w1Pool []float64, opt FitOptions, desc,
 			th[name] = Threshold{Value: v, Direction: dirs[name], Retention: kept, Required: req[name]}
 		}
 		pass := jointPasses(cols, th)
-		lb, err := fitcheck.BinomialLowerBound(pass, len(sc), opt.Confidence)
+		lb, err := stats.BinomialLowerBound(pass, len(sc), opt.Confidence)
 		if err != nil {
 			return fmt.Errorf("fit thresholds: %w", err)
 		}
@@ -384,7 +385,7 @@ func fitCalibration(c *Card, cases []FitCase, desc string) (Calibration, []Metri
 		logits = append(logits, ClassLogits(c, fc.Output.Logits))
 		labels = append(labels, fc.Label)
 	}
-	T, err := fitcheck.FitTemperature(logits, labels)
+	T, err := stats.FitTemperature(logits, labels)
 	if err != nil {
 		return Calibration{}, nil, err
 	}
@@ -405,7 +406,7 @@ func fitCalibration(c *Card, cases []FitCase, desc string) (Calibration, []Metri
 			}
 			conf[i], ok[i] = p[best], best == labels[i]
 		}
-		return fitcheck.ECE(conf, ok, 15)
+		return stats.ECE(conf, ok, 15)
 	}
 	scores := make([]float64, len(cases))
 	isPos := make([]bool, len(cases))
@@ -415,11 +416,11 @@ func fitCalibration(c *Card, cases []FitCase, desc string) (Calibration, []Metri
 	}
 	n := len(cases)
 	metrics := []Metric{
-		{Name: "auroc", Value: fitcheck.AUROC(scores, isPos), N: n, Split: desc, How: "AUROC of the positive-class probability (Mann-Whitney; equals sklearn roc_auc_score)"},
+		{Name: "auroc", Value: stats.AUROC(scores, isPos), N: n, Split: desc, How: "AUROC of the positive-class probability (Mann-Whitney; equals sklearn roc_auc_score)"},
 		{Name: "ece_before_scaling", Value: ece(1), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), temperature 1"},
 		{Name: "ece_after_scaling", Value: ece(T), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), fitted temperature"},
-		{Name: "nll_before_scaling", Value: fitcheck.NLL(logits, labels, 1), N: n, Split: desc, How: "mean negative log-likelihood"},
-		{Name: "nll_after_scaling", Value: fitcheck.NLL(logits, labels, T), N: n, Split: desc, How: "mean negative log-likelihood"},
+		{Name: "nll_before_scaling", Value: stats.NLL(logits, labels, 1), N: n, Split: desc, How: "mean negative log-likelihood"},
+		{Name: "nll_after_scaling", Value: stats.NLL(logits, labels, T), N: n, Split: desc, How: "mean negative log-likelihood"},
 	}
 	cal := Calibration{Temperature: T, FittedOn: desc,
 		Method: "temperature scaling (Guo et al. 2017): T minimising the mean negative log-likelihood, golden-section search over 1/T in [0.05, 20]"}

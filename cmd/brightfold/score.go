@@ -17,6 +17,7 @@ import (
 	"brightfold/internal/ortlib"
 	"brightfold/internal/report"
 	"brightfold/internal/volume"
+	_ "brightfold/internal/volume/formats"
 )
 
 type scoreOptions struct {

@@ -12,7 +12,7 @@ import (
 	"strings"
 
 	"brightfold/internal/inputerr"
-	"brightfold/internal/volume"
+	"brightfold/internal/volume/nifti"
 )
 
 // BIDSSuffix is the suffix of the scans a sweep reads from a BIDS dataset.
@@ -257,7 +257,7 @@ func ReadFolder(root string) (*Dataset, error) {
 		if e.IsDir() {
 			return nil
 		}
-		if volume.IsNIfTIPath(p) && !strings.HasSuffix(strings.ToLower(p), ".img") {
+		if nifti.IsPath(p) && !strings.HasSuffix(strings.ToLower(p), ".img") {
 			d.Cases = append(d.Cases, folderCase(root, p))
 		} else if strings.EqualFold(filepath.Ext(p), ".dcm") {
 			dicomDirs[filepath.Dir(p)] = true

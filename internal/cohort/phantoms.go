@@ -9,7 +9,7 @@ import (
 	"brightfold/internal/atomicfile"
 	"brightfold/internal/notice"
 	"brightfold/internal/phantom"
-	"brightfold/internal/volume"
+	"brightfold/internal/volume/nifti"
 )
 
 // WritePhantomBIDS writes the given demo subjects as a BIDS dataset in
@@ -38,7 +38,7 @@ func WritePhantomBIDS(root string, subjects []phantom.Subject, voxelMM float64) 
 		if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
 			return err
 		}
-		if err := volume.WriteNIfTI(p, c.Volume, volume.NIfTIWriteOptions{}); err != nil {
+		if err := nifti.Write(p, c.Volume, nifti.WriteOptions{}); err != nil {
 			return err
 		}
 		fmt.Fprintf(&tsv, "sub-%s\t%d\t%.1f\t%s\t%s\n", lab, s.Label, s.Age, s.Sex, s.Site)

@@ -15,6 +15,8 @@ import (
 	"brightfold/internal/notice"
 	"brightfold/internal/report"
 	"brightfold/internal/volume"
+	_ "brightfold/internal/volume/formats"
+	"brightfold/internal/volume/nifti"
 	"brightfold/overlay"
 )
 
@@ -270,7 +272,7 @@ func (s *scorer) writeMap(ctx context.Context, c Case, v *volume.Volume, res *in
 	if err := os.MkdirAll(filepath.Join(s.out, caseDir(c)), 0o755); err != nil {
 		return nil, inputerr.Wrap(s.out, err)
 	}
-	if err := volume.WriteNIfTI(filepath.Join(s.out, nii), &o, volume.NIfTIWriteOptions{DataType: volume.DTFloat32, Description: notice.Short}); err != nil {
+	if err := nifti.Write(filepath.Join(s.out, nii), &o, nifti.WriteOptions{DataType: nifti.DTFloat32, Description: notice.Short}); err != nil {
 		return nil, inputerr.Wrap(s.out, err)
 	}
 	if err := writeJSON(filepath.Join(s.out, side), info); err != nil {

@@ -1,0 +1,45 @@
+package stats
+
+import (
+	"math"
+	"sort"
+)
+
+// AUROC is the area under the ROC curve of scores for telling positives
+// (labels true) from negatives: the probability that a random positive scores
+// higher than a random negative, ties counting half (the Mann-Whitney U
+// statistic divided by n₊·n₋; Hanley & McNeil 1982). It equals sklearn's
+// roc_auc_score. NaN when either class is empty.
+func AUROC(scores []float64, labels []bool) float64 {
+	n := len(scores)
+	if n != len(labels) {
+		return math.NaN()
+	}
+	idx := make([]int, n)
+	for i := range idx {
+		idx[i] = i
+	}
+	sort.Slice(idx, func(a, b int) bool { return scores[idx[a]] < scores[idx[b]] })
+	var rankSum float64
+	var npos, nneg float64
+	for i := 0; i < n; {
+		j := i
+		for j < n && scores[idx[j]] == scores[idx[i]] {
+			j++
+		}
+		avg := float64(i+j+1) / 2 // ranks i+1..j averaged
+		for k := i; k < j; k++ {
+			if labels[idx[k]] {
+				rankSum += avg
+				npos++
+			} else {
+				nneg++
+			}
+		}
+		i = j
+	}
+	if npos == 0 || nneg == 0 {
+		return math.NaN()
+	}
+	return (rankSum - npos*(npos+1)/2) / (npos * nneg)
+}
