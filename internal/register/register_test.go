@@ -12,6 +12,8 @@ import (
 	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
 	"brightfold/internal/volume"
+	_ "brightfold/internal/volume/formats" // NIfTI and DICOM for volume.Load
+	"brightfold/internal/volume/nifti"
 )
 
 // The recovery goal of the alignment issue: after registration, the mean
@@ -262,7 +264,7 @@ func bestOf(tpl *volume.Volume, head func(int) bool, truth volume.Affine, a, b d
 func writeNIfTI(t *testing.T, dir, name string, v *volume.Volume) string {
 	t.Helper()
 	p := filepath.Join(dir, name)
-	if err := volume.WriteNIfTI(p, v, volume.NIfTIWriteOptions{}); err != nil {
+	if err := nifti.Write(p, v, nifti.WriteOptions{}); err != nil {
 		t.Fatal(err)
 	}
 	return p
