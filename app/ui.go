@@ -233,15 +233,6 @@ func (u *UI) cancelTask(kind string) {
 	u.say("Cancelled.")
 }
 
-// caseLabel is how a case is named on screen: its code, and outside
-// Meeting mode the file or folder name.
-func (u *UI) caseLabel(c Case) string {
-	if u.meeting || len(c.Paths) == 0 {
-		return c.Code
-	}
-	return c.Code + "  " + filepath.Base(c.Paths[0])
-}
-
 // refreshIdentity shows who and what is open, as Meeting mode allows.
 func (u *UI) refreshIdentity() {
 	if u.cur < 0 || u.cur >= len(u.cases) {
@@ -282,11 +273,4 @@ func firstPath(c Case) string {
 		return ""
 	}
 	return c.Paths[0]
-}
-
-// spacer is an empty object of the given minimum size.
-func spacer(w, h float32) fyne.CanvasObject {
-	r := canvas.NewRectangle(nil)
-	r.SetMinSize(fyne.NewSize(w, h))
-	return r
 }

@@ -1,7 +1,8 @@
 // Package inference loads model folders (model.onnx plus card.json), runs them
-// on the CPU through ONNX Runtime, prepares scans exactly as a card states,
-// and turns logits into calibrated probabilities. The out-of-distribution
-// checks live in the subpackage fitcheck. Research use only.
+// on the CPU through ONNX Runtime, prepares scans exactly as a card states
+// (with the sub-package preprocess), and turns logits into calibrated
+// probabilities. The out-of-distribution checks live in the sub-package
+// fitcheck. Research use only.
 package inference
 
 import (
@@ -11,6 +12,8 @@ import (
 	"math"
 	"regexp"
 	"strings"
+
+	"brightfold/inference/preprocess"
 )
 
 // SchemaVersion names the card schema this package reads and writes. A card
@@ -21,33 +24,23 @@ const SchemaVersion = "brightfold-card/1"
 // prepared, how its outputs are read and calibrated, and the reference the
 // fit checks compare a scan with. JSON field names are the schema's.
 type Card struct {
-	Schema        string        `json:"schema"`
-	Name          string        `json:"name"`
-	Version       string        `json:"version"`
-	Task          string        `json:"task"`
-	Classes       []string      `json:"classes"`
-	PositiveClass string        `json:"positive_class"`
-	Input         InputSpec     `json:"input"`
-	Preprocessing Preprocessing `json:"preprocessing"`
-	Outputs       OutputSpec    `json:"outputs"`
-	Calibration   Calibration   `json:"calibration"`
-	OOD           OODReference  `json:"ood"`
-	Validation    []Metric      `json:"validation"`
-	ModelSHA256   string        `json:"model_sha256"`
-	IntendedUse   string        `json:"intended_use"`
-	TrainingData  string        `json:"training_data"`
-	Cautions      []string      `json:"cautions"`
+	Schema        string          `json:"schema"`
+	Name          string          `json:"name"`
+	Version       string          `json:"version"`
+	Task          string          `json:"task"`
+	Classes       []string        `json:"classes"`
+	PositiveClass string          `json:"positive_class"`
+	Input         InputSpec       `json:"input"`
+	Preprocessing preprocess.Spec `json:"preprocessing"`
+	Outputs       OutputSpec      `json:"outputs"`
+	Calibration   Calibration     `json:"calibration"`
+	OOD           OODReference    `json:"ood"`
+	Validation    []Metric        `json:"validation"`
+	ModelSHA256   string          `json:"model_sha256"`
+	IntendedUse   string          `json:"intended_use"`
+	TrainingData  string          `json:"training_data"`
+	Cautions      []string        `json:"cautions"`
 }
-
-// Layouts of the model input tensor. Grid axes x, y, z are the model grid's
-// R, A, S axes (see Preprocessing).
-const (
-	// LayoutNCDHW is [N, C, z, y, x]: x varies fastest, the NIfTI memory order.
-	LayoutNCDHW = "NCDHW"
-	// LayoutNCXYZ is [N, C, x, y, z]: z varies fastest, the order of a C-order
-	// array indexed [x, y, z].
-	LayoutNCXYZ = "NCXYZ"
-)
 
 // InputSpec is the model's one input tensor. Shape has five entries in the
 // layout's order; -1 marks a dynamic dimension (only the batch may be dynamic).
@@ -56,50 +49,6 @@ type InputSpec struct {
 	Shape    []int64 `json:"shape"`
 	Layout   string  `json:"layout"`
 	DataType string  `json:"data_type"` // "float32"
-}
-
-// Preprocessing states how a scan becomes the model input. The model grid has
-// axes along the scan's own voxel axes permuted and flipped to the closest RAS
-// orientation (no rotation), Spacing millimetres between voxel centres, Shape
-// voxels, and its centre at the head's centre of mass.
-type Preprocessing struct {
-	Orientation   string     `json:"orientation"`   // "RAS"
-	SpacingMm     [3]float64 `json:"spacing_mm"`    // along the grid's x (R), y (A), z (S)
-	Shape         [3]int     `json:"shape"`         // grid voxels along x, y, z
-	Crop          string     `json:"crop"`          // "head-centre"
-	Antialias     string     `json:"antialias"`     // "block-mean" or "none"
-	Interpolation string     `json:"interpolation"` // "trilinear"
-	HeadMask      HeadMask   `json:"head_mask"`
-	Intensity     Intensity  `json:"intensity"`
-}
-
-// HeadMask is the rule that separates head from background on raw values:
-// a voxel is head when its value exceeds
-// P(LowPercentile) + Fraction·(P(HighPercentile) − P(LowPercentile)),
-// percentiles taken over the scan's finite voxels.
-type HeadMask struct {
-	Method         string  `json:"method"` // "percentile-fraction"
-	LowPercentile  float64 `json:"low_percentile"`
-	HighPercentile float64 `json:"high_percentile"`
-	Fraction       float64 `json:"fraction"`
-}
-
-// Intensity normalisation methods.
-const (
-	// NormZScoreHead subtracts the mean and divides by the standard deviation
-	// of the head voxels; then clips to ±Clip when Clip > 0.
-	NormZScoreHead = "zscore-head"
-	// NormPercentileMinMax clips to the head voxels' LowPercentile and
-	// HighPercentile and maps that range to [0, 1].
-	NormPercentileMinMax = "percentile-minmax"
-)
-
-// Intensity is the intensity normalisation.
-type Intensity struct {
-	Method         string  `json:"method"`
-	LowPercentile  float64 `json:"low_percentile,omitempty"`
-	HighPercentile float64 `json:"high_percentile,omitempty"`
-	Clip           float64 `json:"clip,omitempty"`
 }
 
 // Output activations.
@@ -339,8 +288,8 @@ func (c *Card) validateInput() error {
 	if in.DataType != "float32" {
 		return fieldError("input.data_type", "only float32 is supported, got %q", in.DataType)
 	}
-	if in.Layout != LayoutNCDHW && in.Layout != LayoutNCXYZ {
-		return fieldError("input.layout", "want %q or %q, got %q", LayoutNCDHW, LayoutNCXYZ, in.Layout)
+	if in.Layout != preprocess.LayoutNCDHW && in.Layout != preprocess.LayoutNCXYZ {
+		return fieldError("input.layout", "want %q or %q, got %q", preprocess.LayoutNCDHW, preprocess.LayoutNCXYZ, in.Layout)
 	}
 	if len(in.Shape) != 5 {
 		return fieldError("input.shape", "want 5 dimensions (N, C and three spatial), got %d", len(in.Shape))
@@ -353,7 +302,7 @@ func (c *Card) validateInput() error {
 	}
 	want := c.Preprocessing.Shape
 	spatial := [3]int64{int64(want[2]), int64(want[1]), int64(want[0])}
-	if in.Layout == LayoutNCXYZ {
+	if in.Layout == preprocess.LayoutNCXYZ {
 		spatial = [3]int64{int64(want[0]), int64(want[1]), int64(want[2])}
 	}
 	for i, s := range spatial {
@@ -395,76 +344,6 @@ func (c *Card) NumLogits() int {
 		return 1
 	}
 	return len(c.Classes)
-}
-
-// MaxGridVoxels bounds the model grid (512³) so that a card cannot ask for a
-// huge allocation.
-const MaxGridVoxels = 512 * 512 * 512
-
-// Validate checks the preprocessing parameters.
-func (p Preprocessing) Validate() error {
-	if p.Orientation != "RAS" {
-		return fieldError("preprocessing.orientation", "only \"RAS\" is supported, got %q", p.Orientation)
-	}
-	n := 1
-	for i := 0; i < 3; i++ {
-		s := p.SpacingMm[i]
-		if !(s >= 0.1 && s <= 20) {
-			return fieldError(fmt.Sprintf("preprocessing.spacing_mm[%d]", i), "want 0.1 to 20 mm, got %v", s)
-		}
-		d := p.Shape[i]
-		if d < 4 || d > 512 {
-			return fieldError(fmt.Sprintf("preprocessing.shape[%d]", i), "want 4 to 512 voxels, got %d", d)
-		}
-		n *= d
-	}
-	if n > MaxGridVoxels {
-		return fieldError("preprocessing.shape", "%v exceeds %d voxels", p.Shape, MaxGridVoxels)
-	}
-	if p.Crop != "head-centre" {
-		return fieldError("preprocessing.crop", "only \"head-centre\" is supported, got %q", p.Crop)
-	}
-	if p.Antialias != "block-mean" && p.Antialias != "none" {
-		return fieldError("preprocessing.antialias", "want \"block-mean\" or \"none\", got %q", p.Antialias)
-	}
-	if p.Interpolation != "trilinear" {
-		return fieldError("preprocessing.interpolation", "only \"trilinear\" is supported, got %q", p.Interpolation)
-	}
-	if err := p.HeadMask.validate(); err != nil {
-		return err
-	}
-	return p.Intensity.validate()
-}
-
-func validPercentile(x float64) bool { return x >= 0 && x <= 100 }
-
-func (h HeadMask) validate() error {
-	if h.Method != "percentile-fraction" {
-		return fieldError("preprocessing.head_mask.method", "only \"percentile-fraction\" is supported, got %q", h.Method)
-	}
-	if !validPercentile(h.LowPercentile) || !validPercentile(h.HighPercentile) || h.LowPercentile >= h.HighPercentile {
-		return fieldError("preprocessing.head_mask", "percentiles must satisfy 0 ≤ low < high ≤ 100, got %v, %v", h.LowPercentile, h.HighPercentile)
-	}
-	if !(h.Fraction > 0 && h.Fraction < 1) {
-		return fieldError("preprocessing.head_mask.fraction", "want 0 < fraction < 1, got %v", h.Fraction)
-	}
-	return nil
-}
-
-func (in Intensity) validate() error {
-	switch in.Method {
-	case NormZScoreHead:
-		if !(in.Clip >= 0) || math.IsInf(in.Clip, 0) {
-			return fieldError("preprocessing.intensity.clip", "want 0 (none) or a positive number, got %v", in.Clip)
-		}
-	case NormPercentileMinMax:
-		if !validPercentile(in.LowPercentile) || !validPercentile(in.HighPercentile) || in.LowPercentile >= in.HighPercentile {
-			return fieldError("preprocessing.intensity", "percentiles must satisfy 0 ≤ low < high ≤ 100, got %v, %v", in.LowPercentile, in.HighPercentile)
-		}
-	default:
-		return fieldError("preprocessing.intensity.method", "want %q or %q, got %q", NormZScoreHead, NormPercentileMinMax, in.Method)
-	}
-	return nil
 }
 
 func (o OODReference) validate(classes int) error {

@@ -8,10 +8,10 @@ import (
 	"strings"
 	"sync"
 
-	ort "github.com/yalue/onnxruntime_go"
-
+	"brightfold/inference/preprocess"
 	"brightfold/internal/inputerr"
 	"brightfold/internal/ortlib"
+	ort "github.com/yalue/onnxruntime_go"
 )
 
 // ONNX Runtime keeps one environment per process (its C library is
@@ -126,7 +126,7 @@ func (s *Session) Close() error {
 // Run feeds the tensors (each one case, shape [1, 1, ...] in the card's
 // layout) through the model, batching them when the batch is dynamic, and
 // returns one Output per tensor.
-func (s *Session) Run(ts []*Tensor) ([]Output, error) {
+func (s *Session) Run(ts []*preprocess.Tensor) ([]Output, error) {
 	return s.RunContext(context.Background(), ts)
 }
 
@@ -134,7 +134,7 @@ func (s *Session) Run(ts []*Tensor) ([]Output, error) {
 // inside a batch through ONNX Runtime's run-options terminate flag, so that
 // a long model run is cancelled within one operator. It then returns ctx's
 // error.
-func (s *Session) RunContext(ctx context.Context, ts []*Tensor) ([]Output, error) {
+func (s *Session) RunContext(ctx context.Context, ts []*preprocess.Tensor) ([]Output, error) {
 	var out []Output
 	for lo := 0; lo < len(ts); lo += s.maxBatch {
 		if err := ctx.Err(); err != nil {
@@ -150,7 +150,7 @@ func (s *Session) RunContext(ctx context.Context, ts []*Tensor) ([]Output, error
 	return out, nil
 }
 
-func (s *Session) runBatch(ctx context.Context, ts []*Tensor) ([]Output, error) {
+func (s *Session) runBatch(ctx context.Context, ts []*preprocess.Tensor) ([]Output, error) {
 	c := s.mf.Card
 	per := 1
 	for _, d := range c.Input.Shape[1:] {

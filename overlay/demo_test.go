@@ -14,6 +14,7 @@ import (
 
 	"brightfold/assets"
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/onnx"
 	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
@@ -52,10 +53,10 @@ func demoModelFolder(t testing.TB) *inference.ModelFolder {
 
 // positiveCases returns the first n pattern-positive cases of the fresh
 // cohort, rendered at voxel mm and prepared for the card.
-func positiveCases(t testing.TB, card *inference.Card, n int, voxel float64) ([]*phantom.Case, []*inference.Prepared) {
+func positiveCases(t testing.TB, card *inference.Card, n int, voxel float64) ([]*phantom.Case, []*preprocess.Prepared) {
 	t.Helper()
 	var cs []*phantom.Case
-	var ps []*inference.Prepared
+	var ps []*preprocess.Prepared
 	for i := 0; i < n; i++ {
 		c, pr := positiveCase(t, card, i, voxel)
 		cs, ps = append(cs, c), append(ps, pr)
@@ -325,7 +326,7 @@ func TestLocalisation(t *testing.T) {
 
 // positiveCase returns the i-th pattern-positive case of the fresh cohort,
 // rendered at voxel mm and prepared for the card.
-func positiveCase(t testing.TB, card *inference.Card, i int, voxel float64) (*phantom.Case, *inference.Prepared) {
+func positiveCase(t testing.TB, card *inference.Card, i int, voxel float64) (*phantom.Case, *preprocess.Prepared) {
 	t.Helper()
 	n := -1
 	for idx := 0; ; idx++ {

@@ -5,12 +5,13 @@ import (
 	"fmt"
 	"math"
 
-	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 )
 
 // computeLRP runs the planned LRP rules and reports their conservation.
-func (e *Explainer) computeLRP(ctx context.Context, t *inference.Tensor, tg target, opt Options) (*Map, error) {
+func (e *Explainer) computeLRP(ctx context.Context, t *preprocess.Tensor, tg target, opt Options) (*Map, error) {
 	x, err := e.input1(t)
 	if err != nil {
 		return nil, err
@@ -43,7 +44,7 @@ func (e *Explainer) computeLRP(ctx context.Context, t *inference.Tensor, tg targ
 }
 
 // input1 checks t's size and wraps it as a one-case executor input.
-func (e *Explainer) input1(t *inference.Tensor) (*onnx.Tensor, error) {
+func (e *Explainer) input1(t *preprocess.Tensor) (*onnx.Tensor, error) {
 	n := 1
 	for _, d := range t.Shape[1:] {
 		n *= int(d)
@@ -100,7 +101,7 @@ func (e *Explainer) gradBatch(x *onnx.Tensor, tg target) (*onnx.Tensor, []float6
 	if err != nil {
 		return nil, nil, err
 	}
-	g, err := e.exec.BackwardWith(tr, map[string]*onnx.Tensor{e.logits: seed}, onnx.BackwardOptions{NoParams: true})
+	g, err := e.exec.BackwardWith(tr, map[string]*onnx.Tensor{e.logits: seed}, exec.BackwardOptions{NoParams: true})
 	if err != nil {
 		return nil, nil, err
 	}
@@ -132,7 +133,7 @@ func (e *Explainer) scoresOf(one *onnx.Tensor, cases [][]float32, tg target) ([]
 }
 
 // computeGradInput is gradient × input (Shrikumar et al. 2016).
-func (e *Explainer) computeGradInput(ctx context.Context, t *inference.Tensor, tg target) (*Map, error) {
+func (e *Explainer) computeGradInput(ctx context.Context, t *preprocess.Tensor, tg target) (*Map, error) {
 	x, err := e.input1(t)
 	if err != nil {
 		return nil, err
@@ -160,7 +161,7 @@ func (e *Explainer) computeGradInput(ctx context.Context, t *inference.Tensor, t
 // m steps are among those of 3m, so no gradient is computed twice), as the
 // paper advises ("check completeness; if the error is large, use more
 // steps"), up to MaxSteps.
-func (e *Explainer) computeIG(ctx context.Context, t *inference.Tensor, tg target, opt Options) (*Map, error) {
+func (e *Explainer) computeIG(ctx context.Context, t *preprocess.Tensor, tg target, opt Options) (*Map, error) {
 	x, err := e.input1(t)
 	if err != nil {
 		return nil, err
@@ -240,7 +241,7 @@ func blurSetting(opt Options) any {
 }
 
 // baseline returns the integrated-gradients baseline in t's layout.
-func (e *Explainer) baseline(t *inference.Tensor, opt Options) ([]float32, error) {
+func (e *Explainer) baseline(t *preprocess.Tensor, opt Options) ([]float32, error) {
 	switch opt.Baseline {
 	case BaselineZero:
 		return make([]float32, len(t.Data)), nil

@@ -7,6 +7,7 @@ import (
 	"strings"
 
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 )
 
 // nodeKind is how LRP treats a node on the path from the input to the logits.
@@ -56,7 +57,7 @@ type lrpStep struct {
 
 // lrpPlan is the LRP walk over the BatchNormalization-folded model.
 type lrpPlan struct {
-	exec          *onnx.Executor
+	exec          *exec.Executor
 	input, logits string
 	steps         []*lrpStep // aligned with exec.Nodes()
 	dep           map[string]bool
@@ -71,7 +72,7 @@ func newLRPPlan(m *onnx.Model, input, logits string, bounds [2]float64) (*lrpPla
 	if err != nil {
 		return nil, fmt.Errorf("fold batch normalisation: %w", err)
 	}
-	ex, err := onnx.NewExecutor(fm)
+	ex, err := exec.NewExecutor(fm)
 	if err != nil {
 		return nil, err
 	}

@@ -9,6 +9,7 @@ import (
 	"testing"
 
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/onnx"
 	"brightfold/internal/volume"
 )
@@ -29,7 +30,7 @@ func testExplainer(t *testing.T, spec modelSpec, withSession bool) *Explainer {
 	return ex
 }
 
-func compute(t *testing.T, ex *Explainer, m Method, in *inference.Tensor, opt Options) *Map {
+func compute(t *testing.T, ex *Explainer, m Method, in *preprocess.Tensor, opt Options) *Map {
 	t.Helper()
 	mp, err := ex.Compute(context.Background(), m, in, opt)
 	if err != nil {

@@ -9,12 +9,13 @@ import (
 	"testing"
 
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/refcheck"
 )
 
 // fixtureModelFolder is the PyTorch-exported fixture of testdata/pytorch as a
 // model folder (a card written here), and its input tensor.
-func fixtureModelFolder(t *testing.T) (*inference.ModelFolder, *inference.Tensor) {
+func fixtureModelFolder(t *testing.T) (*inference.ModelFolder, *preprocess.Tensor) {
 	t.Helper()
 	dir := filepath.Join(refcheck.RepoRoot(), "testdata", "pytorch")
 	model, err := os.ReadFile(filepath.Join(dir, "small3d.onnx"))
@@ -35,7 +36,7 @@ func fixtureModelFolder(t *testing.T) (*inference.ModelFolder, *inference.Tensor
 	if err != nil {
 		t.Fatal(err)
 	}
-	in := &inference.Tensor{Layout: inference.LayoutNCDHW, Grid: [3]int{g, g, g}, Shape: []int64{1, 1, g, g, g}, Data: make([]float32, g*g*g)}
+	in := &preprocess.Tensor{Layout: preprocess.LayoutNCDHW, Grid: [3]int{g, g, g}, Shape: []int64{1, 1, g, g, g}, Data: make([]float32, g*g*g)}
 	for i := range in.Data {
 		in.Data[i] = math.Float32frombits(binary.LittleEndian.Uint32(raw[4*i:]))
 	}

@@ -36,9 +36,9 @@ scorebench "large stand-in CNN (128³, 1.5 mm, ~44 G multiply-adds)" large
 # folder (first run), then times volume.Load on it; scripts/bench-volume.py
 # times nibabel's get_fdata() on the same file and prints the ratio
 # (goal: brightfold/nibabel wall time ≤ 1.0) and both peak memories.
-echo "== NIfTI .nii.gz load vs nibabel get_fdata (volume BenchmarkLoadNIfTIGz) =="
+echo "== NIfTI .nii.gz load vs nibabel get_fdata (volume/nifti BenchmarkLoadNIfTIGz) =="
 niidir=$(mktemp -d)
-niibench() { BRIGHTFOLD_BENCH_DIR=$niidir go test -run '^$' -bench '^BenchmarkLoadNIfTIGz$' -benchtime "$1" ./internal/volume | grep '^BenchmarkLoadNIfTIGz'; }
+niibench() { BRIGHTFOLD_BENCH_DIR=$niidir go test -run '^$' -bench '^BenchmarkLoadNIfTIGz$' -benchtime "$1" ./internal/volume/nifti | grep '^BenchmarkLoadNIfTIGz'; }
 niibench 1x >/dev/null          # writes the file
 niipeak=$(niibench 1x)          # a process that loads it once: its peak memory
 niiline=$(niibench 10x)         # timing
@@ -49,11 +49,11 @@ rm -rf "$niidir"
 # --- DICOM series loading vs pydicom (issue 2) --------------------------------
 # BenchmarkLoadDICOMSeries writes a 176-slice 256×256 int16 MR series, times
 # volume.Load on its folder, and times a pydicom loop with numpy stacking on
-# the same files (internal/volume/testdata/dicom_bench.py) in the same run. It reports
+# the same files (internal/volume/dicom/testdata/dicom_bench.py) in the same run. It reports
 # the ratio of the two wall times (goal: ≤ 1.0) and the peak resident memory
 # (VmHWM) of a process doing only that load, ours and pydicom's.
-echo "== DICOM series load vs pydicom + numpy (volume BenchmarkLoadDICOMSeries) =="
-dcmline=$(go test -run '^$' -bench '^BenchmarkLoadDICOMSeries$' -benchtime 5x -benchmem ./internal/volume | grep '^BenchmarkLoadDICOMSeries')
+echo "== DICOM series load vs pydicom + numpy (volume/dicom BenchmarkLoadDICOMSeries) =="
+dcmline=$(go test -run '^$' -bench '^BenchmarkLoadDICOMSeries$' -benchtime 5x -benchmem ./internal/volume/dicom | grep '^BenchmarkLoadDICOMSeries')
 echo "$dcmline"
 echo "$dcmline" | awk '{for (i = 3; i < NF; i++) m[$(i+1)] = $i}
   END {printf "DICOM load: %.0f ms, pydicom %.0f ms, ratio %.2f (goal <= 1.0); peak RSS %.0f MiB, pydicom %.0f MiB\n",

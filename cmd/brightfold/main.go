@@ -34,6 +34,7 @@ func commands() []command {
 		{"score", "score PATH [--model MODEL] [--map lrp|ig|gradinput|occlusion|none] [--out DIR] [--json]", runScore},
 		{"demo", "demo cohort DIR [--n N] [--seed S] [--shifts]", runDemo},
 		{"model", "model check MODEL", runModelFolder},
+		{"sweep", sweepUsage, runSweep},
 	}
 }
 

@@ -7,6 +7,7 @@ import (
 	"strings"
 
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/notice"
 	"brightfold/internal/ortlib"
 )
@@ -63,9 +64,9 @@ func trialRun(b *inference.ModelFolder, lib string) (string, error) {
 	defer s.Close()
 	c := b.Card
 	p := c.Preprocessing.Shape
-	t := &inference.Tensor{Data: make([]float32, p[0]*p[1]*p[2]), Shape: append([]int64{1}, c.Input.Shape[1:]...),
+	t := &preprocess.Tensor{Data: make([]float32, p[0]*p[1]*p[2]), Shape: append([]int64{1}, c.Input.Shape[1:]...),
 		Layout: c.Input.Layout, Grid: p}
-	out, err := s.Run([]*inference.Tensor{t})
+	out, err := s.Run([]*preprocess.Tensor{t})
 	if err != nil {
 		return "", fmt.Errorf("%s: ONNX Runtime could not run the model: %w", b.Source, err)
 	}

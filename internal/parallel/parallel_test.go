@@ -1,6 +1,8 @@
 package parallel
 
 import (
+	"errors"
+	"fmt"
 	"sync/atomic"
 	"testing"
 )
@@ -47,5 +49,37 @@ func TestChunksCover(t *testing.T) {
 func TestWorkers(t *testing.T) {
 	if Workers(0, 4) != 1 || Workers(3, 8) != 3 || Workers(100, 2) != 2 || Workers(100, 0) < 1 {
 		t.Errorf("Workers: %d %d %d %d", Workers(0, 4), Workers(3, 8), Workers(100, 2), Workers(100, 0))
+	}
+}
+
+// EachErr returns the error of the lowest failing index, skips indices not
+// yet started after a failure, and visits everything when nothing fails.
+func TestEachErr(t *testing.T) {
+	var calls atomic.Int32
+	if err := EachErr(100, 3, func(_, _ int) error { calls.Add(1); return nil }); err != nil || calls.Load() != 100 {
+		t.Errorf("no failure: err %v, %d calls, want nil and 100", err, calls.Load())
+	}
+	calls.Store(0)
+	err := EachErr(1000, 1, func(_, k int) error {
+		calls.Add(1)
+		if k == 7 || k == 9 {
+			return fmt.Errorf("index %d", k)
+		}
+		return nil
+	})
+	if err == nil || err.Error() != "index 7" || calls.Load() != 8 {
+		t.Errorf("one worker: err %v after %d calls, want index 7 after 8", err, calls.Load())
+	}
+	err = EachErr(1000, 4, func(_, k int) error {
+		if k%100 == 42 {
+			return fmt.Errorf("index %d", k)
+		}
+		return nil
+	})
+	if err == nil || err.Error() != "index 42" {
+		t.Errorf("four workers: err %v, want index 42", err)
+	}
+	if EachErr(0, 2, func(_, _ int) error { return errors.New("called") }) != nil {
+		t.Error("n = 0 called f")
 	}
 }

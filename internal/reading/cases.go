@@ -5,19 +5,15 @@
 package reading
 
 import (
-	"encoding/csv"
-	"errors"
 	"fmt"
-	"io"
 	"os"
 	"path/filepath"
 	"sort"
-	"strconv"
 	"strings"
 
+	"brightfold/internal/cohort"
 	"brightfold/internal/inputerr"
-	"brightfold/internal/phantom"
-	"brightfold/internal/volume"
+	"brightfold/internal/volume/dicom"
 )
 
 // Case is one case of a case list.
@@ -37,27 +33,23 @@ type Case struct {
 // maxCases bounds a case list (a reader study is hundreds of cases, not millions).
 const maxCases = 100000
 
-// LoadCases reads a case list from path: a demo cohort folder (cohort.csv), a
-// CSV manifest file, a BIDS folder (sub-*/anat/*_T1w.nii[.gz] and
-// participants.tsv), or a folder tree of DICOM files (one case per series).
+// LoadCases reads a case list from path through internal/cohort (a demo
+// cohort folder with cohort.csv, a CSV manifest file, a BIDS dataset, or a
+// folder of NIfTI files and DICOM folders); a folder in which cohort finds no
+// scans is read as a DICOM folder tree, one case per series, so that DICOM
+// files without the .dcm extension are found too. The truth is the label
+// column, or a column named truth.
 func LoadCases(path string) ([]Case, error) {
 	abs, err := filepath.Abs(path)
 	if err != nil {
 		return nil, inputerr.Wrap(path, err)
 	}
-	st, err := os.Stat(abs)
-	if err != nil {
-		return nil, inputerr.Wrap(path, err)
-	}
 	var cases []Case
+	d, err := cohort.Open(abs, "")
 	switch {
-	case !st.IsDir():
-		cases, err = ReadManifest(abs)
-	case fileExists(filepath.Join(abs, phantom.CohortFile)):
-		cases, err = readCohort(abs)
-	case isBIDS(abs):
-		cases, err = readBIDS(abs)
-	default:
+	case err == nil:
+		cases, err = fromDataset(path, d)
+	case isDir(abs) && strings.Contains(err.Error(), "no scans found"):
 		cases, err = readDICOMTree(abs)
 	}
 	if err != nil {
@@ -66,214 +58,44 @@ func LoadCases(path string) ([]Case, error) {
 	if len(cases) == 0 {
 		return nil, inputerr.New(path, "no cases found")
 	}
+	if len(cases) > maxCases {
+		return nil, inputerr.New(path, "%d cases; a session holds at most %d", len(cases), maxCases)
+	}
 	sort.Slice(cases, func(i, j int) bool { return cases[i].Name < cases[j].Name })
-	for i := 1; i < len(cases); i++ {
-		if cases[i].Name == cases[i-1].Name {
-			return nil, inputerr.New(path, "case %q is listed twice", cases[i].Name)
-		}
-	}
 	return cases, nil
 }
 
-func fileExists(p string) bool {
+func isDir(p string) bool {
 	st, err := os.Stat(p)
-	return err == nil && !st.IsDir()
+	return err == nil && st.IsDir()
 }
 
-// csvTable is a header-indexed CSV or TSV table.
-type csvTable struct {
-	col  map[string]int
-	rows [][]string
-}
-
-// readTable reads a CSV (comma) or TSV (tab) file with a header line, bounded
-// in size; column names are matched case-insensitively.
-func readTable(path string, comma rune) (*csvTable, error) {
-	f, err := os.Open(path)
-	if err != nil {
-		return nil, inputerr.Wrap(path, err)
-	}
-	defer f.Close()
-	return parseTable(path, io.LimitReader(f, 64<<20), comma)
-}
-
-func parseTable(path string, r io.Reader, comma rune) (*csvTable, error) {
-	cr := csv.NewReader(r)
-	cr.Comma = comma
-	cr.FieldsPerRecord = -1
-	cr.ReuseRecord = false
-	if comma == '\t' {
-		cr.LazyQuotes = true
-	}
-	head, err := cr.Read()
-	if err != nil {
-		return nil, inputerr.New(path, "no header line: %v", tableErr(err))
-	}
-	t := &csvTable{col: map[string]int{}}
-	for i, h := range head {
-		h = strings.ToLower(strings.TrimSpace(strings.TrimPrefix(h, "\ufeff")))
-		if _, dup := t.col[h]; !dup {
-			t.col[h] = i
-		}
-	}
-	for {
-		rec, err := cr.Read()
-		if errors.Is(err, io.EOF) {
-			return t, nil
-		}
-		if err != nil {
-			return nil, inputerr.New(path, "%v", tableErr(err))
-		}
-		if len(t.rows) >= maxCases {
-			return nil, inputerr.New(path, "more than %d rows", maxCases)
-		}
-		if len(rec) != len(head) {
-			return nil, inputerr.New(path, "line %d has %d fields, the header %d", len(t.rows)+2, len(rec), len(head))
-		}
-		t.rows = append(t.rows, rec)
-	}
-}
-
-func tableErr(err error) error {
-	if errors.Is(err, io.EOF) {
-		return errors.New("empty file")
-	}
-	return err
-}
-
-// get returns the value of the first of names present in row i ("" if none).
-func (t *csvTable) get(i int, names ...string) string {
-	for _, n := range names {
-		if c, ok := t.col[n]; ok {
-			return strings.TrimSpace(t.rows[i][c])
-		}
-	}
-	return ""
-}
-
-func (t *csvTable) has(names ...string) bool {
-	for _, n := range names {
-		if _, ok := t.col[n]; ok {
-			return true
-		}
-	}
-	return false
-}
-
-// parseTruth reads a 0/1 truth value; "" and "n/a" mean unknown (-1).
-func parseTruth(s string) (int, error) {
-	switch strings.ToLower(s) {
-	case "", "n/a", "na":
-		return -1, nil
-	case "0", "false", "no", "negative":
-		return 0, nil
-	case "1", "true", "yes", "positive":
-		return 1, nil
-	}
-	if v, err := strconv.ParseFloat(s, 64); err == nil && (v == 0 || v == 1) {
-		return int(v), nil
-	}
-	return 0, fmt.Errorf("truth %q is not 0 or 1", s)
-}
-
-// readCohort reads a demo cohort folder's cohort.csv.
-func readCohort(dir string) ([]Case, error) {
-	p := filepath.Join(dir, phantom.CohortFile)
-	t, err := readTable(p, ',')
-	if err != nil {
-		return nil, err
-	}
-	if !t.has("case_id") || !t.has("nifti_path") {
-		return nil, inputerr.New(p, "not a cohort table (no case_id and nifti_path columns)")
-	}
+func fromDataset(path string, d *cohort.Dataset) ([]Case, error) {
 	var cases []Case
-	for i := range t.rows {
-		truth, err := parseTruth(t.get(i, "label"))
-		if err != nil {
-			return nil, inputerr.New(p, "line %d: %v", i+2, err)
-		}
-		src, err := within(dir, t.get(i, "nifti_path"))
-		if err != nil {
-			return nil, inputerr.New(p, "line %d: %v", i+2, err)
-		}
-		cases = append(cases, Case{Name: t.get(i, "case_id"), Source: src, Truth: truth})
-	}
-	return cases, nil
-}
-
-// within joins a relative path from a table to its folder, refusing absolute
-// paths and paths that climb out of the folder.
-func within(dir, rel string) (string, error) {
-	if rel == "" {
-		return "", errors.New("empty path")
-	}
-	if filepath.IsAbs(rel) {
-		return "", fmt.Errorf("path %q is absolute; paths are relative to the table", rel)
-	}
-	p := filepath.Join(dir, filepath.FromSlash(rel))
-	if r, err := filepath.Rel(dir, p); err != nil || r == "." || r == ".." || strings.HasPrefix(r, ".."+string(filepath.Separator)) {
-		return "", fmt.Errorf("path %q leaves the table's folder", rel)
-	}
-	return p, nil
-}
-
-// isBIDS reports whether dir looks like a BIDS dataset.
-func isBIDS(dir string) bool {
-	if fileExists(filepath.Join(dir, "dataset_description.json")) || fileExists(filepath.Join(dir, "participants.tsv")) {
-		return true
-	}
-	m, _ := filepath.Glob(filepath.Join(dir, "sub-*", "anat"))
-	return len(m) > 0
-}
-
-// readBIDS lists sub-*/[ses-*/]anat/*_T1w.nii[.gz]; participants.tsv may give
-// a truth column ("truth", else "label").
-func readBIDS(dir string) ([]Case, error) {
-	truth := map[string]int{}
-	pt := filepath.Join(dir, "participants.tsv")
-	if fileExists(pt) {
-		t, err := readTable(pt, '\t')
-		if err != nil {
-			return nil, err
-		}
-		for i := range t.rows {
-			v, err := parseTruth(t.get(i, "truth", "label"))
-			if err != nil {
-				return nil, inputerr.New(pt, "line %d: %v", i+2, err)
+	for _, c := range d.Cases {
+		truth := c.Label
+		if truth < 0 && c.Covariates["truth"] != "" {
+			switch strings.TrimSpace(c.Covariates["truth"]) {
+			case "0":
+				truth = 0
+			case "1":
+				truth = 1
+			default:
+				return nil, inputerr.New(path, "case %s: truth %q is not 0 or 1", c.Source, c.Covariates["truth"])
 			}
-			truth[t.get(i, "participant_id")] = v
 		}
-	}
-	var files []string
-	for _, pat := range []string{"sub-*/anat/*_T1w.nii*", "sub-*/ses-*/anat/*_T1w.nii*"} {
-		m, err := filepath.Glob(filepath.Join(dir, filepath.FromSlash(pat)))
-		if err != nil {
-			return nil, inputerr.Wrap(dir, err)
+		src := c.Paths[0]
+		if len(c.Paths) > 1 {
+			src = commonDir(c.Paths)
 		}
-		files = append(files, m...)
-	}
-	var cases []Case
-	for _, f := range files {
-		if !strings.HasSuffix(f, ".nii") && !strings.HasSuffix(f, ".nii.gz") {
-			continue
-		}
-		rel, _ := filepath.Rel(dir, f)
-		sub := strings.SplitN(filepath.ToSlash(rel), "/", 2)[0]
-		v, ok := truth[sub]
-		if !ok {
-			v = -1
-		}
-		cases = append(cases, Case{Name: filepath.ToSlash(rel), Source: f, Truth: v})
-	}
-	if len(cases) == 0 {
-		return nil, inputerr.New(dir, "BIDS folder without sub-*/anat/*_T1w.nii[.gz] scans")
+		cases = append(cases, Case{Name: c.Source, Source: src, Truth: truth})
 	}
 	return cases, nil
 }
 
 // readDICOMTree makes one case per loadable DICOM series under dir.
 func readDICOMTree(dir string) ([]Case, error) {
-	series, err := volume.ListSeries([]string{dir})
+	series, err := dicom.ListSeries([]string{dir})
 	if err != nil {
 		return nil, err
 	}

@@ -9,6 +9,7 @@ import (
 	"brightfold/internal/atomicfile"
 	"brightfold/internal/notice"
 	"brightfold/internal/volume"
+	"brightfold/internal/volume/nifti"
 )
 
 // Relevance output file names, written side by side.
@@ -68,7 +69,7 @@ func WriteRelevance(dir string, m *volume.Volume, info RelevanceInfo) (nii, side
 	}
 	out := *m
 	out.Patient, out.Source = volume.Identifiers{}, ""
-	if err := volume.WriteNIfTI(nii, &out, volume.NIfTIWriteOptions{DataType: volume.DTFloat32, Description: notice.Short}); err != nil {
+	if err := nifti.Write(nii, &out, nifti.WriteOptions{DataType: nifti.DTFloat32, Description: notice.Short}); err != nil {
 		return "", "", err
 	}
 	if err := atomicfile.WriteBytes(sidecar, buf.Bytes()); err != nil {

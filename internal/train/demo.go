@@ -5,12 +5,12 @@ import (
 	"encoding/hex"
 	"errors"
 	"fmt"
-	"math"
-	"syscall"
 	"time"
 
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
+	"brightfold/inference/preprocess"
+	"brightfold/internal/cputime"
 	"brightfold/internal/notice"
 	"brightfold/internal/phantom"
 	"brightfold/internal/stats"
@@ -60,12 +60,12 @@ func DemoRecipe() Recipe {
 // canonical RAS, 4 mm grid of the arch's shape centred on the head,
 // block-mean anti-aliasing, head mask at 10 % between the 1st and 99th
 // percentiles, z-score over the head clipped to ±5.
-func DemoPreprocessing(a Arch) inference.Preprocessing {
-	return inference.Preprocessing{
+func DemoPreprocessing(a Arch) preprocess.Spec {
+	return preprocess.Spec{
 		Orientation: "RAS", SpacingMm: [3]float64{4, 4, 4}, Shape: a.Grid,
 		Crop: "head-centre", Antialias: "block-mean", Interpolation: "trilinear",
-		HeadMask:  inference.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
-		Intensity: inference.Intensity{Method: inference.NormZScoreHead, Clip: 5},
+		HeadMask:  preprocess.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
+		Intensity: preprocess.Intensity{Method: preprocess.NormZScoreHead, Clip: 5},
 	}
 }
 
@@ -81,16 +81,6 @@ type Timing struct {
 	// the cores give the wall time the run would take alone.
 	CPUTrainingTotal float64 `json:"cpu_training_total_s"`
 	CPUTotal         float64 `json:"cpu_total_s"`
-}
-
-// cpuSeconds is the process's user plus system CPU time so far.
-func cpuSeconds() float64 {
-	var ru syscall.Rusage
-	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
-		return math.NaN()
-	}
-	tv := func(t syscall.Timeval) float64 { return float64(t.Sec) + float64(t.Usec)/1e6 }
-	return tv(ru.Utime) + tv(ru.Stime)
 }
 
 // Result is one demo run's outcome.
@@ -111,7 +101,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	if log == nil {
 		log = func(string, ...any) {}
 	}
-	start, cpu0 := time.Now(), cpuSeconds()
+	start, cpu0 := time.Now(), cputime.Seconds()
 	prep := DemoPreprocessing(r.Arch)
 	levels := inference.DefaultLevels()
 	n, err := NewNet(r.Arch, r.InitSeed)
@@ -136,7 +126,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	}
 	res.Timing.Train = time.Since(t0).Seconds()
 	res.Timing.TrainingTotal = time.Since(start).Seconds()
-	res.Timing.CPUTrainingTotal = cpuSeconds() - cpu0
+	res.Timing.CPUTrainingTotal = cputime.Seconds() - cpu0
 	log("trained in %.0f s (%.0f s with data generation; %.0f CPU s)", res.Timing.Train, res.Timing.TrainingTotal, res.Timing.CPUTrainingTotal)
 	t0 = time.Now()
 	calCases, err := GenerateCached(r.CacheDir, Specs(r.CohortSeed, r.NTrain+r.NVal, r.NCal, phantom.ShiftNone), prep, levels, r.Workers, progress(log, "calibration phantoms"))
@@ -149,7 +139,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	}
 	res.Timing.Evaluate = time.Since(t0).Seconds()
 	res.Timing.Total = time.Since(start).Seconds()
-	res.Timing.CPUTotal = cpuSeconds() - cpu0
+	res.Timing.CPUTotal = cputime.Seconds() - cpu0
 	return res, nil
 }
 
@@ -179,7 +169,7 @@ func (res *Result) fitCases(cs []Case, workers int) ([]inference.FitCase, error)
 	return fc, nil
 }
 
-func (res *Result) fitCard(r Recipe, prep inference.Preprocessing, levels []float64, trainCases, valCases []Case, log func(string, ...any)) error {
+func (res *Result) fitCard(r Recipe, prep preprocess.Spec, levels []float64, trainCases, valCases []Case, log func(string, ...any)) error {
 	card := DemoCard(r, prep)
 	trainFit, err := res.fitCases(trainCases, r.Workers)
 	if err != nil {
@@ -216,7 +206,7 @@ func (res *Result) fitCard(r Recipe, prep inference.Preprocessing, levels []floa
 // evaluate adds the held-out figures: the fresh in-distribution phantoms
 // (discrimination, calibration, fit-check false alarms) and each shifted
 // variant (fit-check flag rate).
-func (res *Result) evaluate(r Recipe, prep inference.Preprocessing, levels []float64, log func(string, ...any)) error {
+func (res *Result) evaluate(r Recipe, prep preprocess.Spec, levels []float64, log func(string, ...any)) error {
 	card := res.Card
 	test, err := GenerateCached(r.CacheDir, Specs(r.TestSeed, 0, r.NTest, phantom.ShiftNone), prep, levels, r.Workers, progress(log, "held-out phantoms"))
 	if err != nil {
@@ -378,7 +368,7 @@ func metricLine(ms []inference.Metric) string {
 
 // DemoCard is the demo model's card without the fitted parts (calibration,
 // out-of-distribution reference, metrics, sha256).
-func DemoCard(r Recipe, prep inference.Preprocessing) *inference.Card {
+func DemoCard(r Recipe, prep preprocess.Spec) *inference.Card {
 	a := r.Arch
 	return &inference.Card{
 		Schema:        inference.SchemaVersion,
@@ -387,7 +377,7 @@ func DemoCard(r Recipe, prep inference.Preprocessing) *inference.Card {
 		Task:          "Says whether a T1-weighted-like synthetic head phantom carries the invented diffuse atrophy pattern (wider ventricles, thinner cortex, smaller medial temporal structures).",
 		Classes:       []string{"no_pattern", "atrophy_pattern"},
 		PositiveClass: "atrophy_pattern",
-		Input: inference.InputSpec{Name: a.Input, Layout: inference.LayoutNCDHW, DataType: "float32",
+		Input: inference.InputSpec{Name: a.Input, Layout: preprocess.LayoutNCDHW, DataType: "float32",
 			Shape: []int64{-1, 1, int64(a.Grid[2]), int64(a.Grid[1]), int64(a.Grid[0])}},
 		Preprocessing: prep,
 		Outputs:       inference.OutputSpec{Logits: a.Logits, Features: a.Features, Activation: inference.ActivationSoftmax},

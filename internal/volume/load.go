@@ -2,8 +2,7 @@ package volume
 
 import (
 	"os"
-	"path/filepath"
-	"strings"
+	"sync"
 
 	"brightfold/internal/inputerr"
 )
@@ -17,33 +16,66 @@ type LoadOptions struct {
 	SeriesUID string
 }
 
-// Load reads one volume from paths: a single NIfTI file (.nii, .nii.gz,
-// .hdr/.img pair), or DICOM files and folders (searched recursively).
+// Format is one file format Load can read.
+type Format struct {
+	// Name is the format's short name, as in Metadata.Format ("nifti", "dicom").
+	Name string
+	// Match reports whether the format takes these paths (which exist). It
+	// looks at names or first bytes only; the formats are asked in
+	// registration order and the first match loads.
+	Match func(paths []string) bool
+	// Load reads one volume from paths.
+	Load func(paths []string, opts LoadOptions) (*Volume, error)
+}
+
+// registry holds the formats Load dispatches to, in registration order, as
+// the standard library's image package keeps its decoders: appended by
+// RegisterFormat while programs start, read by Load.
+var registry struct {
+	sync.RWMutex
+	formats []Format
+}
+
+// RegisterFormat adds a format for Load, after those registered before it.
+// internal/volume/formats registers NIfTI and DICOM; import it (for its side
+// effect) in programs that call Load.
+func RegisterFormat(f Format) {
+	registry.Lock()
+	defer registry.Unlock()
+	registry.formats = append(registry.formats, f)
+}
+
+// Formats returns the names of the registered formats, in the order Load asks them.
+func Formats() []string {
+	registry.RLock()
+	defer registry.RUnlock()
+	names := make([]string, len(registry.formats))
+	for i, f := range registry.formats {
+		names[i] = f.Name
+	}
+	return names
+}
+
+// Load reads one volume from paths with the first registered format that
+// matches them: with internal/volume/formats imported, a single NIfTI file
+// (.nii, .nii.gz, .hdr/.img pair), or DICOM files and folders (searched
+// recursively).
 func Load(paths []string, opts LoadOptions) (*Volume, error) {
 	if len(paths) == 0 {
 		return nil, inputerr.New("", "no input path given")
-	}
-	if len(paths) == 1 && IsNIfTIPath(paths[0]) {
-		if _, err := os.Stat(paths[0]); err != nil {
-			return nil, inputerr.Wrap(paths[0], err)
-		}
-		return loadNIfTI(paths[0], opts)
 	}
 	for _, p := range paths {
 		if _, err := os.Stat(p); err != nil {
 			return nil, inputerr.Wrap(p, err)
 		}
 	}
-	return loadDICOM(paths, opts)
-}
-
-// IsNIfTIPath reports whether the file name has a NIfTI or Analyze extension.
-func IsNIfTIPath(p string) bool {
-	n := strings.ToLower(filepath.Base(p))
-	for _, ext := range []string{".nii", ".nii.gz", ".hdr", ".hdr.gz", ".img", ".img.gz"} {
-		if strings.HasSuffix(n, ext) {
-			return true
+	registry.RLock()
+	formats := registry.formats
+	registry.RUnlock()
+	for _, f := range formats {
+		if f.Match(paths) {
+			return f.Load(paths, opts)
 		}
 	}
-	return false
+	return nil, inputerr.New(paths[0], "no registered format reads it (registered: %v)", Formats())
 }

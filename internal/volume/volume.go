@@ -1,6 +1,9 @@
 // Package volume holds the Volume type (voxels, a voxel-index to RAS
-// millimetre affine, metadata, and patient identifiers kept apart) and loads
-// and writes NIfTI and DICOM, reorients and resamples.
+// millimetre affine, metadata, and patient identifiers kept apart), the
+// affine and 3×3 geometry, reorientation and resampling, and Load, which
+// reads a scan through the registered formats (internal/volume/formats
+// registers NIfTI and DICOM; the codecs live in internal/volume/nifti and
+// internal/volume/dicom).
 package volume
 
 import (
