@@ -93,4 +93,3 @@ func TestLoadDICOMTree(t *testing.T) {
 		t.Errorf("cases %+v", cs)
 	}
 }
-
