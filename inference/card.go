@@ -72,6 +72,12 @@ type Calibration struct {
 	Temperature float64 `json:"temperature"`
 	Method      string  `json:"method"`
 	FittedOn    string  `json:"fitted_on"`
+	// FittedTemperature is the T that minimised the NLL of the fitting
+	// cases; Temperature is it, or 1 when it did not lower the NLL of
+	// held-out cases (0 in cards written before the check existed).
+	FittedTemperature float64 `json:"fitted_temperature,omitempty"`
+	// Decision says in a sentence which temperature is applied and why.
+	Decision string `json:"decision,omitempty"`
 }
 
 // Range is a closed interval [Min, Max].
@@ -172,6 +178,9 @@ type Metric struct {
 	N     int     `json:"n"`
 	Split string  `json:"split"`
 	How   string  `json:"how"`
+	// Interval is [low, high] of an interval around Value when one is
+	// given; How says which (e.g. a percentile bootstrap 95 % interval).
+	Interval []float64 `json:"interval,omitempty"`
 }
 
 // ParseCard decodes a card, refusing unknown fields and trailing data, then validates it.
