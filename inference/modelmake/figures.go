@@ -146,12 +146,12 @@ func figuresOf(card *inference.Card, cases []Case, desc, site string, seed uint6
 			break
 		}
 		var ci []float64
-		if lo, hi, _, err := stats.BootstrapPercentile(n, BootstrapResamples, seed, 0.95, f.stat); err == nil {
-			ci = []float64{lo, hi}
+		if b, err := stats.Bootstrap(n, BootstrapResamples, seed, 0.95, f.stat); err == nil {
+			ci = []float64{b.Lo, b.Hi}
 		}
 		out = append(out, m(f.name, f.stat(all), ci, boot, f.how))
 	}
-	if a, b, err := stats.CalibrationInterceptSlope(s.lp, s.truth); err == nil {
+	if a, b, _, err := stats.CalibrationWald(s.p, s.truth); err == nil {
 		out = append(out, m("calibration_intercept", a.Value, a.CI95[:], "Wald 95 % interval",
 			"calibration in the large: intercept of a logistic model of the outcome with the calibrated logit as offset (0 is ideal)"),
 			m("calibration_slope", b.Value, b.CI95[:], "Wald 95 % interval",

@@ -53,31 +53,30 @@ func Recalibrate(ctx context.Context, mf *inference.ModelFolder, m *manifest.Man
 		return nil, nil, inputerr.New(m.Source, "%d scan(s) cannot be prepared (use --skip-unreadable to leave them out): %v", len(unreadable), unreadable)
 	}
 	s := score(parent, cases)
-	ct, err := stats.ClosedTest(s.lp, s.truth, RecalibrationAlpha)
+	cf, err := stats.CalibrationFit(s.p, s.truth)
 	if err != nil {
 		return nil, nil, inputerr.New(m.Source, "cannot fit the recalibration models: %v", err)
 	}
+	ct := stats.ClosedTestChoice(cf, RecalibrationAlpha)
 	cb, err := inference.MarshalCard(parent)
 	if err != nil {
 		return nil, nil, err
 	}
 	sum := sha256.Sum256(cb)
 	card := *parent
-	card.Calibration.Logistic = composeLogistic(parent.Calibration.Logistic, ct, len(cases), site)
-	if ct.Method == stats.RecalNone {
-		card.Calibration.Logistic = parent.Calibration.Logistic
-	}
+	card.Calibration.Logistic = composeLogistic(parent.Calibration.Logistic, cf, ct.Choice, len(cases), site)
 	card.Version = parent.Version + "+" + sanitizeSite(site)
 	desc := fmt.Sprintf("%d cases of site %s (%s)", len(cases), site, filepath.Base(m.Source))
 	counts := map[string]int{}
 	for _, c := range cases {
 		counts[parent.Classes[c.Fit.Label]]++
 	}
-	rec := &inference.Recalibration{Site: site, N: len(cases), Counts: counts, Method: ct.Method,
+	rec := &inference.Recalibration{Site: site, N: len(cases), Counts: counts, Method: ct.Choice,
 		Before: figuresOf(parent, cases, desc, site, opt.Seed), After: figuresOf(&card, cases, desc+", in-sample after recalibration", site, opt.Seed),
 		HowMade: fmt.Sprintf("closed testing procedure (Vergouwe et al. 2017) with likelihood-ratio tests at level %.2f on the calibrated positive-class logit: no change, intercept only (slope fixed at 1), or intercept and slope", RecalibrationAlpha)}
-	for _, t := range ct.Tests {
-		rec.Tests = append(rec.Tests, inference.RecalibrationLR{Name: t.Name, Statistic: t.Statistic, DF: t.DF, P: t.P})
+	rec.Tests = append(rec.Tests, inference.RecalibrationLR{Name: "intercept and slope vs none", Statistic: 2 * (cf.LogLikRecalibrated - cf.LogLikOriginal), DF: 2, P: ct.PRecalibratedVsOriginal})
+	if ct.Choice != stats.RecalibrateNone {
+		rec.Tests = append(rec.Tests, inference.RecalibrationLR{Name: "intercept and slope vs intercept", Statistic: 2 * (cf.LogLikRecalibrated - cf.LogLikIntercept), DF: 1, P: ct.PRecalibratedVsIntercept})
 	}
 	pv := inference.Provenance{MadeBy: "brightfold model recalibrate", Cases: filepath.Base(m.Source), Seed: opt.Seed,
 		Split: "every case of the site is used for the closed test; the figures after are in-sample", Skipped: len(unreadable),
@@ -88,25 +87,33 @@ func Recalibrate(ctx context.Context, mf *inference.ModelFolder, m *manifest.Man
 	pv.Parent = &inference.ParentModel{Name: parent.Name, Version: parent.Version, CardSHA256: hex.EncodeToString(sum[:]), ModelSHA256: parent.ModelSHA256}
 	pv.Recalibration = rec
 	card.Provenance = &pv
-	card.Cautions = append([]string{fmt.Sprintf("Recalibrated for site %s on %d cases (%s); the figures after recalibration are measured on the same cases.", site, len(cases), ct.Method)}, parent.Cautions...)
+	card.Cautions = append([]string{fmt.Sprintf("Recalibrated for site %s on %d cases (%s); the figures after recalibration are measured on the same cases.", site, len(cases), ct.Choice)}, parent.Cautions...)
 	if err := card.Validate(); err != nil {
 		return nil, nil, fmt.Errorf("recalibrated card: %w", err)
 	}
 	return &card, cases, nil
 }
 
-// composeLogistic folds a new a + b·ℓ onto a parent's logistic
-// recalibration (if any): a2 + b2·(a1 + b1·ℓ).
-func composeLogistic(prev *inference.LogisticRecalibration, ct stats.ClosedTestResult, n int, site string) *inference.LogisticRecalibration {
-	a, b := ct.Intercept, ct.Slope
+// composeLogistic folds the chosen update a + b·ℓ onto a parent's logistic
+// recalibration (if any): a + b·(a1 + b1·ℓ). "none" keeps the parent's.
+func composeLogistic(prev *inference.LogisticRecalibration, cf stats.Calibration, choice string, n int, site string) *inference.LogisticRecalibration {
+	var a, b float64
+	switch choice {
+	case stats.RecalibrateIntercept:
+		a, b = cf.Intercept, 1
+	case stats.RecalibrateLogistic:
+		a, b = cf.SlopeIntercept, cf.Slope
+	default:
+		return prev
+	}
 	if prev != nil {
-		a, b = ct.Intercept+ct.Slope*prev.Intercept, ct.Slope*prev.Slope
+		a, b = a+b*prev.Intercept, b*prev.Slope
 	}
 	if math.IsNaN(a) || math.IsNaN(b) {
 		return prev
 	}
 	return &inference.LogisticRecalibration{Intercept: a, Slope: b,
-		FittedOn: fmt.Sprintf("%d cases of site %s, %s (maximum likelihood)", n, site, ct.Method)}
+		FittedOn: fmt.Sprintf("%d cases of site %s, %s (maximum likelihood)", n, site, choice)}
 }
 
 func sanitizeSite(s string) string {

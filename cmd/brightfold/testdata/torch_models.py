@@ -142,7 +142,7 @@ def figures(path):
         if m.any():
             ece += m.mean() * abs(correct[m].mean() - conf[m].mean())
     brier = float(np.mean((p - y) ** 2))
-    q = np.clip(p, 1e-15, 1 - 1e-15)
+    q = np.clip(p, 1e-12, 1 - 1e-12)
     lp = np.log(q / (1 - q))
     ones = np.ones((len(y), 1))
     m1 = sm.GLM(y, ones, family=sm.families.Binomial(), offset=lp).fit()
