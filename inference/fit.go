@@ -83,7 +83,11 @@ type FitSplits struct {
 // cases and validation cases that no gradient step used. It splits val by
 // case index into three interleaved thirds (index mod 3: 0 chooses the
 // thresholds, 1 fits the temperature, 2 is held out) and calls
-// FitReferenceSplits; opt.ValidationDescription names val.
+// FitReferenceSplits; opt.ValidationDescription names val. Without val the
+// thresholds come from the training cases' leave-one-out scores, the bound
+// is in-sample, and the temperature is fitted on the training cases and
+// applied unchecked (Calibration.Decision says so; the caller should check
+// it on cases of its own).
 func FitReference(c *Card, train, val []FitCase, opt FitOptions) (OODReference, Calibration, []Metric, error) {
 	opt = opt.withDefaults()
 	s := FitSplits{Train: train, TrainDescription: opt.TrainDescription}
@@ -99,6 +103,10 @@ func FitReference(c *Card, train, val []FitCase, opt FitOptions) (OODReference, 
 	}
 	third := func(k int, n int) string {
 		return fmt.Sprintf("%d of the %s (every third from number %d)", n, opt.ValidationDescription, k+1)
+	}
+	if len(val) == 0 { // as before the splits existed: the temperature on the training cases
+		s.Temperature, s.TemperatureDescription = train, opt.TrainDescription+" (in-sample)"
+		return FitReferenceSplits(c, s, opt)
 	}
 	s.ChooseDescription = third(0, len(s.Choose))
 	s.TemperatureDescription = third(1, len(s.Temperature))
@@ -122,9 +130,9 @@ func FitReference(c *Card, train, val []FitCase, opt FitOptions) (OODReference, 
 //
 // Without choosing cases the thresholds are chosen on the training cases'
 // leave-one-out scores; without held-out cases the bound is computed on the
-// choosing cases and fitted_on says it is in-sample; without temperature or
-// held-out cases T = 1. It returns the reference, the calibration and the
-// metrics (on the held-out cases: AUROC, accuracy, ECE with a bootstrap
+// choosing cases and fitted_on says it is in-sample, and the fitted T is
+// applied unchecked (the decision says so); without temperature cases
+// T = 1. It returns the reference, the calibration and the metrics (on the held-out cases: AUROC, accuracy, ECE with a bootstrap
 // 95 % interval and Brier score at T = 1 and at the card's T, NLL at both,
 // and the pass rate of the fit check with its bound).
 func FitReferenceSplits(c *Card, s FitSplits, opt FitOptions) (OODReference, Calibration, []Metric, error) {
@@ -541,7 +549,8 @@ func fitCalibration(c *Card, s FitSplits, opt FitOptions) (Calibration, []Metric
 		}
 		cal.FittedTemperature = T
 		if len(hl) == 0 {
-			cal.Decision = fmt.Sprintf("T = 1: the fitted T = %.4g could not be checked, no held-out cases.", T)
+			cal.Temperature = T
+			cal.Decision = fmt.Sprintf("T = %.4g applied unchecked: fitted on %s, with no held-out cases to check that it lowers their NLL (the caller must check it).", T, s.TemperatureDescription)
 			break
 		}
 		before, after := stats.NLL(hl, hlab, 1), stats.NLL(hl, hlab, T)
@@ -616,8 +625,9 @@ func CalibrationMetrics(c *Card, cases []FitCase, T float64, desc string) ([]Met
 				Metric{Name: "accuracy", Value: float64(right) / float64(n), N: n, Split: desc, How: "fraction of cases whose most probable class is the true one"})
 		}
 		out = append(out,
-			Metric{Name: "ece_" + at.suffix, Value: stats.ECE(conf, ok, calibrationBins), N: n, Split: desc, Interval: []float64{lo, hi},
-				How: fmt.Sprintf("expected calibration error of the top-class confidence, 15 equal-width bins (Guo et al. 2017), %s; interval: percentile bootstrap 95%% over cases, %d resamples (binned ECE is biased upwards for small n: Kumar et al. 2019, Roelofs et al. 2022)", at.what, calibrationResamples)},
+			Metric{Name: "ece_" + at.suffix, Value: stats.ECE(conf, ok, calibrationBins), N: n, Split: desc, CI95: []float64{lo, hi},
+				Interval: fmt.Sprintf("percentile bootstrap over cases, %d resamples, seed %d", calibrationResamples, calibrationSeed),
+				How:      fmt.Sprintf("expected calibration error of the top-class confidence, 15 equal-width bins (Guo et al. 2017), %s; interval: percentile bootstrap 95%% over cases, %d resamples (binned ECE is biased upwards for small n: Kumar et al. 2019, Roelofs et al. 2022)", at.what, calibrationResamples)},
 			Metric{Name: "brier_" + at.suffix, Value: brier, N: n, Split: desc, How: fmt.Sprintf("Brier score of the positive-class probability (Brier 1950; sklearn brier_score_loss), %s", at.what)},
 			Metric{Name: "nll_" + at.suffix, Value: stats.NLL(logits, labels, at.T), N: n, Split: desc, How: fmt.Sprintf("mean negative log-likelihood, %s", at.what)})
 	}

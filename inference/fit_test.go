@@ -157,7 +157,7 @@ func TestTemperatureKeptOnlyWhenHeldOutNLLDrops(t *testing.T) {
 	}
 	var haveInterval bool
 	for _, x := range m {
-		if x.Name == "ece_after_scaling" && len(x.Interval) == 2 && x.Interval[0] <= x.Value && x.Value <= x.Interval[1]+0.05 {
+		if x.Name == "ece_after_scaling" && len(x.CI95) == 2 && x.CI95[0] <= x.Value && x.Value <= x.CI95[1]+0.05 {
 			haveInterval = true
 		}
 	}
