@@ -34,6 +34,7 @@ func commands() []command {
 		{"score", "score PATH [--model MODEL] [--map lrp|ig|gradinput|occlusion|none] [--out DIR] [--json]", runScore},
 		{"demo", "demo cohort DIR [--n N] [--seed S] [--shifts]", runDemo},
 		{"model", "model check MODEL", runModelFolder},
+		{"align", "align SCAN --to TEMPLATE [--dof 6|12] [--metric ncc|mi] [--mask FILE] [--out DIR] [--json]", runAlign},
 		{"sweep", sweepUsage, runSweep},
 	}
 }
