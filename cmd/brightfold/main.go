@@ -35,6 +35,8 @@ func commands() []command {
 		{"demo", "demo cohort DIR [--n N] [--seed S] [--shifts]", runDemo},
 		{"model", "model check MODEL", runModelFolder},
 		{"sweep", sweepUsage, runSweep},
+		{"session", sessionUsage, runSession},
+		{"mrmc", mrmcUsage, runMRMC},
 	}
 }
 
