@@ -174,6 +174,7 @@ func Analyse(in *Reads, opts AnalysisOptions) (*Analysis, error) {
 	if err != nil {
 		return nil, err
 	}
+	a.sanitize()
 	a.modelAlone(in)
 	a.threshold50(in)
 	a.moves()
@@ -551,5 +552,55 @@ func (a *Analysis) times(in *Reads) {
 		}
 		a.TimePerCase = append(a.TimePerCase, TimePerCase{Condition: c, Reads: len(s),
 			MedianSeconds: stats.Quantile(s, 0.5), MeanSeconds: sum / float64(len(s))})
+	}
+}
+
+// finite reports whether every value is a finite number.
+func finite(xs ...float64) bool {
+	for _, x := range xs {
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			return false
+		}
+	}
+	return true
+}
+
+func finitePtr(p *float64) bool { return p == nil || finite(*p) }
+
+// sanitize drops figures that are undefined for these data (for example a
+// zero variance with a single case per class, or readers who agree exactly)
+// and says so, so that every number reported is finite.
+func (a *Analysis) sanitize() {
+	if t := a.Test; t != nil && !(finite(t.P) && finitePtr(t.F) && finitePtr(t.Chi2) && finitePtr(t.Z) && finitePtr(t.DF1) && finitePtr(t.DF2)) {
+		a.Test = nil
+		a.Warnings = append(a.Warnings, "the test is undefined for these data (no variance between or within readers)")
+	}
+	var diffs []Difference
+	for _, d := range a.Differences {
+		if finite(d.Estimate, d.SE, d.P, d.CI95[0], d.CI95[1]) && finitePtr(d.DF) {
+			diffs = append(diffs, d)
+		}
+	}
+	a.Differences = diffs
+	if d := a.Difference; d != nil && !(finite(d.Estimate, d.SE, d.P, d.CI95[0], d.CI95[1]) && finitePtr(d.DF)) {
+		a.Difference = nil
+		a.Warnings = append(a.Warnings, "the difference's interval is undefined for these data")
+	} else if len(a.Differences) > 0 {
+		a.Difference = &a.Differences[0]
+	}
+	for i := range a.Conditions {
+		c := &a.Conditions[i]
+		if c.CI95 != nil && !finite(c.CI95[0], c.CI95[1]) {
+			c.CI95 = nil
+		}
+		if !finite(c.SE) {
+			c.SE = 0
+		}
+		if !finitePtr(c.DF) {
+			c.DF = nil
+		}
+	}
+	if m := a.Components; m != nil && !finite(m.Error, m.Cov1, m.Cov2, m.Cov3, m.MST, m.MSTR) {
+		a.Components = nil
 	}
 }
