@@ -11,11 +11,16 @@ import (
 // retention of values: for direction "max" (higher is worse) the smallest
 // order statistic with at least that fraction at or below it, for "min" the
 // largest with at least that fraction at or above it; and the fraction of
-// values that pass it.
+// values that pass it. A NaN value is an error (it has no order).
 func ThresholdAt(values []float64, retention float64, direction string) (thr, kept float64, err error) {
 	n := len(values)
 	if n == 0 || !(retention > 0 && retention <= 1) {
 		return 0, 0, fmt.Errorf("threshold: need values and a retention in (0, 1], got %d values, %v", n, retention)
+	}
+	for i, v := range values {
+		if math.IsNaN(v) {
+			return 0, 0, fmt.Errorf("threshold: value %d is NaN", i)
+		}
 	}
 	s := append([]float64(nil), values...)
 	sort.Float64s(s)

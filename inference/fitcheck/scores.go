@@ -121,6 +121,11 @@ func Mahalanobis(f []float64, means [][]float64, precision [][]float64) (float64
 	if len(precision) != d {
 		return 0, -1, fmt.Errorf("mahalanobis: features have %d values, precision is %d×%d", d, len(precision), len(precision))
 	}
+	for i, x := range f {
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			return 0, -1, fmt.Errorf("mahalanobis: feature %d is not a finite number", i)
+		}
+	}
 	best, arg := math.Inf(1), -1
 	diff := make([]float64, d)
 	for c, mu := range means {
@@ -138,7 +143,7 @@ func Mahalanobis(f []float64, means [][]float64, precision [][]float64) (float64
 			}
 			q += diff[i] * row
 		}
-		if q < best {
+		if q < best || arg < 0 {
 			best, arg = q, c
 		}
 	}

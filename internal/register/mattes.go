@@ -61,7 +61,7 @@ func bspline3(t float64) (float64, float64) {
 // −MI and the per-sample derivative of −MI with respect to the scan value,
 // d MI/d m_x = 1/(N·Δ) Σ_κ β3′(κ − b(m_x)) · log(p(ι_x, κ)/p_m(κ)) (Mattes
 // et al. 2003, eq. 12 with the template's marginal fixed).
-func (mt *mattes) prepare(e *evaluator) (float64, int, func(int) float64) {
+func (mt *mattes) prepare(e *evaluator) (float64, func(int) float64) {
 	B := mt.bins
 	plane := e.fixed.dims[0] * e.fixed.dims[1]
 	h := e.sliceSums(B*B+1, func(k int, acc []float64) {
@@ -83,9 +83,8 @@ func (mt *mattes) prepare(e *evaluator) (float64, int, func(int) float64) {
 			}
 		}
 	})
-	n := h[B*B]
-	if n < 16 {
-		return 0, int(n), nil
+	if h[B*B] < 16 {
+		return 0, nil
 	}
 	pm := make([]float64, B)
 	pf := make([]float64, B)
@@ -126,5 +125,5 @@ func (mt *mattes) prepare(e *evaluator) (float64, int, func(int) float64) {
 		}
 		return -s * scale
 	}
-	return -mi, int(n), w
+	return -mi, w
 }

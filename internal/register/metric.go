@@ -52,15 +52,24 @@ type evaluator struct {
 	metric        Metric
 	centre        [3]float64 // transform centre c in template world (mm)
 	k             [3][4]float64
-	// per-voxel scratch: scan value (NaN outside the scan) and its voxel-axis gradient
-	mv []float32
-	gu [][3]float32
-	mi *mattes
+	// per-voxel scratch: scan value (NaN outside the template mask; the
+	// scan's background, its minimum, where the point falls outside the
+	// scan, so that sliding out of the scan costs similarity) and its
+	// voxel-axis gradient (zero outside)
+	mv     []float32
+	gu     [][3]float32
+	inside []bool
+	bg     float32
+	mi     *mattes
 }
 
 func newEvaluator(fixed, moving *image, mask []bool, metric Metric, centre [3]float64, bins int) *evaluator {
 	e := &evaluator{fixed: fixed, moving: moving, mask: mask, metric: metric, centre: centre,
-		mv: make([]float32, fixed.len()), gu: make([][3]float32, fixed.len())}
+		mv: make([]float32, fixed.len()), gu: make([][3]float32, fixed.len()), inside: make([]bool, fixed.len())}
+	e.bg = moving.data[0]
+	for _, v := range moving.data {
+		e.bg = min(e.bg, v)
+	}
 	// x − c = K·(i, j, k, 1) for template voxel (i, j, k)
 	for r := 0; r < 3; r++ {
 		for c := 0; c < 4; c++ {
@@ -94,14 +103,15 @@ type gradient struct {
 // and the number of template samples that fell inside the scan.
 func (e *evaluator) eval(a volume.Affine) (cost float64, g gradient, n int) {
 	e.sample(a)
+	n = e.countInside()
 	var w func(idx int) float64
 	switch e.metric {
 	case MI:
-		cost, n, w = e.mi.prepare(e)
+		cost, w = e.mi.prepare(e)
 	default:
-		cost, n, w = e.ncc()
+		cost, w = e.ncc()
 	}
-	if n < 16 {
+	if n < 16 || w == nil {
 		return math.Inf(1), g, n
 	}
 	return cost, e.accumulate(w), n
@@ -119,6 +129,7 @@ func (e *evaluator) sample(a volume.Affine) {
 				idx := row + i
 				if e.mask != nil && !e.mask[idx] {
 					e.mv[idx] = float32(math.NaN())
+					e.inside[idx] = false
 					continue
 				}
 				fi := float64(i)
@@ -126,8 +137,10 @@ func (e *evaluator) sample(a volume.Affine) {
 				y := m[1][0]*fi + m[1][1]*fj + m[1][2]*fk + m[1][3]
 				z := m[2][0]*fi + m[2][1]*fj + m[2][2]*fk + m[2][3]
 				v, gr, ok := e.moving.sampleGrad(x, y, z)
+				e.inside[idx] = ok
 				if !ok {
-					e.mv[idx] = float32(math.NaN())
+					e.mv[idx] = e.bg
+					e.gu[idx] = [3]float32{}
 					continue
 				}
 				e.mv[idx] = float32(v)
@@ -135,6 +148,17 @@ func (e *evaluator) sample(a volume.Affine) {
 			}
 		}
 	})
+}
+
+// countInside is the number of template samples that fell inside the scan.
+func (e *evaluator) countInside() int {
+	n := 0
+	for _, in := range e.inside {
+		if in {
+			n++
+		}
+	}
+	return n
 }
 
 // sliceSums runs f over every template slice in parallel, each into its own
@@ -155,7 +179,7 @@ func (e *evaluator) sliceSums(n int, f func(k int, acc []float64)) []float64 {
 
 // ncc returns −r and the per-sample derivative of −r with respect to the
 // scan value: d r/d m_x = (f_x − f̄)/sqrt(Sff·Smm) − r·(m_x − m̄)/Smm.
-func (e *evaluator) ncc() (float64, int, func(int) float64) {
+func (e *evaluator) ncc() (float64, func(int) float64) {
 	plane := e.fixed.dims[0] * e.fixed.dims[1]
 	fd := e.fixed.data
 	s := e.sliceSums(6, func(k int, acc []float64) {
@@ -175,21 +199,21 @@ func (e *evaluator) ncc() (float64, int, func(int) float64) {
 	})
 	n := s[0]
 	if n < 16 {
-		return 0, int(n), nil
+		return 0, nil
 	}
 	fm, mm := s[1]/n, s[2]/n
 	sff := s[3] - n*fm*fm
 	smm := s[4] - n*mm*mm
 	sfm := s[5] - n*fm*mm
 	if sff <= 0 || smm <= 0 {
-		return 0, int(n), func(int) float64 { return 0 }
+		return 0, func(int) float64 { return 0 }
 	}
 	den := math.Sqrt(sff * smm)
 	r := sfm / den
 	w := func(idx int) float64 {
 		return -((float64(fd[idx])-fm)/den - r*(float64(e.mv[idx])-mm)/smm)
 	}
-	return -r, int(n), w
+	return -r, w
 }
 
 // accumulate sums w(x)·∇m(x) ⊗ (x − c) over the samples and converts the

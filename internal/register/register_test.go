@@ -399,3 +399,15 @@ func TestNibabelMovedCopies(t *testing.T) {
 }
 
 func itoa(i int) string { return string(rune('0'+i/10)) + string(rune('0'+i%10)) }
+
+// TestDecompose checks the polar decomposition on a transform built from
+// known parts (a rotation of 12° about z times a diagonal stretch): the
+// rotation angle and scales come back (Higham 1986: the polar factor of
+// R·D with D positive diagonal is R).
+func TestDecompose(t *testing.T) {
+	l := mul33(eulerRotation(0, 0, 12*math.Pi/180), [3][3]float64{{1.1, 0, 0}, {0, 0.95, 0}, {0, 0, 1.02}})
+	p := Decompose(aboutCentre(l, [3]float64{}, [3]float64{1, 2, 3}))
+	if math.Abs(p.RotationDeg-12) > 1e-6 || math.Abs(p.Scales[0]-1.1) > 1e-9 || math.Abs(p.Scales[1]-0.95) > 1e-9 || p.Shear > 1e-9 {
+		t.Errorf("decomposition %+v", p)
+	}
+}

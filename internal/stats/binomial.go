@@ -39,9 +39,13 @@ func BinomialLowerBound(k, n int, confidence float64) (float64, error) {
 // a, b > 0 and x in [0, 1], by the continued fraction of Numerical Recipes
 // (Press et al., 3rd ed., section 6.4, eq. 6.4.5) evaluated with the
 // modified Lentz method, using the symmetry I_x(a, b) = 1 − I_{1−x}(b, a)
-// where the fraction converges slowly.
+// where the fraction converges slowly. NaN when a, b or x is NaN or a, b
+// is not positive (the continued fraction stops after at most 10000 terms
+// whatever its input).
 func RegIncBeta(a, b, x float64) float64 {
 	switch {
+	case math.IsNaN(a) || math.IsNaN(b) || math.IsNaN(x) || !(a > 0 && b > 0):
+		return math.NaN()
 	case x <= 0:
 		return 0
 	case x >= 1:

@@ -9,11 +9,18 @@ import (
 // ECE is the expected calibration error of Guo et al. 2017 (ICML), Eq. 3:
 // Σ_m |B_m|/n · |acc(B_m) − conf(B_m)| over bins equal-width bins of
 // confidence, bin m holding confidences in ((m−1)/M, m/M] (a confidence of
-// exactly 0 goes to the first bin). Guo et al. use M = 15.
+// exactly 0 goes to the first bin). Guo et al. use M = 15. NaN when there
+// are no cases, the lengths differ, bins < 1, or a confidence is not in
+// [0, 1] (NaN included).
 func ECE(confidence []float64, correct []bool, bins int) float64 {
 	n := len(confidence)
 	if n == 0 || n != len(correct) || bins < 1 {
 		return math.NaN()
+	}
+	for _, c := range confidence {
+		if !(c >= 0 && c <= 1) {
+			return math.NaN()
+		}
 	}
 	cnt := make([]float64, bins)
 	acc := make([]float64, bins)
@@ -37,7 +44,18 @@ func ECE(confidence []float64, correct []bool, bins int) float64 {
 }
 
 // NLL is the mean negative log-likelihood −(1/n) Σ log softmax(z_i/T)[y_i].
+// NaN when there are no cases, the lengths differ, a label is out of range,
+// or T is not a positive finite number; a NaN logit gives NaN, a +Inf logit
+// of a wrong class +Inf.
 func NLL(logits [][]float64, labels []int, T float64) float64 {
+	if len(logits) == 0 || len(logits) != len(labels) || !(T > 0) || math.IsInf(T, 1) {
+		return math.NaN()
+	}
+	for i, z := range logits {
+		if labels[i] < 0 || labels[i] >= len(z) {
+			return math.NaN()
+		}
+	}
 	var s float64
 	for i, z := range logits {
 		sc := make([]float64, len(z))
@@ -52,7 +70,8 @@ func NLL(logits [][]float64, labels []int, T float64) float64 {
 // FitTemperature finds the temperature T that minimises the NLL of the
 // validation logits (temperature scaling, Guo et al. 2017, Section 4.2). The
 // NLL is convex in β = 1/T, so a golden-section search over β in
-// [1/20, 1/0.05] finds the minimum; tol is the tolerance on β.
+// [1/20, 1/0.05] finds the minimum; tol is the tolerance on β. A NaN or
+// ±Inf logit is an error.
 func FitTemperature(logits [][]float64, labels []int) (float64, error) {
 	if len(logits) == 0 || len(logits) != len(labels) {
 		return 0, errors.New("fit temperature: need logits and labels of the same, non-zero length")
@@ -60,6 +79,9 @@ func FitTemperature(logits [][]float64, labels []int) (float64, error) {
 	for i, z := range logits {
 		if labels[i] < 0 || labels[i] >= len(z) {
 			return 0, fmt.Errorf("fit temperature: label %d out of range for %d logits", labels[i], len(z))
+		}
+		if !allFinite(z) {
+			return 0, fmt.Errorf("fit temperature: case %d has a logit that is not a finite number", i)
 		}
 	}
 	f := func(beta float64) float64 { return NLL(logits, labels, 1/beta) }
@@ -81,8 +103,12 @@ func FitTemperature(logits [][]float64, labels []int) (float64, error) {
 	return 1 / ((a + b) / 2), nil
 }
 
-// LogSumExp is log Σ exp(z_i), computed stably.
+// LogSumExp is log Σ exp(z_i), computed stably: NaN when any z_i is NaN,
+// +Inf when one is +Inf, −Inf for no values or all −Inf.
 func LogSumExp(z []float64) float64 {
+	if anyNaN(z) {
+		return math.NaN()
+	}
 	m := math.Inf(-1)
 	for _, x := range z {
 		m = math.Max(m, x)

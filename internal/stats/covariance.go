@@ -22,6 +22,9 @@ func LedoitWolf(x [][]float64) ([][]float64, float64, error) {
 		if len(r) != p {
 			return nil, 0, fmt.Errorf("ledoit-wolf: row %d has %d values, want %d", i, len(r), p)
 		}
+		if !allFinite(r) {
+			return nil, 0, fmt.Errorf("ledoit-wolf: row %d has a value that is not a finite number", i)
+		}
 	}
 	S := make([][]float64, p)
 	for i := range S {
@@ -81,18 +84,25 @@ func LedoitWolf(x [][]float64) ([][]float64, float64, error) {
 				out[i][j] += s * mu
 			}
 		}
+		if !allFinite(out[i]) || !(s >= 0 && s <= 1) {
+			return nil, 0, fmt.Errorf("ledoit-wolf: values too large: the covariance overflows")
+		}
 	}
 	return out, s, nil
 }
 
 // InverseSPD inverts a symmetric positive-definite matrix by its Cholesky
-// factorisation; a matrix that is not positive definite is refused.
+// factorisation; a matrix that is not positive definite, or holds a NaN or
+// ±Inf, is refused.
 func InverseSPD(a [][]float64) ([][]float64, error) {
 	n := len(a)
 	L := make([][]float64, n)
 	for i := range L {
 		if len(a[i]) != n {
 			return nil, fmt.Errorf("inverse: row %d has %d values, want %d", i, len(a[i]), n)
+		}
+		if !allFinite(a[i]) {
+			return nil, fmt.Errorf("inverse: row %d has a value that is not a finite number", i)
 		}
 		L[i] = make([]float64, n)
 	}

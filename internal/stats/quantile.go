@@ -12,12 +12,13 @@ import (
 // by linear interpolation between order statistics: position
 // h = u·(n − 1), value x[⌊h⌋] + (h − ⌊h⌋)·(x[⌊h⌋+1] − x[⌊h⌋]) — definition 7
 // of Hyndman & Fan 1996 (Am. Stat. 50(4):361–365), numpy.quantile's default
-// ("linear"), computed in float64. NaN for no values or a NaN level. It is
-// the one quantile rule of Brightfold; a percentile p (0–100) is
-// Quantile(sorted, p/100).
+// ("linear"), computed in float64. NaN for no values, a NaN level, or NaN
+// values: sorted as sort.Float64s and slices.Sort sort, NaNs come first, so
+// a NaN at either end is found in constant time. It is the one quantile
+// rule of Brightfold; a percentile p (0–100) is Quantile(sorted, p/100).
 func Quantile[T ~float32 | ~float64](sorted []T, u float64) float64 {
 	n := len(sorted)
-	if n == 0 || math.IsNaN(u) {
+	if n == 0 || math.IsNaN(u) || math.IsNaN(float64(sorted[0])) || math.IsNaN(float64(sorted[n-1])) {
 		return math.NaN()
 	}
 	k, frac := quantilePosition(n, u)
@@ -40,7 +41,18 @@ func quantilePosition(n int, u float64) (int, float64) {
 }
 
 // quantileLerp interpolates between neighbouring order statistics a ≤ b.
-func quantileLerp(a, b, frac float64) float64 { return a + frac*(b-a) }
+// Between an infinity and another value it returns the infinity (the limit
+// of the interpolation; numpy returns NaN there), and between equal values
+// that value.
+func quantileLerp(a, b, frac float64) float64 {
+	switch {
+	case a == b || math.IsInf(a, 0):
+		return a
+	case math.IsInf(b, 0):
+		return b
+	}
+	return a + frac*(b-a)
+}
 
 // Quantiles returns Quantile(sorted, u) for each of the levels.
 func Quantiles[T ~float32 | ~float64](sorted []T, levels []float64) []float64 {
@@ -61,11 +73,11 @@ func EvenLevels(n int) []float64 {
 }
 
 // SelectQuantile returns Quantile(sort(x), u) in expected linear time by
-// selection instead of sorting; it reorders x. NaN for no values or a NaN
-// level.
+// selection instead of sorting; it reorders x. NaN for no values, a NaN
+// level or any NaN value.
 func SelectQuantile(x []float64, u float64) float64 {
 	n := len(x)
-	if n == 0 || math.IsNaN(u) {
+	if n == 0 || math.IsNaN(u) || anyNaN(x) {
 		return math.NaN()
 	}
 	k, frac := quantilePosition(n, u)

@@ -10,8 +10,11 @@ import (
 // integral of the absolute difference of the two empirical CDFs (for 1D
 // distributions this equals ∫₀¹ |F_a⁻¹(u) − F_b⁻¹(u)| du; Ramdas, García
 // Trillos & Cuturi 2017, "On Wasserstein two-sample testing", Section 2).
+// NaN when either sample is empty or holds a NaN or ±Inf (the distance to a
+// distribution with mass at infinity is not a finite number; a NaN has no
+// place in a CDF).
 func Wasserstein1(a, b []float64) float64 {
-	if len(a) == 0 || len(b) == 0 {
+	if len(a) == 0 || len(b) == 0 || !allFinite(a) || !allFinite(b) {
 		return math.NaN()
 	}
 	sa := append([]float64(nil), a...)
@@ -46,10 +49,11 @@ func Wasserstein1(a, b []float64) float64 {
 // functions sampled at the same levels: the trapezoid-free midpoint sum
 // Σ_k |q_k − r_k| · Δu_k, where Δu_k is the width of the level interval
 // around level k (levels spread evenly in (0, 1) give the plain mean of
-// |q_k − r_k|). See Wasserstein1 for the identity used.
+// |q_k − r_k|). See Wasserstein1 for the identity used. NaN when the
+// lengths differ or are zero, or when any value is NaN or ±Inf.
 func QuantileW1(levels, q, r []float64) float64 {
 	n := len(levels)
-	if n == 0 || len(q) != n || len(r) != n {
+	if n == 0 || len(q) != n || len(r) != n || !allFinite(levels) || !allFinite(q) || !allFinite(r) {
 		return math.NaN()
 	}
 	var s, wsum float64
