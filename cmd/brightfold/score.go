@@ -24,6 +24,7 @@ type scoreOptions struct {
 	model, out, mapMethod, ortLib, series string
 	json, showPaths, hidePaths, showProb  bool
 	threads, volumeIndex                  int
+	report                                caseReportOptions
 }
 
 // relevanceMethods are the --map values (package overlay; scoremap.go).
@@ -45,7 +46,8 @@ func runScore(e *env, args []string) error {
 	fs.IntVar(&o.threads, "threads", 0, "ONNX Runtime intra-op threads, at most the number of cores (default: all cores)")
 	fs.IntVar(&o.volumeIndex, "volume", 0, "volume of a 4D NIfTI input to score")
 	fs.StringVar(&o.series, "series", "", "DICOM series UID to score when the input holds several")
-	fs.Usage = commandHelp(fs, "score PATH [--model MODEL] [--map "+strings.Join(relevanceMethods, "|")+"] [--out DIR] [--json]")
+	caseReportFlags(fs, &o.report)
+	fs.Usage = commandHelp(fs, "score PATH [--model MODEL] [--map "+strings.Join(relevanceMethods, "|")+"] [--out DIR] [--json] [--report FILE.pdf [--session FILE] [--meeting]]")
 	paths, err := parseFlags(fs, args)
 	if err != nil {
 		return err
@@ -124,6 +126,11 @@ func scoreScan(e *env, o scoreOptions, paths []string) error {
 			return err
 		}
 		if err := set.commit(); err != nil {
+			return err
+		}
+	}
+	if o.report.file != "" {
+		if err := writeCaseReport(o, paths, v, mf, sess, res, rep); err != nil {
 			return err
 		}
 	}
@@ -211,7 +218,11 @@ func writeResult(o scoreOptions, dir string, paths []string, rep *report.Score) 
 
 // scoreReport is the JSON form of a result.
 func scoreReport(input string, v *volume.Volume, b *inference.ModelFolder, r *inference.Result) *report.Score {
-	return report.NewScore(input, v, b, r)
+	rep := report.NewScore(input, v, b, r)
+	if rep.Prediction != nil && r.Verdict == fitcheck.OutOfDistribution {
+		rep.Prediction.DoNotUse = "the fit check failed: the scan is unlike the training scans, so this probability is unreliable and must not be used"
+	}
+	return rep
 }
 
 // writeScoreText prints the result for a reader: notice first and last.
