@@ -45,6 +45,7 @@ func (u *UI) selectCase(i int) {
 	u.evidence.clear()
 	u.fit.clear()
 	u.say("")
+	u.read.caseSelected()
 	u.tasks.start(taskLoad, "Loading "+c.Code, func(ctx context.Context, progress progressFunc) (func(), error) {
 		oc, err := loadCase(ctx, c, progress)
 		if err != nil {

@@ -99,7 +99,7 @@ func (u *UI) build() {
 	u.scan = newScanPanel(u)
 	u.evidence = newEvidencePanel(u)
 	u.fit = newFitPanel(u)
-	u.read = newReadPanel()
+	u.read = newReadPanel(u)
 
 	// The reading column: the fit check on top (its verdict first), the
 	// evidence below, each scrolling on its own so both stay in view.
@@ -161,6 +161,10 @@ func (c chalkTheme) Color(n fyne.ThemeColorName, v fyne.ThemeVariant) color.Colo
 // start begins the first work: the cases given on the command line, or the
 // demo cohort.
 func (u *UI) start() {
+	if u.opts.Session != "" {
+		u.read.start()
+		return
+	}
 	if len(u.opts.Paths) > 0 {
 		u.addPaths(u.opts.Paths, true)
 		return
@@ -171,6 +175,7 @@ func (u *UI) start() {
 // close cancels background work when the window closes.
 func (u *UI) close() {
 	u.tasks.cancel(taskDemo, taskLoad, taskScore, taskRelevance)
+	u.read.close()
 }
 
 // markReady releases a waiting screenshot.
