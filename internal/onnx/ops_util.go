@@ -2,7 +2,8 @@ package onnx
 
 import (
 	"fmt"
-	"sync"
+
+	par "brightfold/internal/parallel"
 )
 
 // funcKernel adapts two functions to the kernel interface; bwd nil means the
@@ -150,36 +151,6 @@ func parallel(workers, n int, fn func(i int)) {
 // parallelWorkers runs fn(w, i) like parallel, also passing the worker
 // index w in [0, workers) so that fn can use per-worker buffers.
 func parallelWorkers(workers, n int, fn func(w, i int)) {
-	if workers < 1 {
-		workers = 1
-	}
-	if workers > n {
-		workers = n
-	}
-	if workers <= 1 {
-		for i := 0; i < n; i++ {
-			fn(0, i)
-		}
-		return
-	}
-	var wg sync.WaitGroup
-	var mu sync.Mutex
-	next := 0
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func(w int) {
-			defer wg.Done()
-			for {
-				mu.Lock()
-				i := next
-				next++
-				mu.Unlock()
-				if i >= n {
-					return
-				}
-				fn(w, i)
-			}
-		}(w)
-	}
-	wg.Wait()
+	// internal/parallel also carries a worker's panic back to the caller.
+	par.Each(n, max(workers, 1), fn)
 }
