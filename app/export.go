@@ -109,13 +109,16 @@ func (u *UI) exportView() {
 	d.Show()
 }
 
+// exportFolderName is the export folder's name in the home folder.
+const exportFolderName = "Brightfold exports"
+
 // exportDir is the folder for exported views: ~/Brightfold exports.
 func exportDir() (string, error) {
 	home, err := os.UserHomeDir()
 	if err != nil {
 		return "", fmt.Errorf("export: no home folder: %w", err)
 	}
-	dir := filepath.Join(home, "Brightfold exports")
+	dir := filepath.Join(home, exportFolderName)
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return "", fmt.Errorf("export: %w", err)
 	}

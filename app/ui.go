@@ -5,6 +5,7 @@ import (
 	"image/color"
 	"path/filepath"
 	"sync"
+	"time"
 
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/canvas"
@@ -13,6 +14,8 @@ import (
 	"fyne.io/fyne/v2/widget"
 
 	"brightfold/internal/notice"
+	"brightfold/overlay"
+	"brightfold/viewer"
 )
 
 // UI is one viewer window and its state. Its fields are touched only on the
@@ -24,14 +27,18 @@ type UI struct {
 	post  func(func())
 	tasks *tasks
 	model *model
+	store *caseStore
+	timed map[overlay.Method]time.Duration // how long each method's last map took
 
 	ready     chan struct{} // closed once the first case is shown with its evidence
 	readyOnce sync.Once
 
 	meeting bool
-	cases   []Case
-	cur     int       // index of the selected case, -1 for none
-	open    *openCase // the loaded case, nil while loading or when none
+	// hideScores keeps probabilities out of the case list (an unaided read).
+	hideScores bool
+	cases      []Case
+	cur        int       // index of the selected case, -1 for none
+	open       *openCase // the loaded case, nil while loading or when none
 
 	root         fyne.CanvasObject
 	bannerBox    fyne.CanvasObject
@@ -51,6 +58,7 @@ type UI struct {
 	scan       *scanPanel
 	evidence   *evidencePanel
 	fit        *fitPanel
+	head       *headPanel
 	read       *readPanel
 }
 
@@ -59,10 +67,14 @@ func newUI(a fyne.App, w fyne.Window, opts Options, post func(func())) *UI {
 	u := &UI{app: a, win: w, opts: opts, post: post, cur: -1, ready: make(chan struct{})}
 	u.tasks = newTasks(post, u.refreshTasks)
 	u.model = &model{path: opts.Model}
+	u.store = newCaseStore(u.model)
+	u.timed = map[overlay.Method]time.Duration{}
 	u.meeting = opts.Meeting
 	u.build()
 	u.fit.unavailable("No case open.")
 	u.evidence.unavailable("No case open.")
+	u.head.unavailable("No case open.")
+	u.evidence.refreshMethodLabels()
 	u.applyMeeting()
 	return u
 }
@@ -99,19 +111,20 @@ func (u *UI) build() {
 	u.scan = newScanPanel(u)
 	u.evidence = newEvidencePanel(u)
 	u.fit = newFitPanel(u)
+	u.head = newHeadPanel(u)
 	u.read = newReadPanel()
 
-	// The reading column: the fit check on top (its verdict first), the
-	// evidence below, each scrolling on its own so both stay in view.
+	// The reading column: a header that never scrolls (the verdict and the
+	// probability), then the fit check's rows, the evidence and My read,
+	// each scrolling on its own.
 	fit := container.NewVScroll(section("Fit check", u.fit.root))
 	evid := container.NewVScroll(container.NewVBox(section("Evidence", u.evidence.root), section("My read", u.read.root)))
 	u.scrolls = []*container.Scroll{fit, evid}
 	colSplit := container.NewVSplit(fit, evid)
-	colSplit.Offset = 0.42
-	var column fyne.CanvasObject = colSplit
-	u.column = column
+	colSplit.Offset = 0.35
+	u.column = container.NewBorder(container.NewPadded(u.head.root), nil, nil, nil, colSplit)
 	u.scanSection = section("Scan", u.scan.root)
-	right := container.NewHSplit(u.scanSection, column)
+	right := container.NewHSplit(u.scanSection, u.column)
 	right.Offset = 0.66
 	main := container.NewHSplit(section("Cases", u.casesPanel.root), right)
 	main.Offset = 0.13
@@ -132,6 +145,9 @@ func (u *UI) reflow() {
 		for _, s := range u.scrolls {
 			s.Content.Refresh()
 			s.Refresh()
+		}
+		if u.column != nil {
+			u.column.Refresh()
 		}
 	}
 }
@@ -171,6 +187,7 @@ func (u *UI) start() {
 // close cancels background work when the window closes.
 func (u *UI) close() {
 	u.tasks.cancel(taskDemo, taskLoad, taskScore, taskRelevance)
+	u.store.close()
 }
 
 // markReady releases a waiting screenshot.
@@ -233,16 +250,9 @@ func (u *UI) cancelTask(kind string) {
 	u.say("Cancelled.")
 }
 
-// caseLabel is how a case is named on screen: its code, and outside
-// Meeting mode the file or folder name.
-func (u *UI) caseLabel(c Case) string {
-	if u.meeting || len(c.Paths) == 0 {
-		return c.Code
-	}
-	return c.Code + "  " + filepath.Base(c.Paths[0])
-}
-
-// refreshIdentity shows who and what is open, as Meeting mode allows.
+// refreshIdentity shows who and what is open, as Meeting mode allows:
+// in Meeting mode only the list code; outside it the case's code, the
+// patient's name and dates in readable form, and the scan's path.
 func (u *UI) refreshIdentity() {
 	if u.cur < 0 || u.cur >= len(u.cases) {
 		u.identity.SetText("No case open")
@@ -250,24 +260,26 @@ func (u *UI) refreshIdentity() {
 		return
 	}
 	c := u.cases[u.cur]
-	text := c.Code
+	code := u.shownCode(u.cur)
+	text := code
 	if !u.meeting {
 		if u.open != nil {
 			if p := u.open.vol.Patient; !p.Empty() {
-				text += fmt.Sprintf("  ·  %s  ·  ID %s  ·  born %s  ·  study %s", dash(p.Name), dash(p.ID), dash(p.BirthDate), dash(p.StudyDate))
+				text += fmt.Sprintf("  ·  %s  ·  ID %s  ·  born %s  ·  study %s", dash(viewer.PersonName(p.Name)), dash(p.ID),
+					dash(viewer.DICOMDate(p.BirthDate)), dash(viewer.DICOMDate(p.StudyDate)))
 			}
 		}
 		if len(c.Paths) > 0 {
 			text += "  ·  " + c.Paths[0]
 		}
-		u.win.SetTitle("Brightfold · " + c.Code + " · " + filepath.Base(firstPath(c)))
+		u.win.SetTitle("Brightfold · " + code + " · " + filepath.Base(firstPath(c)))
 	} else {
-		u.win.SetTitle("Brightfold · " + c.Code + " · Meeting mode")
+		u.win.SetTitle("Brightfold · " + code + " · Meeting mode")
 	}
 	if c.Note != "" {
 		text += "  ·  " + c.Note
 	}
-	u.identity.SetText(text)
+	u.identity.SetText(u.clean(text))
 }
 
 func dash(s string) string {
