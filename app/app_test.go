@@ -51,7 +51,7 @@ func TestOpenScanShowsThreePlanes(t *testing.T) {
 			t.Errorf("%v: letters (left, right, top, bottom) %v, want %v", pl, got, [4]string{w.left, w.right, w.top, w.b})
 		}
 	}
-	if !strings.Contains(sp.readout.Text, "voxel (") || !strings.Contains(sp.readout.Text, "value") {
+	if !strings.Contains(sp.readout.Text, "voxel (") || !strings.Contains(sp.readout.Text, "(scanner units)") {
 		t.Errorf("readout %q", sp.readout.Text)
 	}
 	if !hasText(h.texts(), notice.Full) {

@@ -42,7 +42,10 @@ func newCasesPanel(u *UI) *casesPanel {
 			sub := widget.NewLabel("")
 			sub.Truncation = fyne.TextTruncateEllipsis
 			sub.SizeName = "helperText"
-			return container.NewVBox(code, sub)
+			verdict := widget.NewLabel("")
+			verdict.Truncation = fyne.TextTruncateEllipsis
+			verdict.SizeName = "helperText"
+			return container.NewVBox(code, sub, verdict)
 		},
 		func(id widget.ListItemID, o fyne.CanvasObject) {
 			if id >= len(u.cases) {
@@ -51,7 +54,8 @@ func newCasesPanel(u *UI) *casesPanel {
 			c := u.cases[id]
 			box := o.(*fyne.Container)
 			box.Objects[0].(*widget.Label).SetText(u.shownCode(id))
-			box.Objects[1].(*widget.Label).SetText(u.clean(joinNonEmpty("  ·  ", u.caseSubtitle(c), u.caseVerdict(c))))
+			box.Objects[1].(*widget.Label).SetText(u.clean(u.caseSubtitle(c)))
+			box.Objects[2].(*widget.Label).SetText(u.caseVerdict(c))
 		})
 	p.list.OnSelected = func(id widget.ListItemID) {
 		if !p.quiet {

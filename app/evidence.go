@@ -372,7 +372,7 @@ func (p *evidencePanel) refreshMethodLabels() {
 	selected := methodNone
 	for _, m := range overlay.Methods() {
 		label := m.Title() + methodSep + "≈ " + roundDuration(p.u.estimate(m))
-		if p.u.estimate(m) > slowMap {
+		if onRequest(m, p.u.estimate(m)) {
 			label += ", on request"
 		}
 		opts = append(opts, label)

@@ -5,7 +5,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"strings"
 	"sync"
 	"time"
 
@@ -126,13 +125,16 @@ func (u *UI) applyScore(j *caseJob, oc *openCase) {
 		return
 	}
 	oc.result, oc.card, oc.unprepared = j.result, j.card, j.unprepared
+	u.timing("score")
 	u.casesPanel.list.Refresh()
 	if oc.unprepared != nil {
 		u.showUnprepared(oc)
 	} else {
 		u.showScore(oc)
 	}
-	u.prefetchNext()
+	if !u.tasks.busy(taskRelevance) {
+		u.prefetchNext()
+	}
 }
 
 // prefetchNext loads and scores the case after the open one in the
@@ -249,7 +251,7 @@ func (u *UI) startRelevanceAsked(asked bool) {
 		u.applyMap(oc, sm)
 		return
 	}
-	if !asked && u.estimate(method) > slowMap {
+	if !asked && onRequest(method, u.estimate(method)) {
 		u.evidence.ovState.SetText(fmt.Sprintf("%s takes about %s here: it runs when you press Compute.", method.Title(), roundDuration(u.estimate(method))))
 		u.evidence.compute.SetText("Compute " + method.Title() + " (≈ " + roundDuration(u.estimate(method)) + ")")
 		u.evidence.compute.Show()
@@ -313,23 +315,41 @@ func (u *UI) computeMap(ctx context.Context, oc *openCase, prepared *inference.P
 	if err != nil {
 		return nil, err
 	}
-	om, err := viewer.NewOverlayMap(oc.scene, shown, relevanceUnits(m))
+	// Shown inside the head only, in per cent of its strongest voxel there.
+	disp := viewer.DisplayMap(shown, oc.headMask())
+	om, err := viewer.NewOverlayMap(oc.scene, disp, viewer.DisplayUnits)
 	if err != nil {
 		return nil, err
 	}
-	return &shownMap{m: m, vol: shown, om: om, peak: overlay.Peak(shown)}, nil
+	return &shownMap{m: m, vol: disp, om: om, peak: overlay.Peak(disp)}, nil
 }
 
 // applyMap draws a computed map over the open case.
+// The next case is prefetched once the map is drawn, so that the two do
+// not share the processor.
 func (u *UI) applyMap(oc *openCase, sm *shownMap) {
 	oc.relevance, oc.overlayVol, oc.peak = sm.m, sm.vol, sm.peak
 	u.scan.setOverlay(sm.om)
 	u.evidence.showRelevance(sm.m, sm.om)
+	u.timing("map")
 	u.markReady()
+	u.prefetchNext()
 }
 
 // slowMap is the estimated time above which a method runs only when asked.
 const slowMap = 4 * time.Second
+
+// onRequest reports whether a method runs only when asked: the
+// many-pass methods (integrated gradients, occlusion) unless measured
+// faster than slowMap here. LRP and gradient × input take one backward
+// pass and always run.
+func onRequest(m overlay.Method, estimate time.Duration) bool {
+	switch m {
+	case overlay.LRP, overlay.GradientInput:
+		return false
+	}
+	return estimate > slowMap
+}
 
 // estimate is how long a method's map takes here: the last time it was
 // measured in this session, or a prior from its number of model passes
@@ -357,14 +377,6 @@ func roundDuration(d time.Duration) string {
 		return fmt.Sprintf("%.0f s", math.Max(1, d.Seconds()))
 	}
 	return fmt.Sprintf("%.0f min", d.Minutes())
-}
-
-// relevanceUnits labels a map's values for the colour bar and readout.
-func relevanceUnits(m *overlay.Map) string {
-	if m.Additive {
-		return "share of the " + strings.ReplaceAll(m.Class, "_", " ") + " logit"
-	}
-	return "drop of the " + strings.ReplaceAll(m.Class, "_", " ") + " logit"
 }
 
 // explainer returns the relevance maps' explainer for the model, made once.

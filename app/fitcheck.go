@@ -40,7 +40,9 @@ func newFitPanel(u *UI) *fitPanel {
 	p.sentence = widget.NewLabel("")
 	p.sentence.Wrapping = fyne.TextWrapWord
 	p.checks = container.NewVBox()
-	head := container.NewStack(p.block, container.NewPadded(container.NewVBox(p.headline, p.sentence)))
+	// The verdict's words are in the reading column's header; here the
+	// block carries the sentence in the verdict's colour, then the rows.
+	head := container.NewStack(p.block, container.NewPadded(p.sentence))
 	p.root = container.NewVBox(head, p.checks)
 	p.clear()
 	return p

@@ -213,6 +213,11 @@ func (v *planeView) layoutContent() {
 	} else {
 		v.enlarge.Show()
 	}
+	// A message wider than the view is set smaller rather than cut.
+	v.msg.TextSize = theme.TextSize()
+	if ms := v.msg.MinSize(); ms.Width > size.Width-16 && ms.Width > 0 {
+		v.msg.TextSize = max32(8, v.msg.TextSize*(size.Width-16)/ms.Width)
+	}
 	ms := v.msg.MinSize()
 	v.msg.Move(fyne.NewPos((size.Width-ms.Width)/2, (size.Height-ms.Height)/2))
 	v.msg.Refresh()

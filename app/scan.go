@@ -64,7 +64,7 @@ func newScanPanel(u *UI) *scanPanel {
 			}
 		}
 	})
-	p.preset.PlaceHolder = "Window preset"
+	p.preset.PlaceHolder = "Window"
 	p.convSel = widget.NewSelect([]string{convRadiological, convNeurological}, func(s string) {
 		u.refocus()
 		if p.quietSel {
@@ -104,7 +104,9 @@ func newScanPanel(u *UI) *scanPanel {
 	p.pointer = widget.NewLabel("")
 	p.pointer.TextStyle = fyne.TextStyle{Monospace: true}
 	p.pointer.Truncation = fyne.TextTruncateEllipsis
-	tools := container.NewHBox(p.preset, p.dragSel, p.convSel, p.smooth, p.ovCheck, reset)
+	// The preset choice takes the room the other tools leave, so its
+	// labels are not cut.
+	tools := container.NewBorder(nil, nil, nil, container.NewHBox(p.dragSel, p.convSel, p.smooth, p.ovCheck, reset), p.preset)
 	info := container.NewVBox(p.wlLabel, p.readout, p.pointer)
 	p.root = container.NewBorder(tools, info, nil, nil, p.grid)
 	p.clear("No case open.")
@@ -248,7 +250,7 @@ func (p *scanPanel) renderAll() {
 	for _, v := range p.views {
 		v.render(l)
 	}
-	p.wlLabel.SetText("Window     " + p.windowText() + "  ·  " + p.convSel.Selected + " convention")
+	p.wlLabel.SetText("Window     " + p.windowText())
 	p.refreshReadout()
 }
 
@@ -304,11 +306,11 @@ func (p *scanPanel) readoutText(r viewer.Readout) string {
 	if !r.Inside {
 		return "outside the volume"
 	}
-	s := fmt.Sprintf("voxel (%d, %d, %d)  ·  RAS (%.1f, %.1f, %.1f) mm  ·  value %s %s",
+	s := fmt.Sprintf("voxel (%d, %d, %d)  ·  RAS (%.1f, %.1f, %.1f) mm  ·  %s %s",
 		r.Voxel[0], r.Voxel[1], r.Voxel[2], r.World[0], r.World[1], r.World[2], inference.FormatValue(float64(r.Value)), p.valueUnits())
 	if r.HasOverlay {
 		if top := p.overlay.TopShare(float64(r.Overlay)); top == top {
-			s += fmt.Sprintf("  ·  relevance: top %s %% of the map", inference.FormatValue(top))
+			s += fmt.Sprintf("  ·  relevance in the top %s %%", inference.FormatValue(top))
 		} else {
 			s += "  ·  no relevance"
 		}

@@ -5,6 +5,8 @@ import (
 	"errors"
 	"fmt"
 	"strings"
+	"sync"
+	"time"
 
 	"brightfold/inference"
 	"brightfold/internal/volume"
@@ -29,6 +31,15 @@ type openCase struct {
 	// showAnyway is set when the reader asked to see the probability and
 	// map of an out-of-distribution scan.
 	showAnyway bool
+
+	headOnce sync.Once
+	head     []bool // the head mask of the shown grid (background tasks share it)
+}
+
+// headMask is the displayed scan's head mask, computed once.
+func (oc *openCase) headMask() []bool {
+	oc.headOnce.Do(func() { oc.head = oc.scene.HeadMask() })
+	return oc.head
 }
 
 // selectCase opens case i: it cancels whatever was running for the previous
@@ -42,6 +53,7 @@ func (u *UI) selectCase(i int) {
 	u.cur = i
 	u.open = nil
 	c := u.cases[i]
+	u.chosen = time.Now()
 	u.casesPanel.refresh()
 	u.refreshIdentity()
 	u.evidence.clear()
@@ -138,6 +150,7 @@ func (u *UI) showCase(j *caseJob) {
 	u.open = oc
 	u.refreshIdentity()
 	u.scan.show(oc.scene)
+	u.timing("scan")
 	if len(oc.vol.Warnings) > 0 {
 		u.say("Note: " + strings.Join(oc.vol.Warnings, "; "))
 	}

@@ -29,6 +29,9 @@ type UI struct {
 	model *model
 	store *caseStore
 	timed map[overlay.Method]time.Duration // how long each method's last map took
+	// chosen is when the open case was chosen; timings logs what followed.
+	chosen  time.Time
+	timings []string
 
 	ready     chan struct{} // closed once the first case is shown with its evidence
 	readyOnce sync.Once
@@ -131,8 +134,10 @@ func (u *UI) build() {
 
 	u.message = widget.NewLabel("")
 	u.message.Truncation = fyne.TextTruncateEllipsis
-	u.taskBox = container.NewVBox()
-	bottom := container.NewVBox(u.taskBox, u.message)
+	u.taskBox = container.NewStack()
+	// The strip's height is reserved: a button's height, task or not.
+	strip := container.NewStack(spacer(0, widget.NewButton("Cancel", nil).MinSize().Height), u.taskBox)
+	bottom := container.NewVBox(strip, u.message)
 	u.root = container.NewBorder(container.NewVBox(banner, container.NewPadded(bar), widget.NewSeparator()),
 		bottom, nil, nil, main)
 }
@@ -205,31 +210,39 @@ func (u *UI) fail(err error) {
 	u.message.SetText(u.clean(err.Error()))
 }
 
-// refreshTasks redraws the task strip: one row per running task with its
-// progress and a Cancel button.
+// refreshTasks redraws the task strip: the first running task with its
+// progress and a Cancel button, and how many more run. The strip keeps its
+// height when nothing runs, so the planes do not jump; a task of unknown
+// length shows its words without an animated bar, which would repaint the
+// window many times a second and take processor time from the work.
 func (u *UI) refreshTasks() {
 	if u.taskBox == nil {
 		return
 	}
-	var rows []fyne.CanvasObject
-	for _, t := range u.tasks.snapshot() {
-		t := t
-		bar := widget.NewProgressBar()
-		var prog fyne.CanvasObject = bar
-		if t.frac < 0 {
-			inf := widget.NewProgressBarInfinite()
-			prog = inf
-		} else {
-			bar.SetValue(t.frac)
-		}
-		label := t.label
-		if t.msg != "" {
-			label += ": " + t.msg
-		}
-		cancel := widget.NewButtonWithIcon("Cancel", theme.CancelIcon(), func() { u.cancelTask(t.kind) })
-		rows = append(rows, container.NewBorder(nil, nil, widget.NewLabel(u.clean(label)), cancel, prog))
+	list := u.tasks.snapshot()
+	if len(list) == 0 {
+		u.taskBox.Objects = nil
+		u.taskBox.Refresh()
+		return
 	}
-	u.taskBox.Objects = rows
+	t := list[0]
+	label := t.label
+	if t.msg != "" {
+		label += ": " + t.msg
+	}
+	if len(list) > 1 {
+		label += fmt.Sprintf("  (+%d more)", len(list)-1)
+	}
+	var prog fyne.CanvasObject = spacer(0, 0)
+	if t.frac >= 0 {
+		bar := widget.NewProgressBar()
+		bar.SetValue(t.frac)
+		prog = bar
+	}
+	text := widget.NewLabel(u.clean(label))
+	text.Truncation = fyne.TextTruncateEllipsis
+	cancel := widget.NewButtonWithIcon("Cancel", theme.CancelIcon(), func() { u.cancelTask(t.kind) })
+	u.taskBox.Objects = []fyne.CanvasObject{container.NewBorder(nil, nil, nil, cancel, container.NewGridWithColumns(2, text, prog))}
 	u.taskBox.Refresh()
 }
 
@@ -298,7 +311,15 @@ func firstPath(c Case) string {
 
 // spacer is an empty object of the given minimum size.
 func spacer(w, h float32) fyne.CanvasObject {
-	r := canvas.NewRectangle(nil)
+	r := canvas.NewRectangle(color.Transparent)
 	r.SetMinSize(fyne.NewSize(w, h))
 	return r
+}
+
+// timing notes how long after choosing the case a stage reached the
+// screen ("scan", "score", "map"); the screenshot mode prints the notes.
+func (u *UI) timing(stage string) {
+	if len(u.timings) < 32 && !u.chosen.IsZero() {
+		u.timings = append(u.timings, fmt.Sprintf("%s %s after %.2f s", u.shownCode(u.cur), stage, time.Since(u.chosen).Seconds()))
+	}
 }

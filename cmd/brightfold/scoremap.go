@@ -12,7 +12,6 @@ import (
 	"time"
 
 	"brightfold/inference"
-	"brightfold/inference/fitcheck"
 	"brightfold/internal/inputerr"
 	"brightfold/internal/report"
 	"brightfold/internal/volume"
@@ -76,8 +75,13 @@ func addRelevance(e *env, o scoreOptions, paths []string, v *volume.Volume, b *i
 	if _, _, err := report.WriteRelevance(o.out, onScan, info); err != nil {
 		return wrapPathError(o.out, err)
 	}
-	fig := report.OverlayFigure{Scan: v, Map: onScan, At: peakRAS(onScan), Signed: true,
+	fig := report.OverlayFigure{Scan: v, Map: onScan, At: peakRAS(onScan),
 		Units: mapUnits(m), Title: figureTitle(m, method, b, res, prob)}
+	fig.Model = fmt.Sprintf("Model: %s, version %s", b.Card.Name, b.Card.Version)
+	fig.Verdict, fig.OOD, fig.Headline = "In distribution", false, inference.FormatProbability(prob)
+	if inference.Withheld(res) {
+		fig.Verdict, fig.OOD, fig.Headline = "OUT OF DISTRIBUTION", true, "Withheld"
+	}
 	if err := report.WriteOverlayPNG(filepath.Join(o.out, report.OverlayFile), fig); err != nil {
 		return wrapPathError(o.out, err)
 	}
@@ -146,17 +150,16 @@ func peakRAS(m *volume.Volume) [3]float64 {
 // figureTitle says what the figure shows: the method, the explained class
 // with its probability, the model and the fit check.
 func figureTitle(m *overlay.Map, method overlay.Method, b *inference.ModelFolder, res *inference.Result, prob float64) []string {
-	lines := []string{
-		fmt.Sprintf("Relevance map: %s (%s). Planes through the map's peak.", method.Title(), method.Reference()),
-		fmt.Sprintf("Explains the %q logit (%.3g); calibrated probability of %q: %.2f. Red-orange speaks for the class, blue against.", m.Class, m.Target, m.Class, prob),
-		fmt.Sprintf("Model: %s %s.", b.Card.Name, b.Card.Version),
-	}
-	if res.Verdict == fitcheck.OutOfDistribution {
-		lines = append(lines, "Fit check: OUT-OF-DISTRIBUTION. The scan is unlike the training scans; neither the score nor this map can be relied on.")
+	cls := inference.ClassName(m.Class)
+	var lines []string
+	if inference.Withheld(res) {
+		lines = append(lines, "The scan is unlike the training scans: neither the probability nor this map can be relied on.")
+		lines = append(lines, inference.VerdictCauses(res)...)
 	} else {
-		lines = append(lines, "Fit check: in-distribution.")
+		lines = append(lines, fmt.Sprintf("Probability of %s (calibrated). %s", cls, inference.PrevalenceNote(b.Card)))
 	}
-	return lines
+	return append(lines,
+		fmt.Sprintf("Relevance map: %s (%s), for %s. Slices across its strongest part; inside the head only; warm colours speak for the class.", method.Title(), method.Reference(), cls))
 }
 
 // writeRelevanceText adds the relevance map to the text form of a result.
