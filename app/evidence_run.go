@@ -11,6 +11,7 @@ import (
 	"brightfold/assets"
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/ortlib"
 	"brightfold/internal/volume"
 	"brightfold/overlay"
@@ -287,7 +288,7 @@ func (u *UI) startRelevanceAsked(asked bool) {
 
 // computeMap computes a map and carries it onto the displayed grid, off the
 // UI thread.
-func (u *UI) computeMap(ctx context.Context, oc *openCase, prepared *inference.Prepared, method overlay.Method, progress progressFunc) (*shownMap, error) {
+func (u *UI) computeMap(ctx context.Context, oc *openCase, prepared *preprocess.Prepared, method overlay.Method, progress progressFunc) (*shownMap, error) {
 	progress(-1, "preparing")
 	ex, err := u.model.explainer()
 	if err != nil {

@@ -11,6 +11,7 @@ import (
 
 	"brightfold/internal/refcheck"
 	"brightfold/internal/volume"
+	"brightfold/internal/volume/nifti"
 	"brightfold/viewer"
 )
 
@@ -141,7 +142,7 @@ func TestUnpreparedScan(t *testing.T) {
 	k := src.Dims[2] / 2
 	copy(one.Data, src.Data[src.Index(0, 0, k):src.Index(0, 0, k+1)])
 	path := filepath.Join(t.TempDir(), "one-slice.nii")
-	if err := volume.WriteNIfTI(path, one, volume.NIfTIWriteOptions{}); err != nil {
+	if err := nifti.Write(path, one, nifti.WriteOptions{}); err != nil {
 		t.Fatal(err)
 	}
 	h := newHarness(t, Options{Model: tinyModelFolder(t)})

@@ -14,6 +14,7 @@ import (
 
 	"brightfold/internal/refcheck"
 	"brightfold/internal/volume"
+	"brightfold/internal/volume/dicom"
 )
 
 // harness drives a UI on Fyne's headless test driver. Background tasks run
@@ -182,7 +183,7 @@ func writeDICOMCase(t *testing.T, dir string) string {
 		t.Fatal(err)
 	}
 	out := filepath.Join(dir, "DEMO_SUBJECT0001_series")
-	err = volume.WriteDICOMSeries(out, v, volume.DICOMWriteOptions{
+	err = dicom.WriteSeries(out, v, dicom.WriteOptions{
 		Seed: "HMRU-0001/T1", PatientName: "DEMO^SUBJECT0001", PatientID: "HMRU-0001",
 		PatientBirthDate: "19500101", StudyDate: "20260301", SeriesDescription: "T1 demo",
 	})

@@ -13,6 +13,7 @@ import (
 	"fyne.io/fyne/v2/widget"
 
 	"brightfold/internal/volume"
+	"brightfold/internal/volume/dicom"
 )
 
 // Files dropped on the window become cases, and the first one opens.
@@ -35,7 +36,7 @@ func TestFolderWithSeveralSeriesAsks(t *testing.T) {
 		t.Fatal(err)
 	}
 	for i, desc := range []string{"T1 first", "T1 repeat"} {
-		err := volume.WriteDICOMSeries(filepath.Join(dir, desc), v, volume.DICOMWriteOptions{
+		err := dicom.WriteSeries(filepath.Join(dir, desc), v, dicom.WriteOptions{
 			Seed: "HMRU-0002/" + desc, StudySeed: "HMRU-0002", PatientName: "DEMO^SUBJECT0002",
 			SeriesDescription: desc, SeriesNumber: i + 1,
 		})
@@ -77,7 +78,7 @@ func TestFolderWithSeveralSeriesAsks(t *testing.T) {
 	if !strings.Contains(texts, "T1 first") || !strings.Contains(texts, "T1 repeat") {
 		t.Errorf("chooser does not describe both series:\n%s", texts)
 	}
-	listed, err := volume.ListSeries([]string{dir})
+	listed, err := dicom.ListSeries([]string{dir})
 	if err != nil {
 		t.Fatal(err)
 	}

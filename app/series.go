@@ -7,11 +7,11 @@ import (
 	"fyne.io/fyne/v2/dialog"
 	"fyne.io/fyne/v2/widget"
 
-	"brightfold/internal/volume"
+	"brightfold/internal/volume/dicom"
 )
 
 // seriesLine describes one DICOM series for the chooser, without identifiers.
-func seriesLine(s volume.SeriesInfo) string {
+func seriesLine(s dicom.SeriesInfo) string {
 	desc := s.Description
 	if desc == "" {
 		desc = "(no description)"
@@ -27,7 +27,7 @@ func seriesLine(s volume.SeriesInfo) string {
 }
 
 // chooseSeries asks which series of case i to open.
-func (u *UI) chooseSeries(i int, list []volume.SeriesInfo) {
+func (u *UI) chooseSeries(i int, list []dicom.SeriesInfo) {
 	if i != u.cur {
 		return
 	}

@@ -10,6 +10,9 @@ import (
 
 	"brightfold/inference"
 	"brightfold/internal/volume"
+	"brightfold/internal/volume/dicom"
+	_ "brightfold/internal/volume/formats"
+	"brightfold/internal/volume/nifti"
 	"brightfold/overlay"
 	"brightfold/viewer"
 )
@@ -101,7 +104,7 @@ func (u *UI) selectCase(i int) {
 
 // errChooseSeries means the case's DICOM input holds several series and the
 // user has to pick one.
-type errChooseSeries struct{ series []volume.SeriesInfo }
+type errChooseSeries struct{ series []dicom.SeriesInfo }
 
 func (e *errChooseSeries) Error() string {
 	return fmt.Sprintf("the input holds %d image series; choose one", len(e.series))
@@ -109,9 +112,9 @@ func (e *errChooseSeries) Error() string {
 
 // loadCase reads the scan and prepares it for display. It runs off the UI thread.
 func loadCase(ctx context.Context, c Case, progress progressFunc) (*openCase, error) {
-	if c.Series == "" && !(len(c.Paths) == 1 && volume.IsNIfTIPath(c.Paths[0])) {
+	if c.Series == "" && !(len(c.Paths) == 1 && nifti.IsPath(c.Paths[0])) {
 		progress(-1, "listing DICOM series")
-		list, err := volume.ListSeries(c.Paths)
+		list, err := dicom.ListSeries(c.Paths)
 		if err != nil {
 			return nil, err
 		}

@@ -9,7 +9,9 @@ import (
 
 	"brightfold/assets"
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
 )
@@ -84,7 +86,7 @@ func TestDemoModelFolderONNXRuntime(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer s.Close()
-	var ts []*inference.Tensor
+	var ts []*preprocess.Tensor
 	for i := 0; i < 2; i++ {
 		ph, err := phantom.Generate(77, i, phantom.Options{})
 		if err != nil {
@@ -104,7 +106,7 @@ func TestDemoModelFolderONNXRuntime(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	e, err := onnx.NewExecutor(m)
+	e, err := exec.NewExecutor(m)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -1,7 +1,8 @@
 // Package inference loads model folders (model.onnx plus card.json), runs them
-// on the CPU through ONNX Runtime, prepares scans exactly as a card states,
-// and turns logits into calibrated probabilities. The out-of-distribution
-// checks live in the subpackage fitcheck. Research use only.
+// on the CPU through ONNX Runtime, prepares scans exactly as a card states
+// (with the sub-package preprocess), and turns logits into calibrated
+// probabilities. The out-of-distribution checks live in the sub-package
+// fitcheck. Research use only.
 package inference
 
 import (
@@ -11,6 +12,8 @@ import (
 	"math"
 	"regexp"
 	"strings"
+
+	"brightfold/inference/preprocess"
 )
 
 // SchemaVersion names the card schema this package reads and writes. A card
@@ -21,33 +24,72 @@ const SchemaVersion = "brightfold-card/1"
 // prepared, how its outputs are read and calibrated, and the reference the
 // fit checks compare a scan with. JSON field names are the schema's.
 type Card struct {
-	Schema        string        `json:"schema"`
-	Name          string        `json:"name"`
-	Version       string        `json:"version"`
-	Task          string        `json:"task"`
-	Classes       []string      `json:"classes"`
-	PositiveClass string        `json:"positive_class"`
-	Input         InputSpec     `json:"input"`
-	Preprocessing Preprocessing `json:"preprocessing"`
-	Outputs       OutputSpec    `json:"outputs"`
-	Calibration   Calibration   `json:"calibration"`
-	OOD           OODReference  `json:"ood"`
-	Validation    []Metric      `json:"validation"`
-	ModelSHA256   string        `json:"model_sha256"`
-	IntendedUse   string        `json:"intended_use"`
-	TrainingData  string        `json:"training_data"`
-	Cautions      []string      `json:"cautions"`
+	Schema        string          `json:"schema"`
+	Name          string          `json:"name"`
+	Version       string          `json:"version"`
+	Task          string          `json:"task"`
+	Classes       []string        `json:"classes"`
+	PositiveClass string          `json:"positive_class"`
+	Input         InputSpec       `json:"input"`
+	Preprocessing preprocess.Spec `json:"preprocessing"`
+	Outputs       OutputSpec      `json:"outputs"`
+	Calibration   Calibration     `json:"calibration"`
+	OOD           OODReference    `json:"ood"`
+	Validation    []Metric        `json:"validation"`
+	ModelSHA256   string          `json:"model_sha256"`
+	IntendedUse   string          `json:"intended_use"`
+	TrainingData  string          `json:"training_data"`
+	Cautions      []string        `json:"cautions"`
+	// Provenance says how `brightfold model make` or `model recalibrate`
+	// made the card (absent on cards written by hand or by the demo recipe).
+	Provenance *Provenance `json:"provenance,omitempty"`
 }
 
-// Layouts of the model input tensor. Grid axes x, y, z are the model grid's
-// R, A, S axes (see Preprocessing).
-const (
-	// LayoutNCDHW is [N, C, z, y, x]: x varies fastest, the NIfTI memory order.
-	LayoutNCDHW = "NCDHW"
-	// LayoutNCXYZ is [N, C, x, y, z]: z varies fastest, the order of a C-order
-	// array indexed [x, y, z].
-	LayoutNCXYZ = "NCXYZ"
-)
+// Provenance records how a card was made from a group's cases
+// (makecard.go).
+type Provenance struct {
+	MadeBy string `json:"made_by"` // the command
+	Cases  string `json:"cases"`   // the manifest or BIDS folder's name (no path)
+	Seed   uint64 `json:"seed"`
+	Split  string `json:"split"` // the rule that assigned cases to calibration and validation
+	// Counts holds the cases used, by split and class.
+	Counts  map[string]map[string]int `json:"counts"`
+	Skipped int                       `json:"skipped"` // scans that could not be prepared (--skip-unreadable)
+	Graph   []string                  `json:"graph"`   // what was found in the ONNX graph, and how
+	// Parent, Site and Recalibration are set by `model recalibrate`.
+	Parent        *ParentModel   `json:"parent,omitempty"`
+	Recalibration *Recalibration `json:"recalibration,omitempty"`
+}
+
+// ParentModel names the model folder a recalibrated card came from.
+type ParentModel struct {
+	Name        string `json:"name"`
+	Version     string `json:"version"`
+	CardSHA256  string `json:"card_sha256"`  // sha256 of the parent's card.json bytes
+	ModelSHA256 string `json:"model_sha256"` // the parent's model.onnx (unchanged)
+}
+
+// Recalibration is the record of `model recalibrate`: the closed test's
+// likelihood-ratio tests, the chosen method and the figures before and
+// after on the site's cases (in-sample for "after").
+type Recalibration struct {
+	Site    string            `json:"site"`
+	N       int               `json:"n"`
+	Counts  map[string]int    `json:"counts"`
+	Method  string            `json:"method"`
+	Tests   []RecalibrationLR `json:"tests"`
+	Before  []Metric          `json:"before"`
+	After   []Metric          `json:"after"`
+	HowMade string            `json:"how"`
+}
+
+// RecalibrationLR is one likelihood-ratio test of the closed procedure.
+type RecalibrationLR struct {
+	Name      string  `json:"name"`
+	Statistic float64 `json:"statistic"`
+	DF        int     `json:"df"`
+	P         float64 `json:"p"`
+}
 
 // InputSpec is the model's one input tensor. Shape has five entries in the
 // layout's order; -1 marks a dynamic dimension (only the batch may be dynamic).
@@ -56,50 +98,6 @@ type InputSpec struct {
 	Shape    []int64 `json:"shape"`
 	Layout   string  `json:"layout"`
 	DataType string  `json:"data_type"` // "float32"
-}
-
-// Preprocessing states how a scan becomes the model input. The model grid has
-// axes along the scan's own voxel axes permuted and flipped to the closest RAS
-// orientation (no rotation), Spacing millimetres between voxel centres, Shape
-// voxels, and its centre at the head's centre of mass.
-type Preprocessing struct {
-	Orientation   string     `json:"orientation"`   // "RAS"
-	SpacingMm     [3]float64 `json:"spacing_mm"`    // along the grid's x (R), y (A), z (S)
-	Shape         [3]int     `json:"shape"`         // grid voxels along x, y, z
-	Crop          string     `json:"crop"`          // "head-centre"
-	Antialias     string     `json:"antialias"`     // "block-mean" or "none"
-	Interpolation string     `json:"interpolation"` // "trilinear"
-	HeadMask      HeadMask   `json:"head_mask"`
-	Intensity     Intensity  `json:"intensity"`
-}
-
-// HeadMask is the rule that separates head from background on raw values:
-// a voxel is head when its value exceeds
-// P(LowPercentile) + Fraction·(P(HighPercentile) − P(LowPercentile)),
-// percentiles taken over the scan's finite voxels.
-type HeadMask struct {
-	Method         string  `json:"method"` // "percentile-fraction"
-	LowPercentile  float64 `json:"low_percentile"`
-	HighPercentile float64 `json:"high_percentile"`
-	Fraction       float64 `json:"fraction"`
-}
-
-// Intensity normalisation methods.
-const (
-	// NormZScoreHead subtracts the mean and divides by the standard deviation
-	// of the head voxels; then clips to ±Clip when Clip > 0.
-	NormZScoreHead = "zscore-head"
-	// NormPercentileMinMax clips to the head voxels' LowPercentile and
-	// HighPercentile and maps that range to [0, 1].
-	NormPercentileMinMax = "percentile-minmax"
-)
-
-// Intensity is the intensity normalisation.
-type Intensity struct {
-	Method         string  `json:"method"`
-	LowPercentile  float64 `json:"low_percentile,omitempty"`
-	HighPercentile float64 `json:"high_percentile,omitempty"`
-	Clip           float64 `json:"clip,omitempty"`
 }
 
 // Output activations.
@@ -123,6 +121,23 @@ type Calibration struct {
 	Temperature float64 `json:"temperature"`
 	Method      string  `json:"method"`
 	FittedOn    string  `json:"fitted_on"`
+	// FittedTemperature is the T that minimised the NLL of the fitting
+	// cases; Temperature is it, or 1 when it did not lower the NLL of
+	// held-out cases (0 in cards written before the check existed).
+	FittedTemperature float64 `json:"fitted_temperature,omitempty"`
+	// Decision says in a sentence which temperature is applied and why.
+	Decision string `json:"decision,omitempty"`
+	// Logistic, when set (two classes only, by `model recalibrate`), maps
+	// the temperature-scaled positive-class logit ℓ to a + b·ℓ.
+	Logistic *LogisticRecalibration `json:"logistic,omitempty"`
+}
+
+// LogisticRecalibration is logistic recalibration of the positive-class
+// logit (Cox 1958): new logit = Intercept + Slope · logit.
+type LogisticRecalibration struct {
+	Intercept float64 `json:"intercept"`
+	Slope     float64 `json:"slope"`
+	FittedOn  string  `json:"fitted_on"`
 }
 
 // Range is a closed interval [Min, Max].
@@ -223,6 +238,11 @@ type Metric struct {
 	N     int     `json:"n"`
 	Split string  `json:"split"`
 	How   string  `json:"how"`
+	// CI95 is the 95 % interval when one was computed; Interval says how.
+	CI95     []float64 `json:"ci95,omitempty"`
+	Interval string    `json:"interval,omitempty"`
+	Site     string    `json:"site,omitempty"`    // the site the figure is restricted to
+	Warning  string    `json:"warning,omitempty"` // e.g. fewer than 20 cases of a class
 }
 
 // ParseCard decodes a card, refusing unknown fields and trailing data, then validates it.
@@ -301,6 +321,9 @@ func (c *Card) Validate() error {
 	if t := c.Calibration.Temperature; !(t > 0) || math.IsInf(t, 0) || t > 1e3 {
 		return fieldError("calibration.temperature", "must be a positive finite number up to 1000, got %v", t)
 	}
+	if l := c.Calibration.Logistic; l != nil && (len(c.Classes) != 2 || !finite(l.Intercept) || !finite(l.Slope) || math.Abs(l.Intercept) > 1e3 || math.Abs(l.Slope) > 1e3) {
+		return fieldError("calibration.logistic", "needs exactly 2 classes and finite intercept and slope up to 1000 in size")
+	}
 	return c.OOD.validate(len(c.Classes))
 }
 
@@ -339,8 +362,8 @@ func (c *Card) validateInput() error {
 	if in.DataType != "float32" {
 		return fieldError("input.data_type", "only float32 is supported, got %q", in.DataType)
 	}
-	if in.Layout != LayoutNCDHW && in.Layout != LayoutNCXYZ {
-		return fieldError("input.layout", "want %q or %q, got %q", LayoutNCDHW, LayoutNCXYZ, in.Layout)
+	if in.Layout != preprocess.LayoutNCDHW && in.Layout != preprocess.LayoutNCXYZ {
+		return fieldError("input.layout", "want %q or %q, got %q", preprocess.LayoutNCDHW, preprocess.LayoutNCXYZ, in.Layout)
 	}
 	if len(in.Shape) != 5 {
 		return fieldError("input.shape", "want 5 dimensions (N, C and three spatial), got %d", len(in.Shape))
@@ -353,7 +376,7 @@ func (c *Card) validateInput() error {
 	}
 	want := c.Preprocessing.Shape
 	spatial := [3]int64{int64(want[2]), int64(want[1]), int64(want[0])}
-	if in.Layout == LayoutNCXYZ {
+	if in.Layout == preprocess.LayoutNCXYZ {
 		spatial = [3]int64{int64(want[0]), int64(want[1]), int64(want[2])}
 	}
 	for i, s := range spatial {
@@ -395,76 +418,6 @@ func (c *Card) NumLogits() int {
 		return 1
 	}
 	return len(c.Classes)
-}
-
-// MaxGridVoxels bounds the model grid (512³) so that a card cannot ask for a
-// huge allocation.
-const MaxGridVoxels = 512 * 512 * 512
-
-// Validate checks the preprocessing parameters.
-func (p Preprocessing) Validate() error {
-	if p.Orientation != "RAS" {
-		return fieldError("preprocessing.orientation", "only \"RAS\" is supported, got %q", p.Orientation)
-	}
-	n := 1
-	for i := 0; i < 3; i++ {
-		s := p.SpacingMm[i]
-		if !(s >= 0.1 && s <= 20) {
-			return fieldError(fmt.Sprintf("preprocessing.spacing_mm[%d]", i), "want 0.1 to 20 mm, got %v", s)
-		}
-		d := p.Shape[i]
-		if d < 4 || d > 512 {
-			return fieldError(fmt.Sprintf("preprocessing.shape[%d]", i), "want 4 to 512 voxels, got %d", d)
-		}
-		n *= d
-	}
-	if n > MaxGridVoxels {
-		return fieldError("preprocessing.shape", "%v exceeds %d voxels", p.Shape, MaxGridVoxels)
-	}
-	if p.Crop != "head-centre" {
-		return fieldError("preprocessing.crop", "only \"head-centre\" is supported, got %q", p.Crop)
-	}
-	if p.Antialias != "block-mean" && p.Antialias != "none" {
-		return fieldError("preprocessing.antialias", "want \"block-mean\" or \"none\", got %q", p.Antialias)
-	}
-	if p.Interpolation != "trilinear" {
-		return fieldError("preprocessing.interpolation", "only \"trilinear\" is supported, got %q", p.Interpolation)
-	}
-	if err := p.HeadMask.validate(); err != nil {
-		return err
-	}
-	return p.Intensity.validate()
-}
-
-func validPercentile(x float64) bool { return x >= 0 && x <= 100 }
-
-func (h HeadMask) validate() error {
-	if h.Method != "percentile-fraction" {
-		return fieldError("preprocessing.head_mask.method", "only \"percentile-fraction\" is supported, got %q", h.Method)
-	}
-	if !validPercentile(h.LowPercentile) || !validPercentile(h.HighPercentile) || h.LowPercentile >= h.HighPercentile {
-		return fieldError("preprocessing.head_mask", "percentiles must satisfy 0 ≤ low < high ≤ 100, got %v, %v", h.LowPercentile, h.HighPercentile)
-	}
-	if !(h.Fraction > 0 && h.Fraction < 1) {
-		return fieldError("preprocessing.head_mask.fraction", "want 0 < fraction < 1, got %v", h.Fraction)
-	}
-	return nil
-}
-
-func (in Intensity) validate() error {
-	switch in.Method {
-	case NormZScoreHead:
-		if !(in.Clip >= 0) || math.IsInf(in.Clip, 0) {
-			return fieldError("preprocessing.intensity.clip", "want 0 (none) or a positive number, got %v", in.Clip)
-		}
-	case NormPercentileMinMax:
-		if !validPercentile(in.LowPercentile) || !validPercentile(in.HighPercentile) || in.LowPercentile >= in.HighPercentile {
-			return fieldError("preprocessing.intensity", "percentiles must satisfy 0 ≤ low < high ≤ 100, got %v, %v", in.LowPercentile, in.HighPercentile)
-		}
-	default:
-		return fieldError("preprocessing.intensity.method", "want %q or %q, got %q", NormZScoreHead, NormPercentileMinMax, in.Method)
-	}
-	return nil
 }
 
 func (o OODReference) validate(classes int) error {

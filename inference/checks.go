@@ -6,6 +6,7 @@ import (
 	"strings"
 
 	"brightfold/inference/fitcheck"
+	"brightfold/internal/stats"
 )
 
 // Check names, in the order they are reported.
@@ -323,7 +324,7 @@ func imageChecks(o OODReference, f CaseFacts) []fitcheck.Check {
 		hc.Explanation = "The voxel values do not look like CT in Hounsfield units."
 	}
 	out = append(out, hc)
-	w := fitcheck.QuantileW1(in.Levels, f.Quantiles, in.Quantiles)
+	w := stats.QuantileW1(in.Levels, f.Quantiles, in.Quantiles)
 	t := o.Thresholds.Wasserstein
 	wc := fitcheck.Check{Name: CheckIntensityProfile, Value: w, Threshold: "≤ " + FormatValue(t.Value), Pass: !t.Fails(w), Required: t.Required}
 	if wc.Pass {

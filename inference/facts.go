@@ -4,6 +4,8 @@ import (
 	"math"
 
 	"brightfold/inference/fitcheck"
+	"brightfold/inference/preprocess"
+	"brightfold/internal/stats"
 	"brightfold/internal/volume"
 )
 
@@ -34,7 +36,7 @@ type CaseFacts struct {
 
 // MeasureCase measures a scan v and its preprocessing pr; levels are the
 // quantile levels of the intensity profile (the card's, when checking).
-func MeasureCase(v *volume.Volume, pr *Prepared, levels []float64) CaseFacts {
+func MeasureCase(v *volume.Volume, pr *preprocess.Prepared, levels []float64) CaseFacts {
 	f := MeasureHeader(v)
 	f.HeadVolumeMl, f.InsideFOV = pr.Head.VolumeMl, pr.InsideFOV
 	if e := pr.Head.ExtentMm; e[0] > 0 && e[1] > 0 {
@@ -42,7 +44,7 @@ func MeasureCase(v *volume.Volume, pr *Prepared, levels []float64) CaseFacts {
 		f.HeadSIOverAP = e[2] / e[1]
 	}
 	f.HeadSkewSI = pr.Head.Skewness[2]
-	f.NoiseRatio = fitcheck.NoiseRatio(v, pr.Head.Threshold)
+	f.NoiseRatio = fitcheck.NoiseRatio(v, pr.ScanHeadThreshold)
 	f.Quantiles = headQuantiles(pr.Tensor, levels)
 	return f
 }
@@ -61,7 +63,7 @@ func MeasureHeader(v *volume.Volume) CaseFacts {
 }
 
 // headQuantiles are the quantiles of the normalised tensor over the head mask.
-func headQuantiles(t *Tensor, levels []float64) []float64 {
+func headQuantiles(t *preprocess.Tensor, levels []float64) []float64 {
 	g := t.GridValues()
 	var head []float32
 	for i, m := range t.HeadMask {
@@ -70,5 +72,5 @@ func headQuantiles(t *Tensor, levels []float64) []float64 {
 		}
 	}
 	fitcheck.SortFloat32(head) // the tensor is finite (checkTensorFinite)
-	return fitcheck.Quantiles(head, levels)
+	return stats.Quantiles(head, levels)
 }

@@ -20,6 +20,8 @@ import (
 	"testing"
 
 	"brightfold/inference/fitcheck"
+	"brightfold/inference/internal/scantest"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/inputerr"
 	"brightfold/internal/refcheck"
 	"brightfold/internal/volume"
@@ -65,8 +67,8 @@ func tinyCard(model []byte) *Card {
 	return &Card{
 		Schema: SchemaVersion, Name: "tiny3d-test", Version: "0.1", Task: "test fixture: two arbitrary classes from a 16³ grid",
 		Classes: []string{"small", "large"}, PositiveClass: "large",
-		Input:         InputSpec{Name: "scan", Shape: []int64{-1, 1, 16, 16, 16}, Layout: LayoutNCDHW, DataType: "float32"},
-		Preprocessing: testPreprocessing(),
+		Input:         InputSpec{Name: "scan", Shape: []int64{-1, 1, 16, 16, 16}, Layout: preprocess.LayoutNCDHW, DataType: "float32"},
+		Preprocessing: scantest.Spec(),
 		Outputs:       OutputSpec{Logits: "logits", Features: tinyFeatures, Activation: ActivationSoftmax},
 		Calibration:   Calibration{Temperature: 1, Method: "none yet"},
 		OOD:           placeholderOOD(8),
@@ -90,7 +92,7 @@ func initORT(t testing.TB) {
 // syntheticHead is a 1 mm head-like volume: an ellipsoid of given semi-axes
 // with a brightness ramp, a darker core and Rician-like noise.
 func syntheticHead(rng *rand.Rand, semi [3]float64, noise float64) *volume.Volume {
-	v := ellipsoidHead([3]int{64, 64, 64}, [3]float64{rng.NormFloat64() * 2, rng.NormFloat64() * 2, rng.NormFloat64() * 2}, semi)
+	v := scantest.EllipsoidHead([3]int{64, 64, 64}, [3]float64{rng.NormFloat64() * 2, rng.NormFloat64() * 2, rng.NormFloat64() * 2}, semi)
 	for i, x := range v.Data {
 		v.Data[i] = float32(math.Abs(float64(x) + noise*rng.NormFloat64()))
 	}
@@ -145,7 +147,7 @@ func fittedTinyModelFolder(t *testing.T) (dir string, card *Card) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		out, err := s.Run([]*Tensor{pr.Tensor})
+		out, err := s.Run([]*preprocess.Tensor{pr.Tensor})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -196,9 +198,9 @@ func TestTinyModelMatchesPyTorch(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer s.Close()
-	var ts []*Tensor
+	var ts []*preprocess.Tensor
 	for _, in := range ref.Inputs {
-		ts = append(ts, &Tensor{Data: in, Shape: []int64{1, 1, 16, 16, 16}, Layout: LayoutNCDHW, Grid: [3]int{16, 16, 16}})
+		ts = append(ts, &preprocess.Tensor{Data: in, Shape: []int64{1, 1, 16, 16, 16}, Layout: preprocess.LayoutNCDHW, Grid: [3]int{16, 16, 16}})
 	}
 	batched, err := s.Run(ts)
 	if err != nil {
@@ -290,7 +292,7 @@ func TestModelFolderFitScoreAndZip(t *testing.T) {
 	}
 	// thick slices: 5 mm along k
 	thick := syntheticHead(rng, [3]float64{18, 22, 17}, 4)
-	thick = blockMean(thick, [3]int{1, 1, 5})
+	thick = preprocess.BlockMean(thick, [3]int{1, 1, 5})
 	r, err = s.Score(thick)
 	if err != nil {
 		t.Fatal(err)
@@ -496,13 +498,13 @@ func TestExampleCard(t *testing.T) {
 func TestSessionConcurrentRuns(t *testing.T) {
 	s := tinySession(t)
 	defer s.Close()
-	ts := make([]*Tensor, 4)
+	ts := make([]*preprocess.Tensor, 4)
 	for i := range ts {
 		d := make([]float32, 4096)
 		for j := range d {
 			d[j] = float32(math.Sin(float64(i*4096+j) / 97))
 		}
-		ts[i] = &Tensor{Data: d, Shape: []int64{1, 1, 16, 16, 16}, Layout: LayoutNCDHW, Grid: [3]int{16, 16, 16}}
+		ts[i] = &preprocess.Tensor{Data: d, Shape: []int64{1, 1, 16, 16, 16}, Layout: preprocess.LayoutNCDHW, Grid: [3]int{16, 16, 16}}
 	}
 	var want []Output
 	for i := range ts {
@@ -607,7 +609,7 @@ func TestScoreContextProgressAndCancel(t *testing.T) {
 	}
 	ctx, cancel = context.WithCancel(context.Background())
 	cancel()
-	if _, err := s.runBatch(ctx, []*Tensor{pr.Tensor}); !errors.Is(err, context.Canceled) {
+	if _, err := s.runBatch(ctx, []*preprocess.Tensor{pr.Tensor}); !errors.Is(err, context.Canceled) {
 		t.Errorf("terminated run: %v", err)
 	}
 	// the session still works after a terminated run

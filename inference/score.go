@@ -6,13 +6,14 @@ import (
 	"time"
 
 	"brightfold/inference/fitcheck"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/inputerr"
 	"brightfold/internal/volume"
 )
 
 // Result is one scored case.
 type Result struct {
-	Prepared   *Prepared
+	Prepared   *preprocess.Prepared
 	Facts      CaseFacts
 	Output     Output
 	Scores     ModelScores
@@ -77,7 +78,7 @@ func (s *Session) ScoreManyContext(ctx context.Context, vs []*volume.Volume, pro
 	}
 	c := s.mf.Card
 	res := make([]*Result, len(vs))
-	ts := make([]*Tensor, len(vs))
+	ts := make([]*preprocess.Tensor, len(vs))
 	n := float64(len(vs))
 	for i, v := range vs {
 		if err := ctx.Err(); err != nil {

@@ -6,12 +6,13 @@ import (
 	"time"
 
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/onnx"
 )
 
 // benchSetup loads the demo model folder with its session and one prepared
 // pattern-positive phantom (1 mm).
-func benchSetup(b testing.TB) (*Explainer, *inference.Session, *inference.Tensor) {
+func benchSetup(b testing.TB) (*Explainer, *inference.Session, *preprocess.Tensor) {
 	b.Helper()
 	bd := demoModelFolder(b)
 	s := testSession(b, bd)
@@ -51,9 +52,9 @@ func BenchmarkLRP(b *testing.B) {
 
 // bareORT returns bare ONNX Runtime passes per second on the input, in
 // batches of the given size, measured over about a second.
-func bareORT(b *testing.B, s *inference.Session, in *inference.Tensor, batch int) float64 {
+func bareORT(b *testing.B, s *inference.Session, in *preprocess.Tensor, batch int) float64 {
 	b.Helper()
-	ts := make([]*inference.Tensor, batch)
+	ts := make([]*preprocess.Tensor, batch)
 	for i := range ts {
 		ts[i] = in
 	}
@@ -88,7 +89,7 @@ func BenchmarkOcclusion(b *testing.B) {
 	benchSlow(b, ex, s, in, Occlusion, Options{})
 }
 
-func benchSlow(b *testing.B, ex *Explainer, s *inference.Session, in *inference.Tensor, m Method, opt Options) {
+func benchSlow(b *testing.B, ex *Explainer, s *inference.Session, in *preprocess.Tensor, m Method, opt Options) {
 	var total time.Duration
 	passes := 0
 	b.ResetTimer()

@@ -3,13 +3,13 @@ package overlay
 import (
 	"math"
 
-	"brightfold/inference"
+	"brightfold/inference/preprocess"
 )
 
 // blurTensor returns t's values blurred by a separable Gaussian with the
 // given sigma (in grid voxels) along the grid's x, y and z axes, truncated at
 // 3 sigma, with edge voxels repeated beyond the grid; in t's layout.
-func blurTensor(t *inference.Tensor, sigma [3]float64) []float32 {
+func blurTensor(t *preprocess.Tensor, sigma [3]float64) []float32 {
 	g := t.Grid
 	cur := make([]float64, len(t.Data))
 	for z := 0; z < g[2]; z++ {

@@ -3,14 +3,14 @@
 // each with the check that its own definition implies:
 //
 //   - LRP, layer-wise relevance propagation (Bach et al. 2015), on the Go
-//     executor of package graph, node by node over a forward Trace. The
-//     default composite follows Montavon et al. 2019 ("Layer-wise relevance
+//     executor of package internal/onnx/exec, node by node over a forward
+//     Trace. The default composite follows Montavon et al. 2019 ("Layer-wise relevance
 //     propagation: an overview", section 10.1): the z^B rule at the input
 //     layer with the bounds of the card's intensity normalisation, the
 //     alpha1-beta0 rule in the lower convolutions, the epsilon rule in the
 //     upper convolutions and LRP-0 (epsilon rule with a vanishing epsilon)
 //     in the dense layers. BatchNormalization after a convolution is folded
-//     into it first (graph.FoldBatchNorm); ReLU, Dropout, Identity and the
+//     into it first (onnx.FoldBatchNorm); ReLU, Dropout, Identity and the
 //     shape operators pass relevance on unchanged; max pooling routes it to
 //     the winner; average pooling splits it in proportion to the inputs.
 //     Check: conservation, the input relevance plus the relevance the biases

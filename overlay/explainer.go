@@ -7,7 +7,9 @@ import (
 	"math"
 
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 )
 
 // Explainer computes relevance maps for one model folder. It is made once per
@@ -18,7 +20,7 @@ type Explainer struct {
 	session *inference.Session // for occlusion; may be nil
 
 	input, logits string
-	exec          *onnx.Executor // the model as given; nil when it cannot run
+	exec          *exec.Executor // the model as given; nil when it cannot run
 	execErr       error
 	maxBatch      int // largest batch the executor may run (1 for a fixed batch)
 
@@ -39,7 +41,7 @@ func New(b *inference.ModelFolder, s *inference.Session) (*Explainer, error) {
 		return nil, fmt.Errorf("overlay: decode %s: %w", inference.ModelFile, err)
 	}
 	e := &Explainer{card: b.Card, session: s, input: b.Card.Input.Name, logits: b.Card.Outputs.Logits, maxBatch: 1}
-	e.exec, e.execErr = onnx.NewExecutor(m)
+	e.exec, e.execErr = exec.NewExecutor(m)
 	if e.execErr != nil {
 		e.execErr = fmt.Errorf("the Go executor cannot run this model: %w", e.execErr)
 		e.lrpErr = e.execErr
@@ -124,7 +126,7 @@ func (m *Map) Sum() float64 {
 // Compute makes the map of method for the prepared model input t (one case,
 // in the card's layout, as inference.PrepareForCard returns it). It stops
 // early with ctx's error when ctx is cancelled.
-func (e *Explainer) Compute(ctx context.Context, method Method, t *inference.Tensor, opt Options) (*Map, error) {
+func (e *Explainer) Compute(ctx context.Context, method Method, t *preprocess.Tensor, opt Options) (*Map, error) {
 	if err := e.unavailable(method); err != nil {
 		return nil, err
 	}
@@ -261,18 +263,18 @@ func (tg target) score(logits []float32) float64 {
 
 // zbBounds are the lowest and highest values the card's intensity
 // normalisation can give (NaN when it does not bound them).
-func zbBounds(in inference.Intensity) [2]float64 {
+func zbBounds(in preprocess.Intensity) [2]float64 {
 	switch {
-	case in.Method == inference.NormPercentileMinMax:
+	case in.Method == preprocess.NormPercentileMinMax:
 		return [2]float64{0, 1}
-	case in.Method == inference.NormZScoreHead && in.Clip > 0:
+	case in.Method == preprocess.NormZScoreHead && in.Clip > 0:
 		return [2]float64{-in.Clip, in.Clip}
 	}
 	return [2]float64{math.NaN(), math.NaN()}
 }
 
 // graphInput wraps the case's values as the executor's input tensor.
-func graphInput(t *inference.Tensor) *onnx.Tensor {
+func graphInput(t *preprocess.Tensor) *onnx.Tensor {
 	shape := make([]int, len(t.Shape))
 	for i, d := range t.Shape {
 		shape[i] = int(d)
@@ -282,7 +284,7 @@ func graphInput(t *inference.Tensor) *onnx.Tensor {
 }
 
 // toGrid returns values laid out as t (the card's layout) in grid order.
-func toGrid(t *inference.Tensor, values []float32) []float32 {
+func toGrid(t *preprocess.Tensor, values []float32) []float32 {
 	c := *t
 	c.Data = values
 	out := c.GridValues()

@@ -5,12 +5,13 @@ import (
 	"fmt"
 	"math"
 
-	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 )
 
 // computeLRP runs the planned LRP rules and reports their conservation.
-func (e *Explainer) computeLRP(ctx context.Context, t *inference.Tensor, tg target, opt Options) (*Map, error) {
+func (e *Explainer) computeLRP(ctx context.Context, t *preprocess.Tensor, tg target, opt Options) (*Map, error) {
 	x, err := e.input1(t)
 	if err != nil {
 		return nil, err
@@ -21,29 +22,39 @@ func (e *Explainer) computeLRP(ctx context.Context, t *inference.Tensor, tg targ
 	}
 	f := res.target
 	rsum := sum(res.input.Data)
-	den := math.Max(math.Abs(f), 1e-12)
+	checks := map[string]float64{
+		// The ledger adds up by construction: every rule books what it
+		// does not pass on (the bias terms from the biases, the
+		// stabiliser terms from the epsilons). This is a consistency
+		// check of the implementation (forward pass against backward
+		// rules), not a measure of how much of the logit reaches the
+		// voxels; input_share is that measure.
+		"consistency_error": math.Abs(rsum+res.ledger.bias+res.ledger.stab-f) / math.Max(math.Abs(f), 1e-12),
+		"relevance_sum":     rsum,
+		"target_logit":      f,
+	}
+	// Bach et al. 2015, eq. 2 and section 3: relevance is conserved from
+	// layer to layer when nothing is absorbed; the shares say how much of
+	// the logit f the voxels, the biases and the stabilisers carry
+	// (input + bias + stabiliser = 1).
+	if f != 0 {
+		checks["input_share"] = rsum / f
+		checks["bias_share"] = res.ledger.bias / f
+		checks["stabiliser_share"] = res.ledger.stab / f
+	}
 	return &Map{
-		Rule:     e.lrp.describe(opt.Rule, opt.Epsilon),
+		Rule:     e.lrp.describe(opt),
 		Target:   f,
 		Values:   toGrid(t, res.input.Data),
 		Additive: true,
 		Passes:   1,
-		Checks: map[string]float64{
-			// Bach et al. 2015, eq. 2 and section 3: relevance is conserved
-			// from layer to layer; what the biases and stabilisers take is
-			// booked from their own terms.
-			"conservation_error": math.Abs(rsum+res.ledger.bias+res.ledger.stab-f) / den,
-			"relevance_sum":      rsum,
-			"target_logit":       f,
-			"bias_share":         res.ledger.bias / den,
-			"stabiliser_share":   res.ledger.stab / den,
-		},
-		Settings: map[string]any{"rule": string(opt.Rule), "epsilon": opt.Epsilon},
+		Checks:   checks,
+		Settings: map[string]any{"rule": string(opt.Rule), "epsilon": opt.Epsilon, "bias": string(opt.Bias), "lower_convs": e.lrp.lowerConvs(opt)},
 	}, nil
 }
 
 // input1 checks t's size and wraps it as a one-case executor input.
-func (e *Explainer) input1(t *inference.Tensor) (*onnx.Tensor, error) {
+func (e *Explainer) input1(t *preprocess.Tensor) (*onnx.Tensor, error) {
 	n := 1
 	for _, d := range t.Shape[1:] {
 		n *= int(d)
@@ -100,7 +111,7 @@ func (e *Explainer) gradBatch(x *onnx.Tensor, tg target) (*onnx.Tensor, []float6
 	if err != nil {
 		return nil, nil, err
 	}
-	g, err := e.exec.BackwardWith(tr, map[string]*onnx.Tensor{e.logits: seed}, onnx.BackwardOptions{NoParams: true})
+	g, err := e.exec.BackwardWith(tr, map[string]*onnx.Tensor{e.logits: seed}, exec.BackwardOptions{NoParams: true})
 	if err != nil {
 		return nil, nil, err
 	}
@@ -132,7 +143,7 @@ func (e *Explainer) scoresOf(one *onnx.Tensor, cases [][]float32, tg target) ([]
 }
 
 // computeGradInput is gradient × input (Shrikumar et al. 2016).
-func (e *Explainer) computeGradInput(ctx context.Context, t *inference.Tensor, tg target) (*Map, error) {
+func (e *Explainer) computeGradInput(ctx context.Context, t *preprocess.Tensor, tg target) (*Map, error) {
 	x, err := e.input1(t)
 	if err != nil {
 		return nil, err
@@ -149,7 +160,7 @@ func (e *Explainer) computeGradInput(ctx context.Context, t *inference.Tensor, t
 	return &Map{
 		Rule: "gradient of the target logit times the input", Target: s[0], Values: toGrid(t, v),
 		Additive: true, Passes: 1,
-		Checks: map[string]float64{"relevance_sum": rsum, "target_logit": s[0]},
+		Checks: withInputShare(map[string]float64{"relevance_sum": rsum, "target_logit": s[0]}),
 	}, nil
 }
 
@@ -160,7 +171,7 @@ func (e *Explainer) computeGradInput(ctx context.Context, t *inference.Tensor, t
 // m steps are among those of 3m, so no gradient is computed twice), as the
 // paper advises ("check completeness; if the error is large, use more
 // steps"), up to MaxSteps.
-func (e *Explainer) computeIG(ctx context.Context, t *inference.Tensor, tg target, opt Options) (*Map, error) {
+func (e *Explainer) computeIG(ctx context.Context, t *preprocess.Tensor, tg target, opt Options) (*Map, error) {
 	x, err := e.input1(t)
 	if err != nil {
 		return nil, err
@@ -219,7 +230,7 @@ func (e *Explainer) computeIG(ctx context.Context, t *inference.Tensor, tg targe
 	return &Map{
 		Rule:   fmt.Sprintf("integrated gradients, %s baseline, %d midpoint steps", opt.Baseline, n),
 		Target: ends[0], Values: toGrid(t, v), Additive: true, Passes: passes,
-		Checks: map[string]float64{
+		Checks: withInputShare(map[string]float64{
 			// Sundararajan et al. 2017, Proposition 1 (completeness):
 			// Σ_i IG_i = f(x) − f(x').
 			"completeness_error": cerr,
@@ -227,9 +238,19 @@ func (e *Explainer) computeIG(ctx context.Context, t *inference.Tensor, tg targe
 			"target_logit":       ends[0],
 			"baseline_logit":     ends[1],
 			"steps":              float64(n),
-		},
+		}),
 		Settings: map[string]any{"steps": n, "baseline": string(opt.Baseline), "blur_sigma_mm": blurSetting(opt), "tolerance": opt.Tolerance},
 	}, nil
+}
+
+// withInputShare adds input_share, the map's sum over the target logit
+// (relevance_sum / target_logit), when the logit is not 0. For integrated
+// gradients it is 1 − f(x')/f(x): the baseline keeps the rest.
+func withInputShare(c map[string]float64) map[string]float64 {
+	if f := c["target_logit"]; f != 0 {
+		c["input_share"] = c["relevance_sum"] / f
+	}
+	return c
 }
 
 func blurSetting(opt Options) any {
@@ -240,7 +261,7 @@ func blurSetting(opt Options) any {
 }
 
 // baseline returns the integrated-gradients baseline in t's layout.
-func (e *Explainer) baseline(t *inference.Tensor, opt Options) ([]float32, error) {
+func (e *Explainer) baseline(t *preprocess.Tensor, opt Options) ([]float32, error) {
 	switch opt.Baseline {
 	case BaselineZero:
 		return make([]float32, len(t.Data)), nil

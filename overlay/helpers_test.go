@@ -11,7 +11,9 @@ import (
 	"testing"
 
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 	"brightfold/internal/refcheck"
 )
 
@@ -23,12 +25,12 @@ func testCard(model []byte, g int) *inference.Card {
 	return &inference.Card{
 		Schema: inference.SchemaVersion, Name: "overlay-test", Version: "0",
 		Classes: []string{"negative", "positive"}, PositiveClass: "positive",
-		Input: inference.InputSpec{Name: "scan", Shape: []int64{-1, 1, int64(g), int64(g), int64(g)}, Layout: inference.LayoutNCDHW, DataType: "float32"},
-		Preprocessing: inference.Preprocessing{
+		Input: inference.InputSpec{Name: "scan", Shape: []int64{-1, 1, int64(g), int64(g), int64(g)}, Layout: preprocess.LayoutNCDHW, DataType: "float32"},
+		Preprocessing: preprocess.Spec{
 			Orientation: "RAS", SpacingMm: [3]float64{4, 4, 4}, Shape: [3]int{g, g, g},
 			Crop: "head-centre", Antialias: "block-mean", Interpolation: "trilinear",
-			HeadMask:  inference.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
-			Intensity: inference.Intensity{Method: inference.NormZScoreHead, Clip: 5},
+			HeadMask:  preprocess.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
+			Intensity: preprocess.Intensity{Method: preprocess.NormZScoreHead, Clip: 5},
 		},
 		Outputs:     inference.OutputSpec{Logits: "logits", Features: "features", Activation: inference.ActivationSoftmax},
 		Calibration: inference.Calibration{Temperature: 1},
@@ -64,8 +66,8 @@ func uniform(r *rand.Rand, lo, hi float64, n int) *onnx.Tensor {
 func testModel(t testing.TB, spec modelSpec) []byte {
 	t.Helper()
 	r := rand.New(rand.NewPCG(11, 12))
-	b := onnx.NewBuilder("overlay-test", 13)
-	pad := onnx.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}}
+	b := exec.NewBuilder("overlay-test", 13)
+	pad := exec.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}}
 	bn := func(name, x string, c int) string {
 		return b.BatchNorm(name, x, uniform(r, 0.5, 1.5, c), uniform(r, -0.2, 0.2, c), uniform(r, -0.3, 0.3, c), uniform(r, 0.5, 2, c), 1e-5)
 	}
@@ -112,9 +114,9 @@ func testModelFolder(t testing.TB, spec modelSpec) *inference.ModelFolder {
 }
 
 // testInput is a smooth random head-like input on a g³ grid.
-func testInput(g int, seed uint64) *inference.Tensor {
+func testInput(g int, seed uint64) *preprocess.Tensor {
 	r := rand.New(rand.NewPCG(seed, 3))
-	t := &inference.Tensor{Layout: inference.LayoutNCDHW, Grid: [3]int{g, g, g}, Shape: []int64{1, 1, int64(g), int64(g), int64(g)}, Data: make([]float32, g*g*g)}
+	t := &preprocess.Tensor{Layout: preprocess.LayoutNCDHW, Grid: [3]int{g, g, g}, Shape: []int64{1, 1, int64(g), int64(g), int64(g)}, Data: make([]float32, g*g*g)}
 	c := float64(g-1) / 2
 	for z := 0; z < g; z++ {
 		for y := 0; y < g; y++ {

@@ -5,6 +5,7 @@ import (
 	"sync"
 
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 )
 
 // linearLayer is a weighted node (Conv, Gemm, MatMul with constant weights)
@@ -16,10 +17,10 @@ type linearLayer struct {
 	node           *onnx.Node
 	w, b           *onnx.Tensor // b is nil without a bias
 	wPos, wNeg     *onnx.Tensor
-	full, pos, neg *onnx.Executor
+	full, pos, neg *exec.Executor
 	// split holds W⁺ and W⁻ side by side along the input channels (a Conv
 	// without groups), so that one backward pass gives W⁺ᵀs and W⁻ᵀs.
-	split  *onnx.Executor
+	split  *exec.Executor
 	wSplit *onnx.Tensor
 	// geom is set for a Conv whose input-side products can be scattered
 	// from a sparse s (convt.go).
@@ -41,19 +42,19 @@ func newLinearLayer(n *onnx.Node, opset int64, w, b *onnx.Tensor) (*linearLayer,
 		}
 	}
 	var err error
-	if l.full, err = onnx.NewExecutor(layerModel(n, opset, w, b)); err != nil {
+	if l.full, err = exec.NewExecutor(layerModel(n, opset, w, b)); err != nil {
 		return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 	}
-	if l.pos, err = onnx.NewExecutor(layerModel(n, opset, l.wPos, nil)); err != nil {
+	if l.pos, err = exec.NewExecutor(layerModel(n, opset, l.wPos, nil)); err != nil {
 		return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 	}
-	if l.neg, err = onnx.NewExecutor(layerModel(n, opset, l.wNeg, nil)); err != nil {
+	if l.neg, err = exec.NewExecutor(layerModel(n, opset, l.wNeg, nil)); err != nil {
 		return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 	}
 	l.geom, l.sparse = convGeometry(n, w)
 	if g, _ := n.AttrInt("group", 1); n.OpType == "Conv" && g == 1 && len(w.Shape) >= 3 {
 		l.wSplit = stackChannels(l.wPos, l.wNeg)
-		if l.split, err = onnx.NewExecutor(layerModel(n, opset, l.wSplit, nil)); err != nil {
+		if l.split, err = exec.NewExecutor(layerModel(n, opset, l.wSplit, nil)); err != nil {
 			return nil, fmt.Errorf("%s: %w", n.Describe(), err)
 		}
 	}
@@ -128,7 +129,7 @@ func layerModel(n *onnx.Node, opset int64, w, b *onnx.Tensor) *onnx.Model {
 }
 
 // forward runs one of the layer's executors on x.
-func forward(e *onnx.Executor, x *onnx.Tensor) (*onnx.Tensor, error) {
+func forward(e *exec.Executor, x *onnx.Tensor) (*onnx.Tensor, error) {
 	tr, err := e.Forward(map[string]*onnx.Tensor{"x": x})
 	if err != nil {
 		return nil, err
@@ -139,12 +140,12 @@ func forward(e *onnx.Executor, x *onnx.Tensor) (*onnx.Tensor, error) {
 // vjp returns sᵀ·∂z/∂x of one of the layer's executors (w, b its weights),
 // at input x with output shape like z. For a linear layer it does not
 // depend on x's values.
-func vjp(e *onnx.Executor, w, b, x, z, s *onnx.Tensor) (*onnx.Tensor, error) {
+func vjp(e *exec.Executor, w, b, x, z, s *onnx.Tensor) (*onnx.Tensor, error) {
 	vals := map[string]*onnx.Tensor{"x": x, "w": w, "z": z}
 	if b != nil {
 		vals["b"] = b
 	}
-	g, err := e.BackwardWith(&onnx.Trace{Values: vals}, map[string]*onnx.Tensor{"z": s}, onnx.BackwardOptions{NoParams: true})
+	g, err := e.BackwardWith(&exec.Trace{Values: vals}, map[string]*onnx.Tensor{"z": s}, exec.BackwardOptions{NoParams: true})
 	if err != nil {
 		return nil, err
 	}

@@ -78,10 +78,6 @@ func (m Method) About() string {
 	return ""
 }
 
-// needsExecutor reports whether the method runs on the Go executor (as
-// opposed to ONNX Runtime).
-func (m Method) needsExecutor() bool { return m != Occlusion }
-
 // Availability says whether a method can run on a model folder and, if not, why.
 type Availability struct {
 	Method    Method

@@ -4,7 +4,7 @@ import (
 	"context"
 	"fmt"
 
-	"brightfold/inference"
+	"brightfold/inference/preprocess"
 )
 
 // patchStarts are the first voxels of the patches along an axis of n voxels:
@@ -27,7 +27,7 @@ func patchStarts(n, patch, stride int) []int {
 // 4.2): a cube of Patch voxels is set to Fill at positions Stride apart, the
 // model runs on each occluded input through ONNX Runtime, and every voxel
 // gets the mean drop f(x) − f(x occluded) over the patches that cover it.
-func (e *Explainer) computeOcclusion(ctx context.Context, t *inference.Tensor, tg target, opt Options) (*Map, error) {
+func (e *Explainer) computeOcclusion(ctx context.Context, t *preprocess.Tensor, tg target, opt Options) (*Map, error) {
 	if len(t.Shape) < 2 || t.Shape[0] != 1 {
 		return nil, fmt.Errorf("overlay: tensor of shape %v; want one case", t.Shape)
 	}
@@ -49,7 +49,7 @@ func (e *Explainer) computeOcclusion(ctx context.Context, t *inference.Tensor, t
 	}
 	total := len(patches) + 1
 	opt.progress(0, total)
-	out, err := e.session.Run([]*inference.Tensor{t})
+	out, err := e.session.Run([]*preprocess.Tensor{t})
 	if err != nil {
 		return nil, err
 	}
@@ -62,7 +62,7 @@ func (e *Explainer) computeOcclusion(ctx context.Context, t *inference.Tensor, t
 			return nil, err
 		}
 		hi := min(len(patches), lo+batch)
-		ts := make([]*inference.Tensor, hi-lo)
+		ts := make([]*preprocess.Tensor, hi-lo)
 		for i := range ts {
 			ts[i] = occluded(t, patches[lo+i], opt.Patch, opt.Fill)
 		}
@@ -103,7 +103,7 @@ func (e *Explainer) score(logits []float64, tg target) float64 {
 }
 
 // occluded returns a copy of t with the cube at p set to fill.
-func occluded(t *inference.Tensor, p [3]int, patch int, fill float32) *inference.Tensor {
+func occluded(t *preprocess.Tensor, p [3]int, patch int, fill float32) *preprocess.Tensor {
 	c := *t
 	c.Data = append([]float32(nil), t.Data...)
 	eachVoxel(t, p, patch, func(off int) { c.Data[off] = fill })
@@ -112,7 +112,7 @@ func occluded(t *inference.Tensor, p [3]int, patch int, fill float32) *inference
 
 // eachVoxel calls fn with the data offset of every voxel of the cube at p
 // (clipped to the grid).
-func eachVoxel(t *inference.Tensor, p [3]int, patch int, fn func(off int)) {
+func eachVoxel(t *preprocess.Tensor, p [3]int, patch int, fn func(off int)) {
 	g := t.Grid
 	for z := p[2]; z < min(p[2]+patch, g[2]); z++ {
 		for y := p[1]; y < min(p[1]+patch, g[1]); y++ {

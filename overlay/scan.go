@@ -5,13 +5,13 @@ import (
 	"fmt"
 	"math"
 
-	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/volume"
 )
 
 // GridVolume returns the map as a volume on the model grid (the grid's
 // voxel-to-RAS affine from the preprocessing transform).
-func (m *Map) GridVolume(tr inference.Transform) (*volume.Volume, error) {
+func (m *Map) GridVolume(tr preprocess.Transform) (*volume.Volume, error) {
 	if m.Grid != tr.GridDims {
 		return nil, fmt.Errorf("overlay: map grid %v, transform grid %v", m.Grid, tr.GridDims)
 	}
@@ -35,7 +35,7 @@ func (m *Map) GridVolume(tr inference.Transform) (*volume.Volume, error) {
 // so that its sum over the scan stays close to its sum over the model grid
 // (the values are relevance per scan voxel); occlusion drops keep their
 // units.
-func (m *Map) ToScan(tr inference.Transform) (*volume.Volume, error) {
+func (m *Map) ToScan(tr preprocess.Transform) (*volume.Volume, error) {
 	g, err := m.GridVolume(tr)
 	if err != nil {
 		return nil, err
@@ -48,7 +48,7 @@ func (m *Map) ToScan(tr inference.Transform) (*volume.Volume, error) {
 		return nil, fmt.Errorf("overlay: resample onto the scan grid: %w", err)
 	}
 	if m.Additive {
-		ratio := math.Abs(det3(tr.ScanAffine) / det3(tr.GridAffine))
+		ratio := math.Abs(tr.ScanAffine.Det() / tr.GridAffine.Det())
 		if !(ratio > 0) || math.IsInf(ratio, 0) {
 			return nil, errors.New("overlay: degenerate voxel size in the transform")
 		}
@@ -58,13 +58,6 @@ func (m *Map) ToScan(tr inference.Transform) (*volume.Volume, error) {
 	}
 	out.Meta.Format = "relevance"
 	return out, nil
-}
-
-// det3 is the determinant of an affine's 3×3 part: the voxel volume in mm³.
-func det3(a volume.Affine) float64 {
-	return a[0][0]*(a[1][1]*a[2][2]-a[1][2]*a[2][1]) -
-		a[0][1]*(a[1][0]*a[2][2]-a[1][2]*a[2][0]) +
-		a[0][2]*(a[1][0]*a[2][1]-a[1][1]*a[2][0])
 }
 
 // Peak returns the voxel of v with the largest value (the strongest

@@ -3,8 +3,8 @@ package viewer
 import (
 	"image"
 	"testing"
-	"time"
 
+	"brightfold/internal/cputime"
 	"brightfold/internal/volume"
 )
 
@@ -34,7 +34,7 @@ func benchRender(b *testing.B, d [3]int, pl Plane, interp Interp, overlay bool) 
 	}
 	dst := image.NewRGBA(image.Rect(0, 0, f.Width, f.Height))
 	b.ResetTimer()
-	cpu0 := processCPU()
+	cpu0 := cputime.Seconds()
 	for i := 0; i < b.N; i++ {
 		if err := s.RenderInto(dst, f, l); err != nil {
 			b.Fatal(err)
@@ -47,9 +47,9 @@ func benchRender(b *testing.B, d [3]int, pl Plane, interp Interp, overlay bool) 
 // wall time per operation rises when other jobs share the cores, CPU time
 // much less. The render loop is single-threaded, so the two agree on an idle
 // machine.
-func reportCPU(b *testing.B, cpu0 time.Duration) {
-	if d := processCPU() - cpu0; d > 0 {
-		b.ReportMetric(float64(d.Nanoseconds())/float64(b.N), "cpu-ns/op")
+func reportCPU(b *testing.B, cpu0 float64) {
+	if d := cputime.Seconds() - cpu0; d > 0 {
+		b.ReportMetric(d*1e9/float64(b.N), "cpu-ns/op")
 	}
 }
 
@@ -78,7 +78,7 @@ func BenchmarkReferenceCopySlice(b *testing.B) {
 	v, _ := volume.New([3]int{256, 256, 64}, volume.Identity())
 	dst := image.NewRGBA(image.Rect(0, 0, 256, 256))
 	b.ResetTimer()
-	cpu0 := processCPU()
+	cpu0 := cputime.Seconds()
 	defer reportCPU(b, cpu0)
 	for n := 0; n < b.N; n++ {
 		for j := 0; j < 256; j++ {

@@ -3,6 +3,8 @@ package viewer
 import (
 	"math"
 	"slices"
+
+	"brightfold/internal/stats"
 )
 
 // maxSample bounds the values kept for percentiles: larger volumes are
@@ -63,24 +65,10 @@ func newDistribution(data []float32, magnitudes bool) distribution {
 // empty reports whether no finite value was found.
 func (d distribution) empty() bool { return len(d.sorted) == 0 }
 
-// percentile returns the p-th percentile (0 ≤ p ≤ 100) by linear
-// interpolation between order statistics: position h = (n-1)·p/100, as in
-// Hyndman & Fan (1996) definition 7, numpy.percentile's default. NaN when
-// empty.
-func (d distribution) percentile(p float64) float64 {
-	n := len(d.sorted)
-	if n == 0 || math.IsNaN(p) {
-		return math.NaN()
-	}
-	p = math.Max(0, math.Min(100, p))
-	h := float64(n-1) * p / 100
-	lo := int(math.Floor(h))
-	if lo >= n-1 {
-		return float64(d.sorted[n-1])
-	}
-	a, b := float64(d.sorted[lo]), float64(d.sorted[lo+1])
-	return a + (h-float64(lo))*(b-a)
-}
+// percentile returns the p-th percentile (0 ≤ p ≤ 100, clamped) by linear
+// interpolation between order statistics (stats.Quantile at p/100: Hyndman
+// & Fan 1996 definition 7, numpy.percentile's default). NaN when empty.
+func (d distribution) percentile(p float64) float64 { return stats.Quantile(d.sorted, p/100) }
 
 // rank returns the percentile (0..100) at which value x sits: the share of
 // values below or equal to it.

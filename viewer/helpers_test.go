@@ -57,5 +57,3 @@ func headPhantom(t testing.TB, dims [3]int, sp [3]float64) *volume.Volume {
 		return 0
 	})
 }
-
-func expNeg(x float64) float64 { return math.Exp(-x) }

@@ -9,6 +9,9 @@ import (
 
 	"brightfold/internal/notice"
 	"brightfold/internal/volume"
+	"brightfold/internal/volume/dicom"
+	_ "brightfold/internal/volume/formats"
+	"brightfold/internal/volume/nifti"
 )
 
 // inspectReport is the JSON of one inspected input.
@@ -90,7 +93,7 @@ func runInspect(e *env, args []string) error {
 	var reports []*inspectReport
 	var dicom []string
 	for _, p := range paths {
-		if volume.IsNIfTIPath(p) {
+		if nifti.IsPath(p) {
 			r, err := inspectNIfTI(p, o)
 			if err != nil {
 				return err
@@ -129,7 +132,7 @@ func inspectNIfTI(p string, o inspectOptions) (*inspectReport, error) {
 // inspectDICOM lists the series and describes the chosen one (or the only
 // one); with several series and no choice, the report is the list.
 func inspectDICOM(paths []string, o inspectOptions) (*inspectReport, error) {
-	series, err := volume.ListSeries(paths)
+	series, err := dicom.ListSeries(paths)
 	if err != nil {
 		return nil, err
 	}
@@ -149,7 +152,7 @@ func inspectDICOM(paths []string, o inspectOptions) (*inspectReport, error) {
 	return r, nil
 }
 
-func summarise(series []volume.SeriesInfo) []seriesSummary {
+func summarise(series []dicom.SeriesInfo) []seriesSummary {
 	out := make([]seriesSummary, len(series))
 	for i, s := range series {
 		out[i] = seriesSummary{Key: s.Key, UID: s.UID, Number: s.Number, Description: s.Description,

@@ -26,10 +26,10 @@ func runCLI(args ...string) (code int, stdout, stderr string) {
 
 // TestInspectJSONAgainstNibabel: inspect --json on nibabel's anatomical.nii
 // and example4d.nii.gz reports the shape, affine, axis code and value range
-// nibabel 5.0 reports (volume/testdata/nifti_ref.py), plus the notice.
+// nibabel 5.0 reports (volume/nifti/testdata/nifti_ref.py), plus the notice.
 func TestInspectJSONAgainstNibabel(t *testing.T) {
 	refcheck.PythonModule(t, "nibabel")
-	script := filepath.Join(refcheck.RepoRoot(), "internal", "volume", "testdata", "nifti_ref.py")
+	script := filepath.Join(refcheck.RepoRoot(), "internal", "volume", "nifti", "testdata", "nifti_ref.py")
 	for _, name := range []string{"anatomical.nii", "example4d.nii.gz"} {
 		p := refcheck.Path(t, filepath.Join(nibabelDir, name))
 		code, out, errs := runCLI("inspect", p, "--json")

@@ -7,14 +7,25 @@ import (
 	"strings"
 
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/notice"
 	"brightfold/internal/ortlib"
 )
 
-// runModelFolder dispatches `brightfold model check`.
+// runModelFolder dispatches `brightfold model check|make|show|recalibrate`.
 func runModelFolder(e *env, args []string) error {
+	if len(args) > 0 {
+		switch args[0] {
+		case "make":
+			return runModelMake(e, args[1:])
+		case "show":
+			return runModelShow(e, args[1:])
+		case "recalibrate":
+			return runModelRecalibrate(e, args[1:])
+		}
+	}
 	if len(args) == 0 || args[0] != "check" {
-		return usageError("usage: brightfold model check MODEL [--ort-lib PATH] [--no-run] [--json]")
+		return usageError("usage: brightfold model check|make|show|recalibrate ... (brightfold model make --help)")
 	}
 	fs := newFlags(e, "model check")
 	ortLib := fs.String("ort-lib", "", "path of the ONNX Runtime library "+ortlib.FileName)
@@ -63,9 +74,9 @@ func trialRun(b *inference.ModelFolder, lib string) (string, error) {
 	defer s.Close()
 	c := b.Card
 	p := c.Preprocessing.Shape
-	t := &inference.Tensor{Data: make([]float32, p[0]*p[1]*p[2]), Shape: append([]int64{1}, c.Input.Shape[1:]...),
+	t := &preprocess.Tensor{Data: make([]float32, p[0]*p[1]*p[2]), Shape: append([]int64{1}, c.Input.Shape[1:]...),
 		Layout: c.Input.Layout, Grid: p}
-	out, err := s.Run([]*inference.Tensor{t})
+	out, err := s.Run([]*preprocess.Tensor{t})
 	if err != nil {
 		return "", fmt.Errorf("%s: ONNX Runtime could not run the model: %w", b.Source, err)
 	}

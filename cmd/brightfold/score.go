@@ -17,6 +17,7 @@ import (
 	"brightfold/internal/ortlib"
 	"brightfold/internal/report"
 	"brightfold/internal/volume"
+	_ "brightfold/internal/volume/formats"
 )
 
 type scoreOptions struct {
@@ -180,31 +181,7 @@ func writeResult(o scoreOptions, paths []string, rep *report.Score) error {
 
 // scoreReport is the JSON form of a result.
 func scoreReport(input string, v *volume.Volume, b *inference.ModelFolder, r *inference.Result) *report.Score {
-	c := b.Card
-	orient := "?"
-	if m, err := volume.ClosestAxes(v.Affine); err == nil {
-		orient = m.Code()
-	}
-	rep := &report.Score{
-		Input: report.Input{Path: input, Format: v.Meta.Format, Dims: v.Dims, SpacingMm: v.Spacing(),
-			Orientation: orient, Modality: v.Meta.Modality},
-		Model: report.Model{Name: c.Name, Version: c.Version, SHA256: b.SHA256, Source: b.Source},
-		OOD:   report.OOD{Verdict: r.Verdict, Score: report.Number(r.FitScore)},
-		TimingMs: map[string]float64{"preprocess": r.TimingMs.Preprocess, "model": r.TimingMs.Model,
-			"fit_check": r.TimingMs.FitCheck},
-		Warnings: append([]string{}, v.Warnings...),
-	}
-	if r.Prepared != nil {
-		rep.Prediction = &report.Prediction{Label: r.Prediction.Label, Probability: r.Prediction.Probability,
-			PositiveClass: c.PositiveClass, Probabilities: r.Prediction.Probabilities,
-			Temperature: r.Prediction.Temperature, Uncalibrated: r.Prediction.Uncalibrated}
-	}
-	for _, ch := range r.Checks {
-		rep.OOD.Checks = append(rep.OOD.Checks, report.Check{Name: ch.Name, Value: report.Number(ch.Value),
-			Threshold: ch.Threshold, Pass: ch.Pass, Required: ch.Required, Explanation: ch.Explanation,
-			Severity: report.Number(ch.Severity)})
-	}
-	return rep
+	return report.NewScore(input, v, b, r)
 }
 
 // writeScoreText prints the result for a reader: notice first and last.

@@ -13,8 +13,10 @@ import (
 	"time"
 
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/refcheck"
 	"brightfold/internal/volume"
+	"brightfold/internal/volume/nifti"
 )
 
 // benchScan writes a 256×256×176 1 mm int16 .nii.gz head-like volume (an
@@ -48,7 +50,7 @@ func benchScan(b *testing.B, dir string) string {
 		}
 	}
 	p := filepath.Join(dir, "bench-T1w.nii.gz")
-	if err := volume.WriteNIfTI(p, v, volume.NIfTIWriteOptions{DataType: volume.DTInt16}); err != nil {
+	if err := nifti.Write(p, v, nifti.WriteOptions{DataType: nifti.DTInt16}); err != nil {
 		b.Fatal(err)
 	}
 	return p
@@ -111,11 +113,11 @@ func benchModelFolder(b *testing.B, dir, kind string) string {
 	card := &inference.Card{
 		Schema: inference.SchemaVersion, Name: "bench-" + kind, Version: "0", Task: "benchmark only",
 		Classes: []string{"a", "b"}, PositiveClass: "b",
-		Input: inference.InputSpec{Name: "scan", Shape: []int64{-1, 1, int64(g), int64(g), int64(g)}, Layout: inference.LayoutNCDHW, DataType: "float32"},
-		Preprocessing: inference.Preprocessing{Orientation: "RAS", SpacingMm: [3]float64{sp, sp, sp}, Shape: [3]int{g, g, g},
+		Input: inference.InputSpec{Name: "scan", Shape: []int64{-1, 1, int64(g), int64(g), int64(g)}, Layout: preprocess.LayoutNCDHW, DataType: "float32"},
+		Preprocessing: preprocess.Spec{Orientation: "RAS", SpacingMm: [3]float64{sp, sp, sp}, Shape: [3]int{g, g, g},
 			Crop: "head-centre", Antialias: "block-mean", Interpolation: "trilinear",
-			HeadMask:  inference.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
-			Intensity: inference.Intensity{Method: inference.NormZScoreHead}},
+			HeadMask:  preprocess.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
+			Intensity: preprocess.Intensity{Method: preprocess.NormZScoreHead}},
 		Outputs:     inference.OutputSpec{Logits: "logits", Features: "/flat/Flatten_output_0", Activation: inference.ActivationSoftmax},
 		Calibration: inference.Calibration{Temperature: 1},
 		OOD: inference.OODReference{
@@ -180,7 +182,7 @@ func BenchmarkScoreOverhead(b *testing.B) {
 			b.Fatal(err)
 		}
 		t2 := time.Now()
-		if _, err := sess.Run([]*inference.Tensor{res.Prepared.Tensor}); err != nil {
+		if _, err := sess.Run([]*preprocess.Tensor{res.Prepared.Tensor}); err != nil {
 			b.Fatal(err)
 		}
 		t3 := time.Now()

@@ -12,6 +12,8 @@ import (
 	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
 	"brightfold/internal/volume"
+	"brightfold/internal/volume/dicom"
+	"brightfold/internal/volume/nifti"
 )
 
 // tinyModelFolder copies the inference package's test model and its example card
@@ -50,7 +52,7 @@ func headNIfTI(t *testing.T) string {
 		}
 	}
 	p := filepath.Join(t.TempDir(), "HMRU-0001_T1w.nii.gz")
-	if err := volume.WriteNIfTI(p, v, volume.NIfTIWriteOptions{}); err != nil {
+	if err := nifti.Write(p, v, nifti.WriteOptions{}); err != nil {
 		t.Fatal(err)
 	}
 	return p
@@ -190,7 +192,7 @@ func TestScoreAndModelFolderErrors(t *testing.T) {
 	os.WriteFile(m, b, 0o644)
 	flat, _ := volume.New([3]int{20, 20, 20}, volume.Identity())
 	flatPath := filepath.Join(t.TempDir(), "flat.nii")
-	if err := volume.WriteNIfTI(flatPath, flat, volume.NIfTIWriteOptions{}); err != nil {
+	if err := nifti.Write(flatPath, flat, nifti.WriteOptions{}); err != nil {
 		t.Fatal(err)
 	}
 	cases := []struct {
@@ -257,7 +259,7 @@ func TestScoreHidesIdentifiers(t *testing.T) {
 		t.Fatal(err)
 	}
 	dir := filepath.Join(t.TempDir(), "dicom")
-	err = volume.WriteDICOMSeries(dir, v, volume.DICOMWriteOptions{Seed: "HMRU-0001/T1", PatientName: "DEMO^SUBJECT0001",
+	err = dicom.WriteSeries(dir, v, dicom.WriteOptions{Seed: "HMRU-0001/T1", PatientName: "DEMO^SUBJECT0001",
 		PatientID: "HMRU-0001-ID", PatientBirthDate: "19510203", StudyDate: "20261201", AccessionNumber: "ACC7781",
 		InstitutionName: "Harbourside Memory Research Unit"})
 	if err != nil {
@@ -325,7 +327,7 @@ func TestScoreDemoModelFolder(t *testing.T) {
 			t.Fatal(err)
 		}
 		p := filepath.Join(dir, string(tc.shift)+".nii.gz")
-		if err := volume.WriteNIfTI(p, c.Volume, volume.NIfTIWriteOptions{}); err != nil {
+		if err := nifti.Write(p, c.Volume, nifti.WriteOptions{}); err != nil {
 			t.Fatal(err)
 		}
 		r := score(p)

@@ -2,8 +2,8 @@ package fitcheck
 
 import (
 	"math"
-	"sort"
 
+	"brightfold/internal/stats"
 	"brightfold/internal/volume"
 )
 
@@ -77,7 +77,7 @@ func NoiseRatio(v *volume.Volume, threshold float64) float64 {
 	if len(diffs) < 16 || len(head) < 16 {
 		return math.NaN()
 	}
-	iqr := SelectQuantile(head, 0.75) - SelectQuantile(head, 0.25)
+	iqr := stats.SelectQuantile(head, 0.75) - stats.SelectQuantile(head, 0.25)
 	if !(iqr > 0) {
 		return math.NaN()
 	}
@@ -86,79 +86,11 @@ func NoiseRatio(v *volume.Volume, threshold float64) float64 {
 
 // robustSD is 1.4826 · median(|x − median(x)|); it reorders x.
 func robustSD(x []float64) float64 {
-	med := SelectQuantile(x, 0.5)
+	med := stats.SelectQuantile(x, 0.5)
 	for i, v := range x {
 		x[i] = math.Abs(v - med)
 	}
-	return 1.4826 * SelectQuantile(x, 0.5)
-}
-
-// SelectQuantile returns the quantile u ∈ [0, 1] of x with linear
-// interpolation between order statistics (as Quantiles on sorted data) in
-// expected linear time by selection; it reorders x. NaN for no values.
-func SelectQuantile(x []float64, u float64) float64 {
-	n := len(x)
-	if n == 0 {
-		return math.NaN()
-	}
-	h := math.Max(0, math.Min(1, u)) * float64(n-1)
-	k := int(math.Floor(h))
-	lo := selectK(x, k)
-	if k >= n-1 || h == float64(k) {
-		return lo
-	}
-	hi := x[k+1]
-	for _, v := range x[k+2:] { // after selectK, x[k+1:] holds values ≥ x[k]
-		hi = math.Min(hi, v)
-	}
-	return lo + (h-float64(k))*(hi-lo)
-}
-
-// selectK reorders x so that x[k] is the k-th smallest, everything before
-// it no larger and everything after it no smaller (Hoare's selection with a
-// median-of-three pivot), and returns x[k].
-func selectK(x []float64, k int) float64 {
-	lo, hi := 0, len(x)-1
-	for hi > lo {
-		if hi-lo < 16 {
-			sort.Float64s(x[lo : hi+1])
-			return x[k]
-		}
-		mid := lo + (hi-lo)/2
-		if x[mid] < x[lo] {
-			x[mid], x[lo] = x[lo], x[mid]
-		}
-		if x[hi] < x[lo] {
-			x[hi], x[lo] = x[lo], x[hi]
-		}
-		if x[hi] < x[mid] {
-			x[hi], x[mid] = x[mid], x[hi]
-		}
-		p := x[mid]
-		i, j := lo, hi
-		for i <= j {
-			for x[i] < p {
-				i++
-			}
-			for x[j] > p {
-				j--
-			}
-			if i <= j {
-				x[i], x[j] = x[j], x[i]
-				i++
-				j--
-			}
-		}
-		switch {
-		case k <= j:
-			hi = j
-		case k >= i:
-			lo = i
-		default:
-			return x[k]
-		}
-	}
-	return x[k]
+	return 1.4826 * stats.SelectQuantile(x, 0.5)
 }
 
 // ObliquityDeg is the largest angle, over the three voxel axes, between an

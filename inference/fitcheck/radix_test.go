@@ -42,19 +42,3 @@ func TestSortFloat32MatchesSlicesSort(t *testing.T) {
 		}
 	}
 }
-
-// Quantiles of float32 values equal those of the same values as float64.
-func TestQuantilesFloat32(t *testing.T) {
-	x32 := []float32{-2, -0.5, 0, 0.25, 1, 3.5, 7}
-	x64 := make([]float64, len(x32))
-	for i, v := range x32 {
-		x64[i] = float64(v)
-	}
-	lv := EvenLevels(9)
-	a, b := Quantiles(x32, lv), Quantiles(x64, lv)
-	for i := range a {
-		if a[i] != b[i] {
-			t.Errorf("level %v: float32 %v, float64 %v", lv[i], a[i], b[i])
-		}
-	}
-}

@@ -1,18 +1,20 @@
 // Package fitcheck holds the computations behind Brightfold's "Fit check":
 // the out-of-distribution scores (maximum softmax probability, energy,
 // Mahalanobis distance, Wasserstein-1 distance of intensity profiles, a
-// Hounsfield-unit signature, header and head measurements), the fitting of
-// their references (shared covariance with Ledoit-Wolf shrinkage,
-// thresholds at a retention, temperature scaling) and the evaluation
-// figures (AUROC, expected calibration error). It knows nothing of model
-// cards; package inference applies the card's thresholds.
+// Hounsfield-unit signature, header and head measurements) and the parts of
+// fitting their references that are specific to it (class means, thresholds
+// at a retention). The numeric kernels it builds on (Ledoit-Wolf shrinkage,
+// temperature scaling, AUROC, expected calibration error, quantiles) live in
+// internal/stats. It knows nothing of model cards; package inference applies
+// the card's thresholds.
 package fitcheck
 
 import (
 	"errors"
 	"fmt"
 	"math"
-	"sort"
+
+	"brightfold/internal/stats"
 )
 
 // Check is one fit-check result.
@@ -84,22 +86,6 @@ func Sigmoid(x float64) float64 {
 	return e / (1 + e)
 }
 
-// LogSumExp is log Σ exp(z_i), computed stably.
-func LogSumExp(z []float64) float64 {
-	m := math.Inf(-1)
-	for _, x := range z {
-		m = math.Max(m, x)
-	}
-	if math.IsInf(m, 0) {
-		return m
-	}
-	var s float64
-	for _, x := range z {
-		s += math.Exp(x - m)
-	}
-	return m + math.Log(s)
-}
-
 // BinaryLogits turns one sigmoid logit into the equivalent two-class logits
 // (0, z): softmax of them is (1 − σ(z), σ(z)).
 func BinaryLogits(z float64) []float64 { return []float64{0, z} }
@@ -123,7 +109,7 @@ func Energy(z []float64, T float64) float64 {
 	for i, x := range z {
 		s[i] = x / T
 	}
-	return -T * LogSumExp(s)
+	return -T * stats.LogSumExp(s)
 }
 
 // Mahalanobis returns min_c (f − μ_c)ᵀ Σ⁻¹ (f − μ_c) over the class means,
@@ -134,6 +120,11 @@ func Mahalanobis(f []float64, means [][]float64, precision [][]float64) (float64
 	d := len(f)
 	if len(precision) != d {
 		return 0, -1, fmt.Errorf("mahalanobis: features have %d values, precision is %d×%d", d, len(precision), len(precision))
+	}
+	for i, x := range f {
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			return 0, -1, fmt.Errorf("mahalanobis: feature %d is not a finite number", i)
+		}
 	}
 	best, arg := math.Inf(1), -1
 	diff := make([]float64, d)
@@ -152,7 +143,7 @@ func Mahalanobis(f []float64, means [][]float64, precision [][]float64) (float64
 			}
 			q += diff[i] * row
 		}
-		if q < best {
+		if q < best || arg < 0 {
 			best, arg = q, c
 		}
 	}
@@ -160,102 +151,4 @@ func Mahalanobis(f []float64, means [][]float64, precision [][]float64) (float64
 		return 0, -1, errors.New("mahalanobis: no class means")
 	}
 	return best, arg, nil
-}
-
-// Wasserstein1 is the Wasserstein-1 (earth mover's) distance between the
-// empirical distributions of samples a and b: ∫ |F_a(t) − F_b(t)| dt, the
-// integral of the absolute difference of the two empirical CDFs (for 1D
-// distributions this equals ∫₀¹ |F_a⁻¹(u) − F_b⁻¹(u)| du; Ramdas, García
-// Trillos & Cuturi 2017, "On Wasserstein two-sample testing", Section 2).
-func Wasserstein1(a, b []float64) float64 {
-	if len(a) == 0 || len(b) == 0 {
-		return math.NaN()
-	}
-	sa := append([]float64(nil), a...)
-	sb := append([]float64(nil), b...)
-	sort.Float64s(sa)
-	sort.Float64s(sb)
-	var dist float64
-	i, j := 0, 0
-	prev := math.Min(sa[0], sb[0])
-	na, nb := float64(len(sa)), float64(len(sb))
-	for i < len(sa) || j < len(sb) {
-		var t float64
-		switch {
-		case j >= len(sb) || (i < len(sa) && sa[i] <= sb[j]):
-			t = sa[i]
-		default:
-			t = sb[j]
-		}
-		dist += math.Abs(float64(i)/na-float64(j)/nb) * (t - prev)
-		prev = t
-		for i < len(sa) && sa[i] == t {
-			i++
-		}
-		for j < len(sb) && sb[j] == t {
-			j++
-		}
-	}
-	return dist
-}
-
-// QuantileW1 approximates the Wasserstein-1 distance from two quantile
-// functions sampled at the same levels: the trapezoid-free midpoint sum
-// Σ_k |q_k − r_k| · Δu_k, where Δu_k is the width of the level interval
-// around level k (levels spread evenly in (0, 1) give the plain mean of
-// |q_k − r_k|). See Wasserstein1 for the identity used.
-func QuantileW1(levels, q, r []float64) float64 {
-	n := len(levels)
-	if n == 0 || len(q) != n || len(r) != n {
-		return math.NaN()
-	}
-	var s, wsum float64
-	for k := 0; k < n; k++ {
-		lo := 0.0
-		if k > 0 {
-			lo = (levels[k-1] + levels[k]) / 2
-		}
-		hi := 1.0
-		if k < n-1 {
-			hi = (levels[k] + levels[k+1]) / 2
-		}
-		s += math.Abs(q[k]-r[k]) * (hi - lo)
-		wsum += hi - lo
-	}
-	return s / wsum
-}
-
-// Quantiles returns the values of sorted at the levels (in (0, 1)), with
-// linear interpolation between order statistics (numpy's default),
-// computed in float64.
-func Quantiles[T ~float32 | ~float64](sorted []T, levels []float64) []float64 {
-	out := make([]float64, len(levels))
-	n := len(sorted)
-	for i, u := range levels {
-		if n == 0 {
-			out[i] = math.NaN()
-			continue
-		}
-		h := u * float64(n-1)
-		lo := int(math.Floor(h))
-		switch {
-		case lo < 0:
-			out[i] = float64(sorted[0])
-		case lo >= n-1:
-			out[i] = float64(sorted[n-1])
-		default:
-			a, b := float64(sorted[lo]), float64(sorted[lo+1])
-			out[i] = a + (h-float64(lo))*(b-a)
-		}
-	}
-	return out
-}
-
-// EvenLevels returns n quantile levels (k − 0.5)/n, k = 1..n.
-func EvenLevels(n int) []float64 {
-	out := make([]float64, n)
-	for k := range out {
-		out[k] = (float64(k) + 0.5) / float64(n)
-	}
-	return out
 }

@@ -120,6 +120,11 @@ func Load(path string) (*Model, error) {
 // the input, so truncated or hostile bytes give an error, never a panic or
 // an allocation larger than a small multiple of len(b).
 func Decode(b []byte) (*Model, error) {
+	if err := CheckNoExternalData(b); errors.Is(err, ErrExternalData) {
+		return nil, fmt.Errorf("not a usable ONNX model: %w", err)
+	} else if err != nil {
+		return nil, fmt.Errorf("not a valid ONNX model: %w", err)
+	}
 	m, err := decodeModel(b)
 	if err != nil {
 		return nil, fmt.Errorf("not a valid ONNX model: %w", err)
@@ -543,12 +548,12 @@ func decodeTensorProto(b []byte) (*tensorProto, error) {
 func tensorShape(dims []int64) ([]int, int, error) {
 	shape := make([]int, len(dims))
 	for i, d := range dims {
-		if d < 0 || d > maxElements {
+		if d < 0 || d > MaxElements {
 			return nil, 0, fmt.Errorf("dimension %d out of range in %v", d, dims)
 		}
 		shape[i] = int(d)
 	}
-	n, err := checkedNumel(shape)
+	n, err := CheckedNumel(shape)
 	return shape, n, err
 }
 
@@ -565,7 +570,7 @@ func (tf *tensorFields) values(dt DataType, shape []int, n int) (*Tensor, error)
 			return nil, err
 		}
 		return &Tensor{Shape: shape, Data: data, DType: Float}, nil
-	case dt.isIntKind():
+	case dt.IsInt():
 		ints, err := tf.intValues(dt, n)
 		if err != nil {
 			return nil, err
@@ -621,7 +626,7 @@ func (tf *tensorFields) intValues(dt DataType, n int) ([]int64, error) {
 	}
 	out := make([]int64, n)
 	for i, v := range src {
-		out[i] = normaliseInt(dt, v)
+		out[i] = NormaliseInt(dt, v)
 	}
 	return out, nil
 }
@@ -650,9 +655,9 @@ func rawInt(dt DataType, b []byte) int64 {
 	return int64(b[0])
 }
 
-// normaliseInt truncates a varint-decoded value to dt's range, as the
+// NormaliseInt truncates a varint-decoded value to dt's range, as the
 // int32_data field stores the narrower types widened.
-func normaliseInt(dt DataType, v int64) int64 {
+func NormaliseInt(dt DataType, v int64) int64 {
 	switch dt {
 	case Int32:
 		return int64(int32(v))

@@ -47,8 +47,8 @@ func (d DataType) String() string {
 	return fmt.Sprintf("datatype(%d)", int32(d))
 }
 
-// isIntKind reports whether values of d are held in Tensor.Ints.
-func (d DataType) isIntKind() bool {
+// IsInt reports whether values of d are held in Tensor.Ints.
+func (d DataType) IsInt() bool {
 	switch d {
 	case Int64, Int32, Int16, Int8, Uint16, Uint8, Bool, Uint32:
 		return true
@@ -68,15 +68,15 @@ type Tensor struct {
 
 // New returns a zero float tensor of the given shape.
 func New(shape ...int) *Tensor {
-	return &Tensor{Shape: append([]int(nil), shape...), Data: make([]float32, numel(shape)), DType: Float}
+	return &Tensor{Shape: append([]int(nil), shape...), Data: make([]float32, Numel(shape)), DType: Float}
 }
 
 // FromData returns a float tensor that uses data (not copied) as its elements.
 // It panics if len(data) does not match the shape; it is meant for literals
 // and for code that already knows the sizes.
 func FromData(data []float32, shape ...int) *Tensor {
-	if len(data) != numel(shape) {
-		panic(fmt.Sprintf("graph.FromData: %d values for shape %v", len(data), shape))
+	if len(data) != Numel(shape) {
+		panic(fmt.Sprintf("onnx.FromData: %d values for shape %v", len(data), shape))
 	}
 	return &Tensor{Shape: append([]int(nil), shape...), Data: data, DType: Float}
 }
@@ -84,8 +84,8 @@ func FromData(data []float32, shape ...int) *Tensor {
 // FromInts returns an int64 tensor that uses v (not copied) as its elements.
 // It panics on a size mismatch, like FromData.
 func FromInts(v []int64, shape ...int) *Tensor {
-	if len(v) != numel(shape) {
-		panic(fmt.Sprintf("graph.FromInts: %d values for shape %v", len(v), shape))
+	if len(v) != Numel(shape) {
+		panic(fmt.Sprintf("onnx.FromInts: %d values for shape %v", len(v), shape))
 	}
 	return &Tensor{Shape: append([]int(nil), shape...), Ints: v, DType: Int64}
 }
@@ -94,7 +94,7 @@ func FromInts(v []int64, shape ...int) *Tensor {
 func (t *Tensor) IsFloat() bool { return t.DType == Float || t.DType == Undefined }
 
 // Len is the number of elements the shape describes.
-func (t *Tensor) Len() int { return numel(t.Shape) }
+func (t *Tensor) Len() int { return Numel(t.Shape) }
 
 // Rank is the number of dimensions.
 func (t *Tensor) Rank() int { return len(t.Shape) }
@@ -114,7 +114,7 @@ func (t *Tensor) Clone() *Tensor {
 // Reshaped returns a tensor sharing t's elements with another shape of the
 // same size.
 func (t *Tensor) Reshaped(shape ...int) (*Tensor, error) {
-	if numel(shape) != t.Len() {
+	if Numel(shape) != t.Len() {
 		return nil, fmt.Errorf("reshape %v to %v: element counts differ", t.Shape, shape)
 	}
 	return &Tensor{Shape: append([]int(nil), shape...), Data: t.Data, Ints: t.Ints, DType: t.DType}, nil
@@ -122,7 +122,7 @@ func (t *Tensor) Reshaped(shape ...int) (*Tensor, error) {
 
 // Check verifies that the element slice matches the shape and type.
 func (t *Tensor) Check() error {
-	n, err := checkedNumel(t.Shape)
+	n, err := CheckedNumel(t.Shape)
 	if err != nil {
 		return err
 	}
@@ -132,7 +132,7 @@ func (t *Tensor) Check() error {
 		}
 		return nil
 	}
-	if !t.DType.isIntKind() {
+	if !t.DType.IsInt() {
 		return fmt.Errorf("tensor of type %v has no values this package can compute with", t.DType)
 	}
 	if len(t.Ints) != n {
@@ -153,8 +153,8 @@ func (t *Tensor) String() string {
 	return fmt.Sprintf("%v%v", dt, t.Shape)
 }
 
-// numel multiplies the dims; callers have validated them.
-func numel(shape []int) int {
+// Numel multiplies the dims; callers have validated them.
+func Numel(shape []int) int {
 	n := 1
 	for _, d := range shape {
 		n *= d
@@ -162,32 +162,29 @@ func numel(shape []int) int {
 	return n
 }
 
-// maxElements bounds any tensor this package decodes or creates: 2^27
+// MaxElements bounds any tensor this package decodes or creates: 2^27
 // elements (512 MiB of float32), above what a CNN classifier's layers on a
 // model grid need, so that a hostile shape is an error and not an
 // exhausted memory.
-const maxElements = 1 << 27
+const MaxElements = 1 << 27
 
-// maxTaps bounds the number of taps of a convolution or pooling window.
-const maxTaps = 1 << 16
-
-// checkedNumel multiplies dims with negative and overflow checks.
-func checkedNumel(shape []int) (int, error) {
+// CheckedNumel multiplies dims with negative and overflow checks.
+func CheckedNumel(shape []int) (int, error) {
 	n := 1
 	for _, d := range shape {
 		if d < 0 {
 			return 0, fmt.Errorf("negative dimension in shape %v", shape)
 		}
-		if d != 0 && n > maxElements/d {
-			return 0, fmt.Errorf("shape %v has more than %d elements", shape, maxElements)
+		if d != 0 && n > MaxElements/d {
+			return 0, fmt.Errorf("shape %v has more than %d elements", shape, MaxElements)
 		}
 		n *= d
 	}
 	return n, nil
 }
 
-// sameShape reports whether a and b are equal shapes.
-func sameShape(a, b []int) bool {
+// SameShape reports whether a and b are equal shapes.
+func SameShape(a, b []int) bool {
 	if len(a) != len(b) {
 		return false
 	}
@@ -203,7 +200,7 @@ func sameShape(a, b []int) bool {
 // tensors of the same shape, or +Inf when shapes differ or a value is NaN in
 // only one of them.
 func MaxAbsDiff(a, b *Tensor) float64 {
-	if !sameShape(a.Shape, b.Shape) || len(a.Data) != len(b.Data) {
+	if !SameShape(a.Shape, b.Shape) || len(a.Data) != len(b.Data) {
 		return math.Inf(1)
 	}
 	m := 0.0

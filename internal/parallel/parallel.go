@@ -108,3 +108,36 @@ func (p *panicked) rethrow() {
 		panic(p.value)
 	}
 }
+
+// EachErr calls f(w, k) for indices in [0, n) like Each, and returns the
+// error of the lowest index whose call fails (nil when none does). Once a
+// call has failed, higher indices not yet started are skipped; lower ones
+// still run, so the error returned is the same on every run when each
+// index fails or succeeds regardless of scheduling.
+func EachErr(n, workers int, f func(w, k int) error) error {
+	if n <= 0 {
+		return nil
+	}
+	errs := make([]error, n)
+	var lowest atomic.Int64 // lowest failed index so far; n when none
+	lowest.Store(int64(n))
+	Each(n, workers, func(w, k int) {
+		if int64(k) > lowest.Load() {
+			return
+		}
+		if errs[k] = f(w, k); errs[k] != nil {
+			for {
+				l := lowest.Load()
+				if int64(k) >= l || lowest.CompareAndSwap(l, int64(k)) {
+					break
+				}
+			}
+		}
+	})
+	for _, err := range errs {
+		if err != nil {
+			return err
+		}
+	}
+	return nil
+}

@@ -1,6 +1,8 @@
 package parallel
 
 import (
+	"errors"
+	"fmt"
 	"sync/atomic"
 	"testing"
 )
@@ -78,5 +80,37 @@ func TestPanicReachesCaller(t *testing.T) {
 		if got != "boom" && !(name == "Chunks" && got == nil && Workers(100, 0) == 1) {
 			t.Errorf("%s: recovered %v, want the worker's panic", name, got)
 		}
+	}
+}
+
+// EachErr returns the error of the lowest failing index, skips indices not
+// yet started after a failure, and visits everything when nothing fails.
+func TestEachErr(t *testing.T) {
+	var calls atomic.Int32
+	if err := EachErr(100, 3, func(_, _ int) error { calls.Add(1); return nil }); err != nil || calls.Load() != 100 {
+		t.Errorf("no failure: err %v, %d calls, want nil and 100", err, calls.Load())
+	}
+	calls.Store(0)
+	err := EachErr(1000, 1, func(_, k int) error {
+		calls.Add(1)
+		if k == 7 || k == 9 {
+			return fmt.Errorf("index %d", k)
+		}
+		return nil
+	})
+	if err == nil || err.Error() != "index 7" || calls.Load() != 8 {
+		t.Errorf("one worker: err %v after %d calls, want index 7 after 8", err, calls.Load())
+	}
+	err = EachErr(1000, 4, func(_, k int) error {
+		if k%100 == 42 {
+			return fmt.Errorf("index %d", k)
+		}
+		return nil
+	})
+	if err == nil || err.Error() != "index 42" {
+		t.Errorf("four workers: err %v, want index 42", err)
+	}
+	if EachErr(0, 2, func(_, _ int) error { return errors.New("called") }) != nil {
+		t.Error("n = 0 called f")
 	}
 }

@@ -10,17 +10,17 @@ import (
 	"io"
 	"os"
 	"path/filepath"
-	"runtime"
 	"strconv"
 	"sync"
-	"sync/atomic"
 
 	"github.com/klauspost/compress/gzip"
 
 	"brightfold/internal/atomicfile"
 	"brightfold/internal/inputerr"
 	"brightfold/internal/notice"
-	"brightfold/internal/volume"
+	"brightfold/internal/parallel"
+	"brightfold/internal/volume/dicom"
+	"brightfold/internal/volume/nifti"
 )
 
 // Cohort lists the subjects of a cohort: n in-distribution cases (indices
@@ -49,12 +49,15 @@ func Cohort(seed uint64, n int, shifts bool) []Subject {
 	return out
 }
 
-// CohortColumns are the columns of cohort.csv. Paths are relative to the
-// cohort folder; dicom_path is empty for cases written as NIfTI only. The
-// last column repeats the research-use notice on every row, so that the
-// notice travels with any copy of the table.
-var CohortColumns = []string{"case_id", "nifti_path", "dicom_path", "mask_path", "label",
-	"severity", "age", "sex", "site", "shift", "head_scale", "notice"}
+// CohortColumns returns the columns of cohort.csv (a new slice on each
+// call). Paths are relative to the cohort folder; dicom_path is empty for
+// cases written as NIfTI only. The last column repeats the research-use
+// notice on every row, so that the notice travels with any copy of the
+// table.
+func CohortColumns() []string {
+	return []string{"case_id", "nifti_path", "dicom_path", "mask_path", "label",
+		"severity", "age", "sex", "site", "shift", "head_scale", "notice"}
+}
 
 // CohortFile and NoticeFile are the names of the table and the notice in a cohort folder.
 const (
@@ -194,10 +197,11 @@ func IsCohort(dir string) bool {
 	}
 	defer f.Close()
 	rec, err := csv.NewReader(bufio.NewReader(io.LimitReader(f, 1<<16))).Read()
-	if err != nil || len(rec) != len(CohortColumns) {
+	cols := CohortColumns()
+	if err != nil || len(rec) != len(cols) {
 		return false
 	}
-	for i, c := range CohortColumns {
+	for i, c := range cols {
 		if rec[i] != c {
 			return false
 		}
@@ -235,60 +239,28 @@ func replaceDir(tmp, dir string) error {
 func writeCases(root string, opts WriteOptions) ([]Row, error) {
 	subs := Cohort(opts.Seed, opts.N, opts.Shifts)
 	rows := make([]Row, len(subs))
-	workers := opts.Workers
-	if workers <= 0 {
-		workers = runtime.GOMAXPROCS(0)
-	}
-	jobs := make(chan int)
-	type result struct {
-		i   int
-		err error
-	}
-	results := make(chan result)
-	var wg sync.WaitGroup
-	var stop atomic.Bool
-	for w := 0; w < min(workers, len(subs)); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for i := range jobs {
-				if opts.Context != nil && opts.Context.Err() != nil {
-					stop.Store(true)
-				}
-				if stop.Load() {
-					results <- result{i, errStopped}
-					continue
-				}
-				r, err := writeCase(root, subs[i], opts)
-				if err != nil {
-					stop.Store(true)
-				}
-				rows[i] = r
-				results <- result{i, err}
-			}
-		}()
-	}
-	go func() {
-		defer close(jobs)
-		for i := range subs {
-			jobs <- i
+	var mu sync.Mutex // serialises progress lines
+	done := 0
+	err := parallel.EachErr(len(subs), opts.Workers, func(_, i int) error {
+		if opts.Context != nil && opts.Context.Err() != nil {
+			return errStopped
 		}
-	}()
-	go func() { wg.Wait(); close(results) }()
-	var first error
-	n := 0
-	for res := range results {
-		n++
-		if res.err != nil && !errors.Is(res.err, errStopped) && first == nil {
-			first = res.err
+		r, err := writeCase(root, subs[i], opts)
+		if err != nil {
+			return err
 		}
-		if opts.Progress != nil && res.err == nil {
-			s := subs[res.i]
-			fmt.Fprintf(opts.Progress, "phantom: %s written (shift %s, label %d) [%d/%d]\n", s.ID, s.Shift, s.Label, n, len(subs))
+		rows[i] = r
+		if opts.Progress != nil {
+			mu.Lock()
+			done++
+			s := subs[i]
+			fmt.Fprintf(opts.Progress, "phantom: %s written (shift %s, label %d) [%d/%d]\n", s.ID, s.Shift, s.Label, done, len(subs))
+			mu.Unlock()
 		}
-	}
-	if first != nil {
-		return nil, first
+		return nil
+	})
+	if err != nil && !errors.Is(err, errStopped) {
+		return nil, err
 	}
 	if opts.Context != nil && opts.Context.Err() != nil {
 		return nil, fmt.Errorf("cohort not written: %w", context.Cause(opts.Context))
@@ -296,7 +268,8 @@ func writeCases(root string, opts WriteOptions) ([]Row, error) {
 	return rows, nil
 }
 
-var errStopped = errors.New("stopped after an earlier failure")
+// errStopped marks cases skipped because the context was cancelled.
+var errStopped = errors.New("stopped: the context was cancelled")
 
 // scanName is the NIfTI file name of a case's scan.
 func scanName(sh Shift) string {
@@ -334,17 +307,17 @@ func writeCase(root string, s Subject, opts WriteOptions) (Row, error) {
 	// shorten: Huffman-only coding is much faster than the default level for
 	// a file a few percent larger. In masks, long runs of zeros make the
 	// fastest LZ77 level the right one.
-	if err := volume.WriteNIfTI(filepath.Join(root, row.NIfTIPath), c.Volume,
-		volume.NIfTIWriteOptions{DataType: volume.DTInt16, Description: notice.Short, GzipLevel: gzip.HuffmanOnly}); err != nil {
+	if err := nifti.Write(filepath.Join(root, row.NIfTIPath), c.Volume,
+		nifti.WriteOptions{DataType: nifti.DTInt16, Description: notice.Short, GzipLevel: gzip.HuffmanOnly}); err != nil {
 		return Row{}, err
 	}
-	if err := volume.WriteNIfTI(filepath.Join(root, row.MaskPath), c.Mask,
-		volume.NIfTIWriteOptions{DataType: volume.DTUint8, Description: notice.Short, GzipLevel: gzip.BestSpeed}); err != nil {
+	if err := nifti.Write(filepath.Join(root, row.MaskPath), c.Mask,
+		nifti.WriteOptions{DataType: nifti.DTUint8, Description: notice.Short, GzipLevel: gzip.BestSpeed}); err != nil {
 		return Row{}, err
 	}
 	if wantsDICOM(s, opts.DICOMEvery) {
 		row.DICOMPath = s.ID + "/dicom"
-		if err := volume.WriteDICOMSeries(filepath.Join(root, row.DICOMPath), c.Volume, DICOMOptions(c)); err != nil {
+		if err := dicom.WriteSeries(filepath.Join(root, row.DICOMPath), c.Volume, DICOMOptions(c)); err != nil {
 			return Row{}, err
 		}
 	}
@@ -353,9 +326,9 @@ func writeCase(root string, s Subject, opts WriteOptions) (Row, error) {
 
 // DICOMOptions are the fictional identifiers and acquisition tags with
 // which a case is written as a DICOM series.
-func DICOMOptions(c *Case) volume.DICOMWriteOptions {
+func DICOMOptions(c *Case) dicom.WriteOptions {
 	s, m := c.Subject, c.Volume.Meta
-	return volume.DICOMWriteOptions{
+	return dicom.WriteOptions{
 		Seed:              s.ID + "/" + string(s.Shift) + "/" + strconv.FormatUint(s.Seed, 10),
 		PatientName:       c.Volume.Patient.Name,
 		PatientID:         c.Volume.Patient.ID,
@@ -388,7 +361,7 @@ func DICOMOptions(c *Case) volume.DICOMWriteOptions {
 func writeTable(path string, rows []Row) error {
 	var buf bytes.Buffer
 	w := csv.NewWriter(&buf)
-	w.Write(CohortColumns)
+	w.Write(CohortColumns())
 	for _, r := range rows {
 		w.Write(r.record())
 	}

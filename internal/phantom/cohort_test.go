@@ -17,6 +17,7 @@ import (
 	"brightfold/internal/notice"
 	"brightfold/internal/refcheck"
 	"brightfold/internal/volume"
+	_ "brightfold/internal/volume/formats"
 )
 
 // cohortVoxel is coarse so that a whole cohort with shifts takes seconds.
@@ -89,7 +90,7 @@ func TestCohortTable(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if !slices.Equal(recs[0], CohortColumns) {
+	if !slices.Equal(recs[0], CohortColumns()) {
 		t.Fatalf("header %v", recs[0])
 	}
 	want := []string{"case_id", "nifti_path", "dicom_path", "mask_path", "label", "severity", "age", "sex", "site", "shift"}
@@ -215,7 +216,7 @@ func TestCohortReadByReferences(t *testing.T) {
 		}
 	}
 	refcheck.RunPython(t, filepath.Join("testdata", "check_cohort.py"), &got, dir)
-	if !slices.Equal(got.Columns, CohortColumns) {
+	if !slices.Equal(got.Columns, CohortColumns()) {
 		t.Errorf("csv module read columns %v", got.Columns)
 	}
 	if len(got.Cases) != len(rows) {

@@ -36,14 +36,14 @@ var rayleighTable = sync.OnceValue(func() *[1 << normalBits]float64 {
 // normals draws standard normal variates four at a time from one 64-bit
 // PCG output, several times faster than rand.NormFloat64.
 type normals struct {
-	r               *rand.Rand
-	table, rayleigh *[1 << normalBits]float64
-	bits            uint64
-	left            int
+	r     *rand.Rand
+	table *[1 << normalBits]float64
+	bits  uint64
+	left  int
 }
 
 func newNormals(r *rand.Rand) *normals {
-	return &normals{r: r, table: normalTable(), rayleigh: rayleighTable()}
+	return &normals{r: r, table: normalTable()}
 }
 
 func (n *normals) index() uint64 {
@@ -58,6 +58,3 @@ func (n *normals) index() uint64 {
 
 // next is a standard normal variate.
 func (n *normals) next() float64 { return n.table[n.index()] }
-
-// nextRayleigh is a unit-scale Rayleigh variate.
-func (n *normals) nextRayleigh() float64 { return n.rayleigh[n.index()] }

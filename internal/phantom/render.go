@@ -11,8 +11,9 @@ import (
 	"brightfold/internal/volume"
 )
 
-// FieldOfViewMM is the size of the standard (in-distribution) field of view.
-var FieldOfViewMM = [3]float64{160, 192, 160}
+// FieldOfViewMM returns the size of the standard (in-distribution) field of
+// view in millimetres along x, y, z.
+func FieldOfViewMM() [3]float64 { return [3]float64{160, 192, 160} }
 
 // ThickSliceMM is the slice spacing and thickness of ShiftThick.
 const ThickSliceMM = 6.0
@@ -37,11 +38,11 @@ func gridFor(shift Shift, vox float64) (grid, error) {
 	sp := [3]float64{vox, vox, vox}
 	g := grid{sub: []float64{0}}
 	for i := range g.dims {
-		g.dims[i] = max(1, int(math.Round(FieldOfViewMM[i]/vox)))
+		g.dims[i] = max(1, int(math.Round(FieldOfViewMM()[i]/vox)))
 	}
 	if shift == ShiftThick {
 		sp[2] = ThickSliceMM
-		g.dims[2] = max(1, int(math.Round(FieldOfViewMM[2]/ThickSliceMM)))
+		g.dims[2] = max(1, int(math.Round(FieldOfViewMM()[2]/ThickSliceMM)))
 		n := max(1, int(math.Round(ThickSliceMM/vox)))
 		g.sub = make([]float64, n)
 		for s := range g.sub {

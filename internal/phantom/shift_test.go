@@ -62,7 +62,7 @@ func TestShiftThick(t *testing.T) {
 	if sp[2] != ThickSliceMM || sp[0] != 2 || c.Volume.Meta.SliceThicknessMm != ThickSliceMM {
 		t.Errorf("spacing %v, slice thickness %g", sp, c.Volume.Meta.SliceThicknessMm)
 	}
-	if c.Volume.Dims[2] != int(math.Round(FieldOfViewMM[2]/ThickSliceMM)) {
+	if c.Volume.Dims[2] != int(math.Round(FieldOfViewMM()[2]/ThickSliceMM)) {
 		t.Errorf("dims %v", c.Volume.Dims)
 	}
 	full := gen(t, 1, 0, Options{Shift: ShiftThick, VoxelMM: 1})

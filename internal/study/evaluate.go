@@ -4,13 +4,12 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"runtime"
-	"sync"
 	"sync/atomic"
 	"time"
 
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
+	"brightfold/internal/parallel"
 	"brightfold/internal/phantom"
 	"brightfold/internal/report"
 	"brightfold/internal/volume"
@@ -115,33 +114,19 @@ func ScoreCohort(sess *inference.Session, cfg Config) ([]Case, error) {
 		ctx = context.Background()
 	}
 	subs := Subjects(cfg)
-	workers := cfg.Workers
-	if workers <= 0 {
-		workers = runtime.NumCPU()
-	}
-	workers = min(workers, len(subs))
 	out := make([]Case, len(subs))
 	errs := make([]error, len(subs))
-	var next, done atomic.Int64
-	var wg sync.WaitGroup
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for {
-				i := int(next.Add(1) - 1)
-				if i >= len(subs) || ctx.Err() != nil {
-					return
-				}
-				out[i], errs[i] = scoreSubject(sess, subs[i], cfg.VoxelMM)
-				d := int(done.Add(1))
-				if cfg.Progress != nil {
-					cfg.Progress(d, len(subs))
-				}
-			}
-		}()
-	}
-	wg.Wait()
+	var done atomic.Int64
+	parallel.Each(len(subs), cfg.Workers, func(_, i int) {
+		if ctx.Err() != nil {
+			return
+		}
+		out[i], errs[i] = scoreSubject(sess, subs[i], cfg.VoxelMM)
+		d := int(done.Add(1))
+		if cfg.Progress != nil {
+			cfg.Progress(d, len(subs))
+		}
+	})
 	if err := ctx.Err(); err != nil {
 		return nil, fmt.Errorf("evaluation stopped: %w", err)
 	}

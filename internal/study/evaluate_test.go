@@ -12,6 +12,7 @@ import (
 	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
 	"brightfold/internal/volume"
+	"brightfold/internal/volume/nifti"
 )
 
 // demoSession opens the embedded demo model folder in the real ONNX Runtime.
@@ -104,7 +105,7 @@ func TestInMemoryMatchesFile(t *testing.T) {
 		t.Fatal(err)
 	}
 	p := filepath.Join(t.TempDir(), "t1.nii")
-	if err := volume.WriteNIfTI(p, ph.Volume, volume.NIfTIWriteOptions{}); err != nil {
+	if err := nifti.Write(p, ph.Volume, nifti.WriteOptions{}); err != nil {
 		t.Fatal(err)
 	}
 	v, err := volume.Load([]string{p}, volume.LoadOptions{})

@@ -5,9 +5,9 @@ import (
 	"sort"
 
 	"brightfold/inference"
-	"brightfold/inference/fitcheck"
 	"brightfold/internal/phantom"
 	"brightfold/internal/report"
+	"brightfold/internal/stats"
 )
 
 // ECEBins is the number of equal-width confidence bins of the expected
@@ -161,7 +161,7 @@ func heldOut(id []Case) HeldOut {
 			right++
 		}
 	}
-	h.AUROC = report.Number(fitcheck.AUROC(scores, pos))
+	h.AUROC = report.Number(stats.AUROC(scores, pos))
 	h.Accuracy = report.Number(ratio(right, len(ok)))
 	return h
 }
@@ -186,12 +186,12 @@ func calibration(card *inference.Card, id []Case) Calibration {
 			best := argmax(p)
 			conf[i], right[i] = p[best], best == TrueClass(card, c.Label)
 		}
-		return fitcheck.ECE(conf, right, ECEBins)
+		return stats.ECE(conf, right, ECEBins)
 	}
 	k.ECEBefore, k.ECEAfter = report.Number(ece(1)), report.Number(ece(T))
 	if len(ok) > 0 {
-		k.NLLBefore = report.Number(fitcheck.NLL(logits, labels, 1))
-		k.NLLAfter = report.Number(fitcheck.NLL(logits, labels, T))
+		k.NLLBefore = report.Number(stats.NLL(logits, labels, 1))
+		k.NLLAfter = report.Number(stats.NLL(logits, labels, T))
 	} else {
 		k.NLLBefore, k.NLLAfter = report.Number(math.NaN()), report.Number(math.NaN())
 	}
@@ -257,7 +257,7 @@ func shiftFigure(sh phantom.Shift, id, cs []Case, names []string) ShiftFigure {
 		}
 	}
 	f.FlagRate = report.Number(ratio(f.Flagged, f.N))
-	f.AUROC = report.Number(fitcheck.AUROC(scores, pos))
+	f.AUROC = report.Number(stats.AUROC(scores, pos))
 	for _, n := range names {
 		f.CheckAUROC[n] = report.Number(checkAUROC(n, id, cs))
 	}
@@ -276,7 +276,7 @@ func checkAUROC(name string, id, sh []Case) float64 {
 			}
 		}
 	}
-	return fitcheck.AUROC(scores, pos)
+	return stats.AUROC(scores, pos)
 }
 
 func ratio(a, b int) float64 {

@@ -11,6 +11,7 @@ import (
 	"brightfold/inference"
 	"brightfold/internal/report"
 	"brightfold/internal/volume"
+	_ "brightfold/internal/volume/formats"
 )
 
 // Folders of Debian's reference data with real (non-phantom) scans.

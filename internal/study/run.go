@@ -7,10 +7,10 @@ import (
 	"runtime"
 	"strconv"
 	"strings"
-	"syscall"
 	"time"
 
 	"brightfold/inference"
+	"brightfold/internal/cputime"
 	"brightfold/internal/notice"
 	"brightfold/internal/phantom"
 	"brightfold/internal/report"
@@ -66,7 +66,7 @@ type Machine struct {
 // figures. source names the model folder in the outputs (a folder, a zip or the
 // embedded demo model folder).
 func Run(sess *inference.Session, source string, cfg Config, scans []RealScan) (*Evaluation, error) {
-	t0, cpu0 := time.Now(), cpuSeconds()
+	t0, cpu0 := time.Now(), cputime.Seconds()
 	card := sess.ModelFolder().Card
 	workers := cfg.Workers
 	if workers <= 0 {
@@ -90,7 +90,7 @@ func Run(sess *inference.Session, source string, cfg Config, scans []RealScan) (
 		return nil, fmt.Errorf("real scans: %w", err)
 	}
 	ev.Machine.LoadEnd = report.Number(loadAverage())
-	ev.Timing = Timing{WallS: since(t0), CPUS: report.Number(cpuSeconds() - cpu0)}
+	ev.Timing = Timing{WallS: since(t0), CPUS: report.Number(cputime.Seconds() - cpu0)}
 	return ev, nil
 }
 
@@ -117,14 +117,4 @@ func loadAverage() float64 {
 		return math.NaN()
 	}
 	return x
-}
-
-// cpuSeconds is the process's user plus system CPU time so far.
-func cpuSeconds() float64 {
-	var ru syscall.Rusage
-	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
-		return math.NaN()
-	}
-	tv := func(t syscall.Timeval) float64 { return float64(t.Sec) + float64(t.Usec)/1e6 }
-	return tv(ru.Utime) + tv(ru.Stime)
 }

@@ -13,7 +13,9 @@ import (
 	"sync/atomic"
 
 	"brightfold/inference"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/atomicfile"
+	"brightfold/internal/parallel"
 	"brightfold/internal/phantom"
 )
 
@@ -51,16 +53,16 @@ type Case struct {
 func (c *Case) Example() Example { return Example{X: c.X, Label: c.Subject.Label} }
 
 // Generate renders the phantoms at 1 mm (phantom.Generate), preprocesses
-// each with inference.Prepare exactly as the card states, and measures it
+// each with preprocess.Prepare exactly as the card states, and measures it
 // with inference.MeasureCase at the quantile levels. Cases are made in
 // parallel on workers goroutines; the result is in spec order and does not
 // depend on the number of workers. progress, when set, is called after each
 // case with the number done.
-func Generate(specs []CaseSpec, p inference.Preprocessing, levels []float64, workers int, progress func(done, total int)) ([]Case, error) {
+func Generate(specs []CaseSpec, p preprocess.Spec, levels []float64, workers int, progress func(done, total int)) ([]Case, error) {
 	out := make([]Case, len(specs))
 	var done atomic.Int64
 	var mu sync.Mutex
-	err := forEach(workers, len(specs), func(i int) error {
+	err := parallel.EachErr(len(specs), workers, func(_, i int) error {
 		c, err := makeCase(specs[i], p, levels)
 		if err != nil {
 			return err
@@ -77,13 +79,13 @@ func Generate(specs []CaseSpec, p inference.Preprocessing, levels []float64, wor
 	return out, err
 }
 
-func makeCase(s CaseSpec, p inference.Preprocessing, levels []float64) (Case, error) {
+func makeCase(s CaseSpec, p preprocess.Spec, levels []float64) (Case, error) {
 	ph, err := phantom.Generate(s.Seed, s.Index, phantom.Options{Shift: s.Shift, Workers: 1})
 	if err != nil {
 		return Case{}, fmt.Errorf("phantom seed %d case %d (%s): %w", s.Seed, s.Index, s.Shift, err)
 	}
 	c := Case{Spec: s, Subject: ph.Subject}
-	pr, err := inference.Prepare(ph.Volume, p)
+	pr, err := preprocess.Prepare(ph.Volume, p)
 	if err != nil {
 		if s.Shift == phantom.ShiftNone || s.Shift == "" {
 			return Case{}, fmt.Errorf("preprocess %s (seed %d): %w", ph.Subject.ID, s.Seed, err)
@@ -111,7 +113,7 @@ func Examples(cs []Case) []Example {
 // phantom generator's code, so the cache must be cleared when package
 // phantom changes; release runs (`make demo-model`) do not use it. An empty
 // dir disables the cache.
-func GenerateCached(dir string, specs []CaseSpec, p inference.Preprocessing, levels []float64, workers int, progress func(done, total int)) ([]Case, error) {
+func GenerateCached(dir string, specs []CaseSpec, p preprocess.Spec, levels []float64, workers int, progress func(done, total int)) ([]Case, error) {
 	if dir == "" {
 		return Generate(specs, p, levels, workers, progress)
 	}
@@ -130,10 +132,10 @@ func GenerateCached(dir string, specs []CaseSpec, p inference.Preprocessing, lev
 	return out, nil
 }
 
-func generateChunk(dir string, specs []CaseSpec, p inference.Preprocessing, levels []float64, workers int) ([]Case, error) {
+func generateChunk(dir string, specs []CaseSpec, p preprocess.Spec, levels []float64, workers int) ([]Case, error) {
 	key, err := json.Marshal(struct {
 		S []CaseSpec
-		P inference.Preprocessing
+		P preprocess.Spec
 		L []float64
 	}{specs, p, levels})
 	if err != nil {

@@ -5,14 +5,15 @@ import (
 	"encoding/hex"
 	"errors"
 	"fmt"
-	"math"
-	"syscall"
 	"time"
 
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
+	"brightfold/inference/preprocess"
+	"brightfold/internal/cputime"
 	"brightfold/internal/notice"
 	"brightfold/internal/phantom"
+	"brightfold/internal/stats"
 )
 
 // Recipe is everything that determines the demo model: architecture,
@@ -22,10 +23,12 @@ type Recipe struct {
 	Arch  Arch
 	Train Config
 	// CohortSeed: cases [0, NTrain) train, [NTrain, NTrain+NVal) validate
-	// (monitored during training), and the next NCal calibrate; the
-	// temperature and the fit-check thresholds are fitted on the validation
-	// and calibration cases together, which no gradient step has seen. The
-	// split is by case.
+	// (monitored during training) and choose the fit-check thresholds, and
+	// the next NCal calibrate: the first half fits the temperature, the
+	// second half is held out from every fit (it bounds the fit check's pass
+	// rate, decides whether the temperature is kept and gives the
+	// calibration metrics). No gradient step sees the validation or
+	// calibration cases. The split is by case.
 	CohortSeed         uint64
 	NTrain, NVal, NCal int
 	// TestSeed: NTest fresh in-distribution cases, never used in training or
@@ -48,7 +51,7 @@ type Recipe struct {
 func DemoRecipe() Recipe {
 	return Recipe{
 		Arch: DefaultArch(), Train: DefaultConfig(20261201),
-		CohortSeed: 1, NTrain: 600, NVal: 200, NCal: 300,
+		CohortSeed: 1, NTrain: 600, NVal: 200, NCal: 600,
 		TestSeed: 20261202, NTest: 200,
 		ShiftSeed: 20261203, NPerShift: 8,
 		InitSeed: 20261204, Workers: 2,
@@ -59,13 +62,10 @@ func DemoRecipe() Recipe {
 // canonical RAS, 4 mm grid of the arch's shape centred on the head,
 // block-mean anti-aliasing, head mask at 10 % between the 1st and 99th
 // percentiles, z-score over the head clipped to ±5.
-func DemoPreprocessing(a Arch) inference.Preprocessing {
-	return inference.Preprocessing{
-		Orientation: "RAS", SpacingMm: [3]float64{4, 4, 4}, Shape: a.Grid,
-		Crop: "head-centre", Antialias: "block-mean", Interpolation: "trilinear",
-		HeadMask:  inference.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
-		Intensity: inference.Intensity{Method: inference.NormZScoreHead, Clip: 5},
-	}
+func DemoPreprocessing(a Arch) preprocess.Spec {
+	s := preprocess.DefaultSpec()
+	s.Shape = a.Grid
+	return s
 }
 
 // Timing records where a run's time went, in seconds.
@@ -80,16 +80,6 @@ type Timing struct {
 	// the cores give the wall time the run would take alone.
 	CPUTrainingTotal float64 `json:"cpu_training_total_s"`
 	CPUTotal         float64 `json:"cpu_total_s"`
-}
-
-// cpuSeconds is the process's user plus system CPU time so far.
-func cpuSeconds() float64 {
-	var ru syscall.Rusage
-	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
-		return math.NaN()
-	}
-	tv := func(t syscall.Timeval) float64 { return float64(t.Sec) + float64(t.Usec)/1e6 }
-	return tv(ru.Utime) + tv(ru.Stime)
 }
 
 // Result is one demo run's outcome.
@@ -110,7 +100,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	if log == nil {
 		log = func(string, ...any) {}
 	}
-	start, cpu0 := time.Now(), cpuSeconds()
+	start, cpu0 := time.Now(), cputime.Seconds()
 	prep := DemoPreprocessing(r.Arch)
 	levels := inference.DefaultLevels()
 	n, err := NewNet(r.Arch, r.InitSeed)
@@ -135,20 +125,19 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	}
 	res.Timing.Train = time.Since(t0).Seconds()
 	res.Timing.TrainingTotal = time.Since(start).Seconds()
-	res.Timing.CPUTrainingTotal = cpuSeconds() - cpu0
+	res.Timing.CPUTrainingTotal = cputime.Seconds() - cpu0
 	log("trained in %.0f s (%.0f s with data generation; %.0f CPU s)", res.Timing.Train, res.Timing.TrainingTotal, res.Timing.CPUTrainingTotal)
 	t0 = time.Now()
 	calCases, err := GenerateCached(r.CacheDir, Specs(r.CohortSeed, r.NTrain+r.NVal, r.NCal, phantom.ShiftNone), prep, levels, r.Workers, progress(log, "calibration phantoms"))
 	if err != nil {
 		return nil, err
 	}
-	fitCases := append(append([]Case(nil), valCases...), calCases...)
-	if err := res.fitCard(r, prep, levels, trainCases, fitCases, log); err != nil {
+	if err := res.fitCard(r, prep, levels, trainCases, valCases, calCases, log); err != nil {
 		return nil, err
 	}
 	res.Timing.Evaluate = time.Since(t0).Seconds()
 	res.Timing.Total = time.Since(start).Seconds()
-	res.Timing.CPUTotal = cpuSeconds() - cpu0
+	res.Timing.CPUTotal = cputime.Seconds() - cpu0
 	return res, nil
 }
 
@@ -178,44 +167,49 @@ func (res *Result) fitCases(cs []Case, workers int) ([]inference.FitCase, error)
 	return fc, nil
 }
 
-func (res *Result) fitCard(r Recipe, prep inference.Preprocessing, levels []float64, trainCases, valCases []Case, log func(string, ...any)) error {
+func (res *Result) fitCard(r Recipe, prep preprocess.Spec, levels []float64, trainCases, valCases, calCases []Case, log func(string, ...any)) error {
 	card := DemoCard(r, prep)
-	trainFit, err := res.fitCases(trainCases, r.Workers)
-	if err != nil {
-		return err
+	var fits [4][]inference.FitCase
+	half := len(calCases) / 2
+	for i, cs := range [][]Case{trainCases, valCases, calCases[:half], calCases[half:]} {
+		var err error
+		if fits[i], err = res.fitCases(cs, r.Workers); err != nil {
+			return err
+		}
 	}
-	valFit, err := res.fitCases(valCases, r.Workers)
-	if err != nil {
-		return err
+	name := func(what string, from, n int) string {
+		return fmt.Sprintf("%d %s phantoms (cohort seed %d, %s to %s)", n, what, r.CohortSeed, phantom.CaseID(from), phantom.CaseID(from+n-1))
 	}
-	trainDesc := fmt.Sprintf("%d training phantoms (cohort seed %d, %s to %s)", len(trainCases), r.CohortSeed,
-		phantom.CaseID(0), phantom.CaseID(r.NTrain-1))
-	valDesc := fmt.Sprintf("%d validation and calibration phantoms (cohort seed %d, %s to %s)", len(valCases), r.CohortSeed,
-		phantom.CaseID(r.NTrain), phantom.CaseID(r.NTrain+len(valCases)-1))
-	ood, cal, metrics, err := inference.FitReference(card, trainFit, valFit, inference.FitOptions{
-		Levels: levels, TrainDescription: trainDesc, ValidationDescription: valDesc})
+	calFrom := r.NTrain + r.NVal
+	splits := inference.FitSplits{Train: fits[0], Choose: fits[1], Temperature: fits[2], HeldOut: fits[3],
+		TrainDescription:       name("training", 0, len(trainCases)),
+		ChooseDescription:      name("validation", r.NTrain, len(valCases)),
+		TemperatureDescription: name("calibration", calFrom, half),
+		HeldOutDescription:     name("held-out calibration", calFrom+half, len(calCases)-half)}
+	ood, cal, metrics, err := inference.FitReferenceSplits(card, splits, inference.FitOptions{Levels: levels})
 	if err != nil {
 		return err
 	}
 	card.OOD, card.Calibration = ood, cal
-	card.Validation = append(metrics, accuracyMetric(card, valFit, valDesc))
-	res.Model, err = res.Net.Encode()
-	if err != nil {
-		return err
+	card.Validation = metrics
+	if res.Model == nil {
+		if res.Model, err = res.Net.Encode(); err != nil {
+			return err
+		}
 	}
 	card.ModelSHA256 = sha256Hex(res.Model)
 	if err := card.Validate(); err != nil {
 		return fmt.Errorf("demo card: %w", err)
 	}
 	res.Card = card
-	log("validation: %s", metricLine(card.Validation))
+	log("fitted: %s\n  calibration: %s", metricLine(card.Validation), cal.Decision)
 	return res.evaluate(r, prep, levels, log)
 }
 
 // evaluate adds the held-out figures: the fresh in-distribution phantoms
 // (discrimination, calibration, fit-check false alarms) and each shifted
 // variant (fit-check flag rate).
-func (res *Result) evaluate(r Recipe, prep inference.Preprocessing, levels []float64, log func(string, ...any)) error {
+func (res *Result) evaluate(r Recipe, prep preprocess.Spec, levels []float64, log func(string, ...any)) error {
 	card := res.Card
 	test, err := GenerateCached(r.CacheDir, Specs(r.TestSeed, 0, r.NTest, phantom.ShiftNone), prep, levels, r.Workers, progress(log, "held-out phantoms"))
 	if err != nil {
@@ -226,7 +220,11 @@ func (res *Result) evaluate(r Recipe, prep inference.Preprocessing, levels []flo
 		return err
 	}
 	desc := fmt.Sprintf("held-out: %d fresh phantoms (seed %d, never used in training or fitting)", len(test), r.TestSeed)
-	card.Validation = append(card.Validation, heldOutMetrics(card, testFit, desc)...)
+	held, err := inference.CalibrationMetrics(card, testFit, card.Calibration.Temperature, desc)
+	if err != nil {
+		return err
+	}
+	card.Validation = append(card.Validation, held...)
 	sev := severityMetrics(card, test, testFit, desc)
 	card.Validation = append(card.Validation, sev...)
 	card.Cautions = append([]string{fmt.Sprintf("Detection depends on how strong the pattern is: on fresh phantoms the AUROC is %.2f for severity up to 0.4 and %.2f above it.",
@@ -291,26 +289,6 @@ func flagRate(card *inference.Card, cs []inference.FitCase, refused *int) (float
 	return float64(flagged) / float64(total), nil
 }
 
-// heldOutMetrics are AUROC, accuracy and ECE before and after the card's
-// temperature on fresh cases.
-func heldOutMetrics(card *inference.Card, cs []inference.FitCase, desc string) []inference.Metric {
-	pos := card.PositiveIndex()
-	T := card.Calibration.Temperature
-	scores := make([]float64, len(cs))
-	isPos := make([]bool, len(cs))
-	for i, fc := range cs {
-		scores[i] = inference.ClassProbabilities(card, fc.Output.Logits, T)[pos]
-		isPos[i] = fc.Label == pos
-	}
-	n := len(cs)
-	return []inference.Metric{
-		{Name: "auroc", Value: fitcheck.AUROC(scores, isPos), N: n, Split: desc, How: "AUROC of the positive-class probability (Mann-Whitney; equals sklearn roc_auc_score)"},
-		accuracyMetric(card, cs, desc),
-		{Name: "ece_before_scaling", Value: ece(card, cs, 1), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), temperature 1"},
-		{Name: "ece_after_scaling", Value: ece(card, cs, T), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), the card's temperature"},
-	}
-}
-
 // severityMetrics are AUROCs of the positive cases of one severity band
 // against all negative cases: they show how graded the task is.
 func severityMetrics(card *inference.Card, cs []Case, fit []inference.FitCase, desc string) []inference.Metric {
@@ -329,42 +307,10 @@ func severityMetrics(card *inference.Card, cs []Case, fit []inference.FitCase, d
 			labels = append(labels, fc.Label == pos)
 		}
 		out = append(out, inference.Metric{Name: fmt.Sprintf("auroc_severity_%.1f_to_%.1f", band[0], band[1]),
-			Value: fitcheck.AUROC(scores, labels), N: len(scores), Split: desc,
+			Value: stats.AUROC(scores, labels), N: len(scores), Split: desc,
 			How: fmt.Sprintf("AUROC of the positive-class probability, positives with pattern severity in (%.1f, %.1f] against all negatives", band[0], band[1])})
 	}
 	return out
-}
-
-func predicted(card *inference.Card, logits []float64, T float64) (int, float64) {
-	p := inference.ClassProbabilities(card, logits, T)
-	best := 0
-	for k := range p {
-		if p[k] > p[best] {
-			best = k
-		}
-	}
-	return best, p[best]
-}
-
-func accuracyMetric(card *inference.Card, cs []inference.FitCase, desc string) inference.Metric {
-	right := 0
-	for _, fc := range cs {
-		if k, _ := predicted(card, fc.Output.Logits, 1); k == fc.Label {
-			right++
-		}
-	}
-	return inference.Metric{Name: "accuracy", Value: float64(right) / float64(max(1, len(cs))), N: len(cs), Split: desc,
-		How: "fraction of cases whose most probable class is the true one"}
-}
-
-func ece(card *inference.Card, cs []inference.FitCase, T float64) float64 {
-	conf := make([]float64, len(cs))
-	ok := make([]bool, len(cs))
-	for i, fc := range cs {
-		k, p := predicted(card, fc.Output.Logits, T)
-		conf[i], ok[i] = p, k == fc.Label
-	}
-	return fitcheck.ECE(conf, ok, 15)
 }
 
 func metricLine(ms []inference.Metric) string {
@@ -377,16 +323,16 @@ func metricLine(ms []inference.Metric) string {
 
 // DemoCard is the demo model's card without the fitted parts (calibration,
 // out-of-distribution reference, metrics, sha256).
-func DemoCard(r Recipe, prep inference.Preprocessing) *inference.Card {
+func DemoCard(r Recipe, prep preprocess.Spec) *inference.Card {
 	a := r.Arch
 	return &inference.Card{
 		Schema:        inference.SchemaVersion,
 		Name:          "Harbourside demo atrophy classifier",
-		Version:       "1.2.0",
+		Version:       "1.3.0",
 		Task:          "Says whether a T1-weighted-like synthetic head phantom carries the invented diffuse atrophy pattern (wider ventricles, thinner cortex, smaller medial temporal structures).",
 		Classes:       []string{"no_pattern", "atrophy_pattern"},
 		PositiveClass: "atrophy_pattern",
-		Input: inference.InputSpec{Name: a.Input, Layout: inference.LayoutNCDHW, DataType: "float32",
+		Input: inference.InputSpec{Name: a.Input, Layout: preprocess.LayoutNCDHW, DataType: "float32",
 			Shape: []int64{-1, 1, int64(a.Grid[2]), int64(a.Grid[1]), int64(a.Grid[0])}},
 		Preprocessing: prep,
 		Outputs:       inference.OutputSpec{Logits: a.Logits, Features: a.Features, Activation: inference.ActivationSoftmax},

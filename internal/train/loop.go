@@ -10,6 +10,7 @@ import (
 
 	"brightfold/inference/fitcheck"
 	"brightfold/internal/onnx"
+	"brightfold/internal/stats"
 )
 
 // Example is one preprocessed case: the model input in grid order (x
@@ -58,7 +59,7 @@ func CrossEntropy(logits [][]float64, labels []int) (float64, [][]float64) {
 	grads := make([][]float64, len(logits))
 	for i, z := range logits {
 		p := fitcheck.Softmax(z, 1)
-		loss += fitcheck.LogSumExp(z) - z[labels[i]]
+		loss += stats.LogSumExp(z) - z[labels[i]]
 		g := make([]float64, len(z))
 		for k := range z {
 			g[k] = p[k] / n
@@ -226,7 +227,7 @@ func (n *Net) Evaluate(set []Example, workers int) (*Evaluation, error) {
 		score[i] = o.Logits[1] - o.Logits[0]
 	}
 	loss, _ := CrossEntropy(logits, labels)
-	return &Evaluation{Loss: loss, AUROC: fitcheck.AUROC(score, pos), Outputs: out}, nil
+	return &Evaluation{Loss: loss, AUROC: stats.AUROC(score, pos), Outputs: out}, nil
 }
 
 // split separates the inputs and labels of examples.

@@ -1,6 +1,6 @@
 // Package train trains Brightfold's demo model in Go: a small 3D CNN on the
 // synthetic phantoms of the invented Harbourside Memory Research Unit, with
-// the gradients of package graph's executor, Adam, and batch-statistics
+// the gradients of package exec's executor (internal/onnx/exec), Adam, and batch-statistics
 // batch normalisation computed here (the executor implements
 // BatchNormalization in inference mode only). It also fits the card's
 // calibration and out-of-distribution reference from the trained model's
@@ -23,7 +23,7 @@
 // every sum over the cases of a batch (batch statistics, parameter
 // gradients) is taken in case order, so a run depends only on the seed, not
 // on goroutine scheduling or the number of cores. It does depend on the
-// floating-point code that runs: package graph picks its AVX2/FMA or its
+// floating-point code that runs: package exec picks its AVX2/FMA or its
 // portable matrix kernel at run time, and another architecture or Go version
 // may round differently, so elsewhere the weights can differ in the last
 // bits and the metrics slightly (scripts/demo-model.sh allows for that).
@@ -35,6 +35,7 @@ import (
 	"math/rand/v2"
 
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 )
 
 // Arch describes the network. Blocks are Conv3d (3×3×3, padding 1, no bias)
@@ -104,7 +105,7 @@ type bnLayer struct {
 
 // segment is a piece of the network between batch normalisations.
 type segment struct {
-	exec    *onnx.Executor
+	exec    *exec.Executor
 	in, out string
 	params  []string // parameter names the segment reads
 	shape   []int    // input shape of one case
@@ -115,7 +116,7 @@ type segment struct {
 type Net struct {
 	Arch  Arch
 	Model *onnx.Model
-	infer *onnx.Executor
+	infer *exec.Executor
 	segs  []*segment
 	bns   []*bnLayer
 	param map[string]*onnx.Tensor // every trainable tensor by name
@@ -152,7 +153,7 @@ func NewNet(a Arch, seed uint64) (*Net, error) {
 	for name, t := range m.Graph.Params() {
 		n.param[name] = t
 	}
-	if n.infer, err = onnx.NewExecutorWorkers(m, 1); err != nil {
+	if n.infer, err = exec.NewExecutorWorkers(m, 1); err != nil {
 		return nil, fmt.Errorf("net: %w", err)
 	}
 	if err := n.buildSegments(convW, fcW, fcB); err != nil {
@@ -177,22 +178,24 @@ func fill(t *onnx.Tensor, v float32) *onnx.Tensor {
 	return t
 }
 
-var (
-	convOpts = onnx.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}}
-	pool     = []int{2, 2, 2}
-)
+// convOpts are the options of every convolution: 3×3×3 kernels padded by
+// one voxel on each side.
+func convOpts() exec.ConvOpts { return exec.ConvOpts{Pads: []int{1, 1, 1, 1, 1, 1}} }
+
+// pool is the kernel and stride of every max-pool: 2×2×2.
+func pool() []int { return []int{2, 2, 2} }
 
 func convName(i int) string { return fmt.Sprintf("conv%d", i+1) }
 
 // buildFull assembles the exported model.
 func buildFull(a Arch, convW []*onnx.Tensor, bns []*bnLayer, fcW, fcB *onnx.Tensor) (*onnx.Model, error) {
-	b := onnx.NewBuilder("harbourside_demo_cnn", a.Opset)
+	b := exec.NewBuilder("harbourside_demo_cnn", a.Opset)
 	x := b.Input(a.Input, -1, 1, a.Grid[2], a.Grid[1], a.Grid[0])
 	for i := range convW {
-		x = b.Conv(convName(i), x, convW[i], nil, convOpts)
+		x = b.Conv(convName(i), x, convW[i], nil, convOpts())
 		x = b.BatchNorm(bns[i].name, x, bns[i].scale, bns[i].bias, bns[i].runMean, bns[i].runVar, a.Epsilon)
 		x = b.Relu(x)
-		x = b.MaxPool(x, pool, pool)
+		x = b.MaxPool(x, pool(), pool())
 	}
 	f := b.Flatten(b.GlobalAveragePool(x), 1)
 	f = b.Output(f, a.Features)
@@ -212,13 +215,13 @@ func (n *Net) buildSegments(convW []*onnx.Tensor, fcW, fcB *onnx.Tensor) error {
 	a := n.Arch
 	shape := []int{1, 1, a.Grid[2], a.Grid[1], a.Grid[0]}
 	for i := 0; i <= len(convW); i++ {
-		b := onnx.NewBuilder(fmt.Sprintf("segment%d", i), a.Opset)
+		b := exec.NewBuilder(fmt.Sprintf("segment%d", i), a.Opset)
 		x := b.Input("in", shape...)
 		if i > 0 {
-			x = b.MaxPool(b.Relu(x), pool, pool)
+			x = b.MaxPool(b.Relu(x), pool(), pool())
 		}
 		if i < len(convW) {
-			x = b.Conv(convName(i), x, convW[i], nil, convOpts)
+			x = b.Conv(convName(i), x, convW[i], nil, convOpts())
 		} else {
 			x = b.Gemm("fc", b.Flatten(b.GlobalAveragePool(x), 1), fcW, fcB)
 		}
@@ -227,7 +230,7 @@ func (n *Net) buildSegments(convW []*onnx.Tensor, fcW, fcB *onnx.Tensor) error {
 		if err != nil {
 			return fmt.Errorf("net: segment %d: %w", i, err)
 		}
-		e, err := onnx.NewExecutorWorkers(m, 1)
+		e, err := exec.NewExecutorWorkers(m, 1)
 		if err != nil {
 			return fmt.Errorf("net: segment %d: %w", i, err)
 		}

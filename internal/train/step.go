@@ -3,63 +3,33 @@ package train
 import (
 	"fmt"
 	"math"
-	"sync"
 
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
+	"brightfold/internal/parallel"
 )
 
 // batchState keeps what one training forward pass needs for its backward
 // pass: each segment's trace per case and each normalisation's statistics.
 type batchState struct {
-	traces [][]*onnx.Trace // [segment][case]
+	traces [][]*exec.Trace // [segment][case]
 	mean   [][]float64     // [bn][channel] batch mean
 	invStd [][]float64     // [bn][channel] 1/√(var + ε)
 	logits [][]float64     // [case][class]
-}
-
-// forEach runs fn(i) for i in [0, n) on up to workers goroutines; each i is
-// independent, so the results do not depend on scheduling.
-func forEach(workers, n int, fn func(i int) error) error {
-	if workers < 1 {
-		workers = 1
-	}
-	errs := make([]error, n)
-	var wg sync.WaitGroup
-	next := make(chan int)
-	for w := 0; w < min(workers, n); w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for i := range next {
-				errs[i] = fn(i)
-			}
-		}()
-	}
-	for i := 0; i < n; i++ {
-		next <- i
-	}
-	close(next)
-	wg.Wait()
-	for _, err := range errs {
-		if err != nil {
-			return err
-		}
-	}
-	return nil
 }
 
 // trainForward runs the batch through the segments with batch statistics.
 // xs are the cases' input values ([1, 1, z, y, x] each). momentum updates
 // the running statistics (0 leaves them unchanged).
 func (n *Net) trainForward(xs [][]float32, workers int, momentum float64) (*batchState, error) {
-	st := &batchState{traces: make([][]*onnx.Trace, len(n.segs))}
+	st := &batchState{traces: make([][]*exec.Trace, len(n.segs))}
 	acts := make([]*onnx.Tensor, len(xs))
 	for i, x := range xs {
 		acts[i] = onnx.FromData(x, n.segs[0].shape...)
 	}
 	for k, seg := range n.segs {
-		st.traces[k] = make([]*onnx.Trace, len(xs))
-		err := forEach(workers, len(xs), func(i int) error {
+		st.traces[k] = make([]*exec.Trace, len(xs))
+		err := parallel.EachErr(len(xs), workers, func(_, i int) error {
 			tr, err := seg.exec.Forward(map[string]*onnx.Tensor{seg.in: acts[i]})
 			if err != nil {
 				return fmt.Errorf("segment %d: %w", k, err)
@@ -89,7 +59,7 @@ func (n *Net) trainForward(xs [][]float32, workers int, momentum float64) (*batc
 		st.mean = append(st.mean, mean)
 		st.invStd = append(st.invStd, invStd)
 		acts = make([]*onnx.Tensor, len(xs))
-		if err := forEach(workers, len(xs), func(i int) error {
+		if err := parallel.EachErr(len(xs), workers, func(_, i int) error {
 			acts[i] = bn.normalise(outs[i], mean, invStd)
 			return nil
 		}); err != nil {
@@ -115,7 +85,7 @@ func (bn *bnLayer) batchStats(xs []*onnx.Tensor, workers int, momentum float64) 
 	c, p := bn.channels, bn.positions
 	s1 := make([][]float64, len(xs))
 	s2 := make([][]float64, len(xs))
-	if err := forEach(workers, len(xs), func(i int) error {
+	if err := parallel.EachErr(len(xs), workers, func(_, i int) error {
 		if len(xs[i].Data) != c*p {
 			return fmt.Errorf("%s: case %d has %d values, want %d", bn.name, i, len(xs[i].Data), c*p)
 		}
@@ -180,7 +150,7 @@ func (bn *bnLayer) backward(xs, gys []*onnx.Tensor, mean, invStd []float64, work
 	c, p := bn.channels, bn.positions
 	sg := make([][]float64, len(xs))
 	sgx := make([][]float64, len(xs))
-	if err := forEach(workers, len(xs), func(i int) error {
+	if err := parallel.EachErr(len(xs), workers, func(_, i int) error {
 		sg[i], sgx[i] = make([]float64, c), make([]float64, c)
 		for ch := 0; ch < c; ch++ {
 			var a, b float64
@@ -208,7 +178,7 @@ func (bn *bnLayer) backward(xs, gys []*onnx.Tensor, mean, invStd []float64, work
 		meanG[ch], meanGX[ch] = a/m, b/m
 	}
 	dxs := make([]*onnx.Tensor, len(xs))
-	err := forEach(workers, len(xs), func(i int) error {
+	err := parallel.EachErr(len(xs), workers, func(_, i int) error {
 		dx := onnx.New(xs[i].Shape...)
 		for ch := 0; ch < c; ch++ {
 			k := float64(bn.scale.Data[ch]) * invStd[ch]
@@ -250,10 +220,10 @@ func (n *Net) trainBackward(st *batchState, gLogits [][]float64, workers int) (m
 	}
 	for k := len(n.segs) - 1; k >= 0; k-- {
 		seg := n.segs[k]
-		res := make([]*onnx.Grads, cases)
-		err := forEach(workers, cases, func(i int) error {
+		res := make([]*exec.Grads, cases)
+		err := parallel.EachErr(cases, workers, func(_, i int) error {
 			g, err := seg.exec.BackwardWith(st.traces[k][i], map[string]*onnx.Tensor{seg.out: gOut[i]},
-				onnx.BackwardOptions{NoInputs: k == 0})
+				exec.BackwardOptions{NoInputs: k == 0})
 			if err != nil {
 				return fmt.Errorf("segment %d: %w", k, err)
 			}
@@ -305,7 +275,7 @@ type Output struct {
 func (n *Net) Predict(xs [][]float32, workers int) ([]Output, error) {
 	out := make([]Output, len(xs))
 	shape := []int{1, 1, n.Arch.Grid[2], n.Arch.Grid[1], n.Arch.Grid[0]}
-	err := forEach(workers, len(xs), func(i int) error {
+	err := parallel.EachErr(len(xs), workers, func(_, i int) error {
 		tr, err := n.infer.Forward(map[string]*onnx.Tensor{n.Arch.Input: onnx.FromData(xs[i], shape...)})
 		if err != nil {
 			return err

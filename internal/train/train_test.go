@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"brightfold/internal/onnx"
+	"brightfold/internal/onnx/exec"
 )
 
 func tinyArch() Arch {
@@ -185,7 +186,7 @@ func TestExportRoundTrip(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	e, err := onnx.NewExecutor(m)
+	e, err := exec.NewExecutor(m)
 	if err != nil {
 		t.Fatal(err)
 	}

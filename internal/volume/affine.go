@@ -72,21 +72,28 @@ func (a Affine) Validate() error {
 	if a[3] != [4]float64{0, 0, 0, 1} {
 		return fmt.Errorf("affine last row is %v, not (0 0 0 1)", a[3])
 	}
-	if d := a.det3(); math.Abs(d) < 1e-12 {
+	if d := a.Det(); math.Abs(d) < 1e-12 {
 		return fmt.Errorf("%w: determinant %g", ErrSingular, d)
 	}
 	return nil
 }
 
-func (a Affine) det3() float64 {
-	return a[0][0]*(a[1][1]*a[2][2]-a[1][2]*a[2][1]) -
-		a[0][1]*(a[1][0]*a[2][2]-a[1][2]*a[2][0]) +
-		a[0][2]*(a[1][0]*a[2][1]-a[1][1]*a[2][0])
+// Det is the determinant of the affine's 3×3 linear part: the signed volume
+// in mm³ of one voxel.
+func (a Affine) Det() float64 { return Det3(a.Linear()) }
+
+// Linear returns the affine's 3×3 linear part (rotation, zooms and shears).
+func (a Affine) Linear() [3][3]float64 {
+	var m [3][3]float64
+	for i := 0; i < 3; i++ {
+		copy(m[i][:], a[i][:3])
+	}
+	return m
 }
 
 // Inverse returns the inverse of a rigid-or-general affine (last row 0 0 0 1).
 func (a Affine) Inverse() (Affine, error) {
-	d := a.det3()
+	d := a.Det()
 	if math.Abs(d) < 1e-12 || math.IsNaN(d) {
 		return Affine{}, ErrSingular
 	}
@@ -116,4 +123,55 @@ func (a Affine) Orientation() string {
 		return "???"
 	}
 	return m.Code()
+}
+
+// Det3 is the determinant of a 3×3 matrix (cofactor expansion along the
+// first row); the one copy Brightfold's geometry uses.
+func Det3(r [3][3]float64) float64 {
+	return r[0][0]*(r[1][1]*r[2][2]-r[1][2]*r[2][1]) -
+		r[0][1]*(r[1][0]*r[2][2]-r[1][2]*r[2][0]) +
+		r[0][2]*(r[1][0]*r[2][1]-r[1][1]*r[2][0])
+}
+
+// Polar3 returns the orthogonal factor of the polar decomposition of m by
+// the iteration X ← (X + X⁻ᵀ)/2 (Higham), as nifti_mat33_polar does.
+func Polar3(m [3][3]float64) [3][3]float64 {
+	x := m
+	for it := 0; it < 100; it++ {
+		inv, ok := Inverse3(x)
+		if !ok {
+			return m
+		}
+		var next [3][3]float64
+		diff := 0.0
+		for i := 0; i < 3; i++ {
+			for j := 0; j < 3; j++ {
+				next[i][j] = 0.5 * (x[i][j] + inv[j][i])
+				diff += math.Abs(next[i][j] - x[i][j])
+			}
+		}
+		x = next
+		if diff < 1e-12 {
+			break
+		}
+	}
+	return x
+}
+
+// Inverse3 inverts a 3×3 matrix through Affine.Inverse; ok is false for a
+// singular or non-finite matrix.
+func Inverse3(m [3][3]float64) ([3][3]float64, bool) {
+	a := Identity()
+	for i := 0; i < 3; i++ {
+		copy(a[i][:3], m[i][:])
+	}
+	inv, err := a.Inverse()
+	if err != nil {
+		return m, false
+	}
+	var r [3][3]float64
+	for i := 0; i < 3; i++ {
+		copy(r[i][:], inv[i][:3])
+	}
+	return r, true
 }

@@ -1,9 +1,10 @@
 package volume
 
 import (
-	"brightfold/internal/parallel"
 	"fmt"
 	"math"
+
+	"brightfold/internal/parallel"
 )
 
 // AxisMap says, for each voxel axis of a volume, which RAS world axis it
@@ -30,7 +31,7 @@ func ClosestAxes(a Affine) (AxisMap, error) {
 			r[k][c] = a[k][c] / n
 		}
 	}
-	r = polar3(r)
+	r = Polar3(r)
 	var m AxisMap
 	for in := 0; in < 3; in++ {
 		best := -1

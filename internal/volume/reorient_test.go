@@ -1,4 +1,4 @@
-package volume
+package volume_test
 
 import (
 	"math"
@@ -7,6 +7,10 @@ import (
 	"testing"
 
 	"brightfold/internal/refcheck"
+	"brightfold/internal/volume"
+	_ "brightfold/internal/volume/formats"
+	"brightfold/internal/volume/internal/niiref"
+	"brightfold/internal/volume/nifti"
 )
 
 // niiCanonRef is what nifti_ref.py canonical prints.
@@ -23,9 +27,9 @@ type niiCanonRef struct {
 // pattern on an oblique grid.
 func TestReorientAgainstNibabel(t *testing.T) {
 	t.Parallel()
-	niiNeedNibabel(t)
-	nb := refcheck.Path(t, niiNibabelDir)
-	gd := niiGoniiTestData(t)
+	niiref.NeedNibabel(t)
+	nb := refcheck.Path(t, niiref.NibabelDir)
+	gd := niiref.GoniiTestData(t)
 	dir := t.TempDir()
 	paths := []string{
 		filepath.Join(nb, "anatomical.nii"),
@@ -36,7 +40,7 @@ func TestReorientAgainstNibabel(t *testing.T) {
 	}
 	perms := [][3]int{{0, 1, 2}, {1, 2, 0}, {2, 0, 1}, {0, 2, 1}, {2, 1, 0}, {1, 0, 2}}
 	for n, perm := range perms {
-		v := niiTestVolume([3]int{5, 4, 3})
+		v := niiref.TestVolume([3]int{5, 4, 3})
 		src := v.Affine
 		for c := 0; c < 3; c++ {
 			sign := 1.0
@@ -48,7 +52,7 @@ func TestReorientAgainstNibabel(t *testing.T) {
 			}
 		}
 		p := filepath.Join(dir, "perm"+strconv.Itoa(n)+".nii")
-		if err := WriteNIfTI(p, v, NIfTIWriteOptions{}); err != nil {
+		if err := nifti.Write(p, v, nifti.WriteOptions{}); err != nil {
 			t.Fatal(err)
 		}
 		paths = append(paths, p)
@@ -57,30 +61,30 @@ func TestReorientAgainstNibabel(t *testing.T) {
 	for n, p := range paths {
 		jobs = append(jobs, []string{"canonical", p, filepath.Join(dir, "canon"+strconv.Itoa(n)+".f32")})
 	}
-	res := niiBatch(t, jobs)
+	res := niiref.Batch(t, jobs)
 	for n, p := range paths {
-		v, err := Load([]string{p}, LoadOptions{})
+		v, err := volume.Load([]string{p}, volume.LoadOptions{})
 		if err != nil {
 			t.Fatal(err)
 		}
-		r, err := Reorient(v)
+		r, err := volume.Reorient(v)
 		if err != nil {
 			t.Fatalf("%s: %v", p, err)
 		}
 		var ref niiCanonRef
-		niiDecode(t, res[n], &ref)
-		want := niiReadF32(t, jobs[n][2])
+		niiref.Decode(t, res[n], &ref)
+		want := niiref.ReadF32(t, jobs[n][2])
 		name := filepath.Base(p)
 		if r.Dims != [3]int{ref.Shape[0], ref.Shape[1], ref.Shape[2]} {
 			t.Errorf("%s: dims %v, nibabel %v", name, r.Dims, ref.Shape)
 		}
-		if !niiCloseAffine(r.Affine, ref.Affine, 1e-5) {
+		if !niiref.CloseAffine(r.Affine, ref.Affine, 1e-5) {
 			t.Errorf("%s: affine %v, nibabel %v", name, r.Affine, ref.Affine)
 		}
-		if m, _ := ClosestAxes(r.Affine); m.Code() != "RAS" || ref.Axcodes != "RAS" {
+		if m, _ := volume.ClosestAxes(r.Affine); m.Code() != "RAS" || ref.Axcodes != "RAS" {
 			t.Errorf("%s: canonical axis code %s, nibabel %s", name, m.Code(), ref.Axcodes)
 		}
-		if !niiEqualF32(r.Data, want) {
+		if !niiref.EqualF32(r.Data, want) {
 			t.Errorf("%s: voxels differ from nibabel's as_closest_canonical", name)
 		}
 	}
@@ -90,10 +94,10 @@ func TestReorientAgainstNibabel(t *testing.T) {
 // aff2axcodes (io_orientation) on strongly oblique and sheared affines.
 func TestClosestAxesAgainstNibabel(t *testing.T) {
 	t.Parallel()
-	niiNeedNibabel(t)
+	niiref.NeedNibabel(t)
 	var affs [][4][4]float64
 	for n := 0; n < 60; n++ {
-		a := Identity()
+		a := volume.Identity()
 		for r := 0; r < 3; r++ {
 			for c := 0; c < 3; c++ {
 				// A deterministic spread of entries, some near 45° ties.
@@ -105,9 +109,9 @@ func TestClosestAxesAgainstNibabel(t *testing.T) {
 		}
 	}
 	var codes []string
-	refcheck.RunPython(t, niftiRef, &codes, "axcodes", niiAffineJSON(t, affs))
+	refcheck.RunPython(t, niiref.Script(), &codes, "axcodes", niiref.AffineJSON(t, affs))
 	for n, a := range affs {
-		m, err := ClosestAxes(a)
+		m, err := volume.ClosestAxes(a)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -119,9 +123,9 @@ func TestClosestAxesAgainstNibabel(t *testing.T) {
 
 // TestReorientKeepsWorldPositions: every voxel keeps its world position.
 func TestReorientKeepsWorldPositions(t *testing.T) {
-	v := niiTestVolume([3]int{6, 5, 4})
-	v.Affine = Affine{{0, 0, -2, 10}, {-1.5, 0, 0, 3}, {0, 1.2, 0, -8}, {0, 0, 0, 1}} // "PSL"
-	r, err := Reorient(v)
+	v := niiref.TestVolume([3]int{6, 5, 4})
+	v.Affine = volume.Affine{{0, 0, -2, 10}, {-1.5, 0, 0, 3}, {0, 1.2, 0, -8}, {0, 0, 0, 1}} // "PSL"
+	r, err := volume.Reorient(v)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -1,6 +1,9 @@
 // Package volume holds the Volume type (voxels, a voxel-index to RAS
-// millimetre affine, metadata, and patient identifiers kept apart) and loads
-// and writes NIfTI and DICOM, reorients and resamples.
+// millimetre affine, metadata, and patient identifiers kept apart), the
+// affine and 3×3 geometry, reorientation and resampling, and Load, which
+// reads a scan through the registered formats (internal/volume/formats
+// registers NIfTI and DICOM; the codecs live in internal/volume/nifti and
+// internal/volume/dicom).
 package volume
 
 import (
@@ -103,7 +106,11 @@ func (v *Volume) Stats() (min, max, mean float64) {
 }
 
 // New makes a zero-filled volume with the given dims and affine.
+// More voxels than VoxelLimit are refused before allocation.
 func New(dims [3]int, a Affine) (*Volume, error) {
+	if err := CheckVoxels(dims[:]); err != nil {
+		return nil, err
+	}
 	n, err := CheckedProduct(dims[:], MaxVoxels)
 	if err != nil {
 		return nil, err

@@ -1,0 +1,75 @@
+package stats
+
+import (
+	"errors"
+	"fmt"
+	"math/rand/v2"
+	"sort"
+)
+
+// ECEInterval is a percentile bootstrap interval at level (e.g. 0.95) for
+// the binned ECE of ECE(confidence, correct, bins): the cases are resampled
+// with replacement resamples times (Efron & Tibshirani 1993, An
+// Introduction to the Bootstrap, Section 13.3), from a PCG generator seeded
+// with seed so that the interval is reproducible, and the ECE of each
+// resample is computed; the interval is the (1 − level)/2 and (1 + level)/2
+// quantiles (stats.Quantile) of those ECEs. Binned ECE is biased upwards for
+// well-calibrated models and small samples (Kumar et al. 2019, NeurIPS,
+// "Verified uncertainty calibration", Section 5; Roelofs et al. 2022,
+// AISTATS, "Mitigating bias in calibration error estimation"), so the
+// interval says how far a single ECE can be trusted, not where the true
+// calibration error lies: the lower end can sit above a true error of 0.
+// An error for no cases, different lengths, a confidence outside [0, 1]
+// (NaN included), fewer than 10 resamples or a level outside (0, 1).
+func ECEInterval(confidence []float64, correct []bool, bins, resamples int, seed uint64, level float64) (lo, hi float64, err error) {
+	n := len(confidence)
+	switch {
+	case n == 0 || n != len(correct):
+		return 0, 0, fmt.Errorf("ECE interval: need confidences and outcomes of the same, non-zero length, got %d and %d", n, len(correct))
+	case bins < 1 || resamples < 10:
+		return 0, 0, fmt.Errorf("ECE interval: need at least 1 bin and 10 resamples, got %d and %d", bins, resamples)
+	case !(level > 0 && level < 1):
+		return 0, 0, fmt.Errorf("ECE interval: level %v is not in (0, 1)", level)
+	}
+	for i, c := range confidence {
+		if !(c >= 0 && c <= 1) {
+			return 0, 0, fmt.Errorf("ECE interval: confidence %d is %v, not in [0, 1]", i, c)
+		}
+	}
+	rng := rand.New(rand.NewPCG(seed, 0x9e3779b97f4a7c15))
+	eces := make([]float64, resamples)
+	bc, bo := make([]float64, n), make([]bool, n)
+	for r := range eces {
+		for i := range bc {
+			j := rng.IntN(n)
+			bc[i], bo[i] = confidence[j], correct[j]
+		}
+		eces[r] = ECE(bc, bo, bins)
+	}
+	sort.Float64s(eces)
+	return Quantile(eces, (1-level)/2), Quantile(eces, (1+level)/2), nil
+}
+
+// BrierBinary is the Brier score of probabilities of the positive class
+// against the outcomes: (1/n) Σ (p_i − y_i)², y_i = 1 for a positive
+// (Brier 1950, Monthly Weather Review 78:1; sklearn's brier_score_loss). A
+// proper scoring rule, unbiased by binning, so it is reported beside the
+// ECE. An error for no cases, different lengths, or a probability outside
+// [0, 1] (NaN included).
+func BrierBinary(prob []float64, positive []bool) (float64, error) {
+	if len(prob) == 0 || len(prob) != len(positive) {
+		return 0, errors.New("brier score: need probabilities and outcomes of the same, non-zero length")
+	}
+	var s float64
+	for i, p := range prob {
+		if !(p >= 0 && p <= 1) {
+			return 0, fmt.Errorf("brier score: probability %d is %v, not in [0, 1]", i, p)
+		}
+		y := 0.0
+		if positive[i] {
+			y = 1
+		}
+		s += (p - y) * (p - y)
+	}
+	return s / float64(len(prob)), nil
+}
