@@ -8,17 +8,19 @@ const (
 	// RuleComposite (the default) applies the rules by layer position
 	// (Montavon et al. 2019, section 10.1; Kohlbrenner et al. 2020): z^B at
 	// the input layer, alpha1-beta0 in the convolutions above it, LRP-0 in
-	// the dense layers, whose bias keeps its share of the logit. Options.
-	// LowerConvs puts the epsilon rule in the upper convolutions instead
-	// (the earlier default had alpha1-beta0 only in the lower half): on the
-	// demo model that let the biases of the epsilon layers take from −1000 %
-	// to +800 % of the logit, so that the voxels carried a median 216 % of
-	// it (20 phantoms of seed 20261211); with alpha1-beta0 above the input
-	// layer the voxels carry 90–102 % and the relevance mass accuracy falls
-	// from 0.067 to 0.056. docs/evaluation.md reports both on other cases.
+	// the dense layers, whose bias keeps its share of the logit.
+	// Options.LowerConvs puts the epsilon rule in the upper convolutions
+	// instead (the earlier default had alpha1-beta0 only in the lower half):
+	// on the demo model the voxels then carried a median 216 % of the logit
+	// (quartiles 191 to 289 %, lowest −794 %; the epsilon layers' biases
+	// and stabilisers took the difference; 20 pattern-positive 1 mm
+	// phantoms of seed 20261211); with alpha1-beta0 above the input
+	// layer they carry a median 101 % (quartiles 100.8 to 101.5 %, lowest
+	// 90 %; the dense layer's bias keeps the rest) and the relevance mass
+	// accuracy falls from 0.067 to 0.056. docs/evaluation.md reports both
+	// on other cases (make evaluate-maps).
 	RuleComposite LRPRule = "composite"
-	// RuleEpsilon applies the epsilon rule to every weighted layer (the rule
-	// whose conservation the checks measure).
+	// RuleEpsilon applies the epsilon rule to every weighted layer.
 	RuleEpsilon LRPRule = "epsilon"
 	// RuleAlphaBeta applies z^B at the input layer and alpha1-beta0 to every
 	// other weighted layer.

@@ -1,5 +1,8 @@
 #!/usr/bin/env bash
-# Measures the relevance maps of the demo model folder (cmd/evaluate -maps,
+# First compares the LRP composite candidates on the first SEARCH_N (default
+# 20) pattern-positive 1 mm phantoms of seed 20261211 (cmd/evaluate
+# -rule-search: the choice of the default composite). Then measures the
+# relevance maps of the demo model folder (cmd/evaluate -maps,
 # package study): every method on the first MAPS_N (default 50)
 # pattern-positive 1 mm phantoms of seed MAPS_SEED (default 20261210, used
 # for no training, fitting or choice of settings), relevance mass accuracy
@@ -17,4 +20,8 @@ doc=${MAPS_DOC-docs/evaluation.md}
 [[ -n "$doc" ]] && args+=(-doc "$doc")
 mkdir -p bin
 ${GO:-go} build -o bin/evaluate ./cmd/evaluate
+search=(-rule-search -n "${SEARCH_N:-20}")
+[[ -n "${EVAL_MODEL:-}" ]] && search+=(-model "$EVAL_MODEL")
+[[ -n "$doc" ]] && search+=(-doc "$doc")
+bin/evaluate "${search[@]}"
 exec bin/evaluate "${args[@]}"

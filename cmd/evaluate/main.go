@@ -33,7 +33,7 @@ type options struct {
 	seed                    uint64
 	n, perShift, workers    int
 	noReal, noReference     bool
-	maps                    bool
+	maps, ruleSearch        bool
 }
 
 func main() {
@@ -49,6 +49,7 @@ func main() {
 	flag.BoolVar(&o.noReal, "no-real", false, "skip the real reference scans")
 	flag.BoolVar(&o.noReference, "no-reference", false, "skip the sklearn check (figures are then unchecked)")
 	flag.BoolVar(&o.maps, "maps", false, "measure the relevance maps instead (-n pattern-positive phantoms of -seed, default 20261210; make evaluate-maps)")
+	flag.BoolVar(&o.ruleSearch, "rule-search", false, "compare the LRP composite candidates instead (-n pattern-positive phantoms of -seed, default 20261211)")
 	flag.Parse()
 	if flag.NArg() > 0 {
 		fmt.Fprintf(os.Stderr, "evaluate: unexpected argument %q\n", flag.Arg(0))
@@ -57,6 +58,9 @@ func main() {
 	runner := run
 	if o.maps {
 		runner = runMaps
+	}
+	if o.ruleSearch {
+		runner = runRuleSearch
 	}
 	if err := runner(o); err != nil {
 		fmt.Fprintln(os.Stderr, "evaluate:", err)

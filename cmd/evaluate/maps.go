@@ -76,3 +76,33 @@ func runMaps(o options) error {
 	}
 	return nil
 }
+
+// runRuleSearch is `evaluate -rule-search`: every LRP composite candidate
+// on the search seed's pattern-positive phantoms (the choice of the
+// default); prints the table and refreshes its block of -doc.
+func runRuleSearch(o options) error {
+	b, source, err := loadModelFolder(o.model)
+	if err != nil {
+		return err
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
+	defer stop()
+	seed := o.seed
+	if seed == study.DefaultSeed {
+		seed = study.RuleSearchSeed
+	}
+	fmt.Fprintf(os.Stderr, "evaluate: LRP rule search, %s, seed %d, %d pattern-positive phantoms\n", source, seed, o.n)
+	r, err := study.RunRuleSearch(b, study.MapsConfig{Seed: seed, Cases: o.n, Workers: o.workers, Context: ctx,
+		Progress: func(done, total int) { fmt.Fprintf(os.Stderr, "evaluate: rule search, %d/%d phantoms\n", done, total) }})
+	if err != nil {
+		return err
+	}
+	study.WriteRuleSearchMarkdown(os.Stdout, r)
+	if o.doc != "" {
+		if err := study.UpdateRuleSearchDocument(o.doc, r); err != nil {
+			return err
+		}
+		fmt.Fprintf(os.Stderr, "evaluate: rule-search figures written into %s\n", o.doc)
+	}
+	return nil
+}

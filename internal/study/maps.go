@@ -331,16 +331,22 @@ func mapsMeanSD(x []float64) (float64, float64) {
 // UpdateMapsDocument replaces the relevance-map block of the Markdown
 // document at path.
 func UpdateMapsDocument(path string, r *MapsResult) error {
+	var b strings.Builder
+	WriteMapsMarkdown(&b, r)
+	return replaceBlock(path, MapsBlockBegin, MapsBlockEnd, b.String())
+}
+
+// replaceBlock replaces what lies between the lines begin and end of the
+// document at path with body.
+func replaceBlock(path, begin, end, body string) error {
 	old, err := os.ReadFile(path)
 	if err != nil {
 		return inputerr.Wrap(path, err)
 	}
 	s := string(old)
-	i, j := strings.Index(s, MapsBlockBegin), strings.Index(s, MapsBlockEnd)
+	i, j := strings.Index(s, begin), strings.Index(s, end)
 	if i < 0 || j < i {
-		return inputerr.New(path, "no relevance-map block (%q … %q) to update", MapsBlockBegin, MapsBlockEnd)
+		return inputerr.New(path, "no block (%q … %q) to update", begin, end)
 	}
-	var b strings.Builder
-	WriteMapsMarkdown(&b, r)
-	return atomicfile.WriteBytes(path, []byte(s[:i+len(MapsBlockBegin)]+"\n"+b.String()+s[j:]))
+	return atomicfile.WriteBytes(path, []byte(s[:i+len(begin)]+"\n"+body+s[j:]))
 }
