@@ -105,13 +105,16 @@ func Register(ctx context.Context, fixed, moving *volume.Volume, opts Options) (
 	res := &Result{Metric: o.Metric}
 	a := start
 	var last *evaluator
+	levels := make([]*evaluator, len(o.LevelsMM)) // built once, when first needed
 	for _, sg := range o.schedule() {
 		{
 			li, lv, dof := sg.level, o.LevelsMM[sg.level], sg.dof
-			ev, err := newLevel(fixed, moving, o, lv, fc)
-			if err != nil {
-				return nil, err
+			if levels[li] == nil {
+				if levels[li], err = newLevel(fixed, moving, o, lv, fc); err != nil {
+					return nil, err
+				}
 			}
+			ev := levels[li]
 			st, next, err := optimiseStage(ctx, ev, dof, a, fc, radius, o.MaxIterations[li])
 			if err != nil {
 				return nil, err
