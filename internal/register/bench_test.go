@@ -19,6 +19,9 @@ import (
 // errors over the head (goal: ours no larger) and the peak resident memory
 // of this process (which also rendered the phantoms) and of dipy's.
 func BenchmarkAlignPhantom1mm(b *testing.B) {
+	if os.Getenv("BRIGHTFOLD_BENCH_ALIGN") != "1" {
+		b.Skip("slow (renders a 1 mm phantom and runs dipy): scripts/bench.sh runs it with BRIGHTFOLD_BENCH_ALIGN=1")
+	}
 	tpl := phantomCase(b, 2, "")
 	src := phantomCase(b, 1, "")
 	truth := randomAffine(rand.New(rand.NewPCG(14, 9)), [3]float64{})
