@@ -92,6 +92,8 @@ type Prepared struct {
 	// InsideFOV is the fraction of model-grid voxels whose centre lies inside
 	// the scan's field of view.
 	InsideFOV float64
+	// Alignment is set when the card aligns scans to a template (align.go).
+	Alignment *AlignmentInfo
 }
 
 // Preprocess turns a scan into the model input exactly as p states: closest
