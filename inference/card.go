@@ -40,6 +40,55 @@ type Card struct {
 	IntendedUse   string          `json:"intended_use"`
 	TrainingData  string          `json:"training_data"`
 	Cautions      []string        `json:"cautions"`
+	// Provenance says how `brightfold model make` or `model recalibrate`
+	// made the card (absent on cards written by hand or by the demo recipe).
+	Provenance *Provenance `json:"provenance,omitempty"`
+}
+
+// Provenance records how a card was made from a group's cases
+// (makecard.go).
+type Provenance struct {
+	MadeBy string `json:"made_by"` // the command
+	Cases  string `json:"cases"`   // the manifest or BIDS folder's name (no path)
+	Seed   uint64 `json:"seed"`
+	Split  string `json:"split"` // the rule that assigned cases to calibration and validation
+	// Counts holds the cases used, by split and class.
+	Counts  map[string]map[string]int `json:"counts"`
+	Skipped int                       `json:"skipped"` // scans that could not be prepared (--skip-unreadable)
+	Graph   []string                  `json:"graph"`   // what was found in the ONNX graph, and how
+	// Parent, Site and Recalibration are set by `model recalibrate`.
+	Parent        *ParentModel   `json:"parent,omitempty"`
+	Recalibration *Recalibration `json:"recalibration,omitempty"`
+}
+
+// ParentModel names the model folder a recalibrated card came from.
+type ParentModel struct {
+	Name        string `json:"name"`
+	Version     string `json:"version"`
+	CardSHA256  string `json:"card_sha256"`  // sha256 of the parent's card.json bytes
+	ModelSHA256 string `json:"model_sha256"` // the parent's model.onnx (unchanged)
+}
+
+// Recalibration is the record of `model recalibrate`: the closed test's
+// likelihood-ratio tests, the chosen method and the figures before and
+// after on the site's cases (in-sample for "after").
+type Recalibration struct {
+	Site    string            `json:"site"`
+	N       int               `json:"n"`
+	Counts  map[string]int    `json:"counts"`
+	Method  string            `json:"method"`
+	Tests   []RecalibrationLR `json:"tests"`
+	Before  []Metric          `json:"before"`
+	After   []Metric          `json:"after"`
+	HowMade string            `json:"how"`
+}
+
+// RecalibrationLR is one likelihood-ratio test of the closed procedure.
+type RecalibrationLR struct {
+	Name      string  `json:"name"`
+	Statistic float64 `json:"statistic"`
+	DF        int     `json:"df"`
+	P         float64 `json:"p"`
 }
 
 // InputSpec is the model's one input tensor. Shape has five entries in the
@@ -72,6 +121,17 @@ type Calibration struct {
 	Temperature float64 `json:"temperature"`
 	Method      string  `json:"method"`
 	FittedOn    string  `json:"fitted_on"`
+	// Logistic, when set (two classes only, by `model recalibrate`), maps
+	// the temperature-scaled positive-class logit ℓ to a + b·ℓ.
+	Logistic *LogisticRecalibration `json:"logistic,omitempty"`
+}
+
+// LogisticRecalibration is logistic recalibration of the positive-class
+// logit (Cox 1958): new logit = Intercept + Slope · logit.
+type LogisticRecalibration struct {
+	Intercept float64 `json:"intercept"`
+	Slope     float64 `json:"slope"`
+	FittedOn  string  `json:"fitted_on"`
 }
 
 // Range is a closed interval [Min, Max].
@@ -172,6 +232,11 @@ type Metric struct {
 	N     int     `json:"n"`
 	Split string  `json:"split"`
 	How   string  `json:"how"`
+	// CI95 is the 95 % interval when one was computed; Interval says how.
+	CI95     []float64 `json:"ci95,omitempty"`
+	Interval string    `json:"interval,omitempty"`
+	Site     string    `json:"site,omitempty"`    // the site the figure is restricted to
+	Warning  string    `json:"warning,omitempty"` // e.g. fewer than 20 cases of a class
 }
 
 // ParseCard decodes a card, refusing unknown fields and trailing data, then validates it.
@@ -249,6 +314,9 @@ func (c *Card) Validate() error {
 	}
 	if t := c.Calibration.Temperature; !(t > 0) || math.IsInf(t, 0) || t > 1e3 {
 		return fieldError("calibration.temperature", "must be a positive finite number up to 1000, got %v", t)
+	}
+	if l := c.Calibration.Logistic; l != nil && (len(c.Classes) != 2 || !finite(l.Intercept) || !finite(l.Slope) || math.Abs(l.Intercept) > 1e3 || math.Abs(l.Slope) > 1e3) {
+		return fieldError("calibration.logistic", "needs exactly 2 classes and finite intercept and slope up to 1000 in size")
 	}
 	return c.OOD.validate(len(c.Classes))
 }

@@ -65,7 +65,14 @@ func LoadModelFolder(p string) (*ModelFolder, error) {
 	}
 	var fsys fs.FS
 	if fi.IsDir() {
-		fsys = os.DirFS(p)
+		root, err := os.OpenRoot(p)
+		if err != nil {
+			return nil, inputerr.Wrap(p, fmt.Errorf("model folder: %w", err))
+		}
+		defer root.Close()
+		fsys = rootFS{root}
+	} else if !fi.Mode().IsRegular() {
+		return nil, inputerr.New(p, "model folder is neither a folder nor a regular .zip file (mode %v)", fi.Mode().Type())
 	} else {
 		zr, err := zip.OpenReader(p)
 		if err != nil {
@@ -102,7 +109,7 @@ func LoadModelFolderFS(fsys fs.FS) (*ModelFolder, error) {
 	if err != nil {
 		return nil, err
 	}
-	model, err := readLimited(fsys, path.Join(dir, ModelFile), MaxModelBytes)
+	model, err := readLimited(fsys, path.Join(dir, ModelFile), ModelByteLimit())
 	if err != nil {
 		return nil, err
 	}
@@ -143,6 +150,9 @@ func (b *ModelFolder) checkGraph(m *onnx.Model) error {
 		if init.Tensor != nil {
 			b.Graph.ParameterSize += len(init.Tensor.Data) + len(init.Tensor.Ints)
 		}
+	}
+	if err := checkConstantSizes(g); err != nil {
+		return err
 	}
 	real := g.RealInputs()
 	for _, in := range real {
@@ -235,14 +245,14 @@ func checkZipSizes(zr *zip.Reader) error {
 		limit := uint64(0)
 		switch path.Base(f.Name) {
 		case ModelFile:
-			limit = MaxModelBytes
+			limit = uint64(ModelByteLimit())
 		case CardFile:
 			limit = MaxCardBytes
 		default:
 			continue
 		}
 		if f.UncompressedSize64 > limit {
-			return fmt.Errorf("model folder: %s declares %d bytes, more than the limit of %d", f.Name, f.UncompressedSize64, limit)
+			return fmt.Errorf("model folder: %s declares %d bytes, more than the limit of %d (%s raises it for %s)", f.Name, f.UncompressedSize64, limit, ModelByteLimitEnv, ModelFile)
 		}
 		if f.UncompressedSize64 > 1<<20 && f.UncompressedSize64 > maxZipRatio*(f.CompressedSize64+1) {
 			return fmt.Errorf("model folder: %s inflates %d bytes to %d, an implausible ratio (a zip bomb?)", f.Name, f.CompressedSize64, f.UncompressedSize64)
@@ -285,12 +295,21 @@ func readLimited(fsys fs.FS, name string, limit int64) ([]byte, error) {
 	}
 	defer f.Close()
 	var buf bytes.Buffer
+	if st, err := f.Stat(); err == nil {
+		if !st.Mode().IsRegular() {
+			return nil, fmt.Errorf("model folder: %s is not a regular file", path.Base(name))
+		}
+		if st.Size() > limit {
+			return nil, fmt.Errorf("model folder: %s is %d bytes, more than the limit of %d (%s raises it)", path.Base(name), st.Size(), limit, ModelByteLimitEnv)
+		}
+		buf.Grow(int(st.Size()) + 1)
+	}
 	n, err := io.Copy(&buf, io.LimitReader(f, limit+1))
 	if err != nil {
 		return nil, fmt.Errorf("model folder: read %s: %w", path.Base(name), err)
 	}
 	if n > limit {
-		return nil, fmt.Errorf("model folder: %s is larger than %d bytes", path.Base(name), limit)
+		return nil, fmt.Errorf("model folder: %s is larger than the limit of %d bytes (%s raises it)", path.Base(name), limit, ModelByteLimitEnv)
 	}
 	return buf.Bytes(), nil
 }

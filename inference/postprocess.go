@@ -29,7 +29,7 @@ func Postprocess(c *Card, logits []float64) (Prediction, error) {
 		}
 	}
 	T := c.Calibration.Temperature
-	probs := ClassProbabilities(c, logits, T)
+	probs := CalibratedProbabilities(c, logits)
 	raw := ClassProbabilities(c, logits, 1)
 	pos := c.PositiveIndex()
 	p := Prediction{Probabilities: map[string]float64{}, Temperature: T, Probability: probs[pos], Uncalibrated: raw[pos]}
@@ -48,6 +48,23 @@ func Postprocess(c *Card, logits []float64) (Prediction, error) {
 // temperature T.
 func ClassProbabilities(c *Card, logits []float64, T float64) []float64 {
 	return fitcheck.Softmax(ClassLogits(c, logits), T)
+}
+
+// CalibratedProbabilities are the card's calibrated probabilities by class:
+// temperature scaling, then the logistic recalibration of the positive-class
+// logit when the card has one.
+func CalibratedProbabilities(c *Card, logits []float64) []float64 {
+	p := ClassProbabilities(c, logits, c.Calibration.Temperature)
+	l := c.Calibration.Logistic
+	if l == nil || len(p) != 2 {
+		return p
+	}
+	pos := c.PositiveIndex()
+	z := ClassLogits(c, logits)
+	lp := (z[pos] - z[1-pos]) / c.Calibration.Temperature
+	q := 1 / (1 + math.Exp(-(l.Intercept + l.Slope*lp)))
+	p[pos], p[1-pos] = q, 1-q
+	return p
 }
 
 // ClassLogits returns one logit per class: the logits themselves for a

@@ -4,9 +4,11 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"os"
 	"runtime"
 	"strings"
 	"sync"
+	"time"
 
 	"brightfold/inference/preprocess"
 	"brightfold/internal/inputerr"
@@ -36,7 +38,7 @@ func InitRuntime(libPath string) error {
 		return nil
 	}
 	ort.SetSharedLibraryPath(libPath)
-	if err := ort.InitializeEnvironment(ort.WithLogLevelError()); err != nil {
+	if err := ort.InitializeEnvironment(ortLogLevel()); err != nil {
 		// the loader's message may end in an empty dlerror ("...: ")
 		why := strings.TrimRight(strings.TrimSpace(err.Error()), ":")
 		return inputerr.New(libPath, "cannot use this ONNX Runtime library (Brightfold needs %s of ONNX Runtime 1.30.0, C API 24): %s; %s",
@@ -48,7 +50,8 @@ func InitRuntime(libPath string) error {
 
 // SessionOptions tune a session.
 type SessionOptions struct {
-	// IntraOpThreads is ONNX Runtime's intra-op thread count; 0 means all cores.
+	// IntraOpThreads is ONNX Runtime's intra-op thread count; 0 (or more
+	// than the cores) means all cores.
 	IntraOpThreads int
 	// MaxBatch bounds how many cases one Run carries when the model's batch
 	// dimension is dynamic (0 means 8).
@@ -82,8 +85,13 @@ func NewSession(b *ModelFolder, opt SessionOptions) (*Session, error) {
 	}
 	defer so.Destroy()
 	threads := opt.IntraOpThreads
-	if threads <= 0 {
+	if threads <= 0 || threads > runtime.NumCPU() {
+		// more threads than cores only slow ONNX Runtime down (and many
+		// hundreds can exhaust a process limit), so the count is bounded
 		threads = runtime.NumCPU()
+	}
+	if err := so.SetLogSeverityLevel(ortSessionLogLevel()); err != nil {
+		return nil, fmt.Errorf("session log level: %w", err)
 	}
 	if err := so.SetIntraOpNumThreads(threads); err != nil {
 		return nil, fmt.Errorf("intra-op threads: %w", err)
@@ -206,46 +214,72 @@ func (s *Session) runBatch(ctx context.Context, ts []*preprocess.Tensor) ([]Outp
 	return res, nil
 }
 
-// runCancellable runs the session once; when ctx can be cancelled, a
-// watcher sets the run's terminate flag as soon as it is.
+// runCancellable runs the session once within the run budget (RunBudget):
+// a watcher sets the run's terminate flag when ctx is done or the budget is
+// spent. A run that ignores the flag (a graph whose Loop body has no node at
+// which ONNX Runtime checks it) is abandoned after a grace period, with an
+// input error naming the budget, and the command line exits.
 func (s *Session) runCancellable(ctx context.Context, in ort.Value, outs []ort.Value) error {
-	if ctx.Done() == nil {
-		if err := s.s.Run([]ort.Value{in}, outs); err != nil {
-			return fmt.Errorf("ONNX Runtime run: %w", err)
-		}
-		return nil
-	}
+	budget := RunBudget()
+	ctx, cancel := context.WithTimeout(ctx, budget)
+	defer cancel()
 	opts, err := ort.NewRunOptions()
 	if err != nil {
 		return fmt.Errorf("ONNX Runtime run options: %w", err)
 	}
-	defer opts.Destroy()
-	done := make(chan struct{})
-	stopped := make(chan struct{})
+	ran := make(chan error, 1)
 	go func() {
-		defer close(stopped)
-		select {
-		case <-ctx.Done():
-			opts.Terminate()
-		case <-done:
-		}
+		ran <- s.s.RunWithOptions([]ort.Value{in}, outs, opts)
 	}()
-	err = s.s.RunWithOptions([]ort.Value{in}, outs, opts)
-	close(done)
-	<-stopped
-	if cerr := ctx.Err(); cerr != nil {
+	select {
+	case err = <-ran:
+	case <-ctx.Done():
+		opts.Terminate()
+		grace := time.NewTimer(runGrace)
+		defer grace.Stop()
+		select {
+		case err = <-ran:
+		case <-grace.C:
+			// the run goes on in its goroutine; its options stay alive with it
+			return runOverBudget(ctx, budget)
+		}
+	}
+	opts.Destroy()
+	if ctx.Err() != nil {
 		for i, o := range outs {
 			if o != nil {
 				o.Destroy()
 				outs[i] = nil
 			}
 		}
-		return cerr
+		return runOverBudget(ctx, budget)
 	}
 	if err != nil {
-		return fmt.Errorf("ONNX Runtime run: %w", err)
+		// the session loaded, so a failing run means the graph cannot take
+		// the card's input: a problem of the model folder
+		return inputerr.New(s.mf.Source, "ONNX Runtime could not run the model on the card's input shape %v: %v", s.mf.Card.Input.Shape, firstLine(err.Error()))
 	}
 	return nil
+}
+
+// firstLine is s up to its first line break.
+func firstLine(s string) string {
+	if i := strings.IndexAny(s, "\r\n"); i >= 0 {
+		return s[:i]
+	}
+	return s
+}
+
+// runGrace is how long a terminated run may take to stop.
+const runGrace = 5 * time.Second
+
+// runOverBudget is the error of a run stopped by ctx: the caller's
+// cancellation as it is, or an input error for a spent budget.
+func runOverBudget(ctx context.Context, budget time.Duration) error {
+	if errors.Is(context.Cause(ctx), context.DeadlineExceeded) && errors.Is(ctx.Err(), context.DeadlineExceeded) {
+		return inputerr.New(ModelFile, "one model run took longer than the budget of %s and was stopped (a graph that never ends?); set %s to give it more seconds", budget, RunBudgetEnv)
+	}
+	return ctx.Err()
 }
 
 // perCase splits a float32 output of batch n into n rows (flattening any
@@ -269,4 +303,37 @@ func perCase(v ort.Value, name string, n int) ([][]float64, error) {
 		}
 	}
 	return rows, nil
+}
+
+// ORTLogEnv asks for ONNX Runtime's own log lines on stderr ("warning",
+// "error"); by default only fatal ones, so that its messages never reach the
+// terminal unasked (Brightfold reports the problems itself).
+const ORTLogEnv = "BRIGHTFOLD_ORT_LOG"
+
+func ortLogLevel() ort.EnvironmentOption {
+	switch os.Getenv(ORTLogEnv) {
+	case "verbose":
+		return ort.WithLogLevelVerbose()
+	case "info":
+		return ort.WithLogLevelInfo()
+	case "warning":
+		return ort.WithLogLevelWarning()
+	case "error":
+		return ort.WithLogLevelError()
+	}
+	return ort.WithLogLevelFatal()
+}
+
+func ortSessionLogLevel() ort.LoggingLevel {
+	switch os.Getenv(ORTLogEnv) {
+	case "verbose":
+		return ort.LoggingLevelVerbose
+	case "info":
+		return ort.LoggingLevelInfo
+	case "warning":
+		return ort.LoggingLevelWarning
+	case "error":
+		return ort.LoggingLevelError
+	}
+	return ort.LoggingLevelFatal
 }

@@ -33,7 +33,8 @@ func commands() []command {
 		{"inspect", "inspect PATH [--json]   header, geometry, series summary", runInspect},
 		{"score", "score PATH [--model MODEL] [--map lrp|ig|gradinput|occlusion|none] [--out DIR] [--json]", runScore},
 		{"demo", "demo cohort DIR [--n N] [--seed S] [--shifts]", runDemo},
-		{"model", "model check MODEL", runModelFolder},
+		{"model", "model check|make|show|recalibrate ...  model folders (brightfold model make --help)", runModelFolder},
+		{"prepare", "prepare SCAN (--model MODEL | --spec SPEC.json) --out FILE.nii.gz | --print-spec   what the model sees", runPrepare},
 		{"align", "align SCAN --to TEMPLATE [--dof 6|12] [--metric ncc|mi] [--mask FILE] [--out DIR] [--json]", runAlign},
 		{"sweep", sweepUsage, runSweep},
 	}

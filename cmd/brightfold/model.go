@@ -12,10 +12,20 @@ import (
 	"brightfold/internal/ortlib"
 )
 
-// runModelFolder dispatches `brightfold model check`.
+// runModelFolder dispatches `brightfold model check|make|show|recalibrate`.
 func runModelFolder(e *env, args []string) error {
+	if len(args) > 0 {
+		switch args[0] {
+		case "make":
+			return runModelMake(e, args[1:])
+		case "show":
+			return runModelShow(e, args[1:])
+		case "recalibrate":
+			return runModelRecalibrate(e, args[1:])
+		}
+	}
 	if len(args) == 0 || args[0] != "check" {
-		return usageError("usage: brightfold model check MODEL [--ort-lib PATH] [--no-run] [--json]")
+		return usageError("usage: brightfold model check|make|show|recalibrate ... (brightfold model make --help)")
 	}
 	fs := newFlags(e, "model check")
 	ortLib := fs.String("ort-lib", "", "path of the ONNX Runtime library "+ortlib.FileName)

@@ -120,6 +120,11 @@ func Load(path string) (*Model, error) {
 // the input, so truncated or hostile bytes give an error, never a panic or
 // an allocation larger than a small multiple of len(b).
 func Decode(b []byte) (*Model, error) {
+	if err := CheckNoExternalData(b); errors.Is(err, ErrExternalData) {
+		return nil, fmt.Errorf("not a usable ONNX model: %w", err)
+	} else if err != nil {
+		return nil, fmt.Errorf("not a valid ONNX model: %w", err)
+	}
 	m, err := decodeModel(b)
 	if err != nil {
 		return nil, fmt.Errorf("not a valid ONNX model: %w", err)

@@ -61,12 +61,9 @@ func DemoRecipe() Recipe {
 // block-mean anti-aliasing, head mask at 10 % between the 1st and 99th
 // percentiles, z-score over the head clipped to ±5.
 func DemoPreprocessing(a Arch) preprocess.Spec {
-	return preprocess.Spec{
-		Orientation: "RAS", SpacingMm: [3]float64{4, 4, 4}, Shape: a.Grid,
-		Crop: "head-centre", Antialias: "block-mean", Interpolation: "trilinear",
-		HeadMask:  preprocess.HeadMask{Method: "percentile-fraction", LowPercentile: 1, HighPercentile: 99, Fraction: 0.1},
-		Intensity: preprocess.Intensity{Method: preprocess.NormZScoreHead, Clip: 5},
-	}
+	s := preprocess.DefaultSpec()
+	s.Shape = a.Grid
+	return s
 }
 
 // Timing records where a run's time went, in seconds.

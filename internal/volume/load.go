@@ -1,6 +1,7 @@
 package volume
 
 import (
+	"errors"
 	"os"
 	"sync"
 
@@ -64,18 +65,74 @@ func Load(paths []string, opts LoadOptions) (*Volume, error) {
 	if len(paths) == 0 {
 		return nil, inputerr.New("", "no input path given")
 	}
-	for _, p := range paths {
-		if _, err := os.Stat(p); err != nil {
-			return nil, inputerr.Wrap(p, err)
-		}
+	paths, err := CheckPaths(paths)
+	if err != nil {
+		return nil, err
 	}
 	registry.RLock()
 	formats := registry.formats
 	registry.RUnlock()
+	if err := checkMixed(formats, paths); err != nil {
+		return nil, err
+	}
 	for _, f := range formats {
 		if f.Match(paths) {
 			return f.Load(paths, opts)
 		}
 	}
 	return nil, inputerr.New(paths[0], "no registered format reads it (registered: %v)", Formats())
+}
+
+// CheckPaths checks input paths before any format reads them: each names an
+// existing regular file or folder (a named pipe or device is refused by name
+// before it is opened), and a path given twice (or two names of one file) is
+// kept once. It returns the paths left.
+func CheckPaths(paths []string) ([]string, error) {
+	var out []string
+	var seen []os.FileInfo
+	for _, p := range paths {
+		if p == "" {
+			return nil, inputerr.New("", "the path \"\" is empty; give a file or folder")
+		}
+		if err := CheckRegular(p, true); err != nil {
+			var pe *os.PathError
+			if errors.As(err, &pe) {
+				err = pe.Err
+			}
+			return nil, inputerr.Wrap(p, err)
+		}
+		st, err := os.Stat(p)
+		if err != nil {
+			return nil, inputerr.Wrap(p, err)
+		}
+		dup := false
+		for _, s := range seen {
+			dup = dup || os.SameFile(s, st)
+		}
+		if !dup {
+			seen = append(seen, st)
+			out = append(out, p)
+		}
+	}
+	return out, nil
+}
+
+// checkMixed refuses several paths when one of them is read by a format that
+// takes it only alone (two NIfTI files, or a NIfTI file beside DICOM files).
+func checkMixed(formats []Format, paths []string) error {
+	if len(paths) < 2 {
+		return nil
+	}
+	for _, p := range paths {
+		for _, f := range formats {
+			if !f.Match([]string{p}) {
+				continue
+			}
+			if !f.Match(paths) {
+				return inputerr.New(p, "a %s file is one scan and is read alone; give it without the other %d path(s)", f.Name, len(paths)-1)
+			}
+			break
+		}
+	}
+	return nil
 }

@@ -106,7 +106,11 @@ func (v *Volume) Stats() (min, max, mean float64) {
 }
 
 // New makes a zero-filled volume with the given dims and affine.
+// More voxels than VoxelLimit are refused before allocation.
 func New(dims [3]int, a Affine) (*Volume, error) {
+	if err := CheckVoxels(dims[:]); err != nil {
+		return nil, err
+	}
 	n, err := CheckedProduct(dims[:], MaxVoxels)
 	if err != nil {
 		return nil, err

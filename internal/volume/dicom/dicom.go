@@ -128,6 +128,10 @@ func dcmCollectFiles(paths []string) (explicit, found []string, err error) {
 			explicit = append(explicit, p)
 			continue
 		}
+		root, err := filepath.EvalSymlinks(p)
+		if err != nil {
+			return nil, nil, inputerr.Wrap(p, err)
+		}
 		err = filepath.WalkDir(p, func(q string, d fs.DirEntry, err error) error {
 			if err != nil {
 				return err
@@ -138,7 +142,7 @@ func dcmCollectFiles(paths []string) (explicit, found []string, err error) {
 				}
 				return nil
 			}
-			if d.Type().IsRegular() {
+			if d.Type().IsRegular() || (d.Type()&fs.ModeSymlink != 0 && linkInside(root, q)) {
 				found = append(found, q)
 			}
 			return nil
@@ -193,7 +197,7 @@ const dcmHeaderPrefix = 16 << 10
 // readFileHead reads up to n bytes from the start of a file and returns them
 // with the file's size.
 func readFileHead(path string, n int) ([]byte, int64, error) {
-	fh, err := os.Open(path)
+	fh, err := volume.OpenRegular(path)
 	if err != nil {
 		return nil, 0, err
 	}
@@ -229,7 +233,14 @@ func dcmReadBounded(path string) ([]byte, error) {
 	if info.Size() > maxDICOMFileSize {
 		return nil, fmt.Errorf("file of %d bytes is larger than a DICOM file can be", info.Size())
 	}
-	return os.ReadFile(path)
+	// A file read whole holds at most the voxel limit's pixels at 32 bits
+	// plus its header; a larger one is refused before it is read.
+	limit := 4*int64(volume.VoxelLimit()) + 16<<20
+	if info.Size() > limit {
+		return nil, fmt.Errorf("file of %d bytes is larger than the limit of %d MiB for one DICOM file (4 bytes per voxel of the voxel limit); set %s to raise it",
+			info.Size(), limit>>20, volume.VoxelLimitEnv)
+	}
+	return volume.ReadRegular(path, limit)
 }
 
 // nothingFound explains why the input holds no image series.
@@ -389,4 +400,20 @@ func pixelWarnings(files []*dcmFile, padded []int64) []string {
 		w = append(w, fmt.Sprintf("%d file(s) carry pixel data longer than the image; the excess was ignored", pad))
 	}
 	return w
+}
+
+// linkInside reports whether the symbolic link q leads to a regular file
+// inside the folder root (resolved): a folder of linked DICOM files is read,
+// a link that leaves the folder or names a pipe or device is skipped.
+func linkInside(root, q string) bool {
+	t, err := filepath.EvalSymlinks(q)
+	if err != nil {
+		return false
+	}
+	rel, err := filepath.Rel(root, t)
+	if err != nil || rel == ".." || strings.HasPrefix(rel, ".."+string(filepath.Separator)) {
+		return false
+	}
+	st, err := os.Stat(t)
+	return err == nil && st.Mode().IsRegular()
 }

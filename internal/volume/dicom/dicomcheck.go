@@ -42,8 +42,10 @@ const (
 // maxDICOMNesting bounds sequence nesting; real files rarely pass 6 levels.
 const maxDICOMNesting = 16
 
-// maxInflated bounds the inflated size of a deflated data set.
-const maxInflated = 512 << 20
+// maxInflated bounds the inflated size of a deflated data set: 160 MiB
+// holds the default voxel limit's 64 Mi voxels at 16 bits plus the header,
+// and keeps two files inflating at once within the 1 GiB budget.
+const maxInflated = 160 << 20
 
 // errNotDICOM marks a file that lacks the PS3.10 preamble and "DICM" prefix.
 var errNotDICOM = errors.New("not a DICOM file (no \"DICM\" at byte 128, DICOM PS3.10 7.1)")
@@ -160,7 +162,7 @@ func dcmInflate(b []byte) ([]byte, error) {
 		return nil, fmt.Errorf("deflated data set: %w", err)
 	}
 	if n > maxInflated {
-		return nil, fmt.Errorf("deflated data set inflates to more than %d MiB", maxInflated>>20)
+		return nil, fmt.Errorf("deflated data set inflates to more than the limit of %d MiB", maxInflated>>20)
 	}
 	return out.Bytes(), nil
 }

@@ -274,6 +274,10 @@ func sliceStep(frames []dcmFrame, n pvec, warnings *[]string) (pvec, error) {
 	return step, nil
 }
 
+// maxSliceGap bounds a gap between slices, in median spacings, that is
+// still read as missing slices rather than as wrong positions.
+const maxSliceGap = maxDICOMFrames
+
 // checkEvenSpacing refuses missing slices and uneven spacing.
 func checkEvenSpacing(frames []dcmFrame, d []float64, med float64, warnings *[]string) error {
 	lo, hi, worst := math.Inf(1), math.Inf(-1), 0.0
@@ -285,6 +289,9 @@ func checkEvenSpacing(frames []dcmFrame, d []float64, med float64, warnings *[]s
 			continue
 		}
 		a, b := frameName(frames[i]), frameName(frames[i+1])
+		if !(x <= maxSliceGap*med) || math.IsInf(med, 0) {
+			return fmt.Errorf("implausible slice positions: %.4g mm between %s and %s where the spacing is %.4g mm (ImagePositionPatient (0020,0032))", x, a, b, med)
+		}
 		if m := math.Round(x / med); m >= 2 && math.Abs(x/med-m) <= spacingRefuse {
 			return fmt.Errorf("missing slice: %.4g mm between %s and %s where the spacing is %.4g mm (%d slice(s) missing)",
 				x, a, b, med, int(m)-1)
@@ -357,7 +364,7 @@ func describeSeries(all []*dcmSeries) string {
 		if d == "" {
 			d = "no description"
 		}
-		p := fmt.Sprintf("%s (%s, %s, %d images)", s.info.Key, d, dcmOrDash(s.info.Modality), s.info.Slices)
+		p := fmt.Sprintf("%s (%s, %s, %s)", s.info.Key, d, dcmOrDash(s.info.Modality), plural(s.info.Slices, "image"))
 		if s.info.Problem != "" {
 			p += " [unreadable]"
 		}
@@ -371,4 +378,12 @@ func dcmOrDash(s string) string {
 		return "-"
 	}
 	return s
+}
+
+// plural is "1 image" or "n images".
+func plural(n int, noun string) string {
+	if n == 1 {
+		return "1 " + noun
+	}
+	return fmt.Sprintf("%d %ss", n, noun)
 }

@@ -11,9 +11,6 @@ import (
 	"path/filepath"
 	"strings"
 
-	"github.com/klauspost/compress/gzip"
-	"github.com/klauspost/pgzip"
-
 	"brightfold/internal/inputerr"
 	"brightfold/internal/volume"
 )
@@ -160,7 +157,7 @@ func niftiImagePath(hdr string) (string, error) {
 // openMaybeGzip opens path and, when it starts with the gzip magic bytes,
 // returns a decompressing reader. size is the file's size on disk.
 func openMaybeGzip(path string, inMemory int64) (r io.Reader, gz gunzip, f *os.File, size int64, err error) {
-	f, err = os.Open(path)
+	f, err = volume.OpenRegular(path)
 	if err != nil {
 		return nil, nil, nil, 0, err
 	}
@@ -205,10 +202,7 @@ type gunzip interface {
 // newGunzip decompresses large files on a second core (pgzip reads ahead
 // while the caller converts voxels) and small ones without its buffers.
 func newGunzip(r io.Reader, size int64) (gunzip, error) {
-	if size < 1<<20 {
-		return gzip.NewReader(r)
-	}
-	return pgzip.NewReader(r)
+	return newGzipMembers(r, size)
 }
 
 // readNIfTIHeaderPrefix returns the first bytes of the (decompressed) file, enough
@@ -247,7 +241,8 @@ func readNIfTIFrame(imgPath string, h *niftiHeader, index int, inMemoryGzip int6
 	if gz != nil {
 		defer gz.Close()
 	}
-	nvox := h.spatial()[0] * h.spatial()[1] * h.spatial()[2]
+	sp := h.spatial()
+	nvox := sp[0] * sp[1] * sp[2]
 	frameBytes := int64(nvox) * int64(h.bytesPerVoxel())
 	need := h.voxOffset + int64(h.frames())*frameBytes
 	fr := &frameReader{h: h, nvox: nvox, frameBytes: frameBytes, need: need, gz: gz != nil}
@@ -256,6 +251,9 @@ func readNIfTIFrame(imgPath string, h *niftiHeader, index int, inMemoryGzip int6
 			return nil, fmt.Errorf("file is %d bytes but the header needs %d (vox_offset %d + %d volume(s) of %d×%d bytes): truncated, or vox_offset or dims wrong",
 				size, need, h.voxOffset, h.frames(), nvox, h.bytesPerVoxel())
 		}
+		if err := volume.CheckVoxels(sp[:]); err != nil {
+			return nil, err
+		}
 		if _, err := f.Seek(h.voxOffset+int64(index)*frameBytes, io.SeekStart); err != nil {
 			return nil, err
 		}
@@ -263,6 +261,9 @@ func readNIfTIFrame(imgPath string, h *niftiHeader, index int, inMemoryGzip int6
 	}
 	if need > maxDeflateRatio*size+1<<16 {
 		return nil, fmt.Errorf("header needs %d bytes of image data, more than a %d-byte gzip file can hold: dims or vox_offset wrong", need, size)
+	}
+	if err := volume.CheckVoxels(sp[:]); err != nil {
+		return nil, err
 	}
 	prealloc := gzipSizeMatches(f, size, need)
 	if _, err := io.CopyN(io.Discard, r, h.voxOffset+int64(index)*frameBytes); err != nil {
@@ -336,7 +337,8 @@ func (fr *frameReader) read(r io.Reader, prealloc bool, index int, drain bool) (
 		if _, err := io.CopyN(io.Discard, r, rest); err != nil {
 			return nil, fr.short(err, "after volume %d (the header has %d)", index, fr.h.frames())
 		}
-		// Reading on to the end checks the gzip CRC; trailing bytes are allowed.
+		// Reading on to the end checks the gzip CRC; zero padding after the
+		// last member is allowed, other trailing bytes are refused.
 		if _, err := io.CopyN(io.Discard, r, 64<<20); err != nil && err != io.EOF {
 			return nil, fmt.Errorf("corrupt gzip data after the image: %w", err)
 		}
