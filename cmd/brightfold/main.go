@@ -37,6 +37,8 @@ func commands() []command {
 		{"prepare", "prepare SCAN (--model MODEL | --spec SPEC.json) --out FILE.nii.gz | --print-spec   what the model sees", runPrepare},
 		{"align", "align SCAN --to TEMPLATE [--dof 6|12] [--metric ncc|mi] [--mask FILE] [--out DIR] [--json]", runAlign},
 		{"sweep", sweepUsage, runSweep},
+		{"session", sessionUsage, runSession},
+		{"mrmc", mrmcUsage, runMRMC},
 	}
 }
 

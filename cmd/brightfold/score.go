@@ -24,6 +24,7 @@ type scoreOptions struct {
 	model, out, mapMethod, ortLib, series string
 	json, showPaths, hidePaths            bool
 	threads, volumeIndex                  int
+	report                                caseReportOptions
 }
 
 // relevanceMethods are the --map values (package overlay; scoremap.go).
@@ -44,8 +45,9 @@ func runScore(e *env, args []string) error {
 	fs.IntVar(&o.threads, "threads", 0, "ONNX Runtime intra-op threads (default: all cores)")
 	fs.IntVar(&o.volumeIndex, "volume", 0, "volume of a 4D NIfTI input to score")
 	fs.StringVar(&o.series, "series", "", "DICOM series UID to score when the input holds several")
+	caseReportFlags(fs, &o.report)
 	fs.Usage = func() {
-		fmt.Fprintln(e.stderr, "usage: brightfold score PATH [--model MODEL] [--map "+strings.Join(relevanceMethods, "|")+"] [--out DIR] [--json]")
+		fmt.Fprintln(e.stderr, "usage: brightfold score PATH [--model MODEL] [--map "+strings.Join(relevanceMethods, "|")+"] [--out DIR] [--json] [--report FILE.pdf [--session FILE] [--meeting]]")
 		fs.PrintDefaults()
 	}
 	paths, err := parseFlags(fs, args)
@@ -106,6 +108,11 @@ func runScore(e *env, args []string) error {
 	}
 	if o.out != "" {
 		if err := writeResult(o, paths, rep); err != nil {
+			return err
+		}
+	}
+	if o.report.file != "" {
+		if err := writeCaseReport(o, paths, v, mf, sess, res, rep); err != nil {
 			return err
 		}
 	}

@@ -125,9 +125,19 @@ func relevanceInfo(m *overlay.Map, method overlay.Method, b *inference.ModelFold
 		Space:     "the input scan's voxel grid (dims and affine as the scan); computed on the model grid and carried back through the inverse of the preprocessing transform",
 		ModelGrid: report.ModelGrid{Dims: res.Prepared.Transform.GridDims, Affine: res.Prepared.Transform.GridAffine},
 		Checks:    checks, Settings: m.Settings, Passes: m.Passes,
+		InputShare: inputShare(m), Shares: m.ShareSentence(),
 		Model:    report.Model{Name: c.Name, Version: c.Version, SHA256: b.SHA256},
 		FitCheck: res.Verdict,
 	}
+}
+
+// inputShare is the map's input_share check, or nil (occlusion).
+func inputShare(m *overlay.Map) *report.Number {
+	if v, ok := m.Checks["input_share"]; ok {
+		n := report.Number(v)
+		return &n
+	}
+	return nil
 }
 
 func mapUnits(m *overlay.Map) string {
@@ -165,11 +175,6 @@ func writeRelevanceText(w io.Writer, rep *report.Score) {
 	if r == nil {
 		return
 	}
-	check := ""
-	for _, k := range []string{"conservation_error", "completeness_error"} {
-		if x, ok := r.Checks[k]; ok {
-			check = fmt.Sprintf(", %s %.2g", strings.ReplaceAll(k, "_", " "), x)
-		}
-	}
-	fmt.Fprintf(w, "Relevance:   %s map in %s, figure in %s (%s%s)\n", r.Method, r.File, r.Overlay, report.RelevanceSidecar, check)
+	fmt.Fprintf(w, "Relevance:   %s map in %s, figure in %s (%s)\n", r.Method, r.File, r.Overlay, report.RelevanceSidecar)
+	fmt.Fprintf(w, "             %s\n", overlay.ShareSentence(overlay.Method(r.Method), r.Checks))
 }

@@ -153,6 +153,9 @@ func PrepareWithTransform(v *volume.Volume, p Spec, template *volume.Volume, a v
 	grid := a.Mul(pr.Transform.GridAffine)
 	pr.Transform = Transform{GridToScan: scanInv.Mul(grid), GridAffine: grid, GridDims: p.Shape, ScanDims: v.Dims, ScanAffine: v.Affine}
 	pr.InsideFOV = insideFraction(pr.Transform)
+	// the raw-scan threshold is the card's rule on the scan's own voxels, not the resampled ones
+	rlo, rhi := percentilePair(v.Data, p.HeadMask.LowPercentile, p.HeadMask.HighPercentile)
+	pr.ScanHeadThreshold = rlo + p.HeadMask.Fraction*(rhi-rlo)
 	return pr, nil
 }
 
