@@ -70,6 +70,20 @@ echo "== relevance maps (overlay BenchmarkLRP, BenchmarkIntegratedGradients, Ben
 go test -run '^$' -bench '^BenchmarkLRP$' -benchtime 20x ./overlay | grep -E '^(Benchmark|FAIL)'
 go test -run '^$' -bench '^Benchmark(IntegratedGradients|Occlusion)$' -benchtime 2x ./overlay | grep -E '^(Benchmark|ok|FAIL)'
 
+# --- alignment to a template vs dipy (issue 14) --------------------------------
+# BenchmarkAlignPhantom1mm aligns a 1 mm 160×192×160 phantom, moved by a known
+# random affine transform, to the 2 mm rendering of the same head (affine,
+# NCC, all cores), then runs dipy 1.6's AffineRegistration (MI, centres of
+# mass → translation → rigid → affine; internal/register/testdata/dipy_align.py)
+# on the same pair in the same run. Goal: our time ≤ 0.25 of dipy's with a
+# mean displacement error over the head no larger than dipy's.
+echo "== alignment of a 1 mm phantom to a 2 mm template vs dipy (register BenchmarkAlignPhantom1mm) =="
+alline=$(BRIGHTFOLD_BENCH_ALIGN=1 go test -run '^$' -bench '^BenchmarkAlignPhantom1mm$' -benchtime 1x -timeout 30m ./internal/register | grep '^BenchmarkAlignPhantom1mm')
+echo "$alline"
+echo "$alline" | awk '{for (i = 3; i < NF; i++) m[$(i+1)] = $i}
+  END {printf "alignment: ours %.1f s (mean error %.2f mm, peak RSS %.0f MiB incl. phantom rendering), dipy %.1f s (mean error %.2f mm, peak RSS %.0f MiB); time ratio %.3f (goal <= 0.25); error ours <= dipy: %s\n",
+    m["s/align"], m["mean_error_mm"], m["peak_MiB"], m["dipy_s/align"], m["dipy_mean_error_mm"], m["dipy_peak_MiB"], m["time_ratio_vs_dipy"], (m["mean_error_mm"] <= m["dipy_mean_error_mm"] ? "yes" : "no")}'
+
 # --- cohort sweep throughput (issue 16) ----------------------------------------
 # Cases per minute of `brightfold sweep` with the demo model folder over 1 mm
 # phantoms (160×192×160, a phantom cohort folder read as a manifest), one
