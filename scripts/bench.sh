@@ -69,3 +69,35 @@ echo "$dcmline" | awk '{for (i = 3; i < NF; i++) m[$(i+1)] = $i}
 echo "== relevance maps (overlay BenchmarkLRP, BenchmarkIntegratedGradients, BenchmarkOcclusion) =="
 go test -run '^$' -bench '^BenchmarkLRP$' -benchtime 20x ./overlay | grep -E '^(Benchmark|FAIL)'
 go test -run '^$' -bench '^Benchmark(IntegratedGradients|Occlusion)$' -benchtime 2x ./overlay | grep -E '^(Benchmark|ok|FAIL)'
+
+# --- cohort sweep throughput (issue 16) ----------------------------------------
+# Cases per minute of `brightfold sweep` with the demo model folder over 1 mm
+# phantoms (160×192×160, a phantom cohort folder read as a manifest), one
+# process with --jobs 1 and --jobs 2 (one shared ONNX Runtime session; goal:
+# jobs 2 at least 1.7× jobs 1), against a Python loop (scripts/bench-sweep.py:
+# nibabel loading, then the same model through ONNX Runtime's Go path,
+# `brightfold score` per case), and the peak resident memory of the --jobs 2
+# process (goal <= 1 GiB).
+echo "== sweep throughput: --jobs 1 vs --jobs 2 vs a Python loop (cmd/brightfold sweep) =="
+swdir=$(mktemp -d)
+go build -o "$swdir/brightfold" ./cmd/brightfold
+"$swdir/brightfold" demo cohort "$swdir/cohort" --n "${SWEEP_CASES:-16}" >/dev/null 2>&1
+sweeprun() { # jobs → "seconds peak_kB"
+  rm -rf "$swdir/out"
+  /usr/bin/time -f "%e %M" -o "$swdir/time" "$swdir/brightfold" sweep "$swdir/cohort" "$swdir/out" --jobs "$1" >/dev/null 2>&1
+  cat "$swdir/time"
+}
+read -r s1 m1 <<<"$(sweeprun 1)"
+read -r s2 m2 <<<"$(sweeprun 2)"
+py=$(/usr/bin/python3 scripts/bench-sweep.py "$swdir/cohort" "$swdir/brightfold")
+n=$(($(wc -l <"$swdir/cohort/cohort.csv") - 1))
+echo "$py" | /usr/bin/python3 -c '
+import json, sys
+n, s1, s2, m2 = int(sys.argv[1]), float(sys.argv[2]), float(sys.argv[3]), float(sys.argv[4])
+py = json.load(sys.stdin)
+c1, c2 = 60 * n / s1, 60 * n / s2
+print(f"sweep over {n} 1 mm phantoms: --jobs 1 {c1:.1f} cases/min, --jobs 2 {c2:.1f} cases/min, ratio {c2 / c1:.2f} (goal >= 1.7); "
+      f"Python loop (nibabel + brightfold score per case) {py[\"cases_per_minute\"]:.1f} cases/min (nibabel {py[\"nibabel_seconds\"]:.1f} s of {py[\"seconds\"]:.1f} s); "
+      f"sweep --jobs 2 / Python loop {c2 / py[\"cases_per_minute\"]:.2f}; peak RSS --jobs 2 {m2 / 1024:.0f} MiB (goal <= 1024)")
+' "$n" "$s1" "$s2" "$m2"
+rm -rf "$swdir"

@@ -23,8 +23,8 @@ type Score struct {
 	Notice     string             `json:"notice"`
 	Input      Input              `json:"input"`
 	Model      Model              `json:"model"`
+	OOD        OOD                `json:"ood"`        // first: when the fit check fails, the verdict leads
 	Prediction *Prediction        `json:"prediction"` // null when the model was not run (the scan could not be prepared)
-	OOD        OOD                `json:"ood"`
 	Relevance  *Relevance         `json:"relevance,omitempty"`
 	TimingMs   map[string]float64 `json:"timing_ms"`
 	Warnings   []string           `json:"warnings"`
@@ -32,7 +32,7 @@ type Score struct {
 
 // Input describes the scored scan.
 type Input struct {
-	Path        string     `json:"path"`
+	Path        string     `json:"path,omitempty"` // empty unless the user asked for paths
 	Format      string     `json:"format"`
 	Dims        [3]int     `json:"dims"`
 	SpacingMm   [3]float64 `json:"spacing_mm"`
@@ -56,6 +56,9 @@ type Prediction struct {
 	Probabilities map[string]float64 `json:"probabilities"`
 	Temperature   float64            `json:"temperature"`
 	Uncalibrated  float64            `json:"uncalibrated_probability"`
+	// DoNotUse is set when the fit check failed: the probability is kept
+	// for the record but must not be used, and says why.
+	DoNotUse string `json:"do_not_use,omitempty"`
 }
 
 // OOD is the fit check.
@@ -113,11 +116,19 @@ type Relevance struct {
 	File    string
 	Overlay string
 	Checks  map[string]float64
+	// Problem says why no map was made (File and Overlay are then empty).
+	Problem string
 }
 
 // MarshalJSON flattens Checks into the object.
 func (r Relevance) MarshalJSON() ([]byte, error) {
-	m := map[string]any{"method": r.Method, "file": r.File}
+	m := map[string]any{"method": r.Method}
+	if r.File != "" {
+		m["file"] = r.File
+	}
+	if r.Problem != "" {
+		m["problem"] = r.Problem
+	}
 	if r.Overlay != "" {
 		m["overlay"] = r.Overlay
 	}
