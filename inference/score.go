@@ -90,7 +90,7 @@ func (s *Session) ScoreManyContext(ctx context.Context, vs []*volume.Volume, pro
 		}
 		progress(StagePrepare, 0.3*float64(i)/n)
 		t0 := time.Now()
-		pr, err := PrepareForCard(v, c)
+		pr, err := PrepareForCardContext(ctx, v, c)
 		if err != nil {
 			return nil, notPrepared(c, v, err)
 		}
@@ -121,7 +121,7 @@ func (s *Session) ScoreManyContext(ctx context.Context, vs []*volume.Volume, pro
 			return nil, err
 		}
 		r.Facts = MeasureCase(v, r.Prepared, c.OOD.Intensity.Levels)
-		r.Checks = RunChecks(c, r.Facts, r.Scores)
+		r.Checks = append(RunChecks(c, r.Facts, r.Scores), alignmentChecks(c, r.Prepared)...)
 		r.Verdict = fitcheck.Verdict(r.Checks)
 		r.Causes = GroupCauses(r.Checks)
 		r.FitScore = FitScore(r.Checks, r.Causes)
