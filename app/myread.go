@@ -211,15 +211,17 @@ func (p *readPanel) applyPhase() {
 	}
 	blind := t.Phase == reading.Unaided
 	if blind {
-		p.phase.SetText("Unaided: the model's evidence, the fit check and the overlay are hidden until this read is locked. Meeting mode is on.")
+		p.phase.SetText("Unaided: the model's evidence, the verdict, the fit check and the overlay are hidden until this read is locked. Meeting mode is on.")
 		p.u.setMeeting(true)
 		p.u.meetingCheck.Disable()
+		p.u.head.root.Hide()
 		p.u.fit.root.Hide()
 		p.u.evidence.root.Hide()
 		p.u.scan.ovCheck.Disable()
 	} else {
 		p.phase.SetText("Aided: the model's evidence and the fit check are shown.")
 		p.u.meetingCheck.Enable()
+		p.u.head.root.Show()
 		p.u.fit.root.Show()
 		p.u.evidence.root.Show()
 		p.u.scan.ovCheck.Enable()

@@ -37,7 +37,7 @@ func TestMyReadSequentialSession(t *testing.T) {
 	if !h.u.meeting || !h.u.meetingCheck.Disabled() {
 		t.Error("Meeting mode is not forced in the unaided read")
 	}
-	if h.u.fit.root.Visible() || h.u.evidence.root.Visible() {
+	if h.u.fit.root.Visible() || h.u.evidence.root.Visible() || h.u.head.root.Visible() {
 		t.Error("Evidence or Fit check visible in the unaided read")
 	}
 	h.u.typedKey(keyEvent("O"))
@@ -59,7 +59,7 @@ func TestMyReadSequentialSession(t *testing.T) {
 	if p.tasks[p.ti].Phase != reading.Aided || p.tasks[p.ti].Case.Code != first {
 		t.Fatalf("after locking the unaided read the task is %+v", p.tasks[p.ti])
 	}
-	if !h.u.fit.root.Visible() || !h.u.evidence.root.Visible() || h.u.meetingCheck.Disabled() {
+	if !h.u.fit.root.Visible() || !h.u.evidence.root.Visible() || !h.u.head.root.Visible() || h.u.meetingCheck.Disabled() {
 		t.Error("evidence still hidden in the aided read")
 	}
 	p.rating.SetText("70")

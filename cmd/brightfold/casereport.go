@@ -113,7 +113,7 @@ func caseReportPlanes(o scoreOptions, v *volume.Volume, mf *inference.ModelFolde
 				if err == nil {
 					prob := res.Prediction.Probabilities[m.Class]
 					img, err := report.OverlayImage(report.OverlayFigure{Scan: v, Map: onScan, At: peakRAS(onScan), Signed: true,
-						Units: mapUnits(m), Title: figureTitle(m, overlay.GradientInput, mf, res, prob)})
+						Units: mapUnits(m), Title: figureTitle(m, overlay.GradientInput, mf, res, prob, false)})
 					if err == nil {
 						return img, "Planes through the peak of a gradient x input relevance map (red-orange for the class, blue against).", nil
 					}
