@@ -69,3 +69,9 @@ echo "$dcmline" | awk '{for (i = 3; i < NF; i++) m[$(i+1)] = $i}
 echo "== relevance maps (overlay BenchmarkLRP, BenchmarkIntegratedGradients, BenchmarkOcclusion) =="
 go test -run '^$' -bench '^BenchmarkLRP$' -benchtime 20x ./overlay | grep -E '^(Benchmark|FAIL)'
 go test -run '^$' -bench '^Benchmark(IntegratedGradients|Occlusion)$' -benchtime 2x ./overlay | grep -E '^(Benchmark|ok|FAIL)'
+
+# --- model make vs score (issue 13) -------------------------------------------
+# `model make` on 100 1 mm phantoms with the demo model against `brightfold
+# score` of the same cases one process each; peak memory of model make.
+echo "== model make vs score one by one (scripts/bench-modelmake.sh) =="
+scripts/bench-modelmake.sh
