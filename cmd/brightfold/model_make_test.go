@@ -172,6 +172,10 @@ func TestModelMakeTorch(t *testing.T) {
 			}
 			t.Logf("fit check passes %d of %d validation phantoms", pass, len(valPaths))
 			checkFiguresAgainstReferences(t, script, dir, card, valPaths, scores)
+			if name == "residual" {
+				relevanceOnResidual(t, dir, mf, lib, valPaths[0])
+				recalibrateAgainstStatsmodels(t, script, dir, mf, lib, man, valPaths, scores)
+			}
 		})
 	}
 }
@@ -246,8 +250,10 @@ func checkFiguresAgainstReferences(t *testing.T, script, dir string, card *infer
 	check("sensitivity", []float64{sens.Value, ref.Sens[0], ref.Sens[1]}, 1e-9, "statsmodels proportion_confint(method = \"wilson\")")
 	spec := got["specificity"]
 	check("specificity", []float64{spec.Value, ref.Spec[0], ref.Spec[1]}, 1e-9, "statsmodels proportion_confint(method = \"wilson\")")
-	check("ece", []float64{ref.ECE}, 1e-9, "numpy, 15 equal-width bins")
-	check("brier", []float64{ref.Brier}, 1e-9, "numpy mean squared difference")
+	// the card's figures come from batched ONNX Runtime runs, the reference's
+	// from `score` one case at a time: float32 rounding differs by ~1e-7
+	check("ece", []float64{ref.ECE}, 1e-6, "numpy, 15 equal-width bins")
+	check("brier", []float64{ref.Brier}, 1e-6, "numpy mean squared difference")
 	check("calibration_intercept", ref.Intercept, 1e-5, "statsmodels GLM Binomial with offset")
 	check("calibration_slope", ref.Slope, 1e-5, "statsmodels Logit")
 }
@@ -272,4 +278,124 @@ func mustLabel(t *testing.T, dir, p string) string {
 	}
 	t.Fatalf("%s not in the manifest", p)
 	return ""
+}
+
+// relevanceOnResidual runs every relevance method on the residual net (LRP
+// passes Add nodes by the proportional rule of overlay/lrp.go: each summand
+// gets the share of the relevance it contributed, R_i = x_i·R/z).
+func relevanceOnResidual(t *testing.T, dir, mf, lib, scan string) {
+	t.Helper()
+	for _, m := range []string{"lrp", "ig", "gradinput", "occlusion"} {
+		js, _ := runBF(t, "score", scan, "--model", mf, "--json", "--ort-lib", lib, "--map", m, "--out", filepath.Join(dir, "map-"+m))
+		var s struct {
+			Relevance map[string]any `json:"relevance"`
+		}
+		if err := json.Unmarshal([]byte(js), &s); err != nil || s.Relevance == nil {
+			t.Fatalf("--map %s: no relevance in the JSON (%v)", m, err)
+		}
+		delete(s.Relevance, "file")
+		delete(s.Relevance, "overlay")
+		t.Logf("residual net, %s: %v", m, s.Relevance)
+		if ce, ok := s.Relevance["conservation_error"].(float64); ok && m == "lrp" && ce > 1e-3 {
+			t.Errorf("LRP through the Add skips: conservation error %.2g (Bach et al. 2015, eq. 2)", ce)
+		}
+	}
+}
+
+// recalibrateAgainstStatsmodels recalibrates the residual model on its
+// validation cases as a new site and checks the likelihood-ratio statistics
+// against statsmodels, and that model.onnx is untouched.
+func recalibrateAgainstStatsmodels(t *testing.T, script, dir, mf, lib, man string, val []string, scores map[string]*scoreJSON) {
+	t.Helper()
+	b, _ := os.ReadFile(man)
+	var rows []string
+	for i, l := range strings.Split(strings.TrimSpace(string(b)), "\n") {
+		f := strings.Split(l, ",")
+		if i == 0 {
+			rows = append(rows, l)
+		} else if f[2] == "validation" {
+			f[3] = "harbour-north"
+			rows = append(rows, strings.Join(f, ","))
+		}
+	}
+	site := filepath.Join(dir, "site.csv")
+	os.WriteFile(site, []byte(strings.Join(rows, "\n")+"\n"), 0o644)
+	out := filepath.Join(dir, "mf-residual-north")
+	txt, _ := runBF(t, "model", "recalibrate", mf, "--cases", site, "--out", out, "--ort-lib", lib)
+	t.Logf("recalibrate:\n%s", txt)
+	a, _ := os.ReadFile(filepath.Join(mf, "model.onnx"))
+	c, _ := os.ReadFile(filepath.Join(out, "model.onnx"))
+	if !bytes.Equal(a, c) {
+		t.Error("recalibrate changed model.onnx")
+	}
+	folder, err := inference.LoadModelFolder(out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rec := folder.Card.Provenance.Recalibration
+	var in struct {
+		P       []float64 `json:"p"`
+		Conf    []float64 `json:"conf"`
+		Correct []bool    `json:"correct"`
+		Y       []int     `json:"y"`
+	}
+	for _, p := range val {
+		q := scores[p].Prediction.Probability
+		y := 0
+		if strings.Contains(mustLabel(t, dir, p), "atrophy") {
+			y = 1
+		}
+		in.P, in.Y, in.Conf, in.Correct = append(in.P, q), append(in.Y, y), append(in.Conf, math.Max(q, 1-q)), append(in.Correct, (q >= 0.5) == (y == 1))
+	}
+	f := filepath.Join(dir, "recal.json")
+	jb, _ := json.Marshal(in)
+	os.WriteFile(f, jb, 0o644)
+	var ref struct {
+		Full      float64 `json:"lr_full_vs_none"`
+		Intercept float64 `json:"lr_full_vs_intercept"`
+	}
+	refcheck.RunPython(t, script, &ref, "figures", f)
+	// statsmodels Logit / GLM log-likelihoods (Vergouwe et al. 2017's tests)
+	if math.Abs(rec.Tests[0].Statistic-ref.Full) > 1e-4 {
+		t.Errorf("LR intercept+slope vs none: %.6f, statsmodels %.6f", rec.Tests[0].Statistic, ref.Full)
+	}
+	if len(rec.Tests) > 1 && math.Abs(rec.Tests[1].Statistic-ref.Intercept) > 1e-4 {
+		t.Errorf("LR intercept+slope vs intercept: %.6f, statsmodels %.6f", rec.Tests[1].Statistic, ref.Intercept)
+	}
+	if folder.Card.Provenance.Parent == nil || folder.Card.Provenance.Parent.ModelSHA256 != folder.Card.ModelSHA256 {
+		t.Error("recalibrated card lacks its parent")
+	}
+}
+
+// TestModelMakeRefusals checks the one-line refusals (exit 2).
+func TestModelMakeRefusals(t *testing.T) {
+	dir := t.TempDir()
+	onnxPath := filepath.Join(refcheck.RepoRoot(), "assets", "demo-model", "model.onnx")
+	var rows []string
+	for i := 0; i < 12; i++ {
+		rows = append(rows, fmt.Sprintf("c%d.nii.gz,%s", i, []string{"a", "b"}[i%2]))
+	}
+	man := filepath.Join(dir, "m.csv")
+	os.WriteFile(man, []byte("path,label\n"+strings.Join(rows, "\n")+"\n"), 0o644)
+	bad := filepath.Join(dir, "bad.csv")
+	os.WriteFile(bad, []byte("path,label\nx.nii,a\ny.nii,zzz\n"), 0o644)
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"model", "make", onnxPath, "--cases", bad, "--classes", "a,b", "--out", filepath.Join(dir, "o1")}, "not one of --classes"},
+		{[]string{"model", "make", onnxPath, "--cases", man, "--classes", "a,b", "--out", filepath.Join(dir, "o2")}, "at least 10 per class"},
+		{[]string{"model", "make", onnxPath, "--cases", man, "--classes", "a,b", "--out", dir}, "already exists"},
+		{[]string{"model", "make", man, "--cases", man, "--classes", "a,b", "--out", filepath.Join(dir, "o3")}, "not an ONNX model"},
+	} {
+		var out, errb bytes.Buffer
+		code := run(c.args, &env{stdout: &out, stderr: &errb})
+		msg := strings.TrimSpace(errb.String())
+		if code != 2 || !strings.Contains(msg, c.want) {
+			t.Errorf("%v: exit %d, %q; want exit 2 with %q", c.args[1:], code, msg, c.want)
+		}
+	}
+	if _, err := os.Stat(filepath.Join(dir, "o2")); err == nil {
+		t.Error("a refused model make left a folder")
+	}
 }
