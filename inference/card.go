@@ -43,6 +43,8 @@ type Card struct {
 	// Provenance says how `brightfold model make` or `model recalibrate`
 	// made the card (absent on cards written by hand or by the demo recipe).
 	Provenance *Provenance `json:"provenance,omitempty"`
+
+	alignment *alignmentFiles // template and mask of preprocessing.alignment (alignment.go)
 }
 
 // Provenance records how a card was made from a group's cases
@@ -121,6 +123,12 @@ type Calibration struct {
 	Temperature float64 `json:"temperature"`
 	Method      string  `json:"method"`
 	FittedOn    string  `json:"fitted_on"`
+	// FittedTemperature is the T that minimised the NLL of the fitting
+	// cases; Temperature is it, or 1 when it did not lower the NLL of
+	// held-out cases (0 in cards written before the check existed).
+	FittedTemperature float64 `json:"fitted_temperature,omitempty"`
+	// Decision says in a sentence which temperature is applied and why.
+	Decision string `json:"decision,omitempty"`
 	// Logistic, when set (two classes only, by `model recalibrate`), maps
 	// the temperature-scaled positive-class logit ℓ to a + b·ℓ.
 	Logistic *LogisticRecalibration `json:"logistic,omitempty"`

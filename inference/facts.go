@@ -44,7 +44,7 @@ func MeasureCase(v *volume.Volume, pr *preprocess.Prepared, levels []float64) Ca
 		f.HeadSIOverAP = e[2] / e[1]
 	}
 	f.HeadSkewSI = pr.Head.Skewness[2]
-	f.NoiseRatio = fitcheck.NoiseRatio(v, pr.Head.Threshold)
+	f.NoiseRatio = fitcheck.NoiseRatio(v, pr.ScanHeadThreshold)
 	f.Quantiles = headQuantiles(pr.Tensor, levels)
 	return f
 }

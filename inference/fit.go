@@ -1,7 +1,6 @@
 package inference
 
 import (
-	"errors"
 	"fmt"
 	"math"
 
@@ -57,58 +56,138 @@ const (
 	DefaultHUBoneFraction = 0.001
 )
 
-// FitReference fits the card's OOD reference and calibration: the envelope
-// from the training cases' measurements (ranges widened by the margin); the
-// intensity reference as the mean of the training quantile functions (the 1D
-// Wasserstein barycentre); the feature class means and the shared covariance
-// of Lee et al. 2018 (class-centred training features) with Ledoit-Wolf
-// shrinkage, inverted; the temperature minimising validation NLL (Guo et al.
-// 2017) on the validation cases (the training cases when there are none);
-// thresholds at the retention (see FitOptions.Retention): the model's scores
-// on the validation cases, the intensity distance on the training cases'
-// leave-one-out scores pooled with the validation cases' (see
-// thresholdScores). It returns the
-// reference, the calibration and validation metrics (AUROC of the
-// positive-class probability, ECE with 15 bins before and after scaling,
-// retention achieved).
+// FitSplits are the cases of each fitting step. No case may serve two
+// steps; Train is required, every other split may be empty (see
+// FitReferenceSplits for what an empty split changes). Each description
+// names the cases, e.g. "200 validation phantoms (cohort seed 1, HMRU-0601
+// to HMRU-0800)"; it goes into the fitted_on fields and the metrics.
+type FitSplits struct {
+	// Train: the envelope, the intensity reference, the feature class means
+	// and shared covariance (the cases the model was trained on).
+	Train []FitCase
+	// Choose: the required thresholds are chosen on these (see
+	// FitOptions.Retention).
+	Choose []FitCase
+	// Temperature: the temperature is fitted on these.
+	Temperature []FitCase
+	// HeldOut: used by no fit. With the thresholds and the temperature fixed,
+	// they give the Clopper–Pearson bound on the pass rate of every required
+	// check, decide whether the fitted temperature is kept (it must lower
+	// their NLL) and give the calibration metrics.
+	HeldOut []FitCase
+	// Descriptions of the four splits.
+	TrainDescription, ChooseDescription, TemperatureDescription, HeldOutDescription string
+}
+
+// FitReference fits the card's OOD reference and calibration from training
+// cases and validation cases that no gradient step used. It splits val by
+// case index into three interleaved thirds (index mod 3: 0 chooses the
+// thresholds, 1 fits the temperature, 2 is held out) and calls
+// FitReferenceSplits; opt.ValidationDescription names val. Without val the
+// thresholds come from the training cases' leave-one-out scores, the bound
+// is in-sample, and the temperature is fitted on the training cases and
+// applied unchecked (Calibration.Decision says so; the caller should check
+// it on cases of its own).
 func FitReference(c *Card, train, val []FitCase, opt FitOptions) (OODReference, Calibration, []Metric, error) {
 	opt = opt.withDefaults()
+	s := FitSplits{Train: train, TrainDescription: opt.TrainDescription}
+	for i, fc := range val {
+		switch i % 3 {
+		case 0:
+			s.Choose = append(s.Choose, fc)
+		case 1:
+			s.Temperature = append(s.Temperature, fc)
+		default:
+			s.HeldOut = append(s.HeldOut, fc)
+		}
+	}
+	third := func(k int, n int) string {
+		return fmt.Sprintf("%d of the %s (every third from number %d)", n, opt.ValidationDescription, k+1)
+	}
+	if len(val) == 0 { // as before the splits existed: the temperature on the training cases
+		s.Temperature, s.TemperatureDescription = train, opt.TrainDescription+" (in-sample)"
+		return FitReferenceSplits(c, s, opt)
+	}
+	s.ChooseDescription = third(0, len(s.Choose))
+	s.TemperatureDescription = third(1, len(s.Temperature))
+	s.HeldOutDescription = third(2, len(s.HeldOut))
+	return FitReferenceSplits(c, s, opt)
+}
+
+// FitReferenceSplits fits the card's OOD reference and calibration: the
+// envelope from the training cases' measurements (ranges widened by the
+// margin); the intensity reference as the mean of the training quantile
+// functions (the 1D Wasserstein barycentre); the feature class means and the
+// shared covariance of Lee et al. 2018 (class-centred training features)
+// with Ledoit-Wolf shrinkage, inverted; thresholds at the retention (see
+// FitOptions.Retention) chosen on s.Choose (the intensity distance on the
+// training cases' leave-one-out scores pooled with the choosing cases', see
+// thresholdScores); then, with the thresholds fixed, the Clopper–Pearson
+// bound on the rate at which s.HeldOut passes every required check. The
+// temperature minimises the NLL of s.Temperature (Guo et al. 2017) and is
+// kept only if it lowers the NLL of s.HeldOut; otherwise T = 1, and the
+// card's calibration.decision says which happened and why.
+//
+// Without choosing cases the thresholds are chosen on the training cases'
+// leave-one-out scores; without held-out cases the bound is computed on the
+// choosing cases and fitted_on says it is in-sample, and the fitted T is
+// applied unchecked (the decision says so); without temperature cases
+// T = 1. It returns the reference, the calibration and the metrics (on the held-out cases: AUROC, accuracy, ECE with a bootstrap
+// 95 % interval and Brier score at T = 1 and at the card's T, NLL at both,
+// and the pass rate of the fit check with its bound).
+func FitReferenceSplits(c *Card, s FitSplits, opt FitOptions) (OODReference, Calibration, []Metric, error) {
+	opt = opt.withDefaults()
+	if s.TrainDescription == "" {
+		s.TrainDescription = opt.TrainDescription
+	}
+	train := s.Train
 	if len(train) < 4 {
 		return OODReference{}, Calibration{}, nil, fmt.Errorf("fit reference: need at least 4 training cases, got %d", len(train))
 	}
+	opt.TrainDescription = s.TrainDescription
 	ref := OODReference{Envelope: fitEnvelope(train, opt)}
-	ref.Envelope.FittedOn = opt.TrainDescription
+	ref.Envelope.FittedOn = s.TrainDescription
 	ref.Intensity = fitIntensity(train, opt)
 	feats, err := fitFeatures(c, train, opt)
 	if err != nil {
 		return ref, Calibration{}, nil, err
 	}
 	ref.Features = feats
-	thrCases, thrDesc := val, opt.ValidationDescription
-	if len(thrCases) == 0 {
-		thrCases, thrDesc = train, opt.TrainDescription
-	}
 	tmp := *c
 	tmp.OOD = ref
-	sc, w1Pool, err := thresholdScores(&tmp, train, val, opt)
+	chooseCases := s.Choose
+	sc, w1Pool, err := thresholdScores(&tmp, train, chooseCases, opt)
 	if err != nil {
 		return ref, Calibration{}, nil, err
 	}
-	desc := opt.ValidationDescription
-	w1Desc := fmt.Sprintf("%s (leave-one-out) and %s", opt.TrainDescription, opt.ValidationDescription)
-	if len(val) == 0 {
-		desc = opt.TrainDescription + " (leave-one-out)"
+	desc := s.ChooseDescription
+	w1Desc := fmt.Sprintf("%s (leave-one-out) and %s", s.TrainDescription, s.ChooseDescription)
+	if len(chooseCases) == 0 {
+		chooseCases = train
+		desc = s.TrainDescription + " (leave-one-out)"
 		w1Desc = desc
 	}
-	if err := fitThresholds(&tmp, sc, w1Pool, opt, desc, w1Desc); err != nil {
+	env, err := envelopePasses(&tmp, chooseCases)
+	if err != nil {
+		return ref, Calibration{}, nil, err
+	}
+	if err := fitThresholds(&tmp, sc, w1Pool, env, opt, desc, w1Desc); err != nil {
+		return ref, Calibration{}, nil, err
+	}
+	boundCases, boundDesc := s.HeldOut, s.HeldOutDescription
+	if len(boundCases) == 0 {
+		boundCases, boundDesc = chooseCases, ""
+	}
+	passMetrics, err := boundThresholds(&tmp, boundCases, boundDesc, opt)
+	if err != nil {
 		return ref, Calibration{}, nil, err
 	}
 	ref.Thresholds = tmp.OOD.Thresholds
-	cal, metrics, err := fitCalibration(c, thrCases, thrDesc)
+	cal, metrics, err := fitCalibration(c, s, opt)
 	if err != nil {
 		return ref, Calibration{}, nil, err
 	}
-	return ref, cal, metrics, nil
+	return ref, cal, append(metrics, passMetrics...), nil
 }
 
 func (o FitOptions) withDefaults() FitOptions {
@@ -309,7 +388,27 @@ func scoreCase(c *Card, fc FitCase) (scored, error) {
 	return scored{ms.MSP, ms.Energy, ms.Mahalanobis, w}, nil
 }
 
-func fitThresholds(c *Card, sc []scored, w1Pool []float64, opt FitOptions, desc, w1Desc string) error {
+// envelopePasses reports, for each case, whether it passes every required
+// check that has no fitted threshold (the envelope, head and Hounsfield
+// checks): the part of the verdict that the threshold search cannot change.
+func envelopePasses(c *Card, cases []FitCase) ([]bool, error) {
+	out := make([]bool, len(cases))
+	for i, fc := range cases {
+		out[i] = true
+		chs := append(headerChecks(c.OOD.Envelope, fc.Facts), imageChecks(c.OOD, fc.Facts)...)
+		for _, ch := range chs {
+			if ch.Required && !ch.Pass && ch.Name != CheckIntensityProfile {
+				out[i] = false
+			}
+		}
+	}
+	return out, nil
+}
+
+func fitThresholds(c *Card, sc []scored, w1Pool []float64, env []bool, opt FitOptions, desc, w1Desc string) error {
+	if len(env) != len(sc) {
+		return fmt.Errorf("fit thresholds: %d envelope results for %d cases", len(env), len(sc))
+	}
 	col := func(f func(s scored) float64) []float64 {
 		out := make([]float64, len(sc))
 		for i, s := range sc {
@@ -337,7 +436,7 @@ func fitThresholds(c *Card, sc []scored, w1Pool []float64, opt FitOptions, desc,
 			}
 			th[name] = Threshold{Value: v, Direction: dirs[name], Retention: kept, Required: req[name]}
 		}
-		pass := jointPasses(cols, th)
+		pass := jointPasses(cols, env, th)
 		lb, err := stats.BinomialLowerBound(pass, len(sc), opt.Confidence)
 		if err != nil {
 			return fmt.Errorf("fit thresholds: %w", err)
@@ -348,9 +447,9 @@ func fitThresholds(c *Card, sc []scored, w1Pool []float64, opt FitOptions, desc,
 				if name == "wasserstein" {
 					on, n = w1Desc, len(w1Pool)
 				}
-				t.FittedOn = fmt.Sprintf("quantile %.4f of the scores of %d cases (%s), the per-score quantile chosen so that %d of the %s (%.1f%%) pass every required score together, "+
-					"a one-sided %.0f%% Clopper-Pearson lower bound of %.1f%% on the pass rate of unseen in-distribution scans (target %.0f%%)",
-					q, n, on, pass, desc, 100*float64(pass)/float64(len(sc)), 100*opt.Confidence, 100*lb, 100*opt.Retention)
+				t.FittedOn = fmt.Sprintf("chosen: quantile %.4f of the scores of %d cases (%s), the per-score quantile at which %d of the %d choosing cases (%.1f%%) pass every required check (the envelope included), "+
+					"a one-sided %.0f%% Clopper-Pearson lower bound of %.1f%% on these same cases (target %.0f%%)",
+					q, n, on, pass, len(sc), 100*float64(pass)/float64(len(sc)), 100*opt.Confidence, 100*lb, 100*opt.Retention)
 				th[name] = t
 			}
 			break
@@ -360,12 +459,11 @@ func fitThresholds(c *Card, sc []scored, w1Pool []float64, opt FitOptions, desc,
 	return nil
 }
 
-// jointPasses counts the cases that pass every required threshold.
-func jointPasses(cols map[string][]float64, th map[string]Threshold) int {
-	n := len(cols["msp"])
+// jointPasses counts the cases that pass every required check: env[i] (the
+// checks without a fitted threshold) and every required threshold.
+func jointPasses(cols map[string][]float64, env []bool, th map[string]Threshold) int {
 	pass := 0
-	for i := 0; i < n; i++ {
-		ok := true
+	for i, ok := range env {
 		for name, t := range th {
 			if t.Required && t.Fails(cols[name][i]) {
 				ok = false
@@ -378,51 +476,170 @@ func jointPasses(cols map[string][]float64, th map[string]Threshold) int {
 	return pass
 }
 
-func fitCalibration(c *Card, cases []FitCase, desc string) (Calibration, []Metric, error) {
+// boundThresholds runs every check of c (thresholds fixed) on the cases and
+// adds to every threshold's fitted_on the one-sided Clopper–Pearson lower
+// bound on the rate at which they pass every required check. desc names
+// held-out cases; empty means the cases are the choosing cases, and the text
+// says the bound is in-sample.
+func boundThresholds(c *Card, cases []FitCase, desc string, opt FitOptions) ([]Metric, error) {
+	pass := 0
+	for _, fc := range cases {
+		ms, err := ComputeModelScores(c, fc.Output)
+		if err != nil {
+			return nil, fmt.Errorf("bound thresholds: %w", err)
+		}
+		if fitcheck.Verdict(RunChecks(c, fc.Facts, ms)) == fitcheck.InDistribution {
+			pass++
+		}
+	}
+	n := len(cases)
+	lb, err := stats.BinomialLowerBound(pass, n, opt.Confidence)
+	if err != nil {
+		return nil, fmt.Errorf("bound thresholds: %w", err)
+	}
+	var text, split string
+	if desc != "" {
+		split = desc
+		verdict := "meets"
+		if lb < opt.Retention {
+			verdict = "falls short of"
+		}
+		text = fmt.Sprintf("; bounded: on %d held-out cases (%s) not used to choose it, %d (%.1f%%) pass every required check, a one-sided %.0f%% Clopper-Pearson lower bound of %.1f%% on the pass rate of unseen in-distribution scans like them, which %s the target of %.0f%%",
+			n, desc, pass, 100*float64(pass)/float64(n), 100*opt.Confidence, 100*lb, verdict, 100*opt.Retention)
+	} else {
+		split = "in-sample: the cases the thresholds were chosen on"
+		text = "; no held-out cases: the bound above is in-sample (on the cases the thresholds were chosen from) and optimistic for unseen scans"
+	}
+	th := &c.OOD.Thresholds
+	for _, t := range []*Threshold{&th.MSP, &th.Energy, &th.Mahalanobis, &th.Wasserstein} {
+		t.FittedOn += text
+	}
+	how := "fraction of cases whose fit-check verdict is in-distribution (every required check passes), thresholds fixed"
+	return []Metric{
+		{Name: "fit_check_pass_rate", Value: float64(pass) / float64(n), N: n, Split: split, How: how},
+		{Name: "fit_check_pass_rate_lower_bound", Value: lb, N: n, Split: split,
+			How: fmt.Sprintf("one-sided %.0f%% Clopper-Pearson lower bound on that pass rate (Clopper & Pearson 1934)", 100*opt.Confidence)},
+	}, nil
+}
+
+// Calibration metrics: ECE bins (Guo et al. 2017 use 15), bootstrap
+// resamples and seed of its interval.
+const (
+	calibrationBins      = 15
+	calibrationResamples = 2000
+	calibrationSeed      = 20261211
+)
+
+// fitCalibration fits T on s.Temperature, keeps it only when it lowers the
+// NLL of s.HeldOut, and computes the calibration metrics on s.HeldOut (on
+// s.Temperature when there are no held-out cases, saying so).
+func fitCalibration(c *Card, s FitSplits, opt FitOptions) (Calibration, []Metric, error) {
+	cal := Calibration{Temperature: 1, FittedOn: s.TemperatureDescription,
+		Method: "temperature scaling (Guo et al. 2017): T minimising the mean negative log-likelihood of the fitting cases, golden-section search over 1/T in [0.05, 20]; kept only if it lowers the NLL of held-out cases, otherwise T = 1"}
+	tl, tlab := classLogits(c, s.Temperature)
+	hl, hlab := classLogits(c, s.HeldOut)
+	switch {
+	case len(tl) < 2:
+		cal.FittedOn = ""
+		cal.Decision = fmt.Sprintf("T = 1: %d cases to fit a temperature on (at least 2 needed).", len(tl))
+	default:
+		T, err := stats.FitTemperature(tl, tlab)
+		if err != nil {
+			return Calibration{}, nil, fmt.Errorf("fit calibration: %w", err)
+		}
+		cal.FittedTemperature = T
+		if len(hl) == 0 {
+			cal.Temperature = T
+			cal.Decision = fmt.Sprintf("T = %.4g applied unchecked: fitted on %s, with no held-out cases to check that it lowers their NLL (the caller must check it).", T, s.TemperatureDescription)
+			break
+		}
+		before, after := stats.NLL(hl, hlab, 1), stats.NLL(hl, hlab, T)
+		if after < before {
+			cal.Temperature = T
+			cal.Decision = fmt.Sprintf("T = %.4g applied: fitted on %s, it lowers the mean NLL of %s from %.4f to %.4f.", T, s.TemperatureDescription, s.HeldOutDescription, before, after)
+		} else {
+			cal.Decision = fmt.Sprintf("T = 1 applied: the T = %.4g fitted on %s does not lower the mean NLL of %s (%.4f at T = 1, %.4f at T = %.4g), so the probabilities are shown unscaled.", T, s.TemperatureDescription, s.HeldOutDescription, before, after, T)
+		}
+	}
+	cases, desc := s.HeldOut, s.HeldOutDescription
+	if len(cases) == 0 {
+		cases, desc = s.Temperature, s.TemperatureDescription+" (in-sample: the temperature was fitted on them)"
+	}
+	if len(cases) < 2 {
+		return cal, nil, nil
+	}
+	m, err := CalibrationMetrics(c, cases, cal.Temperature, desc)
+	return cal, m, err
+}
+
+func classLogits(c *Card, cases []FitCase) ([][]float64, []int) {
 	var logits [][]float64
 	var labels []int
 	for _, fc := range cases {
 		logits = append(logits, ClassLogits(c, fc.Output.Logits))
 		labels = append(labels, fc.Label)
 	}
-	T, err := stats.FitTemperature(logits, labels)
-	if err != nil {
-		return Calibration{}, nil, err
-	}
-	if len(cases) < 2 {
-		return Calibration{}, nil, errors.New("fit calibration: need at least 2 cases")
-	}
+	return logits, labels
+}
+
+// CalibrationMetrics are the discrimination and calibration figures of the
+// cases at temperature 1 and at T: AUROC of the positive-class probability
+// (at T; T does not change the order), accuracy, ECE (15 bins) with a
+// percentile bootstrap 95 % interval, Brier score of the positive class and
+// mean NLL. desc names the cases.
+func CalibrationMetrics(c *Card, cases []FitCase, T float64, desc string) ([]Metric, error) {
+	logits, labels := classLogits(c, cases)
 	pos := c.PositiveIndex()
-	ece := func(T float64) float64 {
-		conf := make([]float64, len(cases))
-		ok := make([]bool, len(cases))
-		for i, z := range logits {
-			p := fitcheck.Softmax(z, T)
-			best := 0
-			for k := range p {
-				if p[k] > p[best] {
-					best = k
-				}
-			}
-			conf[i], ok[i] = p[best], best == labels[i]
-		}
-		return stats.ECE(conf, ok, 15)
-	}
-	scores := make([]float64, len(cases))
-	isPos := make([]bool, len(cases))
-	for i, z := range logits {
-		scores[i] = fitcheck.Softmax(z, T)[pos]
-		isPos[i] = labels[i] == pos
-	}
 	n := len(cases)
-	metrics := []Metric{
-		{Name: "auroc", Value: stats.AUROC(scores, isPos), N: n, Split: desc, How: "AUROC of the positive-class probability (Mann-Whitney; equals sklearn roc_auc_score)"},
-		{Name: "ece_before_scaling", Value: ece(1), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), temperature 1"},
-		{Name: "ece_after_scaling", Value: ece(T), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), fitted temperature"},
-		{Name: "nll_before_scaling", Value: stats.NLL(logits, labels, 1), N: n, Split: desc, How: "mean negative log-likelihood"},
-		{Name: "nll_after_scaling", Value: stats.NLL(logits, labels, T), N: n, Split: desc, How: "mean negative log-likelihood"},
+	isPos := make([]bool, n)
+	right := 0
+	for i, z := range logits {
+		isPos[i] = labels[i] == pos
+		if argmax(z) == labels[i] {
+			right++
+		}
 	}
-	cal := Calibration{Temperature: T, FittedOn: desc,
-		Method: "temperature scaling (Guo et al. 2017): T minimising the mean negative log-likelihood, golden-section search over 1/T in [0.05, 20]"}
-	return cal, metrics, nil
+	out := []Metric{}
+	for _, at := range []struct {
+		T      float64
+		suffix string
+		what   string
+	}{{1, "before_scaling", "temperature 1"}, {T, "after_scaling", fmt.Sprintf("the card's temperature %.4g", T)}} {
+		conf, ok, prob := make([]float64, n), make([]bool, n), make([]float64, n)
+		for i, z := range logits {
+			p := fitcheck.Softmax(z, at.T)
+			k := argmax(p)
+			conf[i], ok[i], prob[i] = p[k], k == labels[i], p[pos]
+		}
+		lo, hi, err := stats.ECEInterval(conf, ok, calibrationBins, calibrationResamples, calibrationSeed, 0.95)
+		if err != nil {
+			return nil, fmt.Errorf("calibration metrics: %w", err)
+		}
+		brier, err := stats.BrierBinary(prob, isPos)
+		if err != nil {
+			return nil, fmt.Errorf("calibration metrics: %w", err)
+		}
+		if at.suffix == "before_scaling" {
+			out = append(out,
+				Metric{Name: "auroc", Value: stats.AUROC(prob, isPos), N: n, Split: desc, How: "AUROC of the positive-class probability (Mann-Whitney; equals sklearn roc_auc_score)"},
+				Metric{Name: "accuracy", Value: float64(right) / float64(n), N: n, Split: desc, How: "fraction of cases whose most probable class is the true one"})
+		}
+		out = append(out,
+			Metric{Name: "ece_" + at.suffix, Value: stats.ECE(conf, ok, calibrationBins), N: n, Split: desc, CI95: []float64{lo, hi},
+				Interval: fmt.Sprintf("percentile bootstrap over cases, %d resamples, seed %d", calibrationResamples, calibrationSeed),
+				How:      fmt.Sprintf("expected calibration error of the top-class confidence, 15 equal-width bins (Guo et al. 2017), %s; interval: percentile bootstrap 95%% over cases, %d resamples (binned ECE is biased upwards for small n: Kumar et al. 2019, Roelofs et al. 2022)", at.what, calibrationResamples)},
+			Metric{Name: "brier_" + at.suffix, Value: brier, N: n, Split: desc, How: fmt.Sprintf("Brier score of the positive-class probability (Brier 1950; sklearn brier_score_loss), %s", at.what)},
+			Metric{Name: "nll_" + at.suffix, Value: stats.NLL(logits, labels, at.T), N: n, Split: desc, How: fmt.Sprintf("mean negative log-likelihood, %s", at.what)})
+	}
+	return out, nil
+}
+
+func argmax(x []float64) int {
+	best := 0
+	for k := range x {
+		if x[k] > x[best] {
+			best = k
+		}
+	}
+	return best
 }

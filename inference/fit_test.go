@@ -23,7 +23,11 @@ func TestFitThresholdsJointRetention(t *testing.T) {
 	for _, x := range sc {
 		w1 = append(w1, x.w1)
 	}
-	if err := fitThresholds(c, sc, w1, FitOptions{}.withDefaults(), "400 synthetic", "400 synthetic"); err != nil {
+	env := make([]bool, len(sc))
+	for i := range env {
+		env[i] = true
+	}
+	if err := fitThresholds(c, sc, w1, env, FitOptions{}.withDefaults(), "400 synthetic", "400 synthetic"); err != nil {
 		t.Fatal(err)
 	}
 	th := c.OOD.Thresholds
@@ -111,5 +115,62 @@ func TestZeroSkewRangeSkipped(t *testing.T) {
 	}
 	if s := (span{0, 0}).widenSigned(0.6); s != nil {
 		t.Errorf("all-zero facts gave range %v", *s)
+	}
+}
+
+// jointPasses counts a case that fails a check without a fitted threshold
+// (the envelope) as failing, whatever its scores.
+func TestJointPassesCountsEnvelope(t *testing.T) {
+	cols := map[string][]float64{"mahalanobis": {1, 1, 9}}
+	th := map[string]Threshold{"mahalanobis": {Value: 5, Direction: "max", Required: true}}
+	if got := jointPasses(cols, []bool{true, false, true}, th); got != 1 {
+		t.Errorf("%d pass, want 1 (case 2 fails the envelope, case 3 the threshold)", got)
+	}
+}
+
+// The temperature is kept only when it lowers the held-out NLL: logits that
+// are overconfident on both splits get T > 1 applied; logits overconfident
+// on the fitting split but calibrated on the held-out split keep T = 1, and
+// the decision says so.
+func TestTemperatureKeptOnlyWhenHeldOutNLLDrops(t *testing.T) {
+	c := tinyCard([]byte("x"))
+	rng := rand.New(rand.NewPCG(41, 42))
+	mk := func(n int, scale float64, noise float64) []FitCase {
+		var out []FitCase
+		for i := 0; i < n; i++ {
+			y := i % 2
+			z := scale * (float64(2*y-1) + rng.NormFloat64())
+			if rng.Float64() < noise {
+				y = 1 - y
+			}
+			out = append(out, FitCase{Output: Output{Logits: []float64{-z / 2, z / 2}}, Label: y})
+		}
+		return out
+	}
+	over := FitSplits{Temperature: mk(400, 6, 0.2), HeldOut: mk(400, 6, 0.2), TemperatureDescription: "fit", HeldOutDescription: "held"}
+	cal, m, err := fitCalibration(c, over, FitOptions{}.withDefaults())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !(cal.Temperature > 1) || cal.Temperature != cal.FittedTemperature || !strings.Contains(cal.Decision, "applied") {
+		t.Errorf("overconfident on both: %+v", cal)
+	}
+	var haveInterval bool
+	for _, x := range m {
+		if x.Name == "ece_after_scaling" && len(x.CI95) == 2 && x.CI95[0] <= x.Value && x.Value <= x.CI95[1]+0.05 {
+			haveInterval = true
+		}
+	}
+	if !haveInterval {
+		t.Errorf("no ECE interval in %+v", m)
+	}
+	// fitted on noisy overconfident cases, held out on cases without label noise and small logits
+	mixed := FitSplits{Temperature: mk(400, 6, 0.3), HeldOut: mk(400, 1, 0), TemperatureDescription: "fit", HeldOutDescription: "held"}
+	cal, _, err = fitCalibration(c, mixed, FitOptions{}.withDefaults())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if cal.Temperature != 1 || !(cal.FittedTemperature > 1) || !strings.Contains(cal.Decision, "does not lower") {
+		t.Errorf("held-out NLL rises: %+v", cal)
 	}
 }

@@ -8,7 +8,6 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
-	"sort"
 	"strings"
 	"testing"
 
@@ -18,6 +17,7 @@ import (
 	"brightfold/internal/onnx"
 	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
+	"brightfold/internal/volume"
 )
 
 // The localisation measurement runs on few coarse phantoms by default; the
@@ -64,10 +64,13 @@ func positiveCases(t testing.TB, card *inference.Card, n int, voxel float64) ([]
 	return cs, ps
 }
 
-// On the demo model (Bach et al. 2015 conservation; Sundararajan et al.
-// 2017 completeness): LRP-epsilon and the composite conserve the logit
-// within 1 % once the bias and stabiliser terms are booked, and integrated
-// gradients at m = 64 add up to f(x) − f(baseline) within 1 %.
+// On the demo model: the LRP ledger adds up (a consistency check of the
+// implementation, error below 1 %) for the epsilon rule and the composite;
+// the composite's input share, the part of the logit that reaches the
+// voxels, lies within 0.8 to 1.2 (its configuration was chosen for that on
+// seed 20261211: 0.90 to 1.02 there); and integrated gradients at m = 64
+// add up to f(x) − f(baseline) within 1 % (Sundararajan et al. 2017,
+// completeness).
 func TestDemoModelChecks(t *testing.T) {
 	b := demoModelFolder(t)
 	ex, err := New(b, nil)
@@ -79,10 +82,13 @@ func TestDemoModelChecks(t *testing.T) {
 		for _, rule := range []LRPRule{RuleEpsilon, RuleComposite} {
 			m := compute(t, ex, LRP, pr.Tensor, Options{Rule: rule})
 			c := m.Checks
-			t.Logf("case %d, LRP %s: logit %.4g, input relevance %.4g, bias %.3g, stabiliser %.3g of the logit, conservation error %.2g",
-				i, rule, c["target_logit"], c["relevance_sum"], c["bias_share"], c["stabiliser_share"], c["conservation_error"])
-			if !(c["conservation_error"] < 0.01) {
-				t.Errorf("case %d, LRP %s: conservation error %.3g", i, rule, c["conservation_error"])
+			t.Logf("case %d, LRP %s: logit %.4g; input share %.3g, bias %.3g, stabiliser %.3g; consistency error %.2g",
+				i, rule, c["target_logit"], c["input_share"], c["bias_share"], c["stabiliser_share"], c["consistency_error"])
+			if !(c["consistency_error"] < 0.01) {
+				t.Errorf("case %d, LRP %s: ledger consistency error %.3g", i, rule, c["consistency_error"])
+			}
+			if rule == RuleComposite && !(c["input_share"] > 0.8 && c["input_share"] < 1.2) {
+				t.Errorf("case %d, LRP composite: input share %.3g, want 0.8 to 1.2", i, c["input_share"])
 			}
 		}
 	}
@@ -240,21 +246,26 @@ func TestSpearmanAgainstScipy(t *testing.T) {
 // the share of the positive relevance that falls inside the ground-truth
 // mask, on the scan grid (the maps carried back through the inverse
 // preprocessing transform), for pattern-positive phantoms and the
-// positive-class logit. Chance is the mask's share of the voxels (of the
-// whole scan, and, stricter, of the intracranial voxels). Every method's
-// figure is reported in the log; the goal (LRP and integrated gradients at
-// 3 times chance or more) is a property of the trained model, measured
-// here, not asserted. The test asserts that every figure is a share.
+// positive-class logit. The goal docs/evaluation.md states, asserted on
+// every case: LRP (the product's composite) and integrated gradients (zero
+// baseline) put at least 3 times chance inside the mask, chance being the
+// mask's share of the scan's voxels. The cases are the first -overlay.cases
+// pattern-positive phantoms of seed 20261210 (2 by default, rendered at
+// 2 mm with m = 16 so that the test stays near a minute; -overlay.full uses
+// 1 mm and m = 64). On the 50-case table of docs/evaluation.md the smallest
+// ratio is well above 3 for both methods, so a failure here means the maps
+// stopped pointing at the pattern. As a control that the threshold
+// discriminates, the LRP map with its values shuffled over the voxels must
+// fall below it. `make evaluate-maps` makes the full table.
 func TestLocalisation(t *testing.T) {
 	b := demoModelFolder(t)
-	s := testSession(t, b)
-	ex, err := New(b, s)
+	ex, err := New(b, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
-	voxel, steps, stride := 2.0, 16, 8
+	voxel, steps := 2.0, 16
 	if *locFull {
-		voxel, steps, stride = 1, 64, 4
+		voxel, steps = 1, 64
 	}
 	methods := []struct {
 		name string
@@ -262,81 +273,72 @@ func TestLocalisation(t *testing.T) {
 		opt  Options
 	}{
 		{"LRP composite", LRP, Options{}},
-		{"LRP epsilon", LRP, Options{Rule: RuleEpsilon}},
-		{"LRP alpha1-beta0", LRP, Options{Rule: RuleAlphaBeta}},
-		{"LRP composite, contrast", LRP, Options{Contrast: true}},
-		{fmt.Sprintf("IG zero, m=%d", steps), IntegratedGradients, Options{Steps: steps}},
-		{fmt.Sprintf("IG blur, m=%d", steps), IntegratedGradients, Options{Steps: steps, Baseline: BaselineBlur}},
-		{fmt.Sprintf("IG zero, contrast, m=%d", steps), IntegratedGradients, Options{Steps: steps, Contrast: true}},
-		{"gradient × input", GradientInput, Options{}},
-		{fmt.Sprintf("occlusion 8, stride %d", stride), Occlusion, Options{Stride: stride}},
+		{fmt.Sprintf("integrated gradients, zero baseline, m = %d", steps), IntegratedGradients, Options{Steps: steps}},
 	}
-	acc := make([][]float64, len(methods))
-	checks := make([][]float64, len(methods)) // conservation or completeness error per case
-	var chance, chanceBrain []float64
+	r := rand.New(rand.NewPCG(freshSeed, 1))
 	for i := 0; i < *locCases; i++ {
 		c, pr := positiveCase(t, b.Card, i, voxel)
-		mask := make([]bool, len(c.Mask.Data))
-		nMask, nBrain := 0, 0
+		mask, nMask := make([]bool, len(c.Mask.Data)), 0
 		for j, v := range c.Mask.Data {
-			mask[j] = v > 0
-			if mask[j] {
+			if mask[j] = v > 0; mask[j] {
 				nMask++
 			}
-			if c.Labels[j] >= phantom.CSF {
-				nBrain++
-			}
 		}
-		chance = append(chance, float64(nMask)/float64(len(mask)))
-		chanceBrain = append(chanceBrain, float64(nMask)/float64(nBrain))
+		chance := float64(nMask) / float64(len(mask))
 		for k, md := range methods {
-			m, err := ex.Compute(context.Background(), md.m, pr.Tensor, md.opt)
+			_, onScan := mapOnScan(t, ex, pr, md.m, md.opt)
+			a, err := MassAccuracy(onScan.Data, mask)
 			if err != nil {
-				t.Fatal(err)
+				t.Fatalf("case %d, %s: %v", i, md.name, err)
 			}
-			onScan, err := m.ToScan(pr.Transform)
-			if err != nil {
-				t.Fatal(err)
+			t.Logf("case %d, %s: mass accuracy %.4f, %.1f × chance (%.4f)", i, md.name, a, a/chance, chance)
+			if !(a >= 3*chance) {
+				t.Errorf("case %d, %s: mass accuracy %.4f is below 3 × chance (%.4f)", i, md.name, a, 3*chance)
 			}
-			acc[k] = append(acc[k], MassAccuracy(onScan.Data, mask))
-			for _, name := range []string{"conservation_error", "completeness_error"} {
-				if v, ok := m.Checks[name]; ok {
-					checks[k] = append(checks[k], v)
-				}
+			if k > 0 {
+				continue
+			}
+			shuffled := append([]float32(nil), onScan.Data...)
+			r.Shuffle(len(shuffled), func(x, y int) { shuffled[x], shuffled[y] = shuffled[y], shuffled[x] })
+			if s, err := MassAccuracy(shuffled, mask); err != nil || s >= 3*chance {
+				t.Errorf("case %d: the shuffled LRP map scores %.4f (%v), not below 3 × chance: the threshold does not discriminate", i, s, err)
 			}
 		}
 	}
-	mc, mb := meanSD(chance)
-	cb, _ := meanSD(chanceBrain)
-	var sb strings.Builder
-	fmt.Fprintf(&sb, "relevance mass accuracy on %d pattern-positive phantoms (seed %d, %g mm), positive-class logit:\n", *locCases, freshSeed, voxel)
-	fmt.Fprintf(&sb, "chance: mask share of the scan %.4f (sd %.4f), of the intracranial voxels %.4f\n", mc, mb, cb)
-	fmt.Fprintf(&sb, "%-28s %8s %8s %10s %10s   %s\n", "method", "mean", "sd", "x chance", "x brain", "own check: median, max, share < 1 %")
-	for k, md := range methods {
-		m, sd := meanSD(acc[k])
-		fmt.Fprintf(&sb, "%-28s %8.4f %8.4f %10.2f %10.2f   %s\n", md.name, m, sd, m/mc, m/cb, summarise(checks[k]))
-		for _, a := range acc[k] {
-			if !(a >= 0 && a <= 1) {
-				t.Errorf("%s: mass accuracy %v is not a share", md.name, a)
-			}
-		}
+}
+
+// mapOnScan computes a map and carries it onto the scan grid.
+func mapOnScan(t testing.TB, ex *Explainer, pr *preprocess.Prepared, method Method, opt Options) (*Map, *volume.Volume) {
+	t.Helper()
+	m, err := ex.Compute(context.Background(), method, pr.Tensor, opt)
+	if err != nil {
+		t.Fatal(err)
 	}
-	t.Log(sb.String())
+	onScan, err := m.ToScan(pr.Transform)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return m, onScan
 }
 
 // positiveCase returns the i-th pattern-positive case of the fresh cohort,
 // rendered at voxel mm and prepared for the card.
 func positiveCase(t testing.TB, card *inference.Card, i int, voxel float64) (*phantom.Case, *preprocess.Prepared) {
+	return positiveCaseOf(t, card, freshSeed, i, voxel)
+}
+
+// positiveCaseOf returns the i-th pattern-positive case of cohort seed.
+func positiveCaseOf(t testing.TB, card *inference.Card, seed uint64, i int, voxel float64) (*phantom.Case, *preprocess.Prepared) {
 	t.Helper()
 	n := -1
 	for idx := 0; ; idx++ {
-		if phantom.NewSubject(freshSeed, idx, phantom.ShiftNone).Label != 1 {
+		if phantom.NewSubject(seed, idx, phantom.ShiftNone).Label != 1 {
 			continue
 		}
 		if n++; n < i {
 			continue
 		}
-		c, err := phantom.Generate(freshSeed, idx, phantom.Options{VoxelMM: voxel})
+		c, err := phantom.Generate(seed, idx, phantom.Options{VoxelMM: voxel})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -346,22 +348,6 @@ func positiveCase(t testing.TB, card *inference.Card, i int, voxel float64) (*ph
 		}
 		return c, pr
 	}
-}
-
-// summarise gives the median, the maximum and the share below 0.01.
-func summarise(x []float64) string {
-	if len(x) == 0 {
-		return "-"
-	}
-	c := append([]float64(nil), x...)
-	sort.Float64s(c)
-	below := 0
-	for _, v := range c {
-		if v < 0.01 {
-			below++
-		}
-	}
-	return fmt.Sprintf("%.2g, %.2g, %d/%d", c[len(c)/2], c[len(c)-1], below, len(c))
 }
 
 func meanSD(x []float64) (float64, float64) {

@@ -4,23 +4,25 @@
 //
 //   - LRP, layer-wise relevance propagation (Bach et al. 2015), on the Go
 //     executor of package internal/onnx/exec, node by node over a forward
-//     Trace. The default composite follows Montavon et al. 2019 ("Layer-wise relevance
-//     propagation: an overview", section 10.1): the z^B rule at the input
-//     layer with the bounds of the card's intensity normalisation, the
-//     alpha1-beta0 rule in the lower convolutions, the epsilon rule in the
-//     upper convolutions and LRP-0 (epsilon rule with a vanishing epsilon)
-//     in the dense layers. BatchNormalization after a convolution is folded
+//     Trace. The default composite (RuleComposite) applies the z^B rule at
+//     the input layer with the bounds of the card's intensity
+//     normalisation, alpha1-beta0 in the convolutions above it and LRP-0
+//     in the dense layers (Montavon et al. 2019, section 10.1;
+//     Kohlbrenner et al. 2020); epsilon in the upper convolutions is an
+//     option. BatchNormalization after a convolution is folded
 //     into it first (onnx.FoldBatchNorm); ReLU, Dropout, Identity and the
 //     shape operators pass relevance on unchanged; max pooling routes it to
 //     the winner; average pooling splits it in proportion to the inputs.
-//     Check: conservation, the input relevance plus the relevance the biases
-//     and the stabilisers absorb (both computed from their own terms) equals
-//     the target logit.
+//     Figures: input_share, the part of the logit the voxels carry, and
+//     the parts the biases and the stabilisers keep (the three add up to
+//     1); consistency_error checks that they do, a check of the
+//     implementation, not of the explanation.
 //   - Gradient × input (Shrikumar et al. 2016; for ReLU networks equal to
 //     LRP-0, Ancona et al. 2018).
 //   - Integrated gradients (Sundararajan et al. 2017) from a zero or a
 //     blurred baseline with m steps, batched through the executor. Check:
-//     completeness, the attributions sum to f(x) − f(baseline).
+//     completeness, the attributions sum to f(x) − f(baseline); their
+//     input_share is 1 − f(baseline)/f(x).
 //   - Occlusion sensitivity (Zeiler & Fergus 2014): the drop of the target
 //     logit when a cube of the input is set to a fill value, through ONNX
 //     Runtime (inference.Session) in batches. It needs only the model's

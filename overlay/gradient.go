@@ -22,24 +22,34 @@ func (e *Explainer) computeLRP(ctx context.Context, t *preprocess.Tensor, tg tar
 	}
 	f := res.target
 	rsum := sum(res.input.Data)
-	den := math.Max(math.Abs(f), 1e-12)
+	checks := map[string]float64{
+		// The ledger adds up by construction: every rule books what it
+		// does not pass on (the bias terms from the biases, the
+		// stabiliser terms from the epsilons). This is a consistency
+		// check of the implementation (forward pass against backward
+		// rules), not a measure of how much of the logit reaches the
+		// voxels; input_share is that measure.
+		"consistency_error": math.Abs(rsum+res.ledger.bias+res.ledger.stab-f) / math.Max(math.Abs(f), 1e-12),
+		"relevance_sum":     rsum,
+		"target_logit":      f,
+	}
+	// Bach et al. 2015, eq. 2 and section 3: relevance is conserved from
+	// layer to layer when nothing is absorbed; the shares say how much of
+	// the logit f the voxels, the biases and the stabilisers carry
+	// (input + bias + stabiliser = 1).
+	if f != 0 {
+		checks["input_share"] = rsum / f
+		checks["bias_share"] = res.ledger.bias / f
+		checks["stabiliser_share"] = res.ledger.stab / f
+	}
 	return &Map{
-		Rule:     e.lrp.describe(opt.Rule, opt.Epsilon),
+		Rule:     e.lrp.describe(opt),
 		Target:   f,
 		Values:   toGrid(t, res.input.Data),
 		Additive: true,
 		Passes:   1,
-		Checks: map[string]float64{
-			// Bach et al. 2015, eq. 2 and section 3: relevance is conserved
-			// from layer to layer; what the biases and stabilisers take is
-			// booked from their own terms.
-			"conservation_error": math.Abs(rsum+res.ledger.bias+res.ledger.stab-f) / den,
-			"relevance_sum":      rsum,
-			"target_logit":       f,
-			"bias_share":         res.ledger.bias / den,
-			"stabiliser_share":   res.ledger.stab / den,
-		},
-		Settings: map[string]any{"rule": string(opt.Rule), "epsilon": opt.Epsilon},
+		Checks:   checks,
+		Settings: map[string]any{"rule": string(opt.Rule), "epsilon": opt.Epsilon, "bias": string(opt.Bias), "lower_convs": e.lrp.lowerConvs(opt)},
 	}, nil
 }
 
@@ -150,7 +160,7 @@ func (e *Explainer) computeGradInput(ctx context.Context, t *preprocess.Tensor, 
 	return &Map{
 		Rule: "gradient of the target logit times the input", Target: s[0], Values: toGrid(t, v),
 		Additive: true, Passes: 1,
-		Checks: map[string]float64{"relevance_sum": rsum, "target_logit": s[0]},
+		Checks: withInputShare(map[string]float64{"relevance_sum": rsum, "target_logit": s[0]}),
 	}, nil
 }
 
@@ -220,7 +230,7 @@ func (e *Explainer) computeIG(ctx context.Context, t *preprocess.Tensor, tg targ
 	return &Map{
 		Rule:   fmt.Sprintf("integrated gradients, %s baseline, %d midpoint steps", opt.Baseline, n),
 		Target: ends[0], Values: toGrid(t, v), Additive: true, Passes: passes,
-		Checks: map[string]float64{
+		Checks: withInputShare(map[string]float64{
 			// Sundararajan et al. 2017, Proposition 1 (completeness):
 			// Σ_i IG_i = f(x) − f(x').
 			"completeness_error": cerr,
@@ -228,9 +238,19 @@ func (e *Explainer) computeIG(ctx context.Context, t *preprocess.Tensor, tg targ
 			"target_logit":       ends[0],
 			"baseline_logit":     ends[1],
 			"steps":              float64(n),
-		},
+		}),
 		Settings: map[string]any{"steps": n, "baseline": string(opt.Baseline), "blur_sigma_mm": blurSetting(opt), "tolerance": opt.Tolerance},
 	}, nil
+}
+
+// withInputShare adds input_share, the map's sum over the target logit
+// (relevance_sum / target_logit), when the logit is not 0. For integrated
+// gradients it is 1 − f(x')/f(x): the baseline keeps the rest.
+func withInputShare(c map[string]float64) map[string]float64 {
+	if f := c["target_logit"]; f != 0 {
+		c["input_share"] = c["relevance_sum"] / f
+	}
+	return c
 }
 
 func blurSetting(opt Options) any {

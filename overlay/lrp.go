@@ -199,36 +199,49 @@ func (p *lrpPlan) numberLayers() {
 	}
 }
 
-// rule is the rule a weighted layer gets under rule set rs: for the
-// composite, z^B at the input layer, alpha1-beta0 in the lower half of the
-// convolutions, epsilon in the upper half, LRP-0 in dense layers (Montavon
-// et al. 2019, section 10.1: LRP-γ-like rules low, LRP-ε in the middle,
-// LRP-0 at the top).
-func (p *lrpPlan) rule(st *lrpStep, rs LRPRule) ruleKind {
+// rule is the rule a weighted layer gets under options opt: for the
+// composite, z^B at the input layer, alpha1-beta0 in the next
+// lowerConvs(opt) convolutions, epsilon in the convolutions above (none by
+// default), LRP-0 in dense layers (Montavon et al. 2019, section 10.1:
+// LRP-γ-like rules low, LRP-ε in the middle, LRP-0 at the top).
+func (p *lrpPlan) rule(st *lrpStep, opt Options) ruleKind {
 	switch {
-	case rs == RuleEpsilon:
+	case opt.Rule == RuleEpsilon:
 		return ruleEpsilon
 	case st.first:
 		return ruleZB
-	case rs == RuleAlphaBeta:
+	case opt.Rule == RuleAlphaBeta:
 		return ruleAlphaBeta
 	case !st.conv:
 		return ruleZero
-	case st.convAt < (p.convs+1)/2:
+	case st.convAt <= p.lowerConvs(opt):
 		return ruleAlphaBeta
 	}
 	return ruleEpsilon
 }
 
+// lowerConvs is how many convolutions after the first the composite gives
+// alpha1-beta0: Options.LowerConvs, or by default all of them (the
+// configuration chosen on phantom seed 20261211, see RuleComposite).
+func (p *lrpPlan) lowerConvs(opt Options) int {
+	switch {
+	case opt.LowerConvs < 0:
+		return 0
+	case opt.LowerConvs > 0:
+		return opt.LowerConvs
+	}
+	return p.convs - 1
+}
+
 // describe lists the layers under each rule, e.g. "z^B: conv1; alpha1-beta0: conv2; ...".
-func (p *lrpPlan) describe(rs LRPRule, eps float64) string {
+func (p *lrpPlan) describe(opt Options) string {
 	var order []ruleKind
 	names := map[ruleKind][]string{}
 	for i, st := range p.steps {
 		if st.kind != kindWeighted {
 			continue
 		}
-		r := p.rule(st, rs)
+		r := p.rule(st, opt)
 		if names[r] == nil {
 			order = append(order, r)
 		}
@@ -243,11 +256,12 @@ func (p *lrpPlan) describe(rs LRPRule, eps float64) string {
 	for _, r := range order {
 		label := r.String()
 		if r == ruleEpsilon {
-			label = fmt.Sprintf("epsilon (%.2g × RMS)", eps)
+			label = fmt.Sprintf("epsilon (%.2g × RMS)", opt.Epsilon)
 		}
 		parts = append(parts, label+": "+strings.Join(names[r], ", "))
 	}
-	return fmt.Sprintf("%s rule; %s; %d batch normalisation(s) folded", rs, strings.Join(parts, "; "), p.folded)
+	return fmt.Sprintf("%s rule; %s; biases in epsilon and LRP-0 layers: %s; %d batch normalisation(s) folded",
+		opt.Rule, strings.Join(parts, "; "), opt.Bias, p.folded)
 }
 
 // ledger sums the relevance the rules absorb rather than pass on.
@@ -344,7 +358,7 @@ func (p *lrpPlan) step(st *lrpStep, n *onnx.Node, ins, outs []*onnx.Tensor, r *o
 	case kindWeighted:
 		x, z := ins[0], outs[0]
 		var err error
-		switch rk := p.rule(st, opt.Rule); rk {
+		switch rk := p.rule(st, opt); rk {
 		case ruleZB:
 			parts[0], err = p.zB(st.layer, x, z, r, lg)
 		case ruleAlphaBeta:
@@ -354,7 +368,7 @@ func (p *lrpPlan) step(st *lrpStep, n *onnx.Node, ins, outs []*onnx.Tensor, r *o
 			if rk == ruleZero {
 				eps = tinyEps
 			}
-			parts[0], err = epsilonRule(st.layer, x, z, r, eps, lg)
+			parts[0], err = epsilonRule(st.layer, x, z, r, eps, opt.Bias, lg)
 		}
 		if err != nil {
 			return nil, err
@@ -394,14 +408,20 @@ func stabilised(r, z *onnx.Tensor, rel float64, lg *ledger) *onnx.Tensor {
 }
 
 // epsilonRule: R_i = x_i Σ_j w_ij R_j / (z_j + ε sign z_j) (Bach et al.
-// 2015, eq. 58). The bias takes Σ_j s_j b_j.
-func epsilonRule(l *linearLayer, x, z, r *onnx.Tensor, eps float64, lg *ledger) (*onnx.Tensor, error) {
-	s := stabilised(r, z, eps, lg)
-	c, err := l.vjpFull(x, z, s)
+// 2015, eq. 58). With BiasAbsorb the bias takes Σ_j s_j b_j; with
+// BiasIgnore z_j is taken without the bias, so the inputs share all of R_j
+// but what the stabiliser keeps.
+func epsilonRule(l *linearLayer, x, z, r *onnx.Tensor, eps float64, bt LRPBias, lg *ledger) (*onnx.Tensor, error) {
+	bias, err := l.cached("bias", x.Shape)
 	if err != nil {
 		return nil, err
 	}
-	bias, err := l.cached("bias", x.Shape)
+	if bias != nil && bt == BiasIgnore {
+		z = subTensors(z, bias)
+		bias = nil
+	}
+	s := stabilised(r, z, eps, lg)
+	c, err := l.vjpFull(x, z, s)
 	if err != nil {
 		return nil, err
 	}
@@ -535,6 +555,14 @@ func mulTensors(a, b *onnx.Tensor) *onnx.Tensor {
 	out := onnx.New(a.Shape...)
 	for i, v := range a.Data {
 		out.Data[i] = v * b.Data[i]
+	}
+	return out
+}
+
+func subTensors(a, b *onnx.Tensor) *onnx.Tensor {
+	out := onnx.New(a.Shape...)
+	for i, v := range a.Data {
+		out.Data[i] = v - b.Data[i]
 	}
 	return out
 }

@@ -42,31 +42,42 @@ func compute(t *testing.T, ex *Explainer, m Method, in *preprocess.Tensor, opt O
 	return mp
 }
 
-// LRP conservation (Bach et al. 2015, eq. 2): at every layer the relevance
-// passed down plus what the biases and the stabilisers take equals the
-// relevance received, so the input relevance plus those terms equals the
-// target logit. The bias term is computed from the biases themselves and the
-// stabiliser term from the epsilons, not as a remainder.
-func TestLRPConservation(t *testing.T) {
+// The LRP ledger adds up (Bach et al. 2015, eq. 2: at every layer the
+// relevance passed down plus what the biases and the stabilisers take
+// equals the relevance received), so the input relevance plus those terms
+// equals the target logit, and the three shares add up to 1. The bias term
+// is computed from the biases themselves and the stabiliser term from the
+// epsilons, not as a remainder. This is a consistency check of the
+// implementation (the rules against the forward pass); how much of the
+// logit reaches the voxels is input_share, which the rules decide.
+func TestLRPLedgerConsistency(t *testing.T) {
 	ex := testExplainer(t, modelSpec{grid: testGrid}, false)
 	for seed := uint64(1); seed <= 3; seed++ {
 		in := testInput(testGrid, seed)
 		for _, rule := range []LRPRule{RuleEpsilon, RuleComposite, RuleAlphaBeta} {
-			for _, class := range []string{"positive", "negative"} {
-				m := compute(t, ex, LRP, in, Options{Rule: rule, Class: class})
-				c := m.Checks
-				if c["conservation_error"] > 1e-5 {
-					t.Errorf("seed %d, %s, class %s: conservation error %.3g (sum %.6g, bias %.3g, stabiliser %.3g, logit %.6g)",
-						seed, rule, class, c["conservation_error"], c["relevance_sum"], c["bias_share"], c["stabiliser_share"], c["target_logit"])
-				}
-				if math.Abs(m.Sum()-c["relevance_sum"]) > 1e-4*math.Abs(c["target_logit"]) {
-					t.Errorf("map sum %.6g, reported %.6g", m.Sum(), c["relevance_sum"])
-				}
-				if rule == RuleEpsilon && c["bias_share"] == 0 {
-					t.Errorf("seed %d: the epsilon rule booked no bias relevance although conv1, conv3 and fc have biases", seed)
-				}
-				if rule == RuleAlphaBeta && c["bias_share"] != 0 {
-					t.Errorf("seed %d: alpha1-beta0 leaves the bias out, yet booked %.3g", seed, c["bias_share"])
+			for _, bias := range []LRPBias{BiasAbsorb, BiasIgnore} {
+				for _, class := range []string{"positive", "negative"} {
+					m := compute(t, ex, LRP, in, Options{Rule: rule, Class: class, Bias: bias})
+					c := m.Checks
+					if c["consistency_error"] > 1e-5 {
+						t.Errorf("seed %d, %s, bias %s, class %s: consistency error %.3g (sum %.6g, bias %.3g, stabiliser %.3g, logit %.6g)",
+							seed, rule, bias, class, c["consistency_error"], c["relevance_sum"], c["bias_share"], c["stabiliser_share"], c["target_logit"])
+					}
+					if s := c["input_share"] + c["bias_share"] + c["stabiliser_share"]; math.Abs(s-1) > 1e-5 {
+						t.Errorf("seed %d, %s, bias %s: shares add up to %.6g", seed, rule, bias, s)
+					}
+					if math.Abs(c["input_share"]*c["target_logit"]-c["relevance_sum"]) > 1e-9*math.Abs(c["target_logit"]) {
+						t.Errorf("input share %.6g is not the relevance sum %.6g over the logit %.6g", c["input_share"], c["relevance_sum"], c["target_logit"])
+					}
+					if math.Abs(m.Sum()-c["relevance_sum"]) > 1e-4*math.Abs(c["target_logit"]) {
+						t.Errorf("map sum %.6g, reported %.6g", m.Sum(), c["relevance_sum"])
+					}
+					if rule == RuleEpsilon && bias == BiasAbsorb && c["bias_share"] == 0 {
+						t.Errorf("seed %d: the epsilon rule booked no bias relevance although conv1, conv3 and fc have biases", seed)
+					}
+					if (rule == RuleAlphaBeta || bias == BiasIgnore) && c["bias_share"] != 0 {
+						t.Errorf("seed %d, %s, bias %s: the rules leave the bias out, yet booked %.3g", seed, rule, bias, c["bias_share"])
+					}
 				}
 			}
 		}
@@ -281,7 +292,9 @@ func TestPatchStarts(t *testing.T) {
 
 // Relevance mass accuracy (Arras et al. 2022, section 4.2) by its
 // definition: only positive relevance counts; a map equal to the mask
-// scores 1, a uniform map scores the mask's share (chance).
+// scores 1, a uniform map scores the mask's share (chance); a map without
+// positive values (all negative, all zero, NaN) has no share and is an
+// error, not 0.
 func TestMassAccuracyDefinition(t *testing.T) {
 	mask := []bool{true, false, false, true, false, false, false, false}
 	for _, c := range []struct {
@@ -291,10 +304,15 @@ func TestMassAccuracyDefinition(t *testing.T) {
 		{[]float32{1, 0, 0, 1, 0, 0, 0, 0}, 1},
 		{[]float32{1, 1, 1, 1, 1, 1, 1, 1}, 0.25},
 		{[]float32{3, -5, 0, 1, 1, -1, 0, 0}, 0.8},
-		{[]float32{-1, -1, -1, -1, -1, -1, -1, -1}, 0},
 	} {
-		if got := MassAccuracy(c.v, mask); math.Abs(got-c.want) > 1e-12 {
-			t.Errorf("MassAccuracy(%v) = %v, want %v", c.v, got, c.want)
+		if got, err := MassAccuracy(c.v, mask); err != nil || math.Abs(got-c.want) > 1e-12 {
+			t.Errorf("MassAccuracy(%v) = %v, %v; want %v", c.v, got, err, c.want)
+		}
+	}
+	nan := float32(math.NaN())
+	for _, v := range [][]float32{{-1, -1, -1, -1, -1, -1, -1, -1}, make([]float32, 8), {nan, nan, 0, 0, 0, 0, 0, 0}} {
+		if got, err := MassAccuracy(v, mask); !errors.Is(err, ErrNoPositiveRelevance) {
+			t.Errorf("MassAccuracy(%v) = %v, %v; want ErrNoPositiveRelevance", v, got, err)
 		}
 	}
 }
@@ -374,8 +392,8 @@ func TestContrastTarget(t *testing.T) {
 	}
 	lrp := compute(t, ex, LRP, in, Options{Contrast: true})
 	ig := compute(t, ex, IntegratedGradients, in, Options{Contrast: true})
-	if lrp.Checks["conservation_error"] > 1e-5 || ig.Checks["completeness_error"] > 0.01 {
-		t.Errorf("contrast: conservation %.3g, completeness %.3g", lrp.Checks["conservation_error"], ig.Checks["completeness_error"])
+	if lrp.Checks["consistency_error"] > 1e-5 || ig.Checks["completeness_error"] > 0.01 {
+		t.Errorf("contrast: LRP consistency %.3g, completeness %.3g", lrp.Checks["consistency_error"], ig.Checks["completeness_error"])
 	}
 }
 
@@ -450,6 +468,29 @@ func TestSparseConvTranspose(t *testing.T) {
 		wantPos, _ := vjp(l.pos, l.wPos, nil, x, z, s)
 		if d := relDiff(got[1].Data, wantPos.Data); d > 1e-5 {
 			t.Errorf("%v over %v: sparse W⁺ᵀs differs from the executor by %.3g", c.w, c.x, d)
+		}
+	}
+}
+
+// The share sentence leads with the input share and names the ledger check
+// as an implementation check, for each kind of method.
+func TestShareSentence(t *testing.T) {
+	for _, c := range []struct {
+		m      Method
+		checks map[string]float64
+		want   []string
+	}{
+		{LRP, map[string]float64{"input_share": 0.146, "bias_share": 0.96, "stabiliser_share": -0.106, "consistency_error": 3e-7},
+			[]string{"The voxels carry 15 % of the explained logit", "biases keep 96 %", "stabilisers -11 %", "Implementation check", "3e-07"}},
+		{IntegratedGradients, map[string]float64{"input_share": 1.2, "completeness_error": 0.004}, []string{"120 %", "baseline", "Completeness error 0.004"}},
+		{GradientInput, map[string]float64{"input_share": 0.05}, []string{"5.0 %", "need not add up"}},
+		{Occlusion, map[string]float64{"passes": 3}, []string{"not shares"}},
+	} {
+		s := ShareSentence(c.m, c.checks)
+		for _, w := range c.want {
+			if !strings.Contains(s, w) {
+				t.Errorf("%s: %q lacks %q", c.m, s, w)
+			}
 		}
 	}
 }

@@ -51,7 +51,8 @@ func fixtureModelFolder(t *testing.T) (*inference.ModelFolder, *preprocess.Tenso
 // (Shrikumar et al. 2016), integrated gradients (Sundararajan et al. 2017,
 // eq. 3, midpoint rule, m = 64), LRP-epsilon (Bach et al. 2015, eq. 58) and
 // the composite of Montavon et al. 2019 (section 10.1) with the gradient
-// trick of their section 10.2.
+// trick of their section 10.2, with epsilon or (the default) alpha1-beta0
+// at conv2, and LRP-epsilon with the biases left out of the denominators.
 func TestPyTorchFixtureAgainstTorch(t *testing.T) {
 	refcheck.PythonModule(t, "torch")
 	b, in := fixtureModelFolder(t)
@@ -86,7 +87,9 @@ func TestPyTorchFixtureAgainstTorch(t *testing.T) {
 		{"gradient × input", GradientInput, Options{}, ref.GradInput},
 		{"integrated gradients", IntegratedGradients, Options{Steps: steps}, ref.IG},
 		{"LRP-epsilon", LRP, Options{Rule: RuleEpsilon, Epsilon: eps}, ref.LRPEpsilon},
-		{"LRP composite", LRP, Options{Epsilon: eps}, ref.LRPComposite},
+		{"LRP composite with epsilon above the first layer", LRP, Options{Epsilon: eps, LowerConvs: -1}, ref.LRPComposite},
+		{"LRP composite (default: alpha1-beta0 above the first layer)", LRP, Options{}, floats("lrp_composite_alpha_beta")},
+		{"LRP-epsilon, biases left out", LRP, Options{Rule: RuleEpsilon, Epsilon: eps, Bias: BiasIgnore}, floats("lrp_epsilon_no_bias")},
 	} {
 		m := compute(t, ex, c.m, in, c.opt)
 		d := relDiff(m.Values, c.want)
@@ -97,8 +100,8 @@ func TestPyTorchFixtureAgainstTorch(t *testing.T) {
 		if math.Abs(m.Target-ref.Logit) > 1e-5 {
 			t.Errorf("%s: target logit %.7g, torch %.7g", c.name, m.Target, ref.Logit)
 		}
-		if ce, ok := m.Checks["conservation_error"]; ok && ce > 1e-4 {
-			t.Errorf("%s: conservation error %.3g", c.name, ce)
+		if ce, ok := m.Checks["consistency_error"]; ok && ce > 1e-4 {
+			t.Errorf("%s: LRP ledger consistency error %.3g", c.name, ce)
 		}
 	}
 }

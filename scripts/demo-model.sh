@@ -14,9 +14,22 @@
 #
 # DEMO_MODEL_WRITE=1 writes the new model folder over assets/demo-model (and the
 # report over assets/demo-training.json) instead of comparing.
+#
+# DEMO_MODEL_REFIT=1 refits only the card of the committed model.onnx by the
+# recipe (fit-check reference, thresholds, temperature, metrics) without
+# training: the model bytes and their sha256 stay the same. It writes over
+# assets/demo-model/card.json and the report assets/demo-refit.json.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 tol=${DEMO_MODEL_TOL:-0.02}
+if [[ "${DEMO_MODEL_REFIT:-0}" == 1 ]]; then
+	out=$(mktemp -d)
+	trap 'rm -rf "$out"' EXIT
+	go run ./cmd/traindemo -refit assets/demo-model/model.onnx -out "$out/demo-model" -report assets/demo-refit.json
+	cmp "$out/demo-model/model.onnx" assets/demo-model/model.onnx
+	cp "$out/demo-model/card.json" assets/demo-model/card.json
+	exit
+fi
 if [[ "${DEMO_MODEL_WRITE:-0}" == 1 ]]; then
 	go run ./cmd/traindemo -out assets/demo-model -report assets/demo-training.json
 	exit

@@ -16,6 +16,10 @@ import (
 
 // runDemo implements `brightfold demo cohort DIR [--n N] [--seed S] [--shifts]`.
 func runDemo(e *env, args []string) error {
+	if len(args) > 0 && isHelpArg(args[0]) {
+		fmt.Fprintln(e.stdout, "usage: brightfold demo cohort DIR [--n N] [--seed S] [--shifts]\n"+notice.Full)
+		return nil
+	}
 	if len(args) == 0 || args[0] != "cohort" {
 		return usageError("usage: brightfold demo cohort DIR [--n N] [--seed S] [--shifts]")
 	}

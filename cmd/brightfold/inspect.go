@@ -79,16 +79,16 @@ func runInspect(e *env, args []string) error {
 	fs.BoolVar(&o.showIDs, "show-identifiers", false, "also print patient identifiers (hidden by default)")
 	fs.IntVar(&o.volumeIndex, "volume", 0, "volume of a 4D NIfTI input to describe")
 	fs.StringVar(&o.series, "series", "", "DICOM series key to describe when the input holds several")
-	fs.Usage = func() {
-		fmt.Fprintln(e.stderr, "usage: brightfold inspect PATH... [--json] [--show-identifiers] [--volume N] [--series KEY]")
-		fs.PrintDefaults()
-	}
+	fs.Usage = commandHelp(fs, "inspect PATH... [--json] [--show-identifiers] [--volume N] [--series KEY]")
 	paths, err := parseFlags(fs, args)
 	if err != nil {
 		return err
 	}
 	if len(paths) == 0 {
 		return usageError("brightfold inspect: give a NIfTI file, DICOM files or a DICOM folder")
+	}
+	if paths, err = volume.CheckPaths(paths); err != nil {
+		return err
 	}
 	var reports []*inspectReport
 	var dicom []string

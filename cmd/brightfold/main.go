@@ -10,6 +10,7 @@ import (
 	"io"
 	"os"
 	"runtime/debug"
+	"strings"
 
 	"brightfold/internal/inputerr"
 	_ "brightfold/internal/langenv"
@@ -37,6 +38,9 @@ func commands() []command {
 		{"prepare", "prepare SCAN (--model MODEL | --spec SPEC.json) --out FILE.nii.gz | --print-spec   what the model sees", runPrepare},
 		{"align", "align SCAN --to TEMPLATE [--dof 6|12] [--metric ncc|mi] [--mask FILE] [--out DIR] [--json]", runAlign},
 		{"sweep", sweepUsage, runSweep},
+		{"session", sessionUsage, runSession},
+		{"mrmc", mrmcUsage, runMRMC},
+		{"version", "version                 program version", runVersion},
 	}
 }
 
@@ -69,7 +73,7 @@ func run(args []string, e *env) (code int) {
 			return exitCode(e, c.run(e, args[1:]))
 		}
 	}
-	fmt.Fprintf(e.stderr, "brightfold: unknown command %q (try brightfold --help)\n", name)
+	fmt.Fprintf(e.stderr, "brightfold: unknown command %s; try 'brightfold --help'\n", quoteName(name))
 	return 2
 }
 
@@ -80,20 +84,22 @@ func exitCode(e *env, err error) int {
 	case errors.Is(err, flag.ErrHelp):
 		return 0
 	case inputerr.Is(err):
-		fmt.Fprintf(e.stderr, "brightfold: %v\n", err)
+		line := errorLine(err)
+		if !strings.HasPrefix(line, "brightfold ") {
+			line = "brightfold: " + line
+		}
+		fmt.Fprintln(e.stderr, line)
 		return 2
 	default:
-		fmt.Fprintf(e.stderr, "brightfold: internal error: %v\n", err)
+		fmt.Fprintf(e.stderr, "brightfold: internal error: %s\n", errorLine(err))
 		return 1
 	}
 }
 
 func printUsage(w io.Writer) {
 	fmt.Fprintln(w, notice.Full)
-	fmt.Fprintln(w, "\nUsage:\n  brightfold                 desktop viewer on the demo cohort")
-	for _, c := range commands() {
-		fmt.Fprintf(w, "  brightfold %s\n", c.usage)
-	}
+	fmt.Fprintln(w, "\nUsage (brightfold COMMAND --help lists a command's options):")
+	printCommandTable(w, commands())
 	fmt.Fprintln(w, "\nExit codes: 0 done, 2 bad input or usage, 1 internal failure.")
 }
 
@@ -102,23 +108,32 @@ func usageError(format string, args ...any) error {
 	return inputerr.New("", format, args...)
 }
 
-// newFlags makes a flag set that reports errors instead of exiting.
+// newFlags makes a flag set that reports errors instead of exiting; its
+// output (help) is standard output.
 func newFlags(e *env, name string) *flag.FlagSet {
 	fs := flag.NewFlagSet("brightfold "+name, flag.ContinueOnError)
-	fs.SetOutput(e.stderr)
+	fs.SetOutput(e.stdout)
+	fs.Usage = commandHelp(fs, name+" [OPTIONS]")
 	return fs
 }
 
 // parseFlags parses args, allowing flags after positional arguments, and
-// turns flag errors into usage errors.
+// turns flag errors into one-line usage errors; -h or --help prints the
+// command's help (fs.Usage) on its output and gives flag.ErrHelp (exit 0).
 func parseFlags(fs *flag.FlagSet, args []string) ([]string, error) {
 	var pos []string
+	usage, out := fs.Usage, fs.Output()
+	defer func() { fs.Usage = usage; fs.SetOutput(out) }()
 	for {
+		fs.Usage = func() {}
+		fs.SetOutput(io.Discard)
 		if err := fs.Parse(args); err != nil {
 			if errors.Is(err, flag.ErrHelp) {
+				fs.SetOutput(out)
+				usage()
 				return nil, err
 			}
-			return nil, usageError("%v", err)
+			return nil, flagError(fs, err)
 		}
 		args = fs.Args()
 		if len(args) == 0 {

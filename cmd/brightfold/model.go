@@ -14,6 +14,10 @@ import (
 
 // runModelFolder dispatches `brightfold model check|make|show|recalibrate`.
 func runModelFolder(e *env, args []string) error {
+	if len(args) > 0 && isHelpArg(args[0]) {
+		fmt.Fprintln(e.stdout, "usage: brightfold model check|make|show|recalibrate ... (brightfold model SUBCOMMAND --help lists its options)\n"+notice.Full)
+		return nil
+	}
 	if len(args) > 0 {
 		switch args[0] {
 		case "make":
@@ -31,10 +35,7 @@ func runModelFolder(e *env, args []string) error {
 	ortLib := fs.String("ort-lib", "", "path of the ONNX Runtime library "+ortlib.FileName)
 	noRun := fs.Bool("no-run", false, "check the card and graph only; do not load the model in ONNX Runtime")
 	asJSON := fs.Bool("json", false, "print the card and what was found as JSON")
-	fs.Usage = func() {
-		fmt.Fprintln(e.stderr, "usage: brightfold model check [MODEL] [--ort-lib PATH] [--no-run] [--json]")
-		fs.PrintDefaults()
-	}
+	fs.Usage = commandHelp(fs, "model check [MODEL] [--ort-lib PATH] [--no-run] [--json]")
 	paths, err := parseFlags(fs, args[1:])
 	if err != nil {
 		return err

@@ -22,8 +22,9 @@ import (
 
 type scoreOptions struct {
 	model, out, mapMethod, ortLib, series string
-	json, showPaths, hidePaths            bool
+	json, showPaths, hidePaths, showProb  bool
 	threads, volumeIndex                  int
+	report                                caseReportOptions
 }
 
 // relevanceMethods are the --map values (package overlay; scoremap.go).
@@ -35,19 +36,18 @@ func runScore(e *env, args []string) error {
 	fs := newFlags(e, "score")
 	var o scoreOptions
 	fs.StringVar(&o.model, "model", "", "model folder: a folder or .zip with model.onnx and card.json (default: the embedded demo model folder)")
-	fs.StringVar(&o.out, "out", "", "folder to write result.json into (created if needed)")
+	fs.StringVar(&o.out, "out", "", "folder for the result set (result.json, with --map the map files); created if needed, replaced whole")
 	fs.StringVar(&o.mapMethod, "map", "none", "relevance map: "+strings.Join(relevanceMethods, "|"))
 	fs.BoolVar(&o.json, "json", false, "print JSON instead of text")
-	fs.BoolVar(&o.showPaths, "show-paths", false, "write the full input path into result.json (default: the file name only)")
+	fs.BoolVar(&o.showPaths, "show-paths", false, "write the input path into result.json and relevance.json (default: no path, which may carry names)")
+	fs.BoolVar(&o.showProb, "show-probability", false, "also print the probability when the fit check fails (labelled unreliable)")
 	fs.BoolVar(&o.hidePaths, "hide-paths", false, "print only the input's file name, also on the screen")
 	fs.StringVar(&o.ortLib, "ort-lib", "", "path of the ONNX Runtime library "+ortlib.FileName)
-	fs.IntVar(&o.threads, "threads", 0, "ONNX Runtime intra-op threads (default: all cores)")
+	fs.IntVar(&o.threads, "threads", 0, "ONNX Runtime intra-op threads, at most the number of cores (default: all cores)")
 	fs.IntVar(&o.volumeIndex, "volume", 0, "volume of a 4D NIfTI input to score")
 	fs.StringVar(&o.series, "series", "", "DICOM series UID to score when the input holds several")
-	fs.Usage = func() {
-		fmt.Fprintln(e.stderr, "usage: brightfold score PATH [--model MODEL] [--map "+strings.Join(relevanceMethods, "|")+"] [--out DIR] [--json]")
-		fs.PrintDefaults()
-	}
+	caseReportFlags(fs, &o.report)
+	fs.Usage = commandHelp(fs, "score PATH [--model MODEL] [--map "+strings.Join(relevanceMethods, "|")+"] [--out DIR] [--json] [--report FILE.pdf [--session FILE] [--meeting]]")
 	paths, err := parseFlags(fs, args)
 	if err != nil {
 		return err
@@ -61,6 +61,21 @@ func runScore(e *env, args []string) error {
 	if o.threads < 0 {
 		return usageError("brightfold score: --threads must be 0 (all cores) or more, got %d", o.threads)
 	}
+	// cheap checks first: the inputs exist and are files or folders, and
+	// --out can take a result set
+	if paths, err = volume.CheckPaths(paths); err != nil {
+		return err
+	}
+	if o.out != "" {
+		if err := checkOutDir(o.out); err != nil {
+			return err
+		}
+	}
+	return scoreScan(e, o, paths)
+}
+
+// scoreScan scores the checked paths and writes the outputs.
+func scoreScan(e *env, o scoreOptions, paths []string) error {
 	t0 := time.Now()
 	mf, err := openModelFolder(o.model)
 	if err != nil {
@@ -89,13 +104,15 @@ func runScore(e *env, args []string) error {
 	input := strings.Join(paths, " ")
 	rep := scoreReport(input, v, mf, res)
 	rep.TimingMs["load"] = loadMs
-	if o.mapMethod != "none" {
-		if res.Prepared == nil {
-			return inputerr.New(input, "--map %s: the scan could not be prepared for the model, so there is no relevance map", o.mapMethod)
-		}
-		if err := addRelevance(e, o, paths, v, mf, sess, res, rep); err != nil {
+	var set *outSet
+	if o.out != "" {
+		if set, err = beginOutSet(o.out); err != nil {
 			return err
 		}
+		defer set.abort()
+	}
+	if err := addMap(e, o, paths, v, mf, sess, res, rep, set); err != nil {
+		return err
 	}
 	rep.TimingMs["total"] = msSince(t0)
 	if o.hidePaths {
@@ -104,16 +121,39 @@ func runScore(e *env, args []string) error {
 			rep.Model.Source = filepath.Base(o.model)
 		}
 	}
-	if o.out != "" {
-		if err := writeResult(o, paths, rep); err != nil {
+	if set != nil {
+		if err := writeResult(o, set.tmp, paths, rep); err != nil {
+			return err
+		}
+		if err := set.commit(); err != nil {
+			return err
+		}
+	}
+	if o.report.file != "" {
+		if err := writeCaseReport(o, paths, v, mf, sess, res, rep); err != nil {
 			return err
 		}
 	}
 	if o.json {
 		return report.EncodeScore(e.stdout, rep)
 	}
-	writeScoreText(e.stdout, rep, res)
+	writeScoreText(e.stdout, rep, res, o.showProb)
 	return nil
+}
+
+// addMap adds the --map relevance map to the result set, or, when the scan
+// could not be prepared, the reason inside the result (the same scan gets
+// the same result with and without --map).
+func addMap(e *env, o scoreOptions, paths []string, v *volume.Volume, mf *inference.ModelFolder, sess *inference.Session, res *inference.Result, rep *report.Score, set *outSet) error {
+	if o.mapMethod == "none" {
+		return nil
+	}
+	if res.Prepared == nil {
+		rep.Relevance = &report.Relevance{Method: o.mapMethod,
+			Problem: "no map: the scan could not be prepared for the model, so the model was not run"}
+		return nil
+	}
+	return addRelevance(e, o, set.tmp, paths, v, mf, sess, res, rep)
 }
 
 func msSince(t time.Time) float64 { return float64(time.Since(t).Microseconds()) / 1000 }
@@ -156,20 +196,17 @@ func baseNames(paths []string) string {
 	return strings.Join(names, " ")
 }
 
-// writeResult writes DIR/result.json; the input path is reduced to file
-// names unless --show-paths.
-func writeResult(o scoreOptions, paths []string, rep *report.Score) error {
-	if err := os.MkdirAll(o.out, 0o755); err != nil {
-		return inputerr.Wrap(o.out, fmt.Errorf("create output folder: %w", err))
-	}
+// writeResult writes result.json into dir (the set's temporary folder);
+// the input path is left out unless --show-paths.
+func writeResult(o scoreOptions, dir string, paths []string, rep *report.Score) error {
 	c := *rep
 	if !o.showPaths {
-		c.Input.Path = baseNames(paths)
+		c.Input.Path = ""
 		if o.model != "" {
 			c.Model.Source = filepath.Base(o.model)
 		}
 	}
-	if _, err := report.WriteScore(o.out, &c); err != nil {
+	if _, err := report.WriteScore(dir, &c); err != nil {
 		var pe *os.PathError
 		if errors.As(err, &pe) {
 			return inputerr.Wrap(o.out, err)
@@ -181,39 +218,47 @@ func writeResult(o scoreOptions, paths []string, rep *report.Score) error {
 
 // scoreReport is the JSON form of a result.
 func scoreReport(input string, v *volume.Volume, b *inference.ModelFolder, r *inference.Result) *report.Score {
-	return report.NewScore(input, v, b, r)
+	rep := report.NewScore(input, v, b, r)
+	if rep.Prediction != nil && r.Verdict == fitcheck.OutOfDistribution {
+		rep.Prediction.DoNotUse = "the fit check failed: the scan is unlike the training scans, so this probability is unreliable and must not be used"
+	}
+	return rep
 }
 
 // writeScoreText prints the result for a reader: notice first and last.
-func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result) {
+// When the fit check fails, the verdict and its causes lead and the
+// prediction is withheld unless asked for (--show-probability), then
+// labelled unreliable.
+func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result, showProb bool) {
 	fmt.Fprintln(w, notice.Full)
 	fmt.Fprintln(w)
+	ood := rep.OOD.Verdict == fitcheck.OutOfDistribution
+	if ood {
+		writeFitText(w, rep, r)
+		fmt.Fprintln(w)
+	}
 	in := rep.Input
 	fmt.Fprintf(w, "Scan:        %s (%s, %d×%d×%d voxels, %.2f×%.2f×%.2f mm, %s)\n", in.Path, in.Format,
 		in.Dims[0], in.Dims[1], in.Dims[2], in.SpacingMm[0], in.SpacingMm[1], in.SpacingMm[2], in.Orientation)
 	fmt.Fprintf(w, "Model:       %s %s (sha256 %.12s…)\n", rep.Model.Name, rep.Model.Version, rep.Model.SHA256)
 	fmt.Fprintln(w)
-	if p := rep.Prediction; p != nil {
-		fmt.Fprintf(w, "Prediction:  %s\n", p.Label)
-		fmt.Fprintf(w, "Probability: %s that the scan shows %q (calibrated with temperature %.2f)\n", inference.FormatProbability(p.Probability), p.PositiveClass, p.Temperature)
-	} else {
+	p := rep.Prediction
+	switch {
+	case p == nil:
 		fmt.Fprintln(w, "Prediction:  none. The scan could not be prepared for the model, so the model was not run.")
+	case ood && !showProb:
+		fmt.Fprintln(w, "Probability: withheld, because the fit check failed (--show-probability prints it, labelled unreliable).")
+	case ood:
+		fmt.Fprintf(w, "Probability: UNRELIABLE (the fit check failed; do not use): %s that the scan shows %q; predicted %s\n",
+			inference.FormatProbability(p.Probability), className(p.PositiveClass), className(p.Label))
+	default:
+		fmt.Fprintf(w, "Prediction:  %s\n", className(p.Label))
+		fmt.Fprintf(w, "Probability: %s that the scan shows %q (calibrated with temperature %.2f)\n", inference.FormatProbability(p.Probability), className(p.PositiveClass), p.Temperature)
 	}
-	fmt.Fprintln(w)
-	failed := r.FailedChecks()
-	if rep.OOD.Verdict == fitcheck.OutOfDistribution {
-		fmt.Fprintln(w, "Fit check:   OUT-OF-DISTRIBUTION. This scan is unlike the scans the model was trained on; do not rely on the probability.")
-	} else {
-		fmt.Fprintln(w, "Fit check:   in-distribution. The scan resembles the training scans in every required check.")
+	if !ood {
+		fmt.Fprintln(w)
+		writeFitText(w, rep, r)
 	}
-	for _, c := range failed {
-		tag := ""
-		if !c.Required {
-			tag = " (advisory)"
-		}
-		fmt.Fprintf(w, "  - %s%s: %s\n", inference.CheckTitle(c.Name), tag, c.Explanation)
-	}
-	fmt.Fprintf(w, "  (%d checks, %d failed; --json lists every check with its value and threshold)\n", len(r.Checks), len(failed))
 	for _, msg := range rep.Warnings {
 		fmt.Fprintf(w, "Warning:     %s\n", msg)
 	}
@@ -221,4 +266,39 @@ func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result) {
 	fmt.Fprintf(w, "Time:        %.0f ms\n", rep.TimingMs["total"])
 	fmt.Fprintln(w)
 	fmt.Fprintln(w, notice.Full)
+}
+
+// className is a class name for a reader: underscores as spaces.
+func className(s string) string { return strings.ReplaceAll(s, "_", " ") }
+
+// writeFitText prints the fit-check verdict and the failed checks.
+func writeFitText(w io.Writer, rep *report.Score, r *inference.Result) {
+	failed := r.FailedChecks()
+	if rep.OOD.Verdict == fitcheck.OutOfDistribution {
+		fmt.Fprintln(w, "Fit check:   OUT-OF-DISTRIBUTION. This scan is unlike the scans the model was trained on; the model's output cannot be relied on.")
+	} else {
+		fmt.Fprintln(w, "Fit check:   in-distribution. The scan resembles the training scans in every required check.")
+	}
+	writeCausesText(w, r)
+	fmt.Fprintf(w, "  (%d checks, %d failed, %s; fit score %s; --json lists every check with its value and threshold)\n",
+		len(r.Checks), len(failed), inference.Plural(len(r.Causes), "cause", "causes"), inference.FormatValue(r.FitScore))
+}
+
+// writeCausesText lists the causes of the failed checks (inference.GroupCauses),
+// each with the sentences of the checks that saw it.
+func writeCausesText(w io.Writer, r *inference.Result) {
+	byName := map[string]fitcheck.Check{}
+	for _, c := range r.Checks {
+		byName[c.Name] = c
+	}
+	for _, cause := range r.Causes {
+		tag := ""
+		if !cause.Required {
+			tag = " (advisory)"
+		}
+		fmt.Fprintf(w, "  * %s%s: %s Seen by %s:\n", cause.Title, tag, cause.Explanation, inference.Plural(len(cause.Checks), "check", "checks"))
+		for _, n := range cause.Checks {
+			fmt.Fprintf(w, "    - %s: %s\n", inference.CheckTitle(n), byName[n].Explanation)
+		}
+	}
 }

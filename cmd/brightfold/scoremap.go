@@ -12,7 +12,6 @@ import (
 	"time"
 
 	"brightfold/inference"
-	"brightfold/inference/fitcheck"
 	"brightfold/internal/inputerr"
 	"brightfold/internal/report"
 	"brightfold/internal/volume"
@@ -37,7 +36,7 @@ func checkMap(o scoreOptions) error {
 // it onto the scan's grid, writes relevance.nii.gz, relevance.json and
 // overlay.png into --out, and adds the relevance block to the report.
 // Ctrl-C stops a slow map cleanly (nothing is written).
-func addRelevance(e *env, o scoreOptions, paths []string, v *volume.Volume, b *inference.ModelFolder, sess *inference.Session, res *inference.Result, rep *report.Score) error {
+func addRelevance(e *env, o scoreOptions, dir string, paths []string, v *volume.Volume, b *inference.ModelFolder, sess *inference.Session, res *inference.Result, rep *report.Score) error {
 	t0 := time.Now()
 	method, err := overlay.ParseMethod(o.mapMethod)
 	if err != nil {
@@ -68,17 +67,26 @@ func addRelevance(e *env, o scoreOptions, paths []string, v *volume.Volume, b *i
 	if err != nil {
 		return err
 	}
-	if err := os.MkdirAll(o.out, 0o755); err != nil {
-		return inputerr.Wrap(o.out, fmt.Errorf("create output folder: %w", err))
-	}
 	prob := res.Prediction.Probabilities[m.Class]
-	info := relevanceInfo(m, method, b, res, prob, baseNames(paths))
-	if _, _, err := report.WriteRelevance(o.out, onScan, info); err != nil {
+	input := ""
+	if o.showPaths {
+		input = strings.Join(paths, " ")
+	}
+	info := relevanceInfo(m, method, b, res, prob, input)
+	if _, _, err := report.WriteRelevance(dir, onScan, info); err != nil {
 		return wrapPathError(o.out, err)
 	}
-	fig := report.OverlayFigure{Scan: v, Map: onScan, At: peakRAS(onScan), Signed: true,
-		Units: mapUnits(m), Title: figureTitle(m, method, b, res, prob)}
-	if err := report.WriteOverlayPNG(filepath.Join(o.out, report.OverlayFile), fig); err != nil {
+	fig := report.OverlayFigure{Scan: v, Map: onScan, At: peakRAS(onScan),
+		Units: mapUnits(m), Title: figureTitle(m, method, b, res, prob, o.showProb)}
+	fig.Model = fmt.Sprintf("Model: %s, version %s", b.Card.Name, b.Card.Version)
+	fig.Verdict, fig.OOD, fig.Headline = "In distribution", false, inference.FormatProbability(prob)
+	if inference.Withheld(res) {
+		fig.Verdict, fig.OOD, fig.Headline = "OUT OF DISTRIBUTION", true, "Withheld"
+		if o.showProb {
+			fig.Headline = inference.FormatProbability(prob) + " (unreliable)"
+		}
+	}
+	if err := report.WriteOverlayPNG(filepath.Join(dir, report.OverlayFile), fig); err != nil {
 		return wrapPathError(o.out, err)
 	}
 	rep.Relevance = &report.Relevance{Method: string(method), File: report.RelevanceFile, Overlay: report.OverlayFile, Checks: m.Checks}
@@ -125,9 +133,19 @@ func relevanceInfo(m *overlay.Map, method overlay.Method, b *inference.ModelFold
 		Space:     "the input scan's voxel grid (dims and affine as the scan); computed on the model grid and carried back through the inverse of the preprocessing transform",
 		ModelGrid: report.ModelGrid{Dims: res.Prepared.Transform.GridDims, Affine: res.Prepared.Transform.GridAffine},
 		Checks:    checks, Settings: m.Settings, Passes: m.Passes,
+		InputShare: inputShare(m), Shares: m.ShareSentence(),
 		Model:    report.Model{Name: c.Name, Version: c.Version, SHA256: b.SHA256},
 		FitCheck: res.Verdict,
 	}
+}
+
+// inputShare is the map's input_share check, or nil (occlusion).
+func inputShare(m *overlay.Map) *report.Number {
+	if v, ok := m.Checks["input_share"]; ok {
+		n := report.Number(v)
+		return &n
+	}
+	return nil
 }
 
 func mapUnits(m *overlay.Map) string {
@@ -145,18 +163,22 @@ func peakRAS(m *volume.Volume) [3]float64 {
 
 // figureTitle says what the figure shows: the method, the explained class
 // with its probability, the model and the fit check.
-func figureTitle(m *overlay.Map, method overlay.Method, b *inference.ModelFolder, res *inference.Result, prob float64) []string {
-	lines := []string{
-		fmt.Sprintf("Relevance map: %s (%s). Planes through the map's peak.", method.Title(), method.Reference()),
-		fmt.Sprintf("Explains the %q logit (%.3g); calibrated probability of %q: %.2f. Red-orange speaks for the class, blue against.", m.Class, m.Target, m.Class, prob),
-		fmt.Sprintf("Model: %s %s.", b.Card.Name, b.Card.Version),
-	}
-	if res.Verdict == fitcheck.OutOfDistribution {
-		lines = append(lines, "Fit check: OUT-OF-DISTRIBUTION. The scan is unlike the training scans; neither the score nor this map can be relied on.")
+// When the fit check failed, the verdict and its causes come first and the
+// probability is withheld unless asked for (then labelled unreliable).
+func figureTitle(m *overlay.Map, method overlay.Method, b *inference.ModelFolder, res *inference.Result, prob float64, showProb bool) []string {
+	cls := inference.ClassName(m.Class)
+	var lines []string
+	if inference.Withheld(res) {
+		lines = append(lines, "The scan is unlike the training scans: neither the probability nor this map can be relied on.")
+		lines = append(lines, inference.VerdictCauses(res)...)
+		if showProb {
+			lines = append(lines, fmt.Sprintf("Probability of %s shown on request: %s, UNRELIABLE.", cls, inference.FormatProbability(prob)))
+		}
 	} else {
-		lines = append(lines, "Fit check: in-distribution.")
+		lines = append(lines, fmt.Sprintf("Probability of %s (calibrated). %s", cls, inference.PrevalenceNote(b.Card)))
 	}
-	return lines
+	return append(lines,
+		fmt.Sprintf("Relevance map: %s (%s), for %s. Slices across its strongest part; inside the head only; warm colours speak for the class.", method.Title(), method.Reference(), cls))
 }
 
 // writeRelevanceText adds the relevance map to the text form of a result.
@@ -165,11 +187,10 @@ func writeRelevanceText(w io.Writer, rep *report.Score) {
 	if r == nil {
 		return
 	}
-	check := ""
-	for _, k := range []string{"conservation_error", "completeness_error"} {
-		if x, ok := r.Checks[k]; ok {
-			check = fmt.Sprintf(", %s %.2g", strings.ReplaceAll(k, "_", " "), x)
-		}
+	if r.Problem != "" {
+		fmt.Fprintf(w, "Relevance:   %s\n", r.Problem)
+		return
 	}
-	fmt.Fprintf(w, "Relevance:   %s map in %s, figure in %s (%s%s)\n", r.Method, r.File, r.Overlay, report.RelevanceSidecar, check)
+	fmt.Fprintf(w, "Relevance:   %s map in %s, figure in %s (%s)\n", r.Method, r.File, r.Overlay, report.RelevanceSidecar)
+	fmt.Fprintf(w, "             %s\n", overlay.ShareSentence(overlay.Method(r.Method), r.Checks))
 }

@@ -31,7 +31,7 @@ func TestScoreMapOutputs(t *testing.T) {
 		t.Fatal(err)
 	}
 	for _, c := range []struct{ method, check string }{
-		{"lrp", "conservation_error"}, {"ig", "completeness_error"}, {"gradinput", "relevance_sum"}, {"occlusion", "passes"},
+		{"lrp", "input_share"}, {"ig", "completeness_error"}, {"gradinput", "relevance_sum"}, {"occlusion", "passes"},
 	} {
 		out := filepath.Join(t.TempDir(), c.method)
 		code, stdout, stderr := runCLI("score", scan, "--model", mf, "--map", c.method, "--out", out, "--ort-lib", lib, "--threads", "1")
@@ -56,12 +56,18 @@ func TestScoreMapOutputs(t *testing.T) {
 		if r["method"] != c.method || r["file"] != report.RelevanceFile || r["overlay"] != report.OverlayFile || r[c.check] == nil {
 			t.Errorf("--map %s: relevance block %v", c.method, r)
 		}
-		if c.method == "lrp" && !(r["conservation_error"].(float64) < 0.01) {
-			t.Errorf("LRP conservation error %v", r["conservation_error"])
+		if c.method == "lrp" && !(r["consistency_error"].(float64) < 0.01) {
+			t.Errorf("LRP ledger consistency error %v", r["consistency_error"])
+		}
+		if c.method != "occlusion" && !strings.Contains(stdout, "The voxels carry") {
+			t.Errorf("--map %s: text output lacks the input share:\n%s", c.method, stdout)
 		}
 		var side map[string]any
 		readJSON(t, filepath.Join(out, report.RelevanceSidecar), &side)
-		if side["notice"] != notice.Full || side["input"] != filepath.Base(scan) {
+		if _, ok := side["input_share"]; ok == (c.method == "occlusion") {
+			t.Errorf("--map %s: sidecar input_share %v", c.method, side["input_share"])
+		}
+		if in, ok := side["input"]; side["notice"] != notice.Full || (ok && in != "") {
 			t.Errorf("--map %s: sidecar notice %q, input %q", c.method, side["notice"], side["input"])
 		}
 		f, err := os.Open(filepath.Join(out, report.OverlayFile))

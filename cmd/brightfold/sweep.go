@@ -77,6 +77,9 @@ func runSweep(e *env, args []string) error {
 	if level != "participant" && level != "group" {
 		return usageError("brightfold sweep: analysis level %q: want participant or group", level)
 	}
+	if _, err := cohort.ParseAgeBands(o.ageBands); err != nil {
+		return usageError("brightfold sweep: %v", err)
+	}
 	if o.jobs < 1 || o.threads < 0 {
 		return usageError("brightfold sweep: --jobs must be 1 or more and --threads 0 or more")
 	}
@@ -149,7 +152,27 @@ func sweepGroup(e *env, d *cohort.Dataset, out string, mf *inference.ModelFolder
 	if err := cohort.WriteScores(out, recs, d.Covariates); err != nil {
 		return err
 	}
-	fmt.Fprintf(e.stdout, "group: %d cases merged into %s/%s\n", len(recs), out, cohort.ScoresTable)
+	fmt.Fprintf(e.stdout, "group: %d cases merged into %s\n", len(recs), filepath.Join(out, cohort.ScoresTable))
+	bands, err := cohort.ParseAgeBands(o.ageBands)
+	if err != nil {
+		return usageError("brightfold sweep: %v", err)
+	}
+	a, err := cohort.RunAudit(recs, cohort.AuditOptions{AgeBands: bands, Seed: 1})
+	if err != nil {
+		fmt.Fprintf(e.stderr, "brightfold sweep: no site audit: %v\n", err)
+		return nil
+	}
+	if err := cohort.WriteAudit(out, a); err != nil {
+		return wrapPathError(out, err)
+	}
+	fmt.Fprintf(e.stdout, "site audit: %s, %s, %s\n%s\n%s\n", cohort.AuditJSON, cohort.AuditTSV, cohort.AuditPDF, a.Discrimination, a.Calibration.Sentence)
+	if a.Covariates != nil {
+		fmt.Fprintln(e.stdout, a.Covariates.Sentence)
+	}
+	for _, p := range a.Partial {
+		fmt.Fprintln(e.stdout, p.Sentence)
+	}
+	fmt.Fprintln(e.stdout, notice.Full)
 	return nil
 }
 

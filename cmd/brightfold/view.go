@@ -13,6 +13,7 @@ import (
 // shown with its evidence, then exits.
 func runView(e *env, args []string) error {
 	fs := newFlags(e, "view")
+	fs.Usage = commandHelp(fs, "view [PATH...] [OPTIONS]   (the desktop viewer; research use only)")
 	shot := fs.String("screenshot", "", "save the rendered window as PNG to `FILE` once ready, then exit")
 	meeting := fs.Bool("meeting", false, "start in Meeting mode (identifiers, dates and paths hidden)")
 	model := fs.String("model", "", "model `MODEL` (folder or .zip; default: the embedded demo model)")

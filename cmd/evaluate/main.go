@@ -7,6 +7,7 @@
 //
 //	go run ./tools/evaluate -out out/evaluation -doc docs/evaluation.md
 //	go run ./tools/evaluate -model MODEL -n 40 -per-shift 4 -out /tmp/ev
+//	go run ./cmd/evaluate -maps -n 50 -doc docs/evaluation.md
 //
 // Research use only. Not a diagnosis.
 package main
@@ -32,6 +33,7 @@ type options struct {
 	seed                    uint64
 	n, perShift, workers    int
 	noReal, noReference     bool
+	maps, ruleSearch        bool
 }
 
 func main() {
@@ -46,12 +48,21 @@ func main() {
 	flag.IntVar(&o.workers, "workers", 0, "cases at once (default: all CPUs)")
 	flag.BoolVar(&o.noReal, "no-real", false, "skip the real reference scans")
 	flag.BoolVar(&o.noReference, "no-reference", false, "skip the sklearn check (figures are then unchecked)")
+	flag.BoolVar(&o.maps, "maps", false, "measure the relevance maps instead (-n pattern-positive phantoms of -seed, default 20261210; make evaluate-maps)")
+	flag.BoolVar(&o.ruleSearch, "rule-search", false, "compare the LRP composite candidates instead (-n pattern-positive phantoms of -seed, default 20261211)")
 	flag.Parse()
 	if flag.NArg() > 0 {
 		fmt.Fprintf(os.Stderr, "evaluate: unexpected argument %q\n", flag.Arg(0))
 		os.Exit(2)
 	}
-	if err := run(o); err != nil {
+	runner := run
+	if o.maps {
+		runner = runMaps
+	}
+	if o.ruleSearch {
+		runner = runRuleSearch
+	}
+	if err := runner(o); err != nil {
 		fmt.Fprintln(os.Stderr, "evaluate:", err)
 		if inputerr.Is(err) {
 			os.Exit(2)

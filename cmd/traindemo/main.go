@@ -58,6 +58,7 @@ func main() {
 	compare := flag.String("compare", "", "card.json whose metrics the new run must reproduce")
 	tol := flag.Float64("tol", 0.02, "largest allowed absolute difference of any metric with -compare")
 	cache := flag.String("cache", "", "development only: cache generated phantoms in this folder")
+	refit := flag.String("refit", "", "fit the card of this already trained model.onnx by the recipe without training (the model bytes stay the same)")
 	quick := flag.Bool("quick", false, "smoke test: a tiny cohort and one epoch (not the demo model)")
 	workers := flag.Int("workers", 0, "goroutines (default: all CPUs)")
 	var ov overrides
@@ -68,7 +69,7 @@ func main() {
 	flag.Float64Var(&ov.lr, "lr", 0, "development: override the peak learning rate")
 	flag.Uint64Var(&ov.testSeed, "test-seed", 0, "development: evaluate on this seed instead of the held-out one")
 	flag.Parse()
-	if err := run(*out, *report, *compare, *tol, *cache, *quick, *workers, ov); err != nil {
+	if err := run(*out, *report, *compare, *tol, *cache, *refit, *quick, *workers, ov); err != nil {
 		fmt.Fprintln(os.Stderr, "traindemo:", err)
 		os.Exit(1)
 	}
@@ -103,7 +104,7 @@ func (o overrides) apply(r *train.Recipe) {
 	}
 }
 
-func run(out, reportPath, compare string, tol float64, cache string, quick bool, workers int, ov overrides) error {
+func run(out, reportPath, compare string, tol float64, cache, refit string, quick bool, workers int, ov overrides) error {
 	r := train.DemoRecipe()
 	r.CacheDir = cache
 	if workers > 0 {
@@ -119,7 +120,17 @@ func run(out, reportPath, compare string, tol float64, cache string, quick bool,
 	logf := func(format string, args ...any) {
 		fmt.Fprintf(os.Stderr, "%s "+format+"\n", append([]any{time.Now().Format("15:04:05")}, args...)...)
 	}
-	res, err := train.Run(r, logf)
+	var res *train.Result
+	var err error
+	if refit != "" {
+		model, rerr := os.ReadFile(refit)
+		if rerr != nil {
+			return fmt.Errorf("refit: %w", rerr)
+		}
+		res, err = train.Refit(r, model, logf)
+	} else {
+		res, err = train.Run(r, logf)
+	}
 	if err != nil {
 		return err
 	}

@@ -92,6 +92,13 @@ type Prepared struct {
 	// InsideFOV is the fraction of model-grid voxels whose centre lies inside
 	// the scan's field of view.
 	InsideFOV float64
+	// ScanHeadThreshold is the card's head-mask rule applied to the scan's
+	// own voxels (Head.Threshold is applied to the anti-aliased scan, whose
+	// percentiles are narrower): the threshold for measurements on the raw
+	// scan, such as the noise level.
+	ScanHeadThreshold float64
+	// Alignment is set when the card aligns scans to a template (align.go).
+	Alignment *AlignmentInfo
 }
 
 // Preprocess turns a scan into the model input exactly as p states: closest
@@ -131,6 +138,11 @@ func Prepare(v *volume.Volume, p Spec) (*Prepared, error) {
 		return nil, errors.New("no head found: the image has (nearly) constant intensity")
 	}
 	thr := lo + p.HeadMask.Fraction*(hi-lo)
+	scanThr := thr
+	if src != v {
+		rlo, rhi := percentilePair(v.Data, p.HeadMask.LowPercentile, p.HeadMask.HighPercentile)
+		scanThr = rlo + p.HeadMask.Fraction*(rhi-rlo)
+	}
 	head, err := headStats(src, frame, thr)
 	if err != nil {
 		return nil, err
@@ -161,6 +173,8 @@ func Prepare(v *volume.Volume, p Spec) (*Prepared, error) {
 		Transform: Transform{GridToScan: scanInv.Mul(grid), GridAffine: grid, GridDims: p.Shape, ScanDims: v.Dims, ScanAffine: v.Affine},
 		Head:      head,
 		InsideFOV: inside,
+
+		ScanHeadThreshold: scanThr,
 	}, nil
 }
 

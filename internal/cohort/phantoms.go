@@ -45,3 +45,30 @@ func WritePhantomBIDS(root string, subjects []phantom.Subject, voxelMM float64) 
 	}
 	return atomicfile.WriteBytes(filepath.Join(root, "participants.tsv"), []byte(tsv.String()))
 }
+
+// ConfoundedSubjects picks demo subjects of cohort seed so that each site
+// has the given numbers of positive and negative cases (site name →
+// [positives, negatives]), drawing subjects in index order and skipping
+// those a site no longer needs: the pattern's prevalence then differs by
+// site, a planted site confound.
+func ConfoundedSubjects(seed uint64, want map[string][2]int) []phantom.Subject {
+	need := map[string][2]int{}
+	total := 0
+	for s, w := range want {
+		need[s] = w
+		total += w[0] + w[1]
+	}
+	var out []phantom.Subject
+	for i := 0; len(out) < total && i < 100*total+1000; i++ {
+		s := phantom.NewSubject(seed, i, phantom.ShiftNone)
+		w, ok := need[s.Site]
+		k := 1 - s.Label // 0 for a positive, 1 for a negative
+		if !ok || w[k] == 0 {
+			continue
+		}
+		w[k]--
+		need[s.Site] = w
+		out = append(out, s)
+	}
+	return out
+}

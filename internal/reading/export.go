@@ -22,11 +22,7 @@ type Task struct {
 // then aided; crossover, the first sitting (each case in its first
 // condition) then the second.
 func (s *Session) Worklist() ([]Task, error) {
-	cases, err := s.Cases()
-	if err != nil {
-		return nil, err
-	}
-	cur, err := s.CurrentReads()
+	cases, cur, err := s.casesAndReads()
 	if err != nil {
 		return nil, err
 	}
@@ -74,11 +70,7 @@ var ExportColumns = []string{"reader", "condition", "case", "truth", "rating", "
 // latest amendment if any), amended = the number of amendments, seconds =
 // time from opening the case to locking the original read (empty if unknown).
 func (s *Session) Export(w io.Writer) error {
-	cases, err := s.Cases()
-	if err != nil {
-		return err
-	}
-	cur, err := s.CurrentReads()
+	cases, cur, err := s.casesAndReads()
 	if err != nil {
 		return err
 	}
@@ -118,4 +110,14 @@ func exportRow(reader string, c SessionCase, r Current) []string {
 	}
 	return []string{reader, string(r.Phase), c.Code, truth, strconv.FormatFloat(r.Rating, 'g', -1, 64),
 		conf, secs, strconv.Itoa(r.Amendments), notice.Full}
+}
+
+// casesAndReads returns the cases in reading order and the reads that count.
+func (s *Session) casesAndReads() ([]SessionCase, map[string]map[Phase]Current, error) {
+	cases, err := s.Cases()
+	if err != nil {
+		return nil, nil, err
+	}
+	cur, err := s.CurrentReads()
+	return cases, cur, err
 }

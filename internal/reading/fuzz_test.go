@@ -1,9 +1,12 @@
 package reading
 
 import (
+	"bytes"
+	"encoding/json"
 	"io"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 	"time"
 
@@ -47,6 +50,35 @@ func FuzzOpenSession(f *testing.F) {
 		}
 		if _, err := s.Worklist(); err != nil && !inputerr.Is(err) {
 			t.Logf("worklist: %v", err)
+		}
+	})
+}
+
+// FuzzReadsCSV: any bytes give reads or an input error naming the file, and
+// the analysis of what parses ends in a result or an input error, never a panic.
+func FuzzReadsCSV(f *testing.F) {
+	f.Add([]byte("reader,treatment,case,truth,rating\n1,1,1,0,1\n1,2,1,0,3\n1,1,2,1,4\n1,2,2,1,5\n"))
+	f.Add([]byte("reader,condition,case,truth,rating,seconds\nR,aided,C1,1,70,12\nR,unaided,C1,1,20,\nR,aided,C2,0,10,3\nR,unaided,C2,0,40,1\n"))
+	f.Add([]byte("reader,condition,case,truth,rating\nA,x,1,1,1e308\nB,x,1,1,-1e308\nA,x,2,0,0\nB,x,2,0,0\n"))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		rows, err := ParseReadsCSV("reads.csv", bytes.NewReader(data))
+		if err != nil {
+			if !inputerr.Is(err) || !strings.Contains(err.Error(), "reads.csv") {
+				t.Fatalf("not an input error naming the file: %v", err)
+			}
+			return
+		}
+		if len(rows) > 400 {
+			return
+		}
+		a, err := Analyse(&Reads{Rows: rows}, AnalysisOptions{})
+		if err != nil && !inputerr.Is(err) {
+			t.Fatalf("analysis: %v", err)
+		}
+		if err == nil {
+			if _, err := json.Marshal(a); err != nil {
+				t.Fatalf("JSON: %v", err)
+			}
 		}
 	})
 }

@@ -23,8 +23,8 @@ type Score struct {
 	Notice     string             `json:"notice"`
 	Input      Input              `json:"input"`
 	Model      Model              `json:"model"`
+	OOD        OOD                `json:"ood"`        // first: when the fit check fails, the verdict leads
 	Prediction *Prediction        `json:"prediction"` // null when the model was not run (the scan could not be prepared)
-	OOD        OOD                `json:"ood"`
 	Relevance  *Relevance         `json:"relevance,omitempty"`
 	TimingMs   map[string]float64 `json:"timing_ms"`
 	Warnings   []string           `json:"warnings"`
@@ -32,7 +32,7 @@ type Score struct {
 
 // Input describes the scored scan.
 type Input struct {
-	Path        string     `json:"path"`
+	Path        string     `json:"path,omitempty"` // empty unless the user asked for paths
 	Format      string     `json:"format"`
 	Dims        [3]int     `json:"dims"`
 	SpacingMm   [3]float64 `json:"spacing_mm"`
@@ -56,13 +56,33 @@ type Prediction struct {
 	Probabilities map[string]float64 `json:"probabilities"`
 	Temperature   float64            `json:"temperature"`
 	Uncalibrated  float64            `json:"uncalibrated_probability"`
+	// DoNotUse is set when the fit check failed: the probability is kept
+	// for the record but must not be used, and says why.
+	DoNotUse string `json:"do_not_use,omitempty"`
 }
 
 // OOD is the fit check.
 type OOD struct {
-	Verdict string  `json:"verdict"`
-	Score   Number  `json:"score"` // largest severity of the required checks; > 1 is out-of-distribution
-	Checks  []Check `json:"checks"`
+	Verdict string `json:"verdict"`
+	// Score is the fit score (inference.FitScore): the product over the
+	// required causes of each one's largest severity; when every required
+	// check passes, the largest severity (≤ 1). > 1 is out-of-distribution.
+	Score  Number  `json:"score"`
+	Checks []Check `json:"checks"`
+	// Causes group the failed checks by what they saw
+	// (inference.GroupCauses); empty when every check passes.
+	Causes []Cause `json:"causes"`
+}
+
+// Cause is one reason the scan is unlike the training scans, with the
+// names of the failed checks that saw it.
+type Cause struct {
+	Name        string   `json:"name"`
+	Title       string   `json:"title"`
+	Explanation string   `json:"explanation"`
+	Checks      []string `json:"checks"`
+	Required    bool     `json:"required"`
+	Severity    Number   `json:"severity"`
 }
 
 // Check is one fit-check result. Value is null when not measurable.
@@ -73,7 +93,7 @@ type Check struct {
 	Pass        bool   `json:"pass"`
 	Required    bool   `json:"required"`
 	Explanation string `json:"explanation"`
-	Severity    Number `json:"severity"` // > 1 exactly when the check fails
+	Severity    Number `json:"severity"` // factor beyond the limit: > 1 exactly when the check fails
 }
 
 // Number is a float64 that encodes NaN and infinities as JSON null.
@@ -90,17 +110,25 @@ func (n Number) MarshalJSON() ([]byte, error) {
 
 // Relevance describes a relevance map written beside the result: the
 // method, the map's file, and the method's own checks (for example
-// "conservation_error"), which appear as fields of the object.
+// "consistency_error"), which appear as fields of the object.
 type Relevance struct {
 	Method  string
 	File    string
 	Overlay string
 	Checks  map[string]float64
+	// Problem says why no map was made (File and Overlay are then empty).
+	Problem string
 }
 
 // MarshalJSON flattens Checks into the object.
 func (r Relevance) MarshalJSON() ([]byte, error) {
-	m := map[string]any{"method": r.Method, "file": r.File}
+	m := map[string]any{"method": r.Method}
+	if r.File != "" {
+		m["file"] = r.File
+	}
+	if r.Problem != "" {
+		m["problem"] = r.Problem
+	}
 	if r.Overlay != "" {
 		m["overlay"] = r.Overlay
 	}

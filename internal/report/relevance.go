@@ -22,27 +22,32 @@ const (
 // RelevanceInfo is the JSON sidecar of a relevance map: what the map is,
 // how it was made and its method's checks. It holds no patient identifiers.
 type RelevanceInfo struct {
-	Notice      string            `json:"notice"`
-	File        string            `json:"file"`
-	Method      string            `json:"method"`
-	MethodName  string            `json:"method_name"`
-	Reference   string            `json:"reference"`
-	About       string            `json:"about"`
-	Rule        string            `json:"rule"`
-	TargetClass string            `json:"target_class"`
-	TargetLogit Number            `json:"target_logit"`
-	Probability Number            `json:"probability"` // calibrated, of the target class
-	Units       string            `json:"units"`
-	Space       string            `json:"space"`
-	Input       string            `json:"input"`
-	Dims        [3]int            `json:"dims"`
-	Affine      volume.Affine     `json:"affine"` // voxel index → RAS mm, row-major
-	ModelGrid   ModelGrid         `json:"model_grid"`
-	Checks      map[string]Number `json:"checks"`
-	Settings    map[string]any    `json:"settings"`
-	Passes      int               `json:"passes"`
-	Model       Model             `json:"model"`
-	FitCheck    string            `json:"fit_check"`
+	Notice      string `json:"notice"`
+	File        string `json:"file"`
+	Method      string `json:"method"`
+	MethodName  string `json:"method_name"`
+	Reference   string `json:"reference"`
+	About       string `json:"about"`
+	Rule        string `json:"rule"`
+	TargetClass string `json:"target_class"`
+	TargetLogit Number `json:"target_logit"`
+	Probability Number `json:"probability"` // calibrated, of the target class
+	// InputShare is the map's sum over the target logit (absent for
+	// occlusion, whose values are not shares); Shares says it in a sentence
+	// with what LRP's biases and stabilisers keep.
+	InputShare *Number           `json:"input_share,omitempty"`
+	Shares     string            `json:"shares,omitempty"`
+	Units      string            `json:"units"`
+	Space      string            `json:"space"`
+	Input      string            `json:"input"`
+	Dims       [3]int            `json:"dims"`
+	Affine     volume.Affine     `json:"affine"` // voxel index → RAS mm, row-major
+	ModelGrid  ModelGrid         `json:"model_grid"`
+	Checks     map[string]Number `json:"checks"`
+	Settings   map[string]any    `json:"settings"`
+	Passes     int               `json:"passes"`
+	Model      Model             `json:"model"`
+	FitCheck   string            `json:"fit_check"`
 }
 
 // ModelGrid is the grid the map was computed on before it was carried onto

@@ -23,10 +23,12 @@ type Recipe struct {
 	Arch  Arch
 	Train Config
 	// CohortSeed: cases [0, NTrain) train, [NTrain, NTrain+NVal) validate
-	// (monitored during training), and the next NCal calibrate; the
-	// temperature and the fit-check thresholds are fitted on the validation
-	// and calibration cases together, which no gradient step has seen. The
-	// split is by case.
+	// (monitored during training) and choose the fit-check thresholds, and
+	// the next NCal calibrate: the first half fits the temperature, the
+	// second half is held out from every fit (it bounds the fit check's pass
+	// rate, decides whether the temperature is kept and gives the
+	// calibration metrics). No gradient step sees the validation or
+	// calibration cases. The split is by case.
 	CohortSeed         uint64
 	NTrain, NVal, NCal int
 	// TestSeed: NTest fresh in-distribution cases, never used in training or
@@ -130,8 +132,7 @@ func Run(r Recipe, log func(format string, args ...any)) (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
-	fitCases := append(append([]Case(nil), valCases...), calCases...)
-	if err := res.fitCard(r, prep, levels, trainCases, fitCases, log); err != nil {
+	if err := res.fitCard(r, prep, levels, trainCases, valCases, calCases, log); err != nil {
 		return nil, err
 	}
 	res.Timing.Evaluate = time.Since(t0).Seconds()
@@ -166,37 +167,42 @@ func (res *Result) fitCases(cs []Case, workers int) ([]inference.FitCase, error)
 	return fc, nil
 }
 
-func (res *Result) fitCard(r Recipe, prep preprocess.Spec, levels []float64, trainCases, valCases []Case, log func(string, ...any)) error {
+func (res *Result) fitCard(r Recipe, prep preprocess.Spec, levels []float64, trainCases, valCases, calCases []Case, log func(string, ...any)) error {
 	card := DemoCard(r, prep)
-	trainFit, err := res.fitCases(trainCases, r.Workers)
-	if err != nil {
-		return err
+	var fits [4][]inference.FitCase
+	half := len(calCases) / 2
+	for i, cs := range [][]Case{trainCases, valCases, calCases[:half], calCases[half:]} {
+		var err error
+		if fits[i], err = res.fitCases(cs, r.Workers); err != nil {
+			return err
+		}
 	}
-	valFit, err := res.fitCases(valCases, r.Workers)
-	if err != nil {
-		return err
+	name := func(what string, from, n int) string {
+		return fmt.Sprintf("%d %s phantoms (cohort seed %d, %s to %s)", n, what, r.CohortSeed, phantom.CaseID(from), phantom.CaseID(from+n-1))
 	}
-	trainDesc := fmt.Sprintf("%d training phantoms (cohort seed %d, %s to %s)", len(trainCases), r.CohortSeed,
-		phantom.CaseID(0), phantom.CaseID(r.NTrain-1))
-	valDesc := fmt.Sprintf("%d validation and calibration phantoms (cohort seed %d, %s to %s)", len(valCases), r.CohortSeed,
-		phantom.CaseID(r.NTrain), phantom.CaseID(r.NTrain+len(valCases)-1))
-	ood, cal, metrics, err := inference.FitReference(card, trainFit, valFit, inference.FitOptions{
-		Levels: levels, TrainDescription: trainDesc, ValidationDescription: valDesc})
+	calFrom := r.NTrain + r.NVal
+	splits := inference.FitSplits{Train: fits[0], Choose: fits[1], Temperature: fits[2], HeldOut: fits[3],
+		TrainDescription:       name("training", 0, len(trainCases)),
+		ChooseDescription:      name("validation", r.NTrain, len(valCases)),
+		TemperatureDescription: name("calibration", calFrom, half),
+		HeldOutDescription:     name("held-out calibration", calFrom+half, len(calCases)-half)}
+	ood, cal, metrics, err := inference.FitReferenceSplits(card, splits, inference.FitOptions{Levels: levels})
 	if err != nil {
 		return err
 	}
 	card.OOD, card.Calibration = ood, cal
-	card.Validation = append(metrics, accuracyMetric(card, valFit, valDesc))
-	res.Model, err = res.Net.Encode()
-	if err != nil {
-		return err
+	card.Validation = metrics
+	if res.Model == nil {
+		if res.Model, err = res.Net.Encode(); err != nil {
+			return err
+		}
 	}
 	card.ModelSHA256 = sha256Hex(res.Model)
 	if err := card.Validate(); err != nil {
 		return fmt.Errorf("demo card: %w", err)
 	}
 	res.Card = card
-	log("validation: %s", metricLine(card.Validation))
+	log("fitted: %s\n  calibration: %s", metricLine(card.Validation), cal.Decision)
 	return res.evaluate(r, prep, levels, log)
 }
 
@@ -214,7 +220,11 @@ func (res *Result) evaluate(r Recipe, prep preprocess.Spec, levels []float64, lo
 		return err
 	}
 	desc := fmt.Sprintf("held-out: %d fresh phantoms (seed %d, never used in training or fitting)", len(test), r.TestSeed)
-	card.Validation = append(card.Validation, heldOutMetrics(card, testFit, desc)...)
+	held, err := inference.CalibrationMetrics(card, testFit, card.Calibration.Temperature, desc)
+	if err != nil {
+		return err
+	}
+	card.Validation = append(card.Validation, held...)
 	sev := severityMetrics(card, test, testFit, desc)
 	card.Validation = append(card.Validation, sev...)
 	card.Cautions = append([]string{fmt.Sprintf("Detection depends on how strong the pattern is: on fresh phantoms the AUROC is %.2f for severity up to 0.4 and %.2f above it.",
@@ -279,26 +289,6 @@ func flagRate(card *inference.Card, cs []inference.FitCase, refused *int) (float
 	return float64(flagged) / float64(total), nil
 }
 
-// heldOutMetrics are AUROC, accuracy and ECE before and after the card's
-// temperature on fresh cases.
-func heldOutMetrics(card *inference.Card, cs []inference.FitCase, desc string) []inference.Metric {
-	pos := card.PositiveIndex()
-	T := card.Calibration.Temperature
-	scores := make([]float64, len(cs))
-	isPos := make([]bool, len(cs))
-	for i, fc := range cs {
-		scores[i] = inference.ClassProbabilities(card, fc.Output.Logits, T)[pos]
-		isPos[i] = fc.Label == pos
-	}
-	n := len(cs)
-	return []inference.Metric{
-		{Name: "auroc", Value: stats.AUROC(scores, isPos), N: n, Split: desc, How: "AUROC of the positive-class probability (Mann-Whitney; equals sklearn roc_auc_score)"},
-		accuracyMetric(card, cs, desc),
-		{Name: "ece_before_scaling", Value: ece(card, cs, 1), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), temperature 1"},
-		{Name: "ece_after_scaling", Value: ece(card, cs, T), N: n, Split: desc, How: "expected calibration error, 15 equal-width bins (Guo et al. 2017), the card's temperature"},
-	}
-}
-
 // severityMetrics are AUROCs of the positive cases of one severity band
 // against all negative cases: they show how graded the task is.
 func severityMetrics(card *inference.Card, cs []Case, fit []inference.FitCase, desc string) []inference.Metric {
@@ -323,38 +313,6 @@ func severityMetrics(card *inference.Card, cs []Case, fit []inference.FitCase, d
 	return out
 }
 
-func predicted(card *inference.Card, logits []float64, T float64) (int, float64) {
-	p := inference.ClassProbabilities(card, logits, T)
-	best := 0
-	for k := range p {
-		if p[k] > p[best] {
-			best = k
-		}
-	}
-	return best, p[best]
-}
-
-func accuracyMetric(card *inference.Card, cs []inference.FitCase, desc string) inference.Metric {
-	right := 0
-	for _, fc := range cs {
-		if k, _ := predicted(card, fc.Output.Logits, 1); k == fc.Label {
-			right++
-		}
-	}
-	return inference.Metric{Name: "accuracy", Value: float64(right) / float64(max(1, len(cs))), N: len(cs), Split: desc,
-		How: "fraction of cases whose most probable class is the true one"}
-}
-
-func ece(card *inference.Card, cs []inference.FitCase, T float64) float64 {
-	conf := make([]float64, len(cs))
-	ok := make([]bool, len(cs))
-	for i, fc := range cs {
-		k, p := predicted(card, fc.Output.Logits, T)
-		conf[i], ok[i] = p, k == fc.Label
-	}
-	return stats.ECE(conf, ok, 15)
-}
-
 func metricLine(ms []inference.Metric) string {
 	s := ""
 	for _, m := range ms {
@@ -370,7 +328,7 @@ func DemoCard(r Recipe, prep preprocess.Spec) *inference.Card {
 	return &inference.Card{
 		Schema:        inference.SchemaVersion,
 		Name:          "Harbourside demo atrophy classifier",
-		Version:       "1.2.0",
+		Version:       "1.3.0",
 		Task:          "Says whether a T1-weighted-like synthetic head phantom carries the invented diffuse atrophy pattern (wider ventricles, thinner cortex, smaller medial temporal structures).",
 		Classes:       []string{"no_pattern", "atrophy_pattern"},
 		PositiveClass: "atrophy_pattern",

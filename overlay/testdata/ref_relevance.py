@@ -11,7 +11,12 @@ independently of the Go code:
     composite of Montavon et al. 2019 (section 10.1) as the Go package plans
     it for this two-convolution network: z^B at conv1 with bounds [LO, HI],
     epsilon at conv2, LRP-0 at the dense layer; max pooling winner-take-all,
-    average pooling proportional, BatchNorm folded into the convolutions.
+    average pooling proportional, BatchNorm folded into the convolutions;
+    the composite with alpha1-beta0 at conv2 (Bach et al. 2015, eq. 60 with
+    alpha = 1, beta = 0: on conv2's non-negative input, the z+ rule with W+
+    and no bias), the product's default; and the epsilon rule with every
+    bias left out of z (z_j = sum_i a_i w_ij, so the inputs share all of R_j
+    but what the stabiliser keeps).
     Each rule is applied with the "gradient trick" of Montavon et al. 2019
     (section 10.2): z = layer(a); s = R / z; c = d(z.s)/da; R_in = a * c.
 
@@ -74,7 +79,7 @@ def rule_zb(w, conv_kw, x, r, lo, hi):
     return (xa * xa.grad + l * l.grad + h * h.grad).detach()
 
 
-def lrp(net, x, cls, eps, lo, hi, composite):
+def lrp(net, x, cls, eps, lo, hi, composite, conv2="epsilon", bias=True):
     w1, b1 = fold(net.conv1, net.bn1)
     w2, b2 = fold(net.conv2, net.bn2)
     k1 = dict(padding=1)
@@ -89,9 +94,13 @@ def lrp(net, x, cls, eps, lo, hi, composite):
     r = torch.zeros_like(z3)
     r[0, cls] = z3[0, cls]
     dense_eps = TINY if composite else eps
-    r = rule_linear(lambda a: F.linear(a, net.fc.weight, net.fc.bias), g, r, dense_eps)
+    fcb, cb2, cb1 = (net.fc.bias, b2, b1) if bias else (None, None, None)
+    r = rule_linear(lambda a: F.linear(a, net.fc.weight, fcb), g, r, dense_eps)
     r = rule_linear(lambda a: a.mean(dim=(2, 3, 4)), a2, r, TINY)
-    r = rule_linear(lambda a: F.conv3d(a, w2, b2, **k2), p1, r, eps)
+    if conv2 == "zplus":
+        r = rule_linear(lambda a: F.conv3d(a, w2.clamp(min=0), None, **k2), p1, r, TINY)
+    else:
+        r = rule_linear(lambda a: F.conv3d(a, w2, cb2, **k2), p1, r, eps)
     # max pooling: the relevance goes to the winner (the gradient of the max)
     a = a1.detach().requires_grad_(True)
     (F.max_pool3d(a, 2) * r).sum().backward()
@@ -99,7 +108,7 @@ def lrp(net, x, cls, eps, lo, hi, composite):
     if composite:
         r = rule_zb(w1, k1, x, r, lo, hi)
     else:
-        r = rule_linear(lambda a: F.conv3d(a, w1, b1, **k1), x, r, eps)
+        r = rule_linear(lambda a: F.conv3d(a, w1, cb1, **k1), x, r, eps)
     return r, z3[0, cls].item()
 
 
@@ -125,6 +134,8 @@ def main():
         f_base = net(base)[0][0, cls].item()
     r_eps, f = lrp(net, x, cls, eps, lo, hi, composite=False)
     r_comp, _ = lrp(net, x, cls, eps, lo, hi, composite=True)
+    r_comp_ab, _ = lrp(net, x, cls, eps, lo, hi, composite=True, conv2="zplus")
+    r_eps_nobias, _ = lrp(net, x, cls, eps, lo, hi, composite=False, bias=False)
     out = {
         "logit": f,
         "baseline_logit": f_base,
@@ -132,6 +143,8 @@ def main():
         "ig": ig.flatten().tolist(),
         "lrp_epsilon": r_eps.flatten().tolist(),
         "lrp_composite": r_comp.flatten().tolist(),
+        "lrp_composite_alpha_beta": r_comp_ab.flatten().tolist(),
+        "lrp_epsilon_no_bias": r_eps_nobias.flatten().tolist(),
     }
     json.dump(out, sys.stdout)
 
