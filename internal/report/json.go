@@ -110,7 +110,7 @@ func (n Number) MarshalJSON() ([]byte, error) {
 
 // Relevance describes a relevance map written beside the result: the
 // method, the map's file, and the method's own checks (for example
-// "conservation_error"), which appear as fields of the object.
+// "consistency_error"), which appear as fields of the object.
 type Relevance struct {
 	Method  string
 	File    string
