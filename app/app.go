@@ -40,6 +40,9 @@ type Options struct {
 	DemoCases int
 	// DemoDir is the demo cohort folder; empty means DefaultDemoDir().
 	DemoDir string
+	// Session is a reading session file (brightfold session new): its cases
+	// become the worklist and "My read" records the reads.
+	Session string
 	// ScreenshotTimeout bounds the wait for content before a screenshot is
 	// taken anyway (and reported as incomplete); 0 means 10 minutes.
 	ScreenshotTimeout time.Duration
@@ -55,8 +58,25 @@ func DefaultDemoDir() (string, error) {
 	return filepath.Join(dir, "brightfold", "demo"), nil
 }
 
-// windowSize is the window's opening size (and the screenshot's).
+// windowSize is the window's preferred opening size, used in full on a
+// screen large enough (and by the tests); fitWindow shrinks it to the screen.
 var windowSize = fyne.NewSize(1600, 960)
+
+// minWindow is the smallest size the layout is made for: a 1280×800 screen
+// less a task bar and the window's title bar.
+var minWindow = fyne.NewSize(1240, 720)
+
+// fitWindow is the opening size on a screen of the given size (zero when
+// unknown): the preferred size, or the screen less room for a task bar and
+// window decorations, whichever is smaller, but never below minWindow.
+func fitWindow(screen fyne.Size) fyne.Size {
+	if screen.Width <= 0 || screen.Height <= 0 {
+		return windowSize
+	}
+	w := min32(windowSize.Width, screen.Width)
+	h := min32(windowSize.Height, screen.Height-48)
+	return fyne.NewSize(max32(w, min32(minWindow.Width, screen.Width)), max32(h, min32(minWindow.Height, screen.Height)))
+}
 
 // Run opens the viewer window and returns when it is closed (or, with
 // Options.Screenshot, when the screenshot is saved).
@@ -76,7 +96,7 @@ func Run(opts Options) error {
 	w := a.NewWindow("Brightfold")
 	u := newUI(a, w, opts, fyne.Do)
 	w.SetContent(u.root)
-	w.Resize(windowSize)
+	w.Resize(fitWindow(screenSize()))
 	w.SetOnDropped(u.dropped)
 	u.installShortcuts()
 	var shotErr error
@@ -118,10 +138,15 @@ func (u *UI) screenshotWhenReady(opts Options) error {
 	time.Sleep(3 * time.Second) // a few frames so the last refresh is painted
 	var img image.Image
 	var stateErr error
+	var timings []string
 	fyne.DoAndWait(func() {
 		img = u.win.Canvas().Capture()
 		stateErr = u.completeness()
+		timings = u.timings
 	})
+	for _, t := range timings {
+		fmt.Fprintln(os.Stderr, "brightfold view: "+t)
+	}
 	var err error
 	if img, err = opaque(img); err == nil {
 		err = savePNG(opts.Screenshot, img)

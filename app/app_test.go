@@ -37,15 +37,21 @@ func TestOpenScanShowsThreePlanes(t *testing.T) {
 		if got := sp.scene.SliceCount(pl); got != w.slices {
 			t.Errorf("%v: %d slices, nibabel's canonical shape gives %d", pl, got, w.slices)
 		}
-		if !strings.Contains(v.title.Text, "/ "+itoa(w.slices)) {
+		if !strings.Contains(v.title.Text, "of 0–"+itoa(w.slices-1)) {
 			t.Errorf("%v: title %q does not count %d slices", pl, v.title.Text, w.slices)
+		}
+		// The slice in the title is the crosshair voxel's index in the readout.
+		ijk, _ := sp.scene.NearestVoxel(sp.at)
+		axis := v.frame.SliceAxis()
+		if want := "ijk"[axis:axis+1] + " = " + itoa(ijk[axis]) + " of"; !strings.Contains(v.title.Text, want) {
+			t.Errorf("%v: title %q, crosshair voxel %v", pl, v.title.Text, ijk)
 		}
 		got := [4]string{v.letters[0].Text, v.letters[1].Text, v.letters[2].Text, v.letters[3].Text}
 		if got != [4]string{w.left, w.right, w.top, w.b} {
 			t.Errorf("%v: letters (left, right, top, bottom) %v, want %v", pl, got, [4]string{w.left, w.right, w.top, w.b})
 		}
 	}
-	if !strings.Contains(sp.readout.Text, "voxel (") || !strings.Contains(sp.readout.Text, "value") {
+	if !strings.Contains(sp.readout.Text, "voxel (") || !strings.Contains(sp.readout.Text, "(scanner units)") {
 		t.Errorf("readout %q", sp.readout.Text)
 	}
 	if !hasText(h.texts(), notice.Full) {

@@ -3,10 +3,13 @@ package app
 import (
 	"fmt"
 	"path/filepath"
+	"strings"
 
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/container"
 	"fyne.io/fyne/v2/widget"
+
+	"brightfold/inference"
 )
 
 // Case is one entry of the Cases panel: a scan to load and the code that
@@ -16,6 +19,9 @@ type Case struct {
 	Paths  []string // files or folders to load (never shown in Meeting mode)
 	Series string   // DICOM SeriesInstanceUID when the paths hold several series
 	Note   string   // a non-identifying description, e.g. "demo variant: T2-like contrast"
+	// MeetingCode names the case in Meeting mode when a reading session
+	// gives one; empty means "Case NN" from the list's order.
+	MeetingCode string
 }
 
 // casesPanel lists the cases.
@@ -36,7 +42,10 @@ func newCasesPanel(u *UI) *casesPanel {
 			sub := widget.NewLabel("")
 			sub.Truncation = fyne.TextTruncateEllipsis
 			sub.SizeName = "helperText"
-			return container.NewVBox(code, sub)
+			verdict := widget.NewLabel("")
+			verdict.Truncation = fyne.TextTruncateEllipsis
+			verdict.SizeName = "helperText"
+			return container.NewVBox(code, sub, verdict)
 		},
 		func(id widget.ListItemID, o fyne.CanvasObject) {
 			if id >= len(u.cases) {
@@ -44,13 +53,17 @@ func newCasesPanel(u *UI) *casesPanel {
 			}
 			c := u.cases[id]
 			box := o.(*fyne.Container)
-			box.Objects[0].(*widget.Label).SetText(c.Code)
-			box.Objects[1].(*widget.Label).SetText(u.caseSubtitle(c))
+			box.Objects[0].(*widget.Label).SetText(u.shownCode(id))
+			box.Objects[1].(*widget.Label).SetText(u.clean(u.caseSubtitle(c)))
+			box.Objects[2].(*widget.Label).SetText(u.caseVerdict(c))
 		})
 	p.list.OnSelected = func(id widget.ListItemID) {
 		if !p.quiet {
 			u.selectCase(id)
 		}
+		// The list took the keyboard focus with the click; give it back
+		// to the window so that the shortcuts work at once.
+		u.refocus()
 	}
 	p.note = widget.NewLabel("")
 	p.note.Wrapping = fyne.TextWrapWord
@@ -121,4 +134,41 @@ func (u *UI) stepCase(d int) {
 	}
 	i = (i + len(u.cases)) % len(u.cases)
 	u.selectCase(i)
+}
+
+// caseVerdict is a scored case's verdict for its row in the list: "in
+// distribution · 0.82", or "OUT OF DISTRIBUTION" without a probability.
+// Unscored cases have none. A reading session that hides the model's
+// output during an unaided read sets hideScores.
+func (u *UI) caseVerdict(c Case) string {
+	j := u.store.jobs[caseKey(c)]
+	if j == nil {
+		return ""
+	}
+	select {
+	case <-j.scored:
+	default:
+		return ""
+	}
+	if j.result == nil {
+		return ""
+	}
+	if inference.Withheld(j.result) {
+		return "out of distribution"
+	}
+	if u.hideScores {
+		return "in distribution"
+	}
+	return "in distribution · " + inference.FormatProbability(j.result.Prediction.Probability)
+}
+
+// joinNonEmpty joins the non-empty parts with sep.
+func joinNonEmpty(sep string, parts ...string) string {
+	var out []string
+	for _, p := range parts {
+		if p != "" {
+			out = append(out, p)
+		}
+	}
+	return strings.Join(out, sep)
 }

@@ -25,13 +25,13 @@ const (
 
 // shiftNotes describes the shifted demo variants in the Cases panel.
 var shiftNotes = map[string]string{
-	"ct":      "demo variant: CT-like (Hounsfield units)",
-	"t2":      "demo variant: T2-like contrast",
-	"thick":   "demo variant: thick slices",
-	"cropped": "demo variant: cropped field of view",
-	"flipped": "demo variant: wrong orientation header",
-	"noisy":   "demo variant: heavy noise",
-	"child":   "demo variant: small paediatric-size head",
+	"ct":      "shifted: CT-like",
+	"t2":      "shifted: T2-like",
+	"thick":   "shifted: thick slices",
+	"cropped": "shifted: cropped view",
+	"flipped": "shifted: wrong orientation",
+	"noisy":   "shifted: heavy noise",
+	"child":   "shifted: child-size head",
 }
 
 // startDemo opens the demo cohort, generating it first (in the background,
@@ -103,7 +103,7 @@ func (u *UI) openCohort(dir string) {
 func countShifted(cs []Case) int {
 	n := 0
 	for _, c := range cs {
-		if strings.HasPrefix(c.Note, "demo variant") {
+		if strings.HasPrefix(c.Note, "shifted") {
 			n++
 		}
 	}

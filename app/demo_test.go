@@ -6,6 +6,7 @@ import (
 	"strings"
 	"testing"
 
+	"brightfold/inference"
 	"brightfold/internal/refcheck"
 )
 
@@ -26,12 +27,17 @@ func TestMain(m *testing.M) {
 
 // startDemo opens the viewer on the tests' demo cohort (one in-distribution
 // case and one of each shifted variant) and waits for the first case.
-func startDemo(t *testing.T, opts Options) *harness {
+func startDemo(t testing.TB, opts Options) *harness {
 	t.Helper()
 	refcheck.ORTLib(t)
-	opts.DemoDir, opts.DemoCases = demoFolder, 1
+	want := 8
+	if opts.DemoDir == "" {
+		opts.DemoDir, opts.DemoCases = demoFolder, 1
+	} else {
+		want = opts.DemoCases + 7
+	}
 	h := newHarness(t, opts)
-	first := !fileExists(filepath.Join(demoFolder, "cohort.csv"))
+	first := !fileExists(filepath.Join(opts.DemoDir, "cohort.csv"))
 	h.u.start()
 	if first {
 		if !h.u.tasks.busy(taskDemo) || len(h.u.taskBox.Objects) == 0 {
@@ -39,8 +45,8 @@ func startDemo(t *testing.T, opts Options) *harness {
 		}
 	}
 	h.settle()
-	if len(h.u.cases) != 8 {
-		t.Fatalf("demo cohort lists %d cases, want 1 + 7 shifted; status %q", len(h.u.cases), h.u.message.Text)
+	if len(h.u.cases) != want {
+		t.Fatalf("demo cohort lists %d cases, want %d with 7 shifted; status %q", len(h.u.cases), want, h.u.message.Text)
 	}
 	return h
 }
@@ -56,9 +62,12 @@ func TestDemoCaseShowsEvidence(t *testing.T) {
 	if u.cur != 0 || u.open == nil || u.cases[0].Code != "HMRU-0001" {
 		t.Fatalf("first case not open: cur %d", u.cur)
 	}
-	p, err := parseProbability(u.evidence.prob.Text)
+	p, err := parseProbability(u.head.prob.Text)
 	if err != nil || p < 0 || p > 1 {
-		t.Fatalf("probability shown as %q", u.evidence.prob.Text)
+		t.Fatalf("probability shown as %q", u.head.prob.Text)
+	}
+	if !strings.Contains(u.head.probNote.Text, "half carry the pattern") {
+		t.Errorf("the header does not say what prevalence the probability assumes: %q", u.head.probNote.Text)
 	}
 	if !strings.Contains(u.evidence.probCaption.Text, "T = ") || !strings.Contains(u.evidence.model.Text, "Model: ") {
 		t.Errorf("caption %q, model %q", u.evidence.probCaption.Text, u.evidence.model.Text)
@@ -87,6 +96,23 @@ func TestDemoCaseShowsEvidence(t *testing.T) {
 	if !strings.Contains(u.evidence.status.Text, "should not be relied on") {
 		t.Errorf("Evidence does not warn: %q", u.evidence.status.Text)
 	}
+	// The verdict leads; the probability is withheld, and so is the map,
+	// until the reader asks; then the probability is marked unreliable.
+	if u.head.verdict.Text != verdictOOD || u.head.prob.Text != withheldText || u.scan.overlay != nil ||
+		!strings.Contains(u.head.causes.Text, "CT signature") {
+		t.Errorf("CT-like case: header %q / %q (causes %q), overlay %v", u.head.verdict.Text, u.head.prob.Text, u.head.causes.Text, u.scan.overlay != nil)
+	}
+	shown := inference.FormatProbability(u.open.result.Prediction.Probability)
+	for _, x := range h.texts() {
+		if strings.Contains(x, shown) && !strings.Contains(x, "value") && !strings.Contains(x, "limit") && !strings.HasPrefix(x, "in distribution · ") { // list rows are other cases
+			t.Errorf("the probability %s is on screen while withheld: %q", shown, x)
+		}
+	}
+	u.showAnyway()
+	h.settle()
+	if !strings.Contains(u.head.prob.Text, unreliable) || u.scan.overlay == nil {
+		t.Errorf("show anyway: %q, overlay %v (%q)", u.head.prob.Text, u.scan.overlay != nil, u.evidence.ovState.Text)
+	}
 	if !hasText(h.texts(), "FAIL") {
 		t.Error("no failed check shown")
 	}
@@ -104,7 +130,7 @@ func TestDemoMeetingMode(t *testing.T) {
 		}
 	}
 	h.u.setMeeting(false)
-	if !hasText(h.texts(), "DEMO^SUBJECT0001") {
+	if !hasText(h.texts(), "Demo, Subject0001") {
 		t.Error("outside Meeting mode the demo DICOM case should show its fictional name")
 	}
 }

@@ -19,9 +19,9 @@ import (
 // methodNone is the picker's choice for no map.
 const methodNone = "None"
 
-// methodLabels are the relevance picker's choices: every method of the
+// methodTitles are the relevance picker's methods: every method of the
 // overlay package, then none.
-func methodLabels() []string {
+func methodTitles() []string {
 	var out []string
 	for _, m := range overlay.Methods() {
 		out = append(out, m.Title())
@@ -29,11 +29,20 @@ func methodLabels() []string {
 	return append(out, methodNone)
 }
 
-// methodByLabel returns the method with the given title and its sentence.
+// methodLabels are kept for the tests' random choices.
+func methodLabels() []string { return methodTitles() }
+
+// methodSep separates a method's title from its time estimate in the picker.
+const methodSep = "  ·  "
+
+// methodByLabel returns the method whose title starts the label, and its
+// sentence: what the map shows, its measured localisation on the demo
+// cohort, and its paper.
 func methodByLabel(label string) (overlay.Method, string, bool) {
+	title, _, _ := strings.Cut(label, methodSep)
 	for _, m := range overlay.Methods() {
-		if m.Title() == label {
-			return m, m.About() + " (" + m.Reference() + ")", true
+		if m.Title() == title {
+			return m, m.About() + " " + methodTrust(m) + " (" + m.Reference() + ")", true
 		}
 	}
 	return "", "No relevance map.", false
@@ -47,10 +56,10 @@ type evidencePanel struct {
 
 	model       *widget.Label
 	training    *widget.Label
-	prob        *canvas.Text
 	probCaption *widget.Label
 	status      *widget.Label
-	method      *widget.Select
+	method      *widget.RadioGroup
+	compute     *widget.Button
 	about       *widget.Label
 	opacity     *widget.Slider
 	opacityVal  *widget.Label
@@ -74,58 +83,67 @@ func newEvidencePanel(u *UI) *evidencePanel {
 	p.training.Wrapping = fyne.TextWrapWord
 	p.training.Importance = widget.LowImportance
 	p.training.SizeName = theme.SizeNameCaptionText
-	p.prob = canvas.NewText("—", colText)
-	p.prob.TextSize = 34
-	p.prob.TextStyle = fyne.TextStyle{Bold: true}
 	p.probCaption = widget.NewLabel("")
 	p.probCaption.Wrapping = fyne.TextWrapWord
 	p.status = widget.NewLabel("")
 	p.status.Wrapping = fyne.TextWrapWord
 
-	labels := methodLabels()
 	p.about = widget.NewLabel("")
 	p.about.Wrapping = fyne.TextWrapWord
-	p.method = widget.NewSelect(labels, func(label string) {
+	p.about.SizeName = theme.SizeNameCaptionText
+	// A list of choices always in view, not a drop-down: each shows its
+	// time here, and there is no menu to wait for.
+	p.method = widget.NewRadioGroup(methodTitles(), func(label string) {
 		_, about, _ := methodByLabel(label)
 		p.about.SetText(about)
 		if !p.quiet {
 			u.startRelevance()
 		}
+		u.refocus()
 	})
+	p.method.Required = true
 	p.quiet = true
 	p.method.SetSelected("LRP")
 	p.quiet = false
+	p.compute = widget.NewButtonWithIcon("Compute", theme.MediaPlayIcon(), func() { u.startRelevanceAsked(true) })
+	p.compute.Importance = widget.HighImportance
+	p.compute.Hide()
 
 	p.opacityVal = widget.NewLabel("")
 	p.opacity = widget.NewSlider(0, 100)
 	p.opacity.Step = 5
 	p.opacity.OnChanged = func(v float64) { p.styleChanged() }
+	p.opacity.OnChangeEnded = func(float64) { u.refocus() }
 	p.thrVal = widget.NewLabel("")
-	p.threshold = widget.NewSlider(0, 99)
+	// The coverage slider: the share of the map's strongest voxels drawn,
+	// growing to the right as the label does.
+	p.threshold = widget.NewSlider(1, 100)
 	p.threshold.Step = 1
 	p.threshold.OnChanged = func(v float64) { p.styleChanged() }
+	p.threshold.OnChangeEnded = func(float64) { u.refocus() }
 	p.quiet = true
 	p.opacity.SetValue(60)
-	p.threshold.SetValue(90)
+	p.threshold.SetValue(10)
 	p.quiet = false
 	p.colorBar = canvas.NewImageFromImage(nil)
 	p.colorBar.FillMode = canvas.ImageFillContain
 	p.colorBar.SetMinSize(fyne.NewSize(280, 56))
 	p.ovState = widget.NewLabel("")
 	p.ovState.Wrapping = fyne.TextWrapWord
-	p.signed = widget.NewCheck("Show negative relevance too", func(bool) { p.styleChanged() })
+	p.signed = widget.NewCheck("Negative relevance too", func(bool) { p.styleChanged(); u.refocus() })
 	p.peak = widget.NewButtonWithIcon("Go to the strongest relevance", theme.ZoomFitIcon(), u.goToPeak)
 	p.peak.Disable()
 	p.export = widget.NewButtonWithIcon("Export view as PNG", theme.DocumentSaveIcon(), u.exportView)
 
 	form := container.New(&labelledRows{},
 		widget.NewLabel("Opacity"), p.opacity, p.opacityVal,
-		widget.NewLabel("Threshold"), p.threshold, p.thrVal)
+		widget.NewLabel("Shown"), p.threshold, p.thrVal)
+	mapTitle := widget.NewLabelWithStyle("Relevance map", fyne.TextAlignLeading, fyne.TextStyle{Bold: true})
 	p.root = container.NewVBox(
 		p.model, p.training,
-		p.prob, p.probCaption, p.status,
+		p.probCaption, p.status,
 		widget.NewSeparator(),
-		container.NewBorder(nil, nil, widget.NewLabel("Relevance map"), nil, p.method),
+		mapTitle, p.method, p.compute,
 		p.about,
 		form, p.signed,
 		p.colorBar, p.ovState, p.peak,
@@ -137,9 +155,6 @@ func newEvidencePanel(u *UI) *evidencePanel {
 
 // clear resets the panel for a case being loaded.
 func (p *evidencePanel) clear() {
-	p.prob.Text = "—"
-	p.prob.Color = colMuted
-	p.prob.Refresh()
 	p.probCaption.SetText("")
 	p.status.SetText("Waiting for the scan…")
 	p.status.Importance = widget.MediumImportance
@@ -156,32 +171,25 @@ func (p *evidencePanel) clear() {
 
 // unavailable says why there is no probability.
 func (p *evidencePanel) unavailable(why string) {
-	p.prob.Text = "—"
-	p.prob.Color = colMuted
-	p.prob.Refresh()
 	p.probCaption.SetText("")
 	p.status.Importance = widget.MediumImportance
 	p.status.SetText(p.u.clean(why))
 	p.u.reflow()
 }
 
-// showPrediction shows the model and its calibrated probability; an
-// out-of-distribution verdict greys the number and says not to rely on it.
-func (p *evidencePanel) showPrediction(card *inference.Card, pr inference.Prediction, ood bool) {
+// showPrediction shows the model and how its probability was calibrated;
+// while the probability is withheld (out of distribution) the numbers stay
+// out of this panel too.
+func (p *evidencePanel) showPrediction(card *inference.Card, pr inference.Prediction, withheld bool) {
 	p.model.SetText(fmt.Sprintf("Model: %s, version %s", card.Name, card.Version))
 	p.training.SetText(firstSentence(card.TrainingData))
-	p.prob.Text = inference.FormatProbability(pr.Probability)
-	p.prob.Color = colText
-	if ood {
-		p.prob.Color = colMuted
-	}
-	p.prob.Refresh()
-	p.probCaption.SetText(fmt.Sprintf("Probability of %s, calibrated by temperature scaling (T = %.2f; %s before calibration). Most probable class: %s.",
-		className(card.PositiveClass), pr.Temperature, inference.FormatProbability(pr.Uncalibrated), className(pr.Label)))
-	if ood {
-		p.status.SetText("Out of distribution: the fit check says this scan is unlike the training scans, so this probability should not be relied on.")
+	if withheld {
+		p.probCaption.SetText("")
+		p.status.SetText("Out of distribution: the fit check says this scan is unlike the training scans, so the probability should not be relied on.")
 		p.status.Importance = widget.DangerImportance
 	} else {
+		p.probCaption.SetText(fmt.Sprintf("Calibrated by temperature scaling (T = %.2f; %s before calibration). Most probable class: %s.",
+			pr.Temperature, inference.FormatProbability(pr.Uncalibrated), className(pr.Label)))
 		p.status.SetText("A research score, not a diagnosis.")
 		p.status.Importance = widget.MediumImportance
 	}
@@ -252,7 +260,7 @@ func (p *evidencePanel) styleChanged() {
 	}
 	st := p.u.scan.style
 	st.Opacity = p.opacity.Value / 100
-	st.Threshold = viewer.Threshold{Value: p.threshold.Value, Percentile: true}
+	st.Threshold = viewer.Threshold{Value: 100 - p.threshold.Value, Percentile: true}
 	st.Signed = p.signed.Checked
 	p.u.scan.setStyle(st)
 	p.refreshColorBar()
@@ -261,7 +269,7 @@ func (p *evidencePanel) styleChanged() {
 
 func (p *evidencePanel) styleLabels() {
 	p.opacityVal.SetText(fmt.Sprintf("%3.0f %%", p.opacity.Value))
-	p.thrVal.SetText(fmt.Sprintf("top %.0f %%", 100-p.threshold.Value))
+	p.thrVal.SetText(fmt.Sprintf("top %.0f %%", p.threshold.Value))
 }
 
 // refreshColorBar draws the colour bar of the current overlay and style.
@@ -334,5 +342,57 @@ func (labelledRows) Layout(objs []fyne.CanvasObject, size fyne.Size) {
 		objs[i+2].Move(fyne.NewPos(size.Width-valW, y))
 		objs[i+2].Resize(fyne.NewSize(valW, rh))
 		y += rh
+	}
+}
+
+// methodTrust says how well a method's map found the pattern on the demo
+// cohort: relevance mass accuracy (the share of positive relevance inside
+// the ground-truth pattern mask) on 50 pattern-positive 1 mm phantoms,
+// measured by overlay's TestLocalisation and reported in
+// docs/evaluation.md ("Relevance maps: localisation on this model"); chance
+// is the mask's share of the scan, 0.45 %.
+func methodTrust(m overlay.Method) string {
+	switch m {
+	case overlay.LRP:
+		return "On 50 demo phantoms with the pattern, 6.3 % of its relevance fell inside the pattern (14 × chance)."
+	case overlay.IntegratedGradients:
+		return "With a blurred-scan baseline, as here, 15 % of its relevance fell inside the pattern on 50 demo phantoms (34 × chance): the best-localised method on this model."
+	case overlay.GradientInput:
+		return "Voxel by voxel, so it looks speckled; 3.1 % of its relevance fell inside the pattern on 50 demo phantoms (7 × chance)."
+	case overlay.Occlusion:
+		return "Coarse (8-voxel cubes); 3.9 % of its relevance fell inside the pattern on 50 demo phantoms (9 × chance)."
+	}
+	return ""
+}
+
+// refreshMethodLabels puts each method's time estimate beside its name.
+func (p *evidencePanel) refreshMethodLabels() {
+	sel, _ := p.selectedMethod()
+	var opts []string
+	selected := methodNone
+	for _, m := range overlay.Methods() {
+		label := m.Title() + methodSep + "≈ " + roundDuration(p.u.estimate(m))
+		if onRequest(m, p.u.estimate(m)) {
+			label += ", on request"
+		}
+		opts = append(opts, label)
+		if m == sel && p.method.Selected != methodNone {
+			selected = label
+		}
+	}
+	p.method.Options = append(opts, methodNone)
+	p.quiet = true
+	p.method.SetSelected(selected)
+	p.quiet = false
+	p.method.Refresh()
+}
+
+// selectMethod picks a method by its title ("LRP", "None").
+func (p *evidencePanel) selectMethod(title string) {
+	for _, o := range p.method.Options {
+		if t, _, _ := strings.Cut(o, methodSep); t == title {
+			p.method.SetSelected(o)
+			return
+		}
 	}
 }

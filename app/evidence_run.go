@@ -4,12 +4,14 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"strings"
+	"math"
 	"sync"
+	"time"
 
 	"brightfold/assets"
 	"brightfold/inference"
 	"brightfold/inference/fitcheck"
+	"brightfold/inference/preprocess"
 	"brightfold/internal/ortlib"
 	"brightfold/internal/volume"
 	"brightfold/overlay"
@@ -85,65 +87,104 @@ func (m *model) close() {
 	}
 }
 
-// startEvidence scores the open case and computes its relevance map, both
-// off the UI thread.
-func (u *UI) startEvidence() {
+// startEvidence shows the open case's score, waiting for its job off the
+// UI thread when it is still running, then its relevance map.
+func (u *UI) startEvidence(j *caseJob) {
 	oc := u.open
+	select {
+	case <-j.scored:
+		u.applyScore(j, oc)
+		return
+	default:
+	}
 	u.evidence.status.SetText("Scoring…")
-	u.tasks.start(taskScore, "Scoring "+oc.c.Code, func(ctx context.Context, progress progressFunc) (func(), error) {
-		progress(-1, "loading the model")
-		s, err := u.model.get()
-		if err != nil {
-			return nil, err
+	u.tasks.start(taskScore, "Scoring "+u.shownCode(u.cur), func(ctx context.Context, progress progressFunc) (func(), error) {
+		j.watch(progress)
+		defer j.watch(nil)
+		select {
+		case <-j.scored:
+		case <-ctx.Done():
+			return nil, ctx.Err()
 		}
-		if err := ctx.Err(); err != nil {
-			return nil, err
-		}
-		r, err := s.ScoreContext(ctx, oc.vol, func(st inference.Stage, done float64) { progress(done, string(st)) })
-		card := s.ModelFolder().Card
-		var np *inference.NotPreparedError
-		if errors.As(err, &np) {
-			// A scan the model cannot take is a result: out-of-distribution,
-			// with the checks that need no model, and no probability.
-			return func() { u.showUnprepared(oc, card, np) }, nil
-		}
-		if err != nil {
-			return nil, fmt.Errorf("%s: %w", oc.c.Code, err)
-		}
-		return func() { u.showScore(oc, card, r) }, nil
-	}, func(err error) {
-		why := err.Error()
-		u.evidence.unavailable("No probability: " + why)
-		u.fit.unavailable("No verdict: " + why)
-		u.evidence.ovState.SetText("No relevance map without a score.")
-		u.markReady()
-	})
+		return func() { u.applyScore(j, oc) }, nil
+	}, nil)
 }
 
-// showScore fills Evidence and Fit check from a result.
-func (u *UI) showScore(oc *openCase, card *inference.Card, r *inference.Result) {
+// applyScore puts a finished job's score on screen (UI thread).
+func (u *UI) applyScore(j *caseJob, oc *openCase) {
 	if u.open != oc {
 		return
 	}
-	oc.result, oc.card = r, card
-	ood := r.Verdict == fitcheck.OutOfDistribution
-	u.evidence.showPrediction(card, r.Prediction, ood)
+	if j.scoreErr != nil {
+		u.store.forget(oc.c)
+		why := u.clean(j.scoreErr.Error())
+		u.evidence.unavailable("No probability: " + why)
+		u.fit.unavailable("No verdict: " + why)
+		u.head.unavailable("No verdict: " + why)
+		u.evidence.ovState.SetText("No relevance map without a score.")
+		u.markReady()
+		return
+	}
+	oc.result, oc.card, oc.unprepared = j.result, j.card, j.unprepared
+	u.timing("score")
+	u.casesPanel.list.Refresh()
+	if oc.unprepared != nil {
+		u.showUnprepared(oc)
+	} else {
+		u.showScore(oc)
+	}
+	if !u.tasks.busy(taskRelevance) {
+		u.prefetchNext()
+	}
+}
+
+// prefetchNext loads and scores the case after the open one in the
+// background, so that stepping to it shows it at once.
+func (u *UI) prefetchNext() {
+	if len(u.cases) < 2 || u.cur < 0 {
+		return
+	}
+	u.store.job(u.cases[(u.cur+1)%len(u.cases)])
+	// The open case stays the most recently used.
+	u.store.job(u.cases[u.cur])
+}
+
+// withheld reports whether the open case's probability and map are kept
+// back: an out-of-distribution verdict the reader has not asked to see past.
+func (u *UI) withheld(oc *openCase) bool {
+	return oc != nil && oc.result != nil && inference.Withheld(oc.result) && !oc.showAnyway
+}
+
+// showScore fills the header, Evidence and Fit check from a result.
+func (u *UI) showScore(oc *openCase) {
+	r := oc.result
+	u.head.show(oc, u.withheld(oc))
+	u.evidence.showPrediction(oc.card, r.Prediction, inference.Withheld(r))
 	u.showChecks(r)
 	u.startRelevance()
 }
 
 // showUnprepared shows a scan that could not be prepared for the model: the
 // checks that need no model, an out-of-distribution verdict, no probability.
-func (u *UI) showUnprepared(oc *openCase, card *inference.Card, np *inference.NotPreparedError) {
-	if u.open != oc {
-		return
-	}
-	oc.result, oc.card = np.Result, card
-	u.evidence.unavailable("No probability: " + np.Error())
-	u.evidence.model.SetText(fmt.Sprintf("Model: %s, version %s", card.Name, card.Version))
-	u.showChecks(np.Result)
+func (u *UI) showUnprepared(oc *openCase) {
+	u.head.show(oc, true)
+	u.evidence.unavailable("No probability: " + oc.unprepared.Error())
+	u.evidence.model.SetText(fmt.Sprintf("Model: %s, version %s", oc.card.Name, oc.card.Version))
+	u.showChecks(oc.result)
 	u.evidence.ovState.SetText("No relevance map: the model never saw this scan.")
 	u.markReady()
+}
+
+// showAnyway reveals the probability and map of an out-of-distribution
+// scan at the reader's request, marked as unreliable.
+func (u *UI) showAnyway() {
+	oc := u.open
+	if oc == nil || oc.result == nil || oc.unprepared != nil {
+		return
+	}
+	oc.showAnyway = true
+	u.head.show(oc, false)
+	u.startRelevance()
 }
 
 // showChecks fills the Fit check panel from a result.
@@ -153,7 +194,7 @@ func (u *UI) showChecks(r *inference.Result) {
 	checks := append(r.FailedChecks(), passed(r.Checks)...)
 	rows := make([]checkRow, len(checks))
 	for i, c := range checks {
-		rows[i] = checkRow{Name: inference.CheckTitle(c.Name), Value: inference.FormatValue(c.Value), Limit: c.Threshold,
+		rows[i] = checkRow{Name: inference.CheckTitle(c.Name), Detail: inference.CheckDetail(c),
 			Sentence: c.Explanation, Pass: c.Pass, Required: c.Required}
 	}
 	u.fit.showChecks(ood, rows)
@@ -170,13 +211,22 @@ func passed(cs []fitcheck.Check) []fitcheck.Check {
 	return out
 }
 
-// startRelevance computes the relevance map of the chosen method for the
-// open case, off the UI thread, once the case has been scored (the map
-// explains the model input that scoring prepared).
+// startRelevance shows the relevance map of the chosen method for the open
+// case: from the case's cache when it was computed before, else computed
+// off the UI thread once the case has been scored (the map explains the
+// model input that scoring prepared). Methods that take more than a few
+// seconds run only when asked (the Compute button).
 func (u *UI) startRelevance() {
+	u.startRelevanceAsked(false)
+}
+
+// startRelevanceAsked is startRelevance; asked says the reader pressed
+// Compute, which runs a slow method too.
+func (u *UI) startRelevanceAsked(asked bool) {
 	u.tasks.cancel(taskRelevance)
 	u.scan.setOverlay(nil)
 	u.evidence.refreshColorBar()
+	u.evidence.compute.Hide()
 	method, ok := u.evidence.selectedMethod()
 	oc := u.open
 	switch {
@@ -193,45 +243,42 @@ func (u *UI) startRelevance() {
 		u.evidence.ovState.SetText("No relevance map: the scan could not be prepared for the model.")
 		u.markReady()
 		return
+	case u.withheld(oc):
+		u.evidence.ovState.SetText("No relevance map while the fit check fails: the map would explain a probability that should not be relied on. Use \u201cShow anyway\u201d above to see both.")
+		u.markReady()
+		return
+	}
+	if sm := oc.maps[method]; sm != nil {
+		u.applyMap(oc, sm)
+		return
+	}
+	if !asked && onRequest(method, u.estimate(method)) {
+		u.evidence.ovState.SetText(fmt.Sprintf("%s takes about %s here: it runs when you press Compute.", method.Title(), roundDuration(u.estimate(method))))
+		u.evidence.compute.SetText("Compute " + method.Title() + " (≈ " + roundDuration(u.estimate(method)) + ")")
+		u.evidence.compute.Show()
+		u.markReady()
+		return
 	}
 	u.evidence.ovState.SetText("Computing the " + method.Title() + " map…")
-	u.tasks.start(taskRelevance, method.Title()+" map for "+oc.c.Code, func(ctx context.Context, progress progressFunc) (func(), error) {
-		progress(-1, "preparing")
-		ex, err := u.model.explainer()
+	prepared := oc.result.Prepared
+	u.tasks.start(taskRelevance, method.Title()+" map for "+u.shownCode(u.cur), func(ctx context.Context, progress progressFunc) (func(), error) {
+		t0 := time.Now()
+		sm, err := u.computeMap(ctx, oc, prepared, method, progress)
 		if err != nil {
 			return nil, err
 		}
-		opt := overlay.Options{Progress: func(done, total int) {
-			progress(float64(done)/float64(max(total, 1)), fmt.Sprintf("%d of %d model passes", done, total))
-		}}
-		m, err := ex.Compute(ctx, method, oc.result.Prepared.Tensor, opt)
-		if err != nil {
-			return nil, err
-		}
-		progress(-1, "carrying the map onto the scan")
-		onScan, err := m.ToScan(oc.result.Prepared.Transform)
-		if err != nil {
-			return nil, err
-		}
-		// The planes show the scan reoriented to closest-canonical RAS; the
-		// same reorientation of the map puts it on the same grid.
-		shown, err := volume.Reorient(onScan)
-		if err != nil {
-			return nil, err
-		}
-		om, err := viewer.NewOverlayMap(oc.scene, shown, relevanceUnits(m))
-		if err != nil {
-			return nil, err
-		}
-		peak := overlay.Peak(shown)
+		sm.elapsed = time.Since(t0)
 		return func() {
+			u.timed[method] = sm.elapsed
+			u.evidence.refreshMethodLabels()
+			if oc.maps == nil {
+				oc.maps = map[overlay.Method]*shownMap{}
+			}
+			oc.maps[method] = sm
 			if u.open != oc {
 				return
 			}
-			oc.relevance, oc.overlayVol, oc.peak = m, shown, peak
-			u.scan.setOverlay(om)
-			u.evidence.showRelevance(m, om)
-			u.markReady()
+			u.applyMap(oc, sm)
 		}, nil
 	}, func(err error) {
 		u.evidence.ovState.SetText(u.clean("No relevance map: " + err.Error()))
@@ -239,12 +286,98 @@ func (u *UI) startRelevance() {
 	})
 }
 
-// relevanceUnits labels a map's values for the colour bar and readout.
-func relevanceUnits(m *overlay.Map) string {
-	if m.Additive {
-		return "share of the " + strings.ReplaceAll(m.Class, "_", " ") + " logit"
+// computeMap computes a map and carries it onto the displayed grid, off the
+// UI thread.
+func (u *UI) computeMap(ctx context.Context, oc *openCase, prepared *preprocess.Prepared, method overlay.Method, progress progressFunc) (*shownMap, error) {
+	progress(-1, "preparing")
+	ex, err := u.model.explainer()
+	if err != nil {
+		return nil, err
 	}
-	return "drop of the " + strings.ReplaceAll(m.Class, "_", " ") + " logit"
+	opt := overlay.Options{Progress: func(done, total int) {
+		progress(float64(done)/float64(max(total, 1)), fmt.Sprintf("%d of %d model passes", done, total))
+	}}
+	// Integrated gradients from a blurred copy of the scan: on the demo
+	// cohort it localises the pattern five times better than from an
+	// all-zero scan (docs/evaluation.md) and shows less speckle.
+	opt.Baseline = overlay.BaselineBlur
+	m, err := ex.Compute(ctx, method, prepared.Tensor, opt)
+	if err != nil {
+		return nil, err
+	}
+	progress(-1, "carrying the map onto the scan")
+	onScan, err := m.ToScan(prepared.Transform)
+	if err != nil {
+		return nil, err
+	}
+	// The planes show the scan reoriented to closest-canonical RAS; the
+	// same reorientation of the map puts it on the same grid.
+	shown, err := volume.Reorient(onScan)
+	if err != nil {
+		return nil, err
+	}
+	// Shown inside the head only, in per cent of its strongest voxel there.
+	disp := viewer.DisplayMap(shown, oc.headMask())
+	om, err := viewer.NewOverlayMap(oc.scene, disp, viewer.DisplayUnits)
+	if err != nil {
+		return nil, err
+	}
+	return &shownMap{m: m, vol: disp, om: om, peak: overlay.Peak(disp)}, nil
+}
+
+// applyMap draws a computed map over the open case.
+// The next case is prefetched once the map is drawn, so that the two do
+// not share the processor.
+func (u *UI) applyMap(oc *openCase, sm *shownMap) {
+	oc.relevance, oc.overlayVol, oc.peak = sm.m, sm.vol, sm.peak
+	u.scan.setOverlay(sm.om)
+	u.evidence.showRelevance(sm.m, sm.om)
+	u.timing("map")
+	u.markReady()
+	u.prefetchNext()
+}
+
+// slowMap is the estimated time above which a method runs only when asked.
+const slowMap = 4 * time.Second
+
+// onRequest reports whether a method runs only when asked: the
+// many-pass methods (integrated gradients, occlusion) unless measured
+// faster than slowMap here. LRP and gradient × input take one backward
+// pass and always run.
+func onRequest(m overlay.Method, estimate time.Duration) bool {
+	switch m {
+	case overlay.LRP, overlay.GradientInput:
+		return false
+	}
+	return estimate > slowMap
+}
+
+// estimate is how long a method's map takes here: the last time it was
+// measured in this session, or a prior from its number of model passes
+// relative to LRP (one forward and one backward pass).
+func (u *UI) estimate(m overlay.Method) time.Duration {
+	if d, ok := u.timed[m]; ok {
+		return d
+	}
+	base, ok := u.timed[overlay.LRP]
+	if !ok {
+		base = 2 * time.Second
+	}
+	switch m {
+	case overlay.IntegratedGradients:
+		return 32 * base // its default of 64 path steps, batched: a prior until measured
+	case overlay.Occlusion:
+		return 40 * base
+	}
+	return base
+}
+
+// roundDuration prints a duration to a reader: "2 s", "1 min".
+func roundDuration(d time.Duration) string {
+	if d < 90*time.Second {
+		return fmt.Sprintf("%.0f s", math.Max(1, d.Seconds()))
+	}
+	return fmt.Sprintf("%.0f min", d.Minutes())
 }
 
 // explainer returns the relevance maps' explainer for the model, made once.

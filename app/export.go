@@ -3,60 +3,79 @@ package app
 import (
 	"fmt"
 	"image"
-	"image/draw"
 	"image/png"
 	"io"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/dialog"
 	"fyne.io/fyne/v2/storage"
 
+	"brightfold/inference"
 	"brightfold/internal/atomicfile"
+	"brightfold/viewer"
 )
 
-// exportImage is the current view as shown: the notice banner across the
-// top, then the Scan panel with the reading column (Fit check, Evidence)
-// beside it, cut from the rendered window so that the file shows exactly what
-// the screen shows (and, in Meeting mode, hides what the screen hides).
+// exportImage is the open case as a composed figure (viewer.Figure), not
+// a crop of the window: a strip of slices of the large plane across the
+// strongest relevance, with the overlay as styled now, the case code (a
+// list code in Meeting mode), the model, the fit-check verdict, the
+// probability or the word that it is withheld, the map's method and
+// coverage, a locator, the colour bar with its units, and the notice.
 func (u *UI) exportImage() (image.Image, error) {
-	c := u.win.Canvas()
-	full, err := opaque(c.Capture())
+	oc, sp := u.open, u.scan
+	if oc == nil || sp.scene == nil {
+		return nil, fmt.Errorf("export: no case is open")
+	}
+	spec := viewer.FigureSpec{
+		Plane: sp.order[0], At: sp.at, Convention: sp.conv, Window: sp.win, Interp: sp.interp,
+		Case: u.shownCode(u.cur), Verdict: "No verdict", Headline: "-",
+	}
+	if oc.card != nil {
+		spec.Model = fmt.Sprintf("Model: %s, version %s", oc.card.Name, oc.card.Version)
+	}
+	if r := oc.result; r != nil {
+		spec.Verdict, spec.Headline = "In distribution", inference.FormatProbability(r.Prediction.Probability)
+		spec.Lines = append(spec.Lines, fmt.Sprintf("Probability of %s (calibrated). %s", inference.ClassName(oc.card.PositiveClass), inference.PrevalenceNote(oc.card)))
+		if inference.Withheld(r) {
+			spec.Verdict, spec.OOD = "OUT OF DISTRIBUTION", true
+			spec.Lines = append([]string{"The scan is unlike the training scans."}, inference.VerdictCauses(r)...)
+			switch {
+			case r.Prepared == nil:
+				spec.Headline = "No probability"
+			case u.withheld(oc):
+				spec.Headline = "Withheld"
+			default:
+				spec.Headline += " (unreliable)"
+			}
+		}
+	}
+	if o := sp.visibleOverlay(); o != nil && oc.relevance != nil {
+		spec.Overlay, spec.Style = o, sp.style
+		spec.Lines = append(spec.Lines, fmt.Sprintf("Relevance map: %s, the strongest %.0f %% of its voxels inside the head; warm colours speak for the class.",
+			oc.relevance.Method.Title(), u.evidence.threshold.Value))
+	}
+	img, err := viewer.Figure(sp.scene, spec)
 	if err != nil {
 		return nil, fmt.Errorf("export: %w", err)
 	}
-	k := float32(full.Bounds().Dx()) / c.Size().Width
-	rect := func(objs ...fyne.CanvasObject) image.Rectangle {
-		var r image.Rectangle
-		for _, o := range objs {
-			p := fyne.CurrentApp().Driver().AbsolutePositionForObject(o)
-			s := o.Size()
-			q := image.Rect(int(p.X*k), int(p.Y*k), int((p.X+s.Width)*k+0.5), int((p.Y+s.Height)*k+0.5))
-			r = r.Union(q)
-		}
-		return r.Intersect(full.Bounds())
-	}
-	banner := rect(u.bannerBox)
-	body := rect(u.scanSection, u.column)
-	if banner.Empty() || body.Empty() {
-		return nil, fmt.Errorf("export: the view is not laid out yet")
-	}
-	w := max(banner.Dx(), body.Dx())
-	out := image.NewRGBA(image.Rect(0, 0, w, banner.Dy()+body.Dy()))
-	draw.Draw(out, out.Bounds(), image.NewUniform(colInk), image.Point{}, draw.Src)
-	draw.Draw(out, image.Rect(0, 0, banner.Dx(), banner.Dy()), full, banner.Min, draw.Src)
-	draw.Draw(out, image.Rect(0, banner.Dy(), body.Dx(), banner.Dy()+body.Dy()), full, body.Min, draw.Src)
-	return out, nil
+	return img, nil
 }
 
-// exportName is the suggested file name: the case code and the large plane.
+// exportName is the suggested file name, after what the figure holds: the
+// case code (a list code in Meeting mode), the map's method and the plane.
 func (u *UI) exportName() string {
 	code := "brightfold"
 	if u.cur >= 0 && u.cur < len(u.cases) {
-		code = u.cases[u.cur].Code
+		code = strings.ReplaceAll(u.shownCode(u.cur), " ", "-")
 	}
-	return fmt.Sprintf("%s-%s.png", code, u.scan.order[0])
+	what := "scan"
+	if u.open != nil && u.open.relevance != nil && u.scan.visibleOverlay() != nil {
+		what = string(u.open.relevance.Method)
+	}
+	return fmt.Sprintf("%s-%s-%s.png", code, what, u.scan.order[0])
 }
 
 // exportView saves the current view as PNG. Outside Meeting mode a save
@@ -97,7 +116,7 @@ func (u *UI) exportView() {
 			u.fail(err)
 			return
 		}
-		u.say("Exported " + path)
+		u.say("Exported " + filepath.Base(path))
 	}, u.win)
 	d.SetFileName(u.exportName())
 	if dir, err := exportDir(); err == nil {
@@ -109,13 +128,16 @@ func (u *UI) exportView() {
 	d.Show()
 }
 
+// exportFolderName is the export folder's name in the home folder.
+const exportFolderName = "Brightfold exports"
+
 // exportDir is the folder for exported views: ~/Brightfold exports.
 func exportDir() (string, error) {
 	home, err := os.UserHomeDir()
 	if err != nil {
 		return "", fmt.Errorf("export: no home folder: %w", err)
 	}
-	dir := filepath.Join(home, "Brightfold exports")
+	dir := filepath.Join(home, exportFolderName)
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return "", fmt.Errorf("export: %w", err)
 	}

@@ -2,7 +2,6 @@ package app
 
 import (
 	"image/color"
-	"strings"
 
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/canvas"
@@ -41,7 +40,9 @@ func newFitPanel(u *UI) *fitPanel {
 	p.sentence = widget.NewLabel("")
 	p.sentence.Wrapping = fyne.TextWrapWord
 	p.checks = container.NewVBox()
-	head := container.NewStack(p.block, container.NewPadded(container.NewVBox(p.headline, p.sentence)))
+	// The verdict's words are in the reading column's header; here the
+	// block carries the sentence in the verdict's colour, then the rows.
+	head := container.NewStack(p.block, container.NewPadded(p.sentence))
 	p.root = container.NewVBox(head, p.checks)
 	p.clear()
 	return p
@@ -79,8 +80,8 @@ func (p *fitPanel) showCancelled() {
 
 // checkRow is one fit check as shown.
 type checkRow struct {
-	Name, Value, Limit, Sentence string
-	Pass, Required               bool
+	Name, Detail, Sentence string
+	Pass, Required         bool
 }
 
 // showChecks fills the panel with a verdict and its checks.
@@ -127,21 +128,11 @@ func (p *fitPanel) row(r checkRow) fyne.CanvasObject {
 		widget.NewSeparator())
 }
 
-// checkDetail is "value (limit …)", without the value when the limit is not
-// a number (a categorical check whose value is only a pass flag).
+// checkDetail is the value with its units and the limit, marked advisory
+// when the check does not decide the verdict.
 func checkDetail(r checkRow) string {
-	d := ""
-	if strings.ContainsAny(r.Limit, "0123456789") {
-		d = "value " + r.Value
-	}
-	if r.Limit != "" {
-		if d != "" {
-			d += " · "
-		}
-		d += "limit " + r.Limit
-	}
 	if !r.Required {
-		d += " · advisory"
+		return joinNonEmpty(" · ", r.Detail, "advisory")
 	}
-	return d
+	return r.Detail
 }

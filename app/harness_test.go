@@ -21,13 +21,13 @@ import (
 // for real; what they post for the UI thread is queued and run by settle on
 // the test goroutine, so that every widget change happens on one goroutine.
 type harness struct {
-	t *testing.T
+	t testing.TB
 	q chan func()
 	u *UI
 	w fyne.Window
 }
 
-func newHarness(t *testing.T, opts Options) *harness {
+func newHarness(t testing.TB, opts Options) *harness {
 	t.Helper()
 	a := test.NewTempApp(t)
 	a.Settings().SetTheme(newTheme())

@@ -86,3 +86,18 @@ func (u *UI) showHelp() {
 	d := dialog.NewCustom("Keys and mouse", "Close", grid, u.win)
 	d.Show()
 }
+
+// refocus gives the keyboard back to the window after a click on a list,
+// choice, check or slider took it, so that the shortcuts work wherever the
+// reader clicked; a text field keeps its focus.
+func (u *UI) refocus() {
+	c := u.win.Canvas()
+	if c == nil {
+		return
+	}
+	switch c.Focused().(type) {
+	case nil, *widget.Entry, *widget.SelectEntry:
+		return
+	}
+	c.Unfocus()
+}

@@ -1,10 +1,14 @@
 package app
 
 import (
+	"fmt"
+	"os"
 	"path/filepath"
 	"regexp"
 	"sort"
 	"strings"
+
+	"brightfold/viewer"
 )
 
 // setMeeting switches Meeting mode and redraws every identifying text.
@@ -34,13 +38,34 @@ func (u *UI) applyMeeting() {
 	u.refreshTasks()
 }
 
-// absPath matches absolute file paths and home-relative paths in free text.
-var absPath = regexp.MustCompile(`(~|[A-Za-z]:)?[/\\][^\s"':;,()]+`)
+// absPath matches absolute and home-relative file paths in free text. A
+// path runs to the end of its last folder separator's component; folder
+// names before a separator may hold spaces ("/home/Roe Jane 1953/x.png"),
+// so the whole path is hidden, not only its first word.
+var absPath = regexp.MustCompile(`(~|[A-Za-z]:)?[/\\]([^/\\\n"'<>|:;]*[/\\])*[^\s"':;,()/\\]*`)
+
+// shownCode is how case i is named on screen: in Meeting mode a code from
+// its place in the list ("Case 03"), or the reading session's code, never a
+// header field or a file name; outside Meeting mode its own code.
+func (u *UI) shownCode(i int) string {
+	if i < 0 || i >= len(u.cases) {
+		return ""
+	}
+	c := u.cases[i]
+	if !u.meeting {
+		return c.Code
+	}
+	if c.MeetingCode != "" {
+		return c.MeetingCode
+	}
+	return fmt.Sprintf("Case %02d", i+1)
+}
 
 // clean removes, in Meeting mode, everything that could identify a patient
 // or show where files are from a text that is about to be shown: the open
-// case's patient identifiers, every case's paths and file names, and any
-// other absolute path. Outside Meeting mode it returns s unchanged.
+// case's patient identifiers (in DICOM and readable form), every case's own
+// code, paths and file names, the user's folders, and any other absolute
+// path. Outside Meeting mode it returns s unchanged.
 func (u *UI) clean(s string) string {
 	if !u.meeting || s == "" {
 		return s
@@ -53,9 +78,10 @@ func (u *UI) clean(s string) string {
 	}
 	if u.open != nil {
 		p := u.open.vol.Patient
-		for _, x := range []string{p.Name, p.ID, p.BirthDate, p.StudyDate, p.Accession, p.Institution} {
+		for _, x := range []string{p.Name, p.ID, p.BirthDate, p.StudyDate, p.Accession, p.Institution,
+			viewer.PersonName(p.Name), viewer.DICOMDate(p.BirthDate), viewer.DICOMDate(p.StudyDate)} {
 			add(x)
-			for _, part := range strings.FieldsFunc(x, func(r rune) bool { return r == '^' || r == ' ' }) {
+			for _, part := range strings.FieldsFunc(x, func(r rune) bool { return r == '^' || r == ' ' || r == ',' }) {
 				if len(part) >= 4 {
 					add(part)
 				}
@@ -64,29 +90,35 @@ func (u *UI) clean(s string) string {
 		add(u.open.vol.Source)
 	}
 	for _, c := range u.cases {
+		// A case's own code may be a header field (the demo's codes are its
+		// DICOM PatientIDs): Meeting mode shows list codes instead.
+		add(c.Code)
 		for _, p := range c.Paths {
 			add(p)
 			add(filepath.Base(p))
 			add(filepath.Dir(p))
 		}
 	}
-	// Case codes are what Meeting mode shows, even where a demo patient ID
-	// repeats one.
-	codes := map[string]bool{}
-	for _, c := range u.cases {
-		codes[c.Code] = true
+	for _, d := range userFolders() {
+		add(d)
 	}
-	kept := secrets[:0]
-	for _, x := range secrets {
-		if !codes[x] {
-			kept = append(kept, x)
-		}
-	}
-	secrets = kept
 	// Longest first, so that a path goes before the file name inside it.
 	sort.Slice(secrets, func(i, j int) bool { return len(secrets[i]) > len(secrets[j]) })
 	for _, x := range secrets {
 		s = strings.ReplaceAll(s, x, "[hidden]")
 	}
 	return absPath.ReplaceAllString(s, "[path hidden]")
+}
+
+// userFolders are the user's home, cache and export folders, which name the
+// user (and may hold spaces).
+func userFolders() []string {
+	var out []string
+	if h, err := os.UserHomeDir(); err == nil && len(h) > 1 {
+		out = append(out, h, filepath.Join(h, exportFolderName))
+	}
+	if c, err := os.UserCacheDir(); err == nil {
+		out = append(out, c)
+	}
+	return out
 }

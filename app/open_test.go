@@ -93,14 +93,15 @@ func TestFolderWithSeveralSeriesAsks(t *testing.T) {
 }
 
 // In Meeting mode the export goes to the export folder without a file
-// dialog (which would show folder names), named by the case code.
+// dialog (which would show folder names), named by the list code and
+// what the figure holds.
 func TestMeetingExportWritesFile(t *testing.T) {
 	home := t.TempDir()
 	t.Setenv("HOME", home)
 	h := newHarness(t, Options{Meeting: true})
 	h.open(anatomical(t))
 	h.u.exportView()
-	p := filepath.Join(home, "Brightfold exports", "SCAN-01-axial.png")
+	p := filepath.Join(home, "Brightfold exports", "Case-01-scan-axial.png")
 	f, err := os.Open(p)
 	if err != nil {
 		t.Fatalf("export not written: %v (status %q)", err, h.u.message.Text)

@@ -136,6 +136,9 @@ func (v *planeView) setMessage(msg string) {
 // resetZoom fits the plane to the view.
 func (v *planeView) resetZoom() {
 	v.zoom, v.pan = 1, fyne.Position{}
+	if v.hasFrame {
+		v.title.Text = v.titleText()
+	}
 	v.layoutContent()
 }
 
@@ -156,10 +159,23 @@ func (v *planeView) render(l viewer.Layers) {
 	for i, s := range []string{lt.Left, lt.Right, lt.Top, lt.Bottom} {
 		v.letters[i].Text = s
 	}
-	v.title.Text = fmt.Sprintf("%s  %d / %d  ·  %s", titleCase(v.plane.String()), f.Slice+1, s.SliceCount(v.plane), slicePosition(v.plane, v.p.at))
+	v.title.Text = v.titleText()
 	v.img.Image = v.rgba
 	v.img.Refresh()
 	v.layoutContent()
+}
+
+// titleText names the plane, its slice by the voxel index the readout uses
+// ("k = 104 of 0–159"), where it cuts in millimetres, and the zoom when
+// it is not 1.
+func (v *planeView) titleText() string {
+	f := v.frame
+	axis := "ijk"[f.SliceAxis() : f.SliceAxis()+1]
+	t := fmt.Sprintf("%s  %s = %d of 0–%d  ·  %s", titleCase(v.plane.String()), axis, f.Slice, v.p.scene.SliceCount(v.plane)-1, slicePosition(v.plane, v.p.at))
+	if v.zoom < 0.99 || v.zoom > 1.01 {
+		t += fmt.Sprintf("  ·  zoom ×%.2g", v.zoom)
+	}
+	return t
 }
 
 // geometry returns the scale (view units per image pixel) and the image's
@@ -196,6 +212,11 @@ func (v *planeView) layoutContent() {
 		v.enlarge.Hide()
 	} else {
 		v.enlarge.Show()
+	}
+	// A message wider than the view is set smaller rather than cut.
+	v.msg.TextSize = theme.TextSize()
+	if ms := v.msg.MinSize(); ms.Width > size.Width-16 && ms.Width > 0 {
+		v.msg.TextSize = max32(8, v.msg.TextSize*(size.Width-16)/ms.Width)
 	}
 	ms := v.msg.MinSize()
 	v.msg.Move(fyne.NewPos((size.Width-ms.Width)/2, (size.Height-ms.Height)/2))
@@ -316,6 +337,9 @@ func (v *planeView) zoomBy(f float32, at *fyne.Position) {
 	cx, cy := c.X-size.Width/2, c.Y-size.Height/2
 	v.pan = fyne.NewPos(cx-(cx-v.pan.X)*k, cy-(cy-v.pan.Y)*k)
 	v.zoom = nz
+	if v.hasFrame {
+		v.title.Text = v.titleText()
+	}
 	v.layoutContent()
 }
 
@@ -361,6 +385,9 @@ func (v *planeView) Scrolled(ev *fyne.ScrollEvent) {
 		n = -1
 	}
 	v.p.stepSlice(v.plane, n)
+	// The voxel under the pointer changed with the slice: say so.
+	x, y := v.toImage(ev.Position)
+	v.p.pointerAt(v, x, y)
 }
 
 // MouseDown decides whether the coming drag pans or changes the window.

@@ -7,6 +7,7 @@ import (
 	"fyne.io/fyne/v2/container"
 	"fyne.io/fyne/v2/widget"
 
+	"brightfold/inference"
 	"brightfold/viewer"
 )
 
@@ -53,6 +54,7 @@ func newScanPanel(u *UI) *scanPanel {
 	p.arrange()
 
 	p.preset = widget.NewSelect(nil, func(label string) {
+		u.refocus()
 		if p.quietSel {
 			return
 		}
@@ -62,8 +64,9 @@ func newScanPanel(u *UI) *scanPanel {
 			}
 		}
 	})
-	p.preset.PlaceHolder = "Window preset"
+	p.preset.PlaceHolder = "Window"
 	p.convSel = widget.NewSelect([]string{convRadiological, convNeurological}, func(s string) {
+		u.refocus()
 		if p.quietSel {
 			return
 		}
@@ -75,6 +78,7 @@ func newScanPanel(u *UI) *scanPanel {
 	})
 	p.convSel.SetSelectedIndex(0)
 	p.smooth = widget.NewCheck("Smooth", func(on bool) {
+		u.refocus()
 		p.interp = viewer.Nearest
 		if on {
 			p.interp = viewer.Linear
@@ -82,13 +86,14 @@ func newScanPanel(u *UI) *scanPanel {
 		p.renderAll()
 	})
 	p.ovCheck = widget.NewCheck("Overlay (O)", func(on bool) {
+		u.refocus()
 		p.showOv = on
 		p.renderAll()
 		u.evidence.refreshOverlayState()
 	})
 	p.ovCheck.Checked = true
 	reset := widget.NewButton("Reset view", p.resetView)
-	p.dragSel = widget.NewSelect([]string{dragWL, dragPan}, nil)
+	p.dragSel = widget.NewSelect([]string{dragWL, dragPan}, func(string) { u.refocus() })
 	p.dragSel.SetSelectedIndex(0)
 	p.wlLabel = widget.NewLabel("")
 	p.wlLabel.TextStyle = fyne.TextStyle{Monospace: true}
@@ -99,7 +104,9 @@ func newScanPanel(u *UI) *scanPanel {
 	p.pointer = widget.NewLabel("")
 	p.pointer.TextStyle = fyne.TextStyle{Monospace: true}
 	p.pointer.Truncation = fyne.TextTruncateEllipsis
-	tools := container.NewHBox(p.preset, p.dragSel, p.convSel, p.smooth, p.ovCheck, reset)
+	// The preset choice takes the room the other tools leave, so its
+	// labels are not cut.
+	tools := container.NewBorder(nil, nil, nil, container.NewHBox(p.dragSel, p.convSel, p.smooth, p.ovCheck, reset), p.preset)
 	info := container.NewVBox(p.wlLabel, p.readout, p.pointer)
 	p.root = container.NewBorder(tools, info, nil, nil, p.grid)
 	p.clear("No case open.")
@@ -228,8 +235,8 @@ func (p *scanPanel) toggleOverlay() { p.ovCheck.SetChecked(!p.ovCheck.Checked) }
 // layers is what the planes draw now.
 func (p *scanPanel) layers() viewer.Layers {
 	l := viewer.Layers{Window: p.win, Interp: p.interp}
-	if p.overlay != nil && p.showOv {
-		l.Overlay, l.Style = p.overlay, p.style
+	if o := p.visibleOverlay(); o != nil {
+		l.Overlay, l.Style = o, p.style
 	}
 	return l
 }
@@ -243,8 +250,34 @@ func (p *scanPanel) renderAll() {
 	for _, v := range p.views {
 		v.render(l)
 	}
-	p.wlLabel.SetText(fmt.Sprintf("Window     %s  (%s, DICOM VOI function)  ·  %s convention", p.win.String(), p.win.Function, p.convSel.Selected))
+	p.wlLabel.SetText("Window     " + p.windowText())
 	p.refreshReadout()
+}
+
+// windowText is the window as a reader reads it: centre and width in the
+// scan's units, and for a DICOM scan the VOI LUT function that applies it
+// (PS3.3 C.11.2.1.2); other formats have no such function to name.
+func (p *scanPanel) windowText() string {
+	w := p.win.String()
+	if u := p.valueUnits(); u != "" {
+		w += " " + u
+	}
+	if p.scene != nil && p.scene.Volume().Meta.Format == "dicom" {
+		w += fmt.Sprintf("  (%s, DICOM VOI function)", p.win.Function)
+	}
+	return w
+}
+
+// valueUnits names the scan's voxel values: Hounsfield units for CT, else
+// the scanner's arbitrary units.
+func (p *scanPanel) valueUnits() string {
+	if p.scene == nil {
+		return ""
+	}
+	if p.scene.Volume().Meta.Modality == "CT" {
+		return "HU"
+	}
+	return "(scanner units)"
 }
 
 // refreshReadout describes the voxel under the crosshair.
@@ -256,21 +289,33 @@ func (p *scanPanel) refreshReadout() {
 	f := v.frame
 	x, y := f.WorldToPixel(p.at)
 	r := p.scene.ReadoutAt(f, x, y, p.visibleOverlay())
-	p.readout.SetText("Crosshair  " + r.String() + p.unitsSuffix(r))
+	p.readout.SetText("Crosshair  " + p.readoutText(r))
 }
 
 func (p *scanPanel) visibleOverlay() *viewer.OverlayMap {
-	if p.showOv {
+	if p.showOv && !p.u.read.blinds() {
 		return p.overlay
 	}
 	return nil
 }
 
-func (p *scanPanel) unitsSuffix(r viewer.Readout) string {
-	if r.HasOverlay && p.overlay.Units() != "" {
-		return " (" + p.overlay.Units() + ")"
+// readoutText describes a voxel with units: its index (as in the plane
+// titles), its RAS position in millimetres, the scan's value in its units
+// and, with a map shown, where the voxel's relevance ranks in the map.
+func (p *scanPanel) readoutText(r viewer.Readout) string {
+	if !r.Inside {
+		return "outside the volume"
 	}
-	return ""
+	s := fmt.Sprintf("voxel (%d, %d, %d)  ·  RAS (%.1f, %.1f, %.1f) mm  ·  %s %s",
+		r.Voxel[0], r.Voxel[1], r.Voxel[2], r.World[0], r.World[1], r.World[2], inference.FormatValue(float64(r.Value)), p.valueUnits())
+	if r.HasOverlay {
+		if top := p.overlay.TopShare(float64(r.Overlay)); top == top {
+			s += fmt.Sprintf("  ·  relevance in the top %s %%", inference.FormatValue(top))
+		} else {
+			s += "  ·  no relevance"
+		}
+	}
+	return s
 }
 
 // pointerAt describes the voxel under the mouse in view v.
@@ -279,7 +324,7 @@ func (p *scanPanel) pointerAt(v *planeView, x, y float64) {
 		return
 	}
 	r := p.scene.ReadoutAt(v.frame, x, y, p.visibleOverlay())
-	p.pointer.SetText(fmt.Sprintf("Pointer    %s%s", r.String(), p.unitsSuffix(r)))
+	p.pointer.SetText("Pointer    " + p.readoutText(r))
 }
 
 // moveCrosshair puts the crosshair on the voxel nearest to the RAS point.

@@ -5,6 +5,8 @@ import (
 	"errors"
 	"fmt"
 	"strings"
+	"sync"
+	"time"
 
 	"brightfold/inference"
 	"brightfold/internal/volume"
@@ -21,16 +23,31 @@ type openCase struct {
 	vol   *volume.Volume
 	scene *viewer.Scene
 
-	result *inference.Result // the score, once computed
-	card   *inference.Card
+	result     *inference.Result // the score, once applied on the UI thread
+	card       *inference.Card
+	unprepared *inference.NotPreparedError // why the model could not take the scan, if so
 
-	relevance  *overlay.Map   // the relevance map on the model grid, once computed
-	overlayVol *volume.Volume // the map on the displayed grid
-	peak       [3]int         // its strongest voxel there
+	maps       map[overlay.Method]*shownMap // relevance maps computed for this case, by method
+	relevance  *overlay.Map                 // the map shown now, on the model grid
+	overlayVol *volume.Volume               // the map shown now, on the displayed grid
+	peak       [3]int                       // its strongest voxel there
+	// showAnyway is set when the reader asked to see the probability and
+	// map of an out-of-distribution scan.
+	showAnyway bool
+
+	headOnce sync.Once
+	head     []bool // the head mask of the shown grid (background tasks share it)
+}
+
+// headMask is the displayed scan's head mask, computed once.
+func (oc *openCase) headMask() []bool {
+	oc.headOnce.Do(func() { oc.head = oc.scene.HeadMask() })
+	return oc.head
 }
 
 // selectCase opens case i: it cancels whatever was running for the previous
-// case, clears the panels and loads the scan in the background.
+// case and shows case i as soon as its scan is loaded (at once when it was
+// prefetched), then its score and map.
 func (u *UI) selectCase(i int) {
 	if i < 0 || i >= len(u.cases) {
 		return
@@ -39,29 +56,49 @@ func (u *UI) selectCase(i int) {
 	u.cur = i
 	u.open = nil
 	c := u.cases[i]
+	u.chosen = time.Now()
 	u.casesPanel.refresh()
 	u.refreshIdentity()
-	u.scan.clear("Loading " + c.Code + "…")
 	u.evidence.clear()
 	u.fit.clear()
+	u.head.clear()
 	u.say("")
-	u.tasks.start(taskLoad, "Loading "+c.Code, func(ctx context.Context, progress progressFunc) (func(), error) {
-		oc, err := loadCase(ctx, c, progress)
-		if err != nil {
-			return nil, err
+	u.read.caseSelected()
+	j := u.store.job(c)
+	select {
+	case <-j.loaded:
+		if j.loadErr == nil {
+			u.showCase(j)
+			return
 		}
-		return func() { u.showCase(oc) }, nil
+	default:
+	}
+	u.scan.clear("Loading " + u.shownCode(i) + "…")
+	u.tasks.start(taskLoad, "Loading "+u.shownCode(i), func(ctx context.Context, progress progressFunc) (func(), error) {
+		j.watch(progress)
+		defer j.watch(nil)
+		select {
+		case <-j.loaded:
+		case <-ctx.Done():
+			return nil, ctx.Err()
+		}
+		if j.loadErr != nil {
+			return nil, j.loadErr
+		}
+		return func() { u.showCase(j) }, nil
 	}, func(err error) {
+		u.store.forget(c)
 		var choose *errChooseSeries
 		if errors.As(err, &choose) {
-			u.scan.showMessage(c.Code + " holds several series: choose one.")
+			u.scan.showMessage(u.shownCode(i) + " holds several series: choose one.")
 			u.chooseSeries(i, choose.series)
 			return
 		}
-		u.scan.showMessage("Could not open " + c.Code + ".")
+		u.scan.showMessage("Could not open " + u.shownCode(i) + ".")
 		u.fail(err)
 		u.evidence.unavailable("No scan loaded.")
 		u.fit.unavailable("No scan loaded.")
+		u.head.unavailable("No scan loaded.")
 		u.markReady()
 	})
 }
@@ -111,13 +148,15 @@ func loadCase(ctx context.Context, c Case, progress progressFunc) (*openCase, er
 	return &openCase{c: c, vol: v, scene: scene}, nil
 }
 
-// showCase puts a loaded case on screen and starts its evidence.
-func (u *UI) showCase(oc *openCase) {
+// showCase puts a loaded case on screen and shows (or waits for) its score.
+func (u *UI) showCase(j *caseJob) {
+	oc := j.oc
 	u.open = oc
 	u.refreshIdentity()
 	u.scan.show(oc.scene)
+	u.timing("scan")
 	if len(oc.vol.Warnings) > 0 {
 		u.say("Note: " + strings.Join(oc.vol.Warnings, "; "))
 	}
-	u.startEvidence()
+	u.startEvidence(j)
 }

@@ -102,10 +102,24 @@ func (ts *tasks) start(kind, label string, w work, onErr func(error)) {
 				return
 			}
 			if apply != nil {
-				apply()
+				if perr := applySafely(apply); perr != nil && onErr != nil {
+					onErr(perr)
+				}
 			}
 		})
 	}()
+}
+
+// applySafely runs a task's result on the UI thread, turning a panic into
+// an error so that the window reports it and stays open.
+func applySafely(apply func()) (err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			err = &internalError{value: r}
+		}
+	}()
+	apply()
+	return nil
 }
 
 // runSafely turns a panic in background work into an error, so that a bug

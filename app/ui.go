@@ -5,6 +5,7 @@ import (
 	"image/color"
 	"path/filepath"
 	"sync"
+	"time"
 
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/canvas"
@@ -13,6 +14,8 @@ import (
 	"fyne.io/fyne/v2/widget"
 
 	"brightfold/internal/notice"
+	"brightfold/overlay"
+	"brightfold/viewer"
 )
 
 // UI is one viewer window and its state. Its fields are touched only on the
@@ -24,14 +27,21 @@ type UI struct {
 	post  func(func())
 	tasks *tasks
 	model *model
+	store *caseStore
+	timed map[overlay.Method]time.Duration // how long each method's last map took
+	// chosen is when the open case was chosen; timings logs what followed.
+	chosen  time.Time
+	timings []string
 
 	ready     chan struct{} // closed once the first case is shown with its evidence
 	readyOnce sync.Once
 
 	meeting bool
-	cases   []Case
-	cur     int       // index of the selected case, -1 for none
-	open    *openCase // the loaded case, nil while loading or when none
+	// hideScores keeps probabilities out of the case list (an unaided read).
+	hideScores bool
+	cases      []Case
+	cur        int       // index of the selected case, -1 for none
+	open       *openCase // the loaded case, nil while loading or when none
 
 	root         fyne.CanvasObject
 	bannerBox    fyne.CanvasObject
@@ -51,6 +61,7 @@ type UI struct {
 	scan       *scanPanel
 	evidence   *evidencePanel
 	fit        *fitPanel
+	head       *headPanel
 	read       *readPanel
 }
 
@@ -59,10 +70,14 @@ func newUI(a fyne.App, w fyne.Window, opts Options, post func(func())) *UI {
 	u := &UI{app: a, win: w, opts: opts, post: post, cur: -1, ready: make(chan struct{})}
 	u.tasks = newTasks(post, u.refreshTasks)
 	u.model = &model{path: opts.Model}
+	u.store = newCaseStore(u.model)
+	u.timed = map[overlay.Method]time.Duration{}
 	u.meeting = opts.Meeting
 	u.build()
 	u.fit.unavailable("No case open.")
 	u.evidence.unavailable("No case open.")
+	u.head.unavailable("No case open.")
+	u.evidence.refreshMethodLabels()
 	u.applyMeeting()
 	return u
 }
@@ -99,27 +114,30 @@ func (u *UI) build() {
 	u.scan = newScanPanel(u)
 	u.evidence = newEvidencePanel(u)
 	u.fit = newFitPanel(u)
-	u.read = newReadPanel()
+	u.head = newHeadPanel(u)
+	u.read = newReadPanel(u)
 
-	// The reading column: the fit check on top (its verdict first), the
-	// evidence below, each scrolling on its own so both stay in view.
+	// The reading column: a header that never scrolls (the verdict and the
+	// probability), then the fit check's rows, the evidence and My read,
+	// each scrolling on its own.
 	fit := container.NewVScroll(section("Fit check", u.fit.root))
 	evid := container.NewVScroll(container.NewVBox(section("Evidence", u.evidence.root), section("My read", u.read.root)))
 	u.scrolls = []*container.Scroll{fit, evid}
 	colSplit := container.NewVSplit(fit, evid)
-	colSplit.Offset = 0.42
-	var column fyne.CanvasObject = colSplit
-	u.column = column
+	colSplit.Offset = 0.35
+	u.column = container.NewBorder(container.NewPadded(u.head.root), nil, nil, nil, colSplit)
 	u.scanSection = section("Scan", u.scan.root)
-	right := container.NewHSplit(u.scanSection, column)
+	right := container.NewHSplit(u.scanSection, u.column)
 	right.Offset = 0.66
 	main := container.NewHSplit(section("Cases", u.casesPanel.root), right)
 	main.Offset = 0.13
 
 	u.message = widget.NewLabel("")
 	u.message.Truncation = fyne.TextTruncateEllipsis
-	u.taskBox = container.NewVBox()
-	bottom := container.NewVBox(u.taskBox, u.message)
+	u.taskBox = container.NewStack()
+	// The strip's height is reserved: a button's height, task or not.
+	strip := container.NewStack(spacer(0, widget.NewButton("Cancel", nil).MinSize().Height), u.taskBox)
+	bottom := container.NewVBox(strip, u.message)
 	u.root = container.NewBorder(container.NewVBox(banner, container.NewPadded(bar), widget.NewSeparator()),
 		bottom, nil, nil, main)
 }
@@ -132,6 +150,9 @@ func (u *UI) reflow() {
 		for _, s := range u.scrolls {
 			s.Content.Refresh()
 			s.Refresh()
+		}
+		if u.column != nil {
+			u.column.Refresh()
 		}
 	}
 }
@@ -161,6 +182,10 @@ func (c chalkTheme) Color(n fyne.ThemeColorName, v fyne.ThemeVariant) color.Colo
 // start begins the first work: the cases given on the command line, or the
 // demo cohort.
 func (u *UI) start() {
+	if u.opts.Session != "" {
+		u.read.start()
+		return
+	}
 	if len(u.opts.Paths) > 0 {
 		u.addPaths(u.opts.Paths, true)
 		return
@@ -171,6 +196,8 @@ func (u *UI) start() {
 // close cancels background work when the window closes.
 func (u *UI) close() {
 	u.tasks.cancel(taskDemo, taskLoad, taskScore, taskRelevance)
+	u.store.close()
+	u.read.close()
 }
 
 // markReady releases a waiting screenshot.
@@ -188,31 +215,39 @@ func (u *UI) fail(err error) {
 	u.message.SetText(u.clean(err.Error()))
 }
 
-// refreshTasks redraws the task strip: one row per running task with its
-// progress and a Cancel button.
+// refreshTasks redraws the task strip: the first running task with its
+// progress and a Cancel button, and how many more run. The strip keeps its
+// height when nothing runs, so the planes do not jump; a task of unknown
+// length shows its words without an animated bar, which would repaint the
+// window many times a second and take processor time from the work.
 func (u *UI) refreshTasks() {
 	if u.taskBox == nil {
 		return
 	}
-	var rows []fyne.CanvasObject
-	for _, t := range u.tasks.snapshot() {
-		t := t
-		bar := widget.NewProgressBar()
-		var prog fyne.CanvasObject = bar
-		if t.frac < 0 {
-			inf := widget.NewProgressBarInfinite()
-			prog = inf
-		} else {
-			bar.SetValue(t.frac)
-		}
-		label := t.label
-		if t.msg != "" {
-			label += ": " + t.msg
-		}
-		cancel := widget.NewButtonWithIcon("Cancel", theme.CancelIcon(), func() { u.cancelTask(t.kind) })
-		rows = append(rows, container.NewBorder(nil, nil, widget.NewLabel(u.clean(label)), cancel, prog))
+	list := u.tasks.snapshot()
+	if len(list) == 0 {
+		u.taskBox.Objects = nil
+		u.taskBox.Refresh()
+		return
 	}
-	u.taskBox.Objects = rows
+	t := list[0]
+	label := t.label
+	if t.msg != "" {
+		label += ": " + t.msg
+	}
+	if len(list) > 1 {
+		label += fmt.Sprintf("  (+%d more)", len(list)-1)
+	}
+	var prog fyne.CanvasObject = spacer(0, 0)
+	if t.frac >= 0 {
+		bar := widget.NewProgressBar()
+		bar.SetValue(t.frac)
+		prog = bar
+	}
+	text := widget.NewLabel(u.clean(label))
+	text.Truncation = fyne.TextTruncateEllipsis
+	cancel := widget.NewButtonWithIcon("Cancel", theme.CancelIcon(), func() { u.cancelTask(t.kind) })
+	u.taskBox.Objects = []fyne.CanvasObject{container.NewBorder(nil, nil, nil, cancel, container.NewGridWithColumns(2, text, prog))}
 	u.taskBox.Refresh()
 }
 
@@ -233,7 +268,9 @@ func (u *UI) cancelTask(kind string) {
 	u.say("Cancelled.")
 }
 
-// refreshIdentity shows who and what is open, as Meeting mode allows.
+// refreshIdentity shows who and what is open, as Meeting mode allows:
+// in Meeting mode only the list code; outside it the case's code, the
+// patient's name and dates in readable form, and the scan's path.
 func (u *UI) refreshIdentity() {
 	if u.cur < 0 || u.cur >= len(u.cases) {
 		u.identity.SetText("No case open")
@@ -241,24 +278,26 @@ func (u *UI) refreshIdentity() {
 		return
 	}
 	c := u.cases[u.cur]
-	text := c.Code
+	code := u.shownCode(u.cur)
+	text := code
 	if !u.meeting {
 		if u.open != nil {
 			if p := u.open.vol.Patient; !p.Empty() {
-				text += fmt.Sprintf("  ·  %s  ·  ID %s  ·  born %s  ·  study %s", dash(p.Name), dash(p.ID), dash(p.BirthDate), dash(p.StudyDate))
+				text += fmt.Sprintf("  ·  %s  ·  ID %s  ·  born %s  ·  study %s", dash(viewer.PersonName(p.Name)), dash(p.ID),
+					dash(viewer.DICOMDate(p.BirthDate)), dash(viewer.DICOMDate(p.StudyDate)))
 			}
 		}
 		if len(c.Paths) > 0 {
 			text += "  ·  " + c.Paths[0]
 		}
-		u.win.SetTitle("Brightfold · " + c.Code + " · " + filepath.Base(firstPath(c)))
+		u.win.SetTitle("Brightfold · " + code + " · " + filepath.Base(firstPath(c)))
 	} else {
-		u.win.SetTitle("Brightfold · " + c.Code + " · Meeting mode")
+		u.win.SetTitle("Brightfold · " + code + " · Meeting mode")
 	}
 	if c.Note != "" {
 		text += "  ·  " + c.Note
 	}
-	u.identity.SetText(text)
+	u.identity.SetText(u.clean(text))
 }
 
 func dash(s string) string {
@@ -273,4 +312,19 @@ func firstPath(c Case) string {
 		return ""
 	}
 	return c.Paths[0]
+}
+
+// spacer is an empty object of the given minimum size.
+func spacer(w, h float32) fyne.CanvasObject {
+	r := canvas.NewRectangle(color.Transparent)
+	r.SetMinSize(fyne.NewSize(w, h))
+	return r
+}
+
+// timing notes how long after choosing the case a stage reached the
+// screen ("scan", "score", "map"); the screenshot mode prints the notes.
+func (u *UI) timing(stage string) {
+	if len(u.timings) < 32 && !u.chosen.IsZero() {
+		u.timings = append(u.timings, fmt.Sprintf("%s %s after %.2f s", u.shownCode(u.cur), stage, time.Since(u.chosen).Seconds()))
+	}
 }

@@ -186,3 +186,14 @@ func (p *overlayPaint) entry(v float32) (int, bool) {
 	}
 	return int(math.Min(1, f/p.rng)*p.last + 0.5), true
 }
+
+// TopShare is the percentage of the map's non-zero voxels whose magnitude
+// is at least |v|: 1 means v is among the strongest 1 % of the map. It
+// lets a reader judge a relevance value without knowing the map's units.
+// NaN for a zero value or an empty map.
+func (o *OverlayMap) TopShare(v float64) float64 {
+	if v == 0 || o.mags.empty() || math.IsNaN(v) {
+		return math.NaN()
+	}
+	return 100 - o.mags.rank(math.Abs(v)) + 100/float64(len(o.mags.sorted))
+}

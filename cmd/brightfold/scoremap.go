@@ -12,7 +12,6 @@ import (
 	"time"
 
 	"brightfold/inference"
-	"brightfold/inference/fitcheck"
 	"brightfold/internal/inputerr"
 	"brightfold/internal/report"
 	"brightfold/internal/volume"
@@ -77,8 +76,16 @@ func addRelevance(e *env, o scoreOptions, dir string, paths []string, v *volume.
 	if _, _, err := report.WriteRelevance(dir, onScan, info); err != nil {
 		return wrapPathError(o.out, err)
 	}
-	fig := report.OverlayFigure{Scan: v, Map: onScan, At: peakRAS(onScan), Signed: true,
+	fig := report.OverlayFigure{Scan: v, Map: onScan, At: peakRAS(onScan),
 		Units: mapUnits(m), Title: figureTitle(m, method, b, res, prob, o.showProb)}
+	fig.Model = fmt.Sprintf("Model: %s, version %s", b.Card.Name, b.Card.Version)
+	fig.Verdict, fig.OOD, fig.Headline = "In distribution", false, inference.FormatProbability(prob)
+	if inference.Withheld(res) {
+		fig.Verdict, fig.OOD, fig.Headline = "OUT OF DISTRIBUTION", true, "Withheld"
+		if o.showProb {
+			fig.Headline = inference.FormatProbability(prob) + " (unreliable)"
+		}
+	}
 	if err := report.WriteOverlayPNG(filepath.Join(dir, report.OverlayFile), fig); err != nil {
 		return wrapPathError(o.out, err)
 	}
@@ -156,21 +163,22 @@ func peakRAS(m *volume.Volume) [3]float64 {
 
 // figureTitle says what the figure shows: the method, the explained class
 // with its probability, the model and the fit check.
-// When the fit check failed, the verdict comes first and the probability
-// is withheld unless asked for (then labelled unreliable).
+// When the fit check failed, the verdict and its causes come first and the
+// probability is withheld unless asked for (then labelled unreliable).
 func figureTitle(m *overlay.Map, method overlay.Method, b *inference.ModelFolder, res *inference.Result, prob float64, showProb bool) []string {
-	head := fmt.Sprintf("Relevance map: %s (%s). Planes through the map's peak.", method.Title(), method.Reference())
-	model := fmt.Sprintf("Model: %s %s.", b.Card.Name, b.Card.Version)
-	if res.Verdict == fitcheck.OutOfDistribution {
-		p := fmt.Sprintf("Explains the %q logit (%.3g); probability withheld. Red-orange speaks for the class, blue against.", className(m.Class), m.Target)
+	cls := inference.ClassName(m.Class)
+	var lines []string
+	if inference.Withheld(res) {
+		lines = append(lines, "The scan is unlike the training scans: neither the probability nor this map can be relied on.")
+		lines = append(lines, inference.VerdictCauses(res)...)
 		if showProb {
-			p = fmt.Sprintf("Explains the %q logit (%.3g); probability %.2f, UNRELIABLE. Red-orange speaks for the class, blue against.", className(m.Class), m.Target, prob)
+			lines = append(lines, fmt.Sprintf("Probability of %s shown on request: %s, UNRELIABLE.", cls, inference.FormatProbability(prob)))
 		}
-		return []string{"Fit check: OUT-OF-DISTRIBUTION. The scan is unlike the training scans; neither the score nor this map can be relied on.", head, p, model}
+	} else {
+		lines = append(lines, fmt.Sprintf("Probability of %s (calibrated). %s", cls, inference.PrevalenceNote(b.Card)))
 	}
-	return []string{head,
-		fmt.Sprintf("Explains the %q logit (%.3g); calibrated probability of %q: %.2f. Red-orange speaks for the class, blue against.", className(m.Class), m.Target, className(m.Class), prob),
-		model, "Fit check: in-distribution."}
+	return append(lines,
+		fmt.Sprintf("Relevance map: %s (%s), for %s. Slices across its strongest part; inside the head only; warm colours speak for the class.", method.Title(), method.Reference(), cls))
 }
 
 // writeRelevanceText adds the relevance map to the text form of a result.

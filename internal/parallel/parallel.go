@@ -35,10 +35,12 @@ func Each(n, workers int, f func(w, k int)) {
 	}
 	var next atomic.Int64
 	var wg sync.WaitGroup
+	var p panicked
 	for w := 0; w < nw; w++ {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
+			defer p.catch()
 			for {
 				k := int(next.Add(1) - 1)
 				if k >= n {
@@ -49,6 +51,7 @@ func Each(n, workers int, f func(w, k int)) {
 		}()
 	}
 	wg.Wait()
+	p.rethrow()
 }
 
 // Chunks splits [0, n) into one contiguous chunk per core and calls
@@ -64,15 +67,46 @@ func Chunks(n int, f func(lo, hi int)) {
 		return
 	}
 	var wg sync.WaitGroup
+	var p panicked
 	for i := 0; i < nw; i++ {
 		lo, hi := n*i/nw, n*(i+1)/nw
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
+			defer p.catch()
 			f(lo, hi)
 		}()
 	}
 	wg.Wait()
+	p.rethrow()
+}
+
+// panicked carries the first panic of a worker goroutine back to the
+// goroutine that started the loop, so that a caller's recover (the viewer's
+// background tasks have one) sees it; a panic left in a worker would end the
+// whole program.
+type panicked struct {
+	mu    sync.Mutex
+	value any
+	set   bool
+}
+
+// catch records a panic of the calling worker; use it deferred.
+func (p *panicked) catch() {
+	if r := recover(); r != nil {
+		p.mu.Lock()
+		if !p.set {
+			p.value, p.set = r, true
+		}
+		p.mu.Unlock()
+	}
+}
+
+// rethrow panics again, in the caller, with the first recorded value.
+func (p *panicked) rethrow() {
+	if p.set {
+		panic(p.value)
+	}
 }
 
 // EachErr calls f(w, k) for indices in [0, n) like Each, and returns the

@@ -52,6 +52,37 @@ func TestWorkers(t *testing.T) {
 	}
 }
 
+// A panic in a worker reaches the caller of Each and Chunks, where a
+// deferred recover catches it, instead of ending the program from a
+// goroutine nobody can recover in.
+func TestPanicReachesCaller(t *testing.T) {
+	for name, run := range map[string]func(){
+		"Each": func() {
+			Each(100, 4, func(_, k int) {
+				if k == 57 {
+					panic("boom")
+				}
+			})
+		},
+		"Chunks": func() {
+			Chunks(100, func(lo, hi int) {
+				if lo > 0 {
+					panic("boom")
+				}
+			})
+		},
+	} {
+		got := func() (r any) {
+			defer func() { r = recover() }()
+			run()
+			return nil
+		}()
+		if got != "boom" && !(name == "Chunks" && got == nil && Workers(100, 0) == 1) {
+			t.Errorf("%s: recovered %v, want the worker's panic", name, got)
+		}
+	}
+}
+
 // EachErr returns the error of the lowest failing index, skips indices not
 // yet started after a failure, and visits everything when nothing fails.
 func TestEachErr(t *testing.T) {

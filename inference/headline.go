@@ -1,0 +1,110 @@
+package inference
+
+import (
+	"strings"
+
+	"brightfold/inference/fitcheck"
+)
+
+// Withheld reports whether a result's probability must be kept out of the
+// headline of every output: the fit check says out-of-distribution (or the
+// scan could not be prepared, so there is no probability). The probability
+// is then shown only on request, labelled as unreliable, and the relevance
+// map is off until asked for.
+func Withheld(r *Result) bool {
+	return r == nil || r.Prepared == nil || r.Verdict == fitcheck.OutOfDistribution
+}
+
+// VerdictCauses lists the reasons for an out-of-distribution verdict, one
+// short line per failed check, required checks first: the check's title and
+// its value with units against the training limit.
+func VerdictCauses(r *Result) []string {
+	if r == nil {
+		return nil
+	}
+	var out []string
+	for _, c := range r.FailedChecks() {
+		line := CheckTitle(c.Name)
+		if d := CheckDetail(c); d != "" {
+			line += ": " + d
+		}
+		out = append(out, line)
+	}
+	return out
+}
+
+// CheckDetail is a check's value with its units beside the training limit,
+// for a reader: "1 mm · limit 0.87 to 1.15 mm", "6.2 · limit ≤ 3.1
+// (Wasserstein distance of normalised intensities)". A check whose limit is
+// a list or a rule (modality, preparation) shows the limit alone.
+func CheckDetail(c fitcheck.Check) string {
+	unit := CheckUnit(c.Name)
+	limit := c.Threshold
+	if limit != "" && unit != "" && !strings.HasSuffix(limit, strings.TrimSpace(unit)) && strings.ContainsAny(limit, "0123456789") && !strings.HasPrefix(unit, " (") {
+		limit += unit
+	}
+	numeric := strings.ContainsAny(c.Threshold, "0123456789") && c.Name != CheckHUSignature
+	var parts []string
+	if numeric {
+		v := "value " + FormatValue(c.Value) + unit
+		parts = append(parts, v)
+	}
+	if limit != "" {
+		parts = append(parts, "limit "+limit)
+	}
+	return strings.Join(parts, " · ")
+}
+
+// CheckUnit is the unit of a check's value, with its leading space: " mm",
+// " mL", "°", or a short description in brackets for a ratio or a score.
+func CheckUnit(name string) string {
+	switch name {
+	case CheckSpacing, CheckSliceThickness:
+		return " mm"
+	case CheckHeadVolume:
+		return " mL"
+	case CheckOrientation:
+		return "°"
+	case CheckSlices:
+		return " slices"
+	case CheckFOV:
+		return " (scan extent / smallest training extent)"
+	case CheckAnisotropy:
+		return " (largest / smallest voxel side)"
+	case CheckHeadAPLR, CheckHeadSIAP:
+		return " (ratio of head extents)"
+	case CheckHeadSkewSI:
+		return " (skewness)"
+	case CheckNoise:
+		return " (noise / tissue contrast)"
+	case CheckIntensityProfile:
+		return " (distance of normalised intensity quantiles)"
+	case CheckMSP:
+		return " (top class probability)"
+	case CheckEnergy:
+		return " (energy, logit units)"
+	case CheckMahalanobis:
+		return " (Mahalanobis distance in feature space)"
+	}
+	return ""
+}
+
+// ClassName shows a class key as words: "atrophy_pattern" → "atrophy pattern".
+func ClassName(key string) string { return strings.ReplaceAll(key, "_", " ") }
+
+// PrevalenceNote says, in words a clinician reads, that a calibrated
+// probability holds for the mix of cases the model was calibrated on: the
+// card's own words about how many training cases carry the positive class,
+// when it has them.
+func PrevalenceNote(c *Card) string {
+	mix := "the mix of cases it was trained and calibrated on"
+	for _, clause := range strings.FieldsFunc(c.TrainingData, func(r rune) bool { return r == ';' || r == '(' || r == ')' || r == '.' }) {
+		cl := strings.TrimSpace(clause)
+		if strings.Contains(cl, "carry") || strings.Contains(strings.ToLower(cl), "prevalence") {
+			mix += " (" + cl + ")"
+			break
+		}
+	}
+	return "This probability assumes " + mix + ". Where " + ClassName(c.PositiveClass) +
+		" is rarer among the people scanned, the same scan means a lower chance."
+}
