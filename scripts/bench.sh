@@ -109,9 +109,10 @@ echo "$py" | /usr/bin/python3 -c '
 import json, sys
 n, s1, s2, m2 = int(sys.argv[1]), float(sys.argv[2]), float(sys.argv[3]), float(sys.argv[4])
 py = json.load(sys.stdin)
-c1, c2 = 60 * n / s1, 60 * n / s2
-print(f"sweep over {n} 1 mm phantoms: --jobs 1 {c1:.1f} cases/min, --jobs 2 {c2:.1f} cases/min, ratio {c2 / c1:.2f} (goal >= 1.7); "
-      f"Python loop (nibabel + brightfold score per case) {py[\"cases_per_minute\"]:.1f} cases/min (nibabel {py[\"nibabel_seconds\"]:.1f} s of {py[\"seconds\"]:.1f} s); "
-      f"sweep --jobs 2 / Python loop {c2 / py[\"cases_per_minute\"]:.2f}; peak RSS --jobs 2 {m2 / 1024:.0f} MiB (goal <= 1024)")
+c1, c2, cp = 60 * n / s1, 60 * n / s2, py["cases_per_minute"]
+print("sweep over %d 1 mm phantoms: --jobs 1 %.1f cases/min, --jobs 2 %.1f cases/min, ratio %.2f (goal >= 1.7); "
+      "Python loop (nibabel + brightfold score per case) %.1f cases/min (nibabel %.1f s of %.1f s); "
+      "sweep --jobs 2 / Python loop %.2f; peak RSS --jobs 2 %.0f MiB (goal <= 1024)"
+      % (n, c1, c2, c2 / c1, cp, py["nibabel_seconds"], py["seconds"], c2 / cp, m2 / 1024))
 ' "$n" "$s1" "$s2" "$m2"
 rm -rf "$swdir"
