@@ -203,7 +203,7 @@ func writeSlurmScript(e *env, input, out string, o sweepOptions) error {
 	if err != nil {
 		return fmt.Errorf("find this program: %w", err)
 	}
-	j := cohort.SlurmJob{Program: prog}
+	j := cohort.SlurmJob{Program: prog, Jobs: o.jobs}
 	for _, p := range []struct {
 		dst *string
 		src string
