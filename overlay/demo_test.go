@@ -349,4 +349,3 @@ func positiveCaseOf(t testing.TB, card *inference.Card, seed uint64, i int, voxe
 		return c, pr
 	}
 }
-
