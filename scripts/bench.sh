@@ -70,6 +70,11 @@ echo "== relevance maps (overlay BenchmarkLRP, BenchmarkIntegratedGradients, Ben
 go test -run '^$' -bench '^BenchmarkLRP$' -benchtime 20x ./overlay | grep -E '^(Benchmark|FAIL)'
 go test -run '^$' -bench '^Benchmark(IntegratedGradients|Occlusion)$' -benchtime 2x ./overlay | grep -E '^(Benchmark|ok|FAIL)'
 
+# --- model make vs score (issue 13) -------------------------------------------
+# `model make` on 100 1 mm phantoms with the demo model against `brightfold
+# score` of the same cases one process each; peak memory of model make.
+echo "== model make vs score one by one (scripts/bench-modelmake.sh) =="
+scripts/bench-modelmake.sh
 # --- alignment to a template vs dipy (issue 14) --------------------------------
 # BenchmarkAlignPhantom1mm aligns a 1 mm 160×192×160 phantom, moved by a known
 # random affine transform, to the 2 mm rendering of the same head (affine,
