@@ -86,22 +86,10 @@ func TestSplitStratified(t *testing.T) {
 // TestMakeCancelled: a cancelled run returns the context's error and
 // nothing else.
 func TestMakeCancelled(t *testing.T) {
-	lib := refcheck.ORTLib(t)
-	if err := inference.InitRuntime(lib); err != nil {
-		t.Fatal(err)
-	}
-	model := demoModel(t)
-	g, err := Discover("demo", model, Overrides{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	m := &manifest.Manifest{Source: "m.csv"}
-	for i := 0; i < 24; i++ {
-		m.Cases = append(m.Cases, manifest.Case{Path: fmt.Sprintf("/nonexistent/%d.nii", i), Label: []string{"no", "yes"}[i%2]})
-	}
+	model, g, m := missingScans(t, 24)
 	ctx, cancel := context.WithCancel(context.Background())
 	cancel()
-	_, err = Make(ctx, "demo", model, g, m, Options{Classes: []string{"no", "yes"}, Spec: preprocess.DefaultSpec(), Name: "x", Version: "1", IntendedUse: "x", TrainingData: "x"})
+	_, err := Make(ctx, "demo", model, g, m, Options{Classes: []string{"no", "yes"}, Spec: preprocess.DefaultSpec(), Name: "x", Version: "1", IntendedUse: "x", TrainingData: "x"})
 	if !errors.Is(err, context.Canceled) {
 		t.Fatalf("got %v, want context.Canceled", err)
 	}
@@ -109,16 +97,7 @@ func TestMakeCancelled(t *testing.T) {
 
 // TestMakeUnreadable: scans that cannot be read are listed in one refusal.
 func TestMakeUnreadable(t *testing.T) {
-	lib := refcheck.ORTLib(t)
-	if err := inference.InitRuntime(lib); err != nil {
-		t.Fatal(err)
-	}
-	model := demoModel(t)
-	g, _ := Discover("demo", model, Overrides{})
-	m := &manifest.Manifest{Source: "m.csv"}
-	for i := 0; i < 20; i++ {
-		m.Cases = append(m.Cases, manifest.Case{Path: fmt.Sprintf("/nonexistent/%d.nii", i), Label: []string{"no", "yes"}[i%2]})
-	}
+	model, g, m := missingScans(t, 20)
 	_, err := Make(context.Background(), "demo", model, g, m, Options{Classes: []string{"no", "yes"}, Spec: preprocess.DefaultSpec(), Name: "x", Version: "1", IntendedUse: "x", TrainingData: "x"})
 	if err == nil || !strings.Contains(err.Error(), "20 scan(s) cannot be prepared") || !strings.Contains(err.Error(), "--skip-unreadable") {
 		t.Fatalf("got %v", err)
@@ -127,4 +106,23 @@ func TestMakeUnreadable(t *testing.T) {
 	if err == nil || !strings.Contains(err.Error(), "usable cases") {
 		t.Fatalf("with --skip-unreadable and nothing left: got %v", err)
 	}
+}
+
+// missingScans initialises ONNX Runtime and returns the demo model, its
+// graph and a manifest of n scans that do not exist, labelled no/yes.
+func missingScans(t *testing.T, n int) ([]byte, Graph, *manifest.Manifest) {
+	t.Helper()
+	if err := inference.InitRuntime(refcheck.ORTLib(t)); err != nil {
+		t.Fatal(err)
+	}
+	model := demoModel(t)
+	g, err := Discover("demo", model, Overrides{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := &manifest.Manifest{Source: "m.csv"}
+	for i := 0; i < n; i++ {
+		m.Cases = append(m.Cases, manifest.Case{Path: fmt.Sprintf("/nonexistent/%d.nii", i), Label: []string{"no", "yes"}[i%2]})
+	}
+	return model, g, m
 }
