@@ -15,7 +15,7 @@ build: setup
 
 # Opens the viewer on the demo cohort; with no display, runs the headless demo.
 run: build
-	@if [ -n "$$DISPLAY$$WAYLAND_DISPLAY" ]; then $(BIN); else scripts/demo-headless.sh $(BIN); fi
+	@if [ -n "$$DISPLAY$$WAYLAND_DISPLAY" ]; then $(BIN) $(ARGS); else scripts/demo-headless.sh $(BIN); fi
 
 demo: build
 	@scripts/demo-headless.sh $(BIN)
