@@ -5,7 +5,7 @@ BIN := bin/brightfold
 export BRIGHTFOLD_ORT_LIB ?= $(CURDIR)/.cache/onnxruntime/libonnxruntime.so.1
 export LANG ?= C.UTF-8
 
-.PHONY: demo-remake setup build run demo test vet fuzz screenshot-check bench demo-model evaluate evaluate-maps clean
+.PHONY: demo-remake evaluate-register setup build run demo test vet fuzz screenshot-check bench demo-model evaluate evaluate-maps clean
 
 setup:
 	@scripts/setup.sh
@@ -55,6 +55,10 @@ demo-remake: setup
 # Figures of the demo model folder on fresh phantoms and real scans (docs/evaluation.md).
 evaluate: setup
 	@scripts/evaluate.sh
+
+# The full alignment recovery evaluation (30 transforms, dipy on every pair; internal/register).
+evaluate-register: setup
+	@scripts/evaluate-register.sh
 
 # Relevance-map localisation and input shares on 50 phantoms (docs/evaluation.md).
 evaluate-maps: setup
