@@ -40,6 +40,9 @@ type Options struct {
 	DemoCases int
 	// DemoDir is the demo cohort folder; empty means DefaultDemoDir().
 	DemoDir string
+	// Session is a reading session file (brightfold session new): its cases
+	// become the worklist and "My read" records the reads.
+	Session string
 	// ScreenshotTimeout bounds the wait for content before a screenshot is
 	// taken anyway (and reported as incomplete); 0 means 10 minutes.
 	ScreenshotTimeout time.Duration

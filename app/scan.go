@@ -235,8 +235,8 @@ func (p *scanPanel) toggleOverlay() { p.ovCheck.SetChecked(!p.ovCheck.Checked) }
 // layers is what the planes draw now.
 func (p *scanPanel) layers() viewer.Layers {
 	l := viewer.Layers{Window: p.win, Interp: p.interp}
-	if p.overlay != nil && p.showOv {
-		l.Overlay, l.Style = p.overlay, p.style
+	if o := p.visibleOverlay(); o != nil {
+		l.Overlay, l.Style = o, p.style
 	}
 	return l
 }
@@ -293,7 +293,7 @@ func (p *scanPanel) refreshReadout() {
 }
 
 func (p *scanPanel) visibleOverlay() *viewer.OverlayMap {
-	if p.showOv {
+	if p.showOv && !p.u.read.blinds() {
 		return p.overlay
 	}
 	return nil

@@ -63,6 +63,7 @@ func (u *UI) selectCase(i int) {
 	u.fit.clear()
 	u.head.clear()
 	u.say("")
+	u.read.caseSelected()
 	j := u.store.job(c)
 	select {
 	case <-j.loaded:

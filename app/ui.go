@@ -118,7 +118,7 @@ func (u *UI) build() {
 	u.evidence = newEvidencePanel(u)
 	u.fit = newFitPanel(u)
 	u.head = newHeadPanel(u)
-	u.read = newReadPanel()
+	u.read = newReadPanel(u)
 
 	// The reading column: a header that never scrolls (the verdict and the
 	// probability), then the fit check's rows, the evidence and My read,
@@ -190,6 +190,10 @@ func (c chalkTheme) Color(n fyne.ThemeColorName, v fyne.ThemeVariant) color.Colo
 // start begins the first work: the cases given on the command line, or the
 // demo cohort.
 func (u *UI) start() {
+	if u.opts.Session != "" {
+		u.read.start()
+		return
+	}
 	if len(u.opts.Paths) > 0 {
 		u.addPaths(u.opts.Paths, true)
 		return
@@ -201,6 +205,7 @@ func (u *UI) start() {
 func (u *UI) close() {
 	u.tasks.cancel(taskDemo, taskLoad, taskScore, taskRelevance)
 	u.store.close()
+	u.read.close()
 }
 
 // markReady releases a waiting screenshot.

@@ -43,6 +43,8 @@ type Card struct {
 	// Provenance says how `brightfold model make` or `model recalibrate`
 	// made the card (absent on cards written by hand or by the demo recipe).
 	Provenance *Provenance `json:"provenance,omitempty"`
+
+	alignment *alignmentFiles // template and mask of preprocessing.alignment (alignment.go)
 }
 
 // Provenance records how a card was made from a group's cases

@@ -38,12 +38,12 @@ const (
 type ModelScores struct {
 	MSP         float64 `json:"msp"`         // Hendrycks & Gimpel 2017, at temperature 1
 	Energy      float64 `json:"energy"`      // Liu et al. 2020 Eq. 1, at temperature 1
-	Mahalanobis float64 `json:"mahalanobis"` // Lee et al. 2018 Eq. 2 (as a distance)
+	Mahalanobis float64 `json:"mahalanobis"` // squared Mahalanobis distance: Lee et al. 2018 Eq. 2 without the minus sign
 	Nearest     int     `json:"nearest_class"`
 }
 
 // ComputeModelScores computes MSP and energy from the logits (temperature 1,
-// as both papers' baselines) and the Mahalanobis distance of the features to
+// as both papers' baselines) and the squared Mahalanobis distance of the features to
 // the card's nearest class mean.
 func ComputeModelScores(c *Card, o Output) (ModelScores, error) {
 	z := ClassLogits(c, o.Logits)
@@ -99,13 +99,20 @@ func RunChecks(c *Card, f CaseFacts, ms ModelScores) []fitcheck.Check {
 	return out
 }
 
-// maxSeverity caps severities so that a value of 0 or an infinity stays finite.
-const maxSeverity = 100
+// maxSeverity caps severities and the fit score so that a value of 0 (an
+// unmeasurable extent) stays finite; no measurable value comes near it.
+const maxSeverity = 1e6
 
-// severity is the check's value on a common scale: ≤ 1 when it passes,
-// > 1 when it fails, growing with the distance beyond the threshold. Ranges
-// use the distance from the nearer end in units of the range's width; upper
-// limits the ratio value/limit; lower limits limit/value; booleans 0 or 2.
+// severity is the factor by which the check's value is beyond its limit:
+// above 1 exactly when it fails, at most 1 when it passes (how close it
+// comes to the limit). Upper limits give value/limit; lower limits
+// limit/value; ranges of positive quantities the larger of value/max and
+// min/value; the signed head skewness 1 + its distance beyond the range in
+// units of the range's width; the energy score 1 + its excess over the
+// limit in units of the limit's magnitude; pass-or-fail checks (modality,
+// single volume, an orientation the header cannot state) 2 when they fail.
+// Severities of different checks share this unit, a factor beyond the
+// limit, not a meaning (FitScore says what follows).
 func severity(c *Card, ch fitcheck.Check, f CaseFacts) float64 {
 	e := c.OOD.Envelope
 	th := c.OOD.Thresholds
@@ -124,7 +131,7 @@ func severity(c *Card, ch fitcheck.Check, f CaseFacts) float64 {
 	case CheckNoise:
 		s = rangeSeverity(ch.Value, e.NoiseRatio)
 	case CheckHeadSkewSI:
-		s = rangeSeverity(ch.Value, *e.HeadSkewSI)
+		s = signedRangeSeverity(ch.Value, *e.HeadSkewSI)
 	case CheckFOV:
 		s = ratio(1, ch.Value)
 	case CheckSlices:
@@ -153,10 +160,22 @@ func severity(c *Card, ch fitcheck.Check, f CaseFacts) float64 {
 		}
 		return 2
 	}
-	return math.Max(-maxSeverity, math.Min(maxSeverity, s))
+	return math.Max(0, math.Min(maxSeverity, s))
 }
 
+// rangeSeverity is the factor of x beyond a range of positive values:
+// x/max above it, min/x below it, and inside max(x/max, min/x) ≤ 1. A range
+// that reaches 0 or below falls back to signedRangeSeverity.
 func rangeSeverity(x float64, r Range) float64 {
+	if !(r.Min > 0) {
+		return signedRangeSeverity(x, r)
+	}
+	return math.Max(ratio(x, r.Max), ratio(r.Min, x))
+}
+
+// signedRangeSeverity is 1 + the distance of x beyond the nearer end of r
+// in units of its width, and inside 1 − 2·(distance to the nearer end)/width.
+func signedRangeSeverity(x float64, r Range) float64 {
 	w := r.Max - r.Min
 	if w <= 0 {
 		w = math.Max(math.Abs(r.Max), 1e-9)
@@ -170,7 +189,7 @@ func rangeSeverity(x float64, r Range) float64 {
 	return 1 - 2*math.Min(x-r.Min, r.Max-x)/w
 }
 
-// ratio is a/b, capped, with a/0 = maxSeverity for a > 0.
+// ratio is a/b, capped at maxSeverity, with a/0 = maxSeverity for a > 0.
 func ratio(a, b float64) float64 {
 	if b <= 0 {
 		if a > 0 {
@@ -351,9 +370,9 @@ func modelChecks(c *Card, ms ModelScores) []fitcheck.Check {
 	}
 	md := fitcheck.Check{Name: CheckMahalanobis, Value: ms.Mahalanobis, Threshold: "≤ " + FormatValue(th.Mahalanobis.Value), Pass: !th.Mahalanobis.Fails(ms.Mahalanobis), Required: th.Mahalanobis.Required}
 	if md.Pass {
-		md.Explanation = fmt.Sprintf("The model's internal features are close to those of training scans (distance %s, limit %s).", FormatValue(ms.Mahalanobis), FormatValue(th.Mahalanobis.Value))
+		md.Explanation = fmt.Sprintf("The model's internal features are close to those of training scans (squared Mahalanobis distance %s, limit %s).", FormatValue(ms.Mahalanobis), FormatValue(th.Mahalanobis.Value))
 	} else {
-		md.Explanation = fmt.Sprintf("The model's internal features are far from those of every training class (distance %s, limit %s): the scan is unlike the training scans.", FormatValue(ms.Mahalanobis), FormatValue(th.Mahalanobis.Value))
+		md.Explanation = fmt.Sprintf("The model's internal features are far from those of every training class (squared Mahalanobis distance %s, limit %s): the scan is unlike the training scans.", FormatValue(ms.Mahalanobis), FormatValue(th.Mahalanobis.Value))
 	}
 	return []fitcheck.Check{msp, en, md}
 }
@@ -406,7 +425,7 @@ func CheckTitle(name string) string {
 	case CheckEnergy:
 		return "Energy score"
 	case CheckMahalanobis:
-		return "Feature distance (Mahalanobis)"
+		return "Feature distance (squared Mahalanobis)"
 	case CheckPreparation:
 		return "Preparation for the model"
 	}

@@ -113,6 +113,9 @@ func LoadModelFolderFS(fsys fs.FS) (*ModelFolder, error) {
 	if err != nil {
 		return nil, err
 	}
+	if err := loadAlignment(fsys, dir, card); err != nil {
+		return nil, err
+	}
 	return NewModelFolder(card, model)
 }
 

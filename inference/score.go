@@ -20,8 +20,12 @@ type Result struct {
 	Prediction Prediction
 	Checks     []fitcheck.Check
 	Verdict    string
-	FitScore   float64 // largest required-check severity; out-of-distribution exactly when > 1
-	TimingMs   Timing
+	// Causes groups the failed checks by what they saw (GroupCauses).
+	Causes []Cause
+	// FitScore ranks scans by their distance from the training scans
+	// (FitScore); out-of-distribution exactly when > 1.
+	FitScore float64
+	TimingMs Timing
 }
 
 // Timing is where the time of one Score went, in milliseconds.
@@ -86,7 +90,7 @@ func (s *Session) ScoreManyContext(ctx context.Context, vs []*volume.Volume, pro
 		}
 		progress(StagePrepare, 0.3*float64(i)/n)
 		t0 := time.Now()
-		pr, err := PrepareForCard(v, c)
+		pr, err := PrepareForCardContext(ctx, v, c)
 		if err != nil {
 			return nil, notPrepared(c, v, err)
 		}
@@ -117,9 +121,10 @@ func (s *Session) ScoreManyContext(ctx context.Context, vs []*volume.Volume, pro
 			return nil, err
 		}
 		r.Facts = MeasureCase(v, r.Prepared, c.OOD.Intensity.Levels)
-		r.Checks = RunChecks(c, r.Facts, r.Scores)
+		r.Checks = append(RunChecks(c, r.Facts, r.Scores), alignmentChecks(c, r.Prepared)...)
 		r.Verdict = fitcheck.Verdict(r.Checks)
-		r.FitScore = fitcheck.Score(r.Checks)
+		r.Causes = GroupCauses(r.Checks)
+		r.FitScore = FitScore(r.Checks, r.Causes)
 		r.TimingMs.FitCheck = ms(time.Since(t1))
 		r.TimingMs.Total = r.TimingMs.Preprocess + r.TimingMs.Model + r.TimingMs.FitCheck
 	}
@@ -148,7 +153,8 @@ func notPrepared(c *Card, v *volume.Volume, reason error) error {
 	r := &Result{Facts: MeasureHeader(v)}
 	r.Checks = RunUnpreparedChecks(c, r.Facts, reason)
 	r.Verdict = fitcheck.Verdict(r.Checks)
-	r.FitScore = fitcheck.Score(r.Checks)
+	r.Causes = GroupCauses(r.Checks)
+	r.FitScore = FitScore(r.Checks, r.Causes)
 	return &NotPreparedError{Result: r, err: inputerr.Wrap(v.Source, fmt.Errorf("cannot prepare the scan for %s: %w", c.Name, reason))}
 }
 

@@ -11,11 +11,11 @@ const (
 	// the dense layers, whose bias keeps its share of the logit.
 	// Options.LowerConvs puts the epsilon rule in the upper convolutions
 	// instead (the earlier default had alpha1-beta0 only in the lower half):
-	// on the demo model the voxels then carried a median 216 % of the logit
-	// (quartiles 191 to 289 %, lowest −794 %; the epsilon layers' biases
+	// on the demo model the voxels then carried a median 212 % of the logit
+	// (quartiles 188 to 273 %, lowest −794 %; the epsilon layers' biases
 	// and stabilisers took the difference; 20 pattern-positive 1 mm
 	// phantoms of seed 20261211); with alpha1-beta0 above the input
-	// layer they carry a median 101 % (quartiles 100.8 to 101.5 %, lowest
+	// layer they carry a median 101 % (quartiles 100.8 to 101.3 %, lowest
 	// 90 %; the dense layer's bias keeps the rest) and the relevance mass
 	// accuracy falls from 0.067 to 0.056. docs/evaluation.md reports both
 	// on other cases (make evaluate-maps).

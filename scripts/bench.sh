@@ -70,6 +70,25 @@ echo "== relevance maps (overlay BenchmarkLRP, BenchmarkIntegratedGradients, Ben
 go test -run '^$' -bench '^BenchmarkLRP$' -benchtime 20x ./overlay | grep -E '^(Benchmark|FAIL)'
 go test -run '^$' -bench '^Benchmark(IntegratedGradients|Occlusion)$' -benchtime 2x ./overlay | grep -E '^(Benchmark|ok|FAIL)'
 
+# --- model make vs score (issue 13) -------------------------------------------
+# `model make` on 100 1 mm phantoms with the demo model against `brightfold
+# score` of the same cases one process each; peak memory of model make.
+echo "== model make vs score one by one (scripts/bench-modelmake.sh) =="
+scripts/bench-modelmake.sh
+# --- alignment to a template vs dipy (issue 14) --------------------------------
+# BenchmarkAlignPhantom1mm aligns a 1 mm 160×192×160 phantom, moved by a known
+# random affine transform, to the 2 mm rendering of the same head (affine,
+# NCC, all cores), then runs dipy 1.6's AffineRegistration (MI, centres of
+# mass → translation → rigid → affine; internal/register/testdata/dipy_align.py)
+# on the same pair in the same run. Goal: our time ≤ 0.25 of dipy's with a
+# mean displacement error over the head no larger than dipy's.
+echo "== alignment of a 1 mm phantom to a 2 mm template vs dipy (register BenchmarkAlignPhantom1mm) =="
+alline=$(BRIGHTFOLD_BENCH_ALIGN=1 go test -run '^$' -bench '^BenchmarkAlignPhantom1mm$' -benchtime 1x -timeout 30m ./internal/register | grep '^BenchmarkAlignPhantom1mm')
+echo "$alline"
+echo "$alline" | awk '{for (i = 3; i < NF; i++) m[$(i+1)] = $i}
+  END {printf "alignment: ours %.1f s (mean error %.2f mm, peak RSS %.0f MiB incl. phantom rendering), dipy %.1f s (mean error %.2f mm, peak RSS %.0f MiB); time ratio %.3f (goal <= 0.25); error ours <= dipy: %s\n",
+    m["s/align"], m["mean_error_mm"], m["peak_MiB"], m["dipy_s/align"], m["dipy_mean_error_mm"], m["dipy_peak_MiB"], m["time_ratio_vs_dipy"], (m["mean_error_mm"] <= m["dipy_mean_error_mm"] ? "yes" : "no")}'
+
 # --- cohort sweep throughput (issue 16) ----------------------------------------
 # Cases per minute of `brightfold sweep` with the demo model folder over 1 mm
 # phantoms (160×192×160, a phantom cohort folder read as a manifest), one
@@ -95,10 +114,11 @@ echo "$py" | /usr/bin/python3 -c '
 import json, sys
 n, s1, s2, m2 = int(sys.argv[1]), float(sys.argv[2]), float(sys.argv[3]), float(sys.argv[4])
 py = json.load(sys.stdin)
-c1, c2 = 60 * n / s1, 60 * n / s2
-print(f"sweep over {n} 1 mm phantoms: --jobs 1 {c1:.1f} cases/min, --jobs 2 {c2:.1f} cases/min, ratio {c2 / c1:.2f} (goal >= 1.7); "
-      f"Python loop (nibabel + brightfold score per case) {py[\"cases_per_minute\"]:.1f} cases/min (nibabel {py[\"nibabel_seconds\"]:.1f} s of {py[\"seconds\"]:.1f} s); "
-      f"sweep --jobs 2 / Python loop {c2 / py[\"cases_per_minute\"]:.2f}; peak RSS --jobs 2 {m2 / 1024:.0f} MiB (goal <= 1024)")
+c1, c2, cp = 60 * n / s1, 60 * n / s2, py["cases_per_minute"]
+print("sweep over %d 1 mm phantoms: --jobs 1 %.1f cases/min, --jobs 2 %.1f cases/min, ratio %.2f (goal >= 1.7); "
+      "Python loop (nibabel + brightfold score per case) %.1f cases/min (nibabel %.1f s of %.1f s); "
+      "sweep --jobs 2 / Python loop %.2f; peak RSS --jobs 2 %.0f MiB (goal <= 1024)"
+      % (n, c1, c2, c2 / c1, cp, py["nibabel_seconds"], py["seconds"], c2 / cp, m2 / 1024))
 ' "$n" "$s1" "$s2" "$m2"
 rm -rf "$swdir"
 

@@ -80,6 +80,12 @@ func runModelMake(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	if _, err := modelmake.CheckManifest(m, splitList(*classes)); err != nil {
+		return err
+	}
+	if err := modelmake.CheckGraph(pos[0], g, splitList(*classes)); err != nil {
+		return err
+	}
 	if *name == "" {
 		*name = strings.TrimSuffix(filepath.Base(pos[0]), filepath.Ext(pos[0]))
 	}

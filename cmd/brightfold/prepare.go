@@ -51,8 +51,11 @@ func runPrepare(e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	pr, err := preprocess.Prepare(v, spec)
+	pr, err := prepareScan(*model, *specPath, v, spec)
 	if err != nil {
+		if inputerr.Is(err) {
+			return err
+		}
 		return inputerr.New(paths[0], "cannot be prepared: %v", err)
 	}
 	if err := nifti.Write(*out, modelInputVolume(pr), nifti.WriteOptions{DataType: nifti.DTFloat32, Description: notice.Short}); err != nil {

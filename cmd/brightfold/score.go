@@ -279,12 +279,26 @@ func writeFitText(w io.Writer, rep *report.Score, r *inference.Result) {
 	} else {
 		fmt.Fprintln(w, "Fit check:   in-distribution. The scan resembles the training scans in every required check.")
 	}
-	for _, c := range failed {
+	writeCausesText(w, r)
+	fmt.Fprintf(w, "  (%d checks, %d failed, %s; fit score %s; --json lists every check with its value and threshold)\n",
+		len(r.Checks), len(failed), inference.Plural(len(r.Causes), "cause", "causes"), inference.FormatValue(r.FitScore))
+}
+
+// writeCausesText lists the causes of the failed checks (inference.GroupCauses),
+// each with the sentences of the checks that saw it.
+func writeCausesText(w io.Writer, r *inference.Result) {
+	byName := map[string]fitcheck.Check{}
+	for _, c := range r.Checks {
+		byName[c.Name] = c
+	}
+	for _, cause := range r.Causes {
 		tag := ""
-		if !c.Required {
+		if !cause.Required {
 			tag = " (advisory)"
 		}
-		fmt.Fprintf(w, "  - %s%s: %s\n", inference.CheckTitle(c.Name), tag, c.Explanation)
+		fmt.Fprintf(w, "  * %s%s: %s Seen by %s:\n", cause.Title, tag, cause.Explanation, inference.Plural(len(cause.Checks), "check", "checks"))
+		for _, n := range cause.Checks {
+			fmt.Fprintf(w, "    - %s: %s\n", inference.CheckTitle(n), byName[n].Explanation)
+		}
 	}
-	fmt.Fprintf(w, "  (%d checks, %d failed; --json lists every check with its value and threshold)\n", len(r.Checks), len(failed))
 }

@@ -208,6 +208,7 @@ func (c *slurmCluster) jobStates() map[string]string {
 // that the merged outputs equal a single-process sweep.
 func TestSweepOnSlurm(t *testing.T) {
 	lib := refcheck.ORTLib(t)
+	t.Setenv("SOURCE_DATE_EPOCH", "1796000000") // same audit.pdf bytes here and in the Slurm group job
 	cl := startSlurm(t)
 	root := writeSweepBIDS(t, 12, 6)
 	ref := filepath.Join(t.TempDir(), "ref")

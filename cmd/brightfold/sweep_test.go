@@ -1,6 +1,7 @@
 package main
 
 import (
+	"fmt"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -121,5 +122,54 @@ func TestSweepGroupRefusesMissing(t *testing.T) {
 	code, _, stderr := runCLI("sweep", root, out, "group")
 	if code != 2 || !strings.Contains(stderr, "sub-HMRU0001") || !strings.Contains(stderr, "sub-HMRU0003") || strings.Contains(stderr, "sub-HMRU0002,") {
 		t.Errorf("group with shard 0 missing: exit %d: %s", code, stderr)
+	}
+}
+
+// TestSweepBIDSParticipantThenGroup: a BIDS dataset with participants.tsv
+// goes through the participant and group levels of the CLI; the group level
+// writes the audit with the notice, and a manifest with --covariates reads
+// the covariates from the table.
+func TestSweepBIDSParticipantThenGroup(t *testing.T) {
+	lib := refcheck.ORTLib(t)
+	root := filepath.Join(t.TempDir(), "bids")
+	subs := cohort.ConfoundedSubjects(8, map[string][2]int{"site-A": {6, 2}, "site-B": {4, 4}, "site-C": {2, 6}})
+	if err := cohort.WritePhantomBIDS(root, subs, 6); err != nil {
+		t.Fatal(err)
+	}
+	out := filepath.Join(t.TempDir(), "out")
+	for _, level := range []string{"participant", "group"} {
+		code, stdout, stderr := runCLI("sweep", root, out, level, "--ort-lib", lib, "--age-bands", "60,75")
+		if code != 0 {
+			t.Fatalf("%s: exit %d: %s", level, code, stderr)
+		}
+		if level == "group" && (!strings.Contains(stdout, "AUROC") || !strings.Contains(stdout, "alone")) {
+			t.Errorf("group output:\n%s", stdout)
+		}
+	}
+	audit, err := os.ReadFile(filepath.Join(out, cohort.AuditJSON))
+	if err != nil || !strings.Contains(string(audit), `"name": "site-A"`) || !strings.Contains(string(audit), `"name": "60-74"`) {
+		t.Errorf("audit.json: %v\n%.600s", err, audit)
+	}
+	// the same cases as a manifest whose covariates come from --covariates
+	var csv strings.Builder
+	csv.WriteString("participant_id,path,label\n")
+	for _, s := range subs {
+		id := strings.ReplaceAll(s.ID, "-", "")
+		fmt.Fprintf(&csv, "sub-%s,bids/sub-%s/anat/sub-%s_T1w.nii.gz,%d\n", id, id, id, s.Label)
+	}
+	man := filepath.Join(filepath.Dir(root), "cases.csv")
+	os.WriteFile(man, []byte(csv.String()), 0o644)
+	out2 := filepath.Join(t.TempDir(), "out2")
+	for _, level := range []string{"participant", "group"} {
+		if code, _, stderr := runCLI("sweep", man, out2, level, "--ort-lib", lib, "--covariates", filepath.Join(root, "participants.tsv")); code != 0 {
+			t.Fatalf("manifest %s: exit %d: %s", level, code, stderr)
+		}
+	}
+	tsv, _ := os.ReadFile(filepath.Join(out2, cohort.ScoresTable))
+	if !strings.Contains(string(tsv), "site-A") {
+		t.Errorf("scores.tsv of the manifest lacks the covariates:\n%.400s", tsv)
+	}
+	if code, _, stderr := runCLI("sweep", root, out, "group", "--age-bands", "70,60"); code != 2 || !strings.Contains(stderr, "age-bands") {
+		t.Errorf("bad --age-bands: exit %d: %s", code, stderr)
 	}
 }

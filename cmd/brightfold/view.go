@@ -5,6 +5,7 @@ import (
 
 	"brightfold/app"
 	"brightfold/internal/inputerr"
+	"brightfold/internal/reading"
 )
 
 // runView opens the desktop viewer: on the given scans or folders, or with
@@ -17,6 +18,7 @@ func runView(e *env, args []string) error {
 	shot := fs.String("screenshot", "", "save the rendered window as PNG to `FILE` once ready, then exit")
 	meeting := fs.Bool("meeting", false, "start in Meeting mode (identifiers, dates and paths hidden)")
 	model := fs.String("model", "", "model `MODEL` (folder or .zip; default: the embedded demo model)")
+	session := fs.String("session", "", "reading session `FILE` (brightfold session new): worklist and My read")
 	demoDir := fs.String("demo-dir", "", "demo cohort `folder` (default: the user cache folder, brightfold/demo)")
 	paths, err := parseFlags(fs, args)
 	if err != nil {
@@ -27,5 +29,12 @@ func runView(e *env, args []string) error {
 			return inputerr.Wrap(p, err)
 		}
 	}
-	return app.Run(app.Options{Paths: paths, Screenshot: *shot, Meeting: *meeting, DemoDir: *demoDir, Model: *model})
+	if *session != "" {
+		s, err := reading.Open(*session)
+		if err != nil {
+			return err
+		}
+		s.Close()
+	}
+	return app.Run(app.Options{Paths: paths, Screenshot: *shot, Meeting: *meeting, DemoDir: *demoDir, Model: *model, Session: *session})
 }

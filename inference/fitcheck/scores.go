@@ -1,6 +1,6 @@
 // Package fitcheck holds the computations behind Brightfold's "Fit check":
 // the out-of-distribution scores (maximum softmax probability, energy,
-// Mahalanobis distance, Wasserstein-1 distance of intensity profiles, a
+// squared Mahalanobis distance, Wasserstein-1 distance of intensity profiles, a
 // Hounsfield-unit signature, header and head measurements) and the parts of
 // fitting their references that are specific to it (class means, thresholds
 // at a retention). The numeric kernels it builds on (Ledoit-Wolf shrinkage,
@@ -25,8 +25,9 @@ type Check struct {
 	Pass        bool    `json:"pass"`
 	Required    bool    `json:"required"`
 	Explanation string  `json:"explanation"`
-	// Severity puts every check on one scale: above 1 exactly when the check
-	// fails, larger the further the value is beyond its threshold.
+	// Severity is the factor by which the value is beyond its threshold:
+	// above 1 exactly when the check fails, at most 1 when it passes
+	// (package inference defines it per check).
 	Severity float64 `json:"severity"`
 }
 
@@ -44,19 +45,6 @@ func Verdict(checks []Check) string {
 		}
 	}
 	return InDistribution
-}
-
-// Score is the largest severity among the required checks: the continuous
-// score behind the verdict, which is out-of-distribution exactly when it
-// exceeds 1 (for checks whose severity is set consistently with Pass).
-func Score(checks []Check) float64 {
-	s := 0.0
-	for _, c := range checks {
-		if c.Required && !math.IsNaN(c.Severity) {
-			s = math.Max(s, c.Severity)
-		}
-	}
-	return s
 }
 
 // Softmax returns exp(z_i/T) / Σ_j exp(z_j/T), computed stably.
@@ -112,7 +100,8 @@ func Energy(z []float64, T float64) float64 {
 	return -T * stats.LogSumExp(s)
 }
 
-// Mahalanobis returns min_c (f − μ_c)ᵀ Σ⁻¹ (f − μ_c) over the class means,
+// Mahalanobis returns the squared Mahalanobis distance
+// min_c (f − μ_c)ᵀ Σ⁻¹ (f − μ_c) over the class means,
 // with precision = Σ⁻¹ shared by all classes, and the index of the closest
 // class: the confidence score of Lee et al. 2018 (NeurIPS), Eq. 2 (there
 // M(x) is its negative, maximised over classes).

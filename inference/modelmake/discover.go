@@ -86,12 +86,14 @@ func Discover(source string, model []byte, o Overrides) (Graph, error) {
 		batch = fmt.Sprintf("fixed batch %d", out.Shape[0])
 	}
 	out.Notes = append(out.Notes, fmt.Sprintf("input %q %v, %s, layout %s", in.Name, out.Shape, batch, layoutHow))
-	if err := findLogits(source, m, o, &out); err != nil {
-		return Graph{}, err
-	}
 	if err := findFeatures(source, m, o, &out); err != nil {
 		return Graph{}, err
 	}
+	if err := findLogits(source, m, o, &out); err != nil {
+		return Graph{}, err
+	}
+	// features first in the notes, as the card lists outputs: logits, features
+	out.Notes[1], out.Notes[2] = out.Notes[2], out.Notes[1]
 	return out, nil
 }
 
@@ -102,7 +104,7 @@ func findLogits(source string, m *onnx.Model, o Overrides, out *Graph) error {
 		if len(g.Outputs) == 0 {
 			return inputerr.New(source, "the graph has no outputs")
 		}
-		name, how = g.Outputs[0].Name, "the graph's first output"
+		name, how = pickLogits(g, out.Features)
 		if p := g.Producer(name); p != nil && (p.OpType == "Softmax" || p.OpType == "Sigmoid" || p.OpType == "LogSoftmax") && len(p.Inputs) > 0 {
 			name, how = p.Inputs[0], fmt.Sprintf("the input of the graph's final %s", p.OpType)
 		}
@@ -123,6 +125,25 @@ func findLogits(source string, m *onnx.Model, o Overrides, out *Graph) error {
 	}
 	out.Notes = append(out.Notes, fmt.Sprintf("logits %q (%s), %s over %s", name, how, out.Activation, countText(k)))
 	return nil
+}
+
+// pickLogits chooses among the graph outputs the first that is not the
+// features tensor and is made by a classifier head (Gemm, MatMul, a bias
+// Add, or a final Softmax/Sigmoid); else the first output that is not the
+// features.
+func pickLogits(g *onnx.Graph, features string) (string, string) {
+	head := map[string]bool{"Gemm": true, "MatMul": true, "Add": true, "Softmax": true, "Sigmoid": true, "LogSoftmax": true}
+	for _, o := range g.Outputs {
+		if p := g.Producer(o.Name); o.Name != features && p != nil && head[p.OpType] {
+			return o.Name, fmt.Sprintf("the graph output made by %s %q", p.OpType, p.Name)
+		}
+	}
+	for _, o := range g.Outputs {
+		if o.Name != features {
+			return o.Name, "the graph's first output other than the features"
+		}
+	}
+	return g.Outputs[0].Name, "the graph's only output"
 }
 
 func countText(k int) string {

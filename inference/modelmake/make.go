@@ -69,14 +69,11 @@ func Make(ctx context.Context, source string, model []byte, g Graph, m *manifest
 	if len(opt.Classes) < 2 {
 		return nil, inputerr.New("", "--classes: give at least two class names, the positive one last (e.g. NEG,POS)")
 	}
-	if g.NumLogits > 0 && g.NumLogits != len(opt.Classes) && !(g.NumLogits == 1 && len(opt.Classes) == 2) {
-		return nil, inputerr.New(source, "the graph gives %d logits for the %d classes %v", g.NumLogits, len(opt.Classes), opt.Classes)
-	}
-	labels, err := labelIndex(m, opt.Classes)
-	if err != nil {
+	if err := CheckGraph(source, g, opt.Classes); err != nil {
 		return nil, err
 	}
-	if err := checkCounts(m.Source, labels, opt.Classes, nil); err != nil {
+	labels, err := CheckManifest(m, opt.Classes)
+	if err != nil {
 		return nil, err
 	}
 	card := skeleton(g, opt, model)
@@ -118,6 +115,24 @@ func (o Options) withDefaults() Options {
 		o.Log = func(string, ...any) {}
 	}
 	return o
+}
+
+// CheckGraph refuses a graph whose logit count does not fit the classes.
+func CheckGraph(source string, g Graph, classes []string) error {
+	if g.NumLogits > 0 && g.NumLogits != len(classes) && !(g.NumLogits == 1 && len(classes) == 2) {
+		return inputerr.New(source, "the graph gives %d logits for the %d classes %v", g.NumLogits, len(classes), classes)
+	}
+	return nil
+}
+
+// CheckManifest refuses labels not in classes and fewer than MinPerClass
+// cases of a class; it returns each case's class index.
+func CheckManifest(m *manifest.Manifest, classes []string) ([]int, error) {
+	labels, err := labelIndex(m, classes)
+	if err != nil {
+		return nil, err
+	}
+	return labels, checkCounts(m.Source, labels, classes, nil)
 }
 
 // labelIndex maps each case's label to its class index, refusing labels not

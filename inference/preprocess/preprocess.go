@@ -97,6 +97,8 @@ type Prepared struct {
 	// percentiles are narrower): the threshold for measurements on the raw
 	// scan, such as the noise level.
 	ScanHeadThreshold float64
+	// Alignment is set when the card aligns scans to a template (align.go).
+	Alignment *AlignmentInfo
 }
 
 // Preprocess turns a scan into the model input exactly as p states: closest

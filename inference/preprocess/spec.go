@@ -28,6 +28,7 @@ type Spec struct {
 	Interpolation string     `json:"interpolation"` // "trilinear"
 	HeadMask      HeadMask   `json:"head_mask"`
 	Intensity     Intensity  `json:"intensity"`
+	Alignment     *Alignment `json:"alignment,omitempty"` // align to a template first (align.go)
 }
 
 // HeadMask is the rule that separates head from background on raw values:
@@ -93,6 +94,9 @@ func (p Spec) Validate() error {
 		return fieldError("preprocessing.interpolation", "only \"trilinear\" is supported, got %q", p.Interpolation)
 	}
 	if err := p.HeadMask.validate(); err != nil {
+		return err
+	}
+	if err := p.Alignment.validate(); err != nil {
 		return err
 	}
 	return p.Intensity.validate()

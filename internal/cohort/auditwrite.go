@@ -6,9 +6,11 @@ import (
 	"image/color"
 	"io"
 	"math"
+	"os"
 	"path/filepath"
 	"strconv"
 	"strings"
+	"time"
 
 	"codeberg.org/go-pdf/fpdf"
 	"gonum.org/v1/plot"
@@ -175,6 +177,11 @@ func plotBytes(p *plot.Plot, w, h vg.Length) ([]byte, error) {
 // with its plain sentence, the figures and the methods.
 func writeAuditPDF(w io.Writer, a *Audit, reliability, forest []byte) error {
 	pdf := fpdf.New("P", "mm", "A4", "")
+	pdf.SetCatalogSort(true) // images and fonts in a fixed order: the same audit, the same bytes
+	if t, ok := sourceDate(); ok {
+		pdf.SetCreationDate(t)
+		pdf.SetModificationDate(t)
+	}
 	tr := pdf.UnicodeTranslatorFromDescriptor("")
 	pdf.SetMargins(18, 20, 18)
 	pdf.SetAutoPageBreak(true, 20)
@@ -263,4 +270,15 @@ func f3[T ~float64](x T) string {
 		return "n/a"
 	}
 	return fmt.Sprintf("%.3f", float64(x))
+}
+
+// sourceDate is the time of SOURCE_DATE_EPOCH when set (the
+// reproducible-builds convention), so that the same audit gives the same
+// PDF bytes; otherwise the PDF carries the time it was written.
+func sourceDate() (time.Time, bool) {
+	s, err := strconv.ParseInt(os.Getenv("SOURCE_DATE_EPOCH"), 10, 64)
+	if err != nil {
+		return time.Time{}, false
+	}
+	return time.Unix(s, 0).UTC(), true
 }

@@ -240,7 +240,9 @@ func (d *Dataset) addCovariates(path string) error {
 
 // ReadFolder reads a folder of scans: every NIfTI file (.nii, .nii.gz,
 // .hdr) and every folder of DICOM files is one case, named after the first
-// folder below root (or the file name at the top level).
+// folder below root (or the file name at the top level). Folders named
+// derivatives or holding a dataset_description.json (such as a sweep's
+// OUTDIR inside the input) are not read.
 func ReadFolder(root string) (*Dataset, error) {
 	d := &Dataset{Kind: KindFolder, Root: root, Name: filepath.Base(root)}
 	dicomDirs := map[string]bool{}
@@ -255,6 +257,9 @@ func ReadFolder(root string) (*Dataset, error) {
 			return nil
 		}
 		if e.IsDir() {
+			if p != root && (e.Name() == "derivatives" || exists(filepath.Join(p, DescriptionFile))) {
+				return filepath.SkipDir // a sweep's own outputs, or another dataset's
+			}
 			return nil
 		}
 		if nifti.IsPath(p) && !strings.HasSuffix(strings.ToLower(p), ".img") {

@@ -87,7 +87,8 @@ func TestParticipantsTable(t *testing.T) {
 
 func TestFolderOfScans(t *testing.T) {
 	dir := t.TempDir()
-	for _, p := range []string{"p1/scan.nii.gz", "p2/scan.nii", "p2/other.nii", "top.nii.gz", "d1/x.dcm", "d1/y.dcm", ".hidden/z.nii"} {
+	for _, p := range []string{"p1/scan.nii.gz", "p2/scan.nii", "p2/other.nii", "top.nii.gz", "d1/x.dcm", "d1/y.dcm", ".hidden/z.nii",
+		"out/dataset_description.json", "out/sub-p1/anat/sub-p1_desc-lrp_relevance.nii.gz", "derivatives/x/a.nii"} {
 		must(t, os.MkdirAll(filepath.Join(dir, filepath.Dir(p)), 0o755))
 		must(t, os.WriteFile(filepath.Join(dir, p), []byte("x"), 0o644))
 	}

@@ -42,7 +42,7 @@ func newProgress(w io.Writer, total int, terminal bool) *progress {
 		return p
 	}
 	if terminal {
-		p.pool = mpb.New(mpb.WithOutput(w), mpb.WithWidth(48))
+		p.pool = mpb.New(mpb.WithOutput(w), mpb.WithWidth(48), mpb.WithAutoRefresh())
 		p.bar = p.pool.AddBar(int64(total),
 			mpb.PrependDecorators(decor.Name("sweep "), decor.CountersNoUnit("%d/%d cases")),
 			mpb.AppendDecorators(decor.OnComplete(decor.EwmaETA(decor.ET_STYLE_GO, 30, decor.WCSyncSpace), "done")))

@@ -54,4 +54,3 @@ func Decompose(a volume.Affine) Parts {
 	p.RotationDeg = math.Acos(math.Max(-1, math.Min(1, tr))) * 180 / math.Pi
 	return p
 }
-

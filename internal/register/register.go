@@ -105,13 +105,16 @@ func Register(ctx context.Context, fixed, moving *volume.Volume, opts Options) (
 	res := &Result{Metric: o.Metric}
 	a := start
 	var last *evaluator
+	levels := make([]*evaluator, len(o.LevelsMM)) // built once, when first needed
 	for _, sg := range o.schedule() {
 		{
 			li, lv, dof := sg.level, o.LevelsMM[sg.level], sg.dof
-			ev, err := newLevel(fixed, moving, o, lv, fc)
-			if err != nil {
-				return nil, err
+			if levels[li] == nil {
+				if levels[li], err = newLevel(fixed, moving, o, lv, fc); err != nil {
+					return nil, err
+				}
 			}
+			ev := levels[li]
 			st, next, err := optimiseStage(ctx, ev, dof, a, fc, radius, o.MaxIterations[li])
 			if err != nil {
 				return nil, err
@@ -139,9 +142,15 @@ func Register(ctx context.Context, fixed, moving *volume.Volume, opts Options) (
 	return res, nil
 }
 
-// Apply resamples the scan onto the template grid through a (template world → scan world).
+// Apply resamples the scan onto the template grid through a (template world
+// → scan world); template voxels that fall outside the scan get the scan's
+// lowest finite value (its background: 0 for most MR, −1000 HU for CT).
 func Apply(scan, template *volume.Volume, a volume.Affine) (*volume.Volume, error) {
-	out, err := volume.Resample(scan, a.Mul(template.Affine), template.Dims, volume.Trilinear)
+	lo, _, _ := scan.Stats()
+	if math.IsNaN(lo) {
+		lo = 0
+	}
+	out, err := volume.ResampleFill(scan, a.Mul(template.Affine), template.Dims, volume.Trilinear, float32(lo))
 	if err != nil {
 		return nil, fmt.Errorf("register: resample: %w", err)
 	}

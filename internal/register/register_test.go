@@ -215,11 +215,12 @@ func aboveMean(v *volume.Volume) func(int) bool {
 type dipyResult struct {
 	Matrix  [4][4]float64 `json:"matrix"`
 	Seconds float64       `json:"seconds"`
+	PeakMiB float64       `json:"peak_mib"`
 }
 
 // runDipy aligns each (template, scan) pair with dipy 1.6
 // (testdata/dipy_align.py) and returns the transforms.
-func runDipy(t *testing.T, pairs []map[string]string) []dipyResult {
+func runDipy(t testing.TB, pairs []map[string]string) []dipyResult {
 	t.Helper()
 	refcheck.PythonModule(t, "dipy.align.imaffine")
 	f := filepath.Join(t.TempDir(), "pairs.json")
@@ -261,7 +262,7 @@ func bestOf(tpl *volume.Volume, head func(int) bool, truth volume.Affine, a, b d
 	return m1, x1
 }
 
-func writeNIfTI(t *testing.T, dir, name string, v *volume.Volume) string {
+func writeNIfTI(t testing.TB, dir, name string, v *volume.Volume) string {
 	t.Helper()
 	p := filepath.Join(dir, name)
 	if err := nifti.Write(p, v, nifti.WriteOptions{}); err != nil {

@@ -63,9 +63,26 @@ type Prediction struct {
 
 // OOD is the fit check.
 type OOD struct {
-	Verdict string  `json:"verdict"`
-	Score   Number  `json:"score"` // largest severity of the required checks; > 1 is out-of-distribution
-	Checks  []Check `json:"checks"`
+	Verdict string `json:"verdict"`
+	// Score is the fit score (inference.FitScore): the product over the
+	// required causes of each one's largest severity; when every required
+	// check passes, the largest severity (≤ 1). > 1 is out-of-distribution.
+	Score  Number  `json:"score"`
+	Checks []Check `json:"checks"`
+	// Causes group the failed checks by what they saw
+	// (inference.GroupCauses); empty when every check passes.
+	Causes []Cause `json:"causes"`
+}
+
+// Cause is one reason the scan is unlike the training scans, with the
+// names of the failed checks that saw it.
+type Cause struct {
+	Name        string   `json:"name"`
+	Title       string   `json:"title"`
+	Explanation string   `json:"explanation"`
+	Checks      []string `json:"checks"`
+	Required    bool     `json:"required"`
+	Severity    Number   `json:"severity"`
 }
 
 // Check is one fit-check result. Value is null when not measurable.
@@ -76,7 +93,7 @@ type Check struct {
 	Pass        bool   `json:"pass"`
 	Required    bool   `json:"required"`
 	Explanation string `json:"explanation"`
-	Severity    Number `json:"severity"` // > 1 exactly when the check fails
+	Severity    Number `json:"severity"` // factor beyond the limit: > 1 exactly when the check fails
 }
 
 // Number is a float64 that encodes NaN and infinities as JSON null.
@@ -93,7 +110,7 @@ func (n Number) MarshalJSON() ([]byte, error) {
 
 // Relevance describes a relevance map written beside the result: the
 // method, the map's file, and the method's own checks (for example
-// "conservation_error"), which appear as fields of the object.
+// "consistency_error"), which appear as fields of the object.
 type Relevance struct {
 	Method  string
 	File    string

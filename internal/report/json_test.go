@@ -18,7 +18,7 @@ func TestScoreJSON(t *testing.T) {
 		Prediction: &Prediction{Label: "x", Probability: 0.25, Probabilities: map[string]float64{"x": 0.75, "y": 0.25}},
 		OOD: OOD{Verdict: "in-distribution", Score: Number(0.5),
 			Checks: []Check{{Name: "noise_level", Value: Number(math.NaN()), Threshold: "0 to 1", Pass: true, Severity: Number(math.Inf(1))}}},
-		Relevance: &Relevance{Method: "lrp", File: "relevance.nii.gz", Checks: map[string]float64{"conservation_error": 0.003, "method": 9}},
+		Relevance: &Relevance{Method: "lrp", File: "relevance.nii.gz", Checks: map[string]float64{"consistency_error": 0.003, "method": 9}},
 		TimingMs:  map[string]float64{"total": 12},
 	}
 	dir := t.TempDir()
@@ -39,7 +39,7 @@ func TestScoreJSON(t *testing.T) {
 		t.Errorf("non-finite numbers must be null: %v", c)
 	}
 	r := got["relevance"].(map[string]any)
-	if r["method"] != "lrp" || r["conservation_error"] != 0.003 {
+	if r["method"] != "lrp" || r["consistency_error"] != 0.003 {
 		t.Errorf("relevance block %v", r)
 	}
 	if w, ok := got["warnings"].([]any); !ok || len(w) != 0 {

@@ -53,7 +53,7 @@ func TestWriteRelevanceAgainstNibabel(t *testing.T) {
 	_, m := testScanAndMap(t)
 	dir := t.TempDir()
 	nii, side, err := WriteRelevance(dir, m, RelevanceInfo{Method: "lrp", MethodName: "LRP", TargetClass: "atrophy_pattern",
-		Checks: map[string]Number{"conservation_error": 1e-7}, Input: "t1.nii.gz"})
+		Checks: map[string]Number{"consistency_error": 1e-7}, Input: "t1.nii.gz"})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -33,5 +33,10 @@ func NewScore(input string, v *volume.Volume, b *inference.ModelFolder, r *infer
 			Threshold: ch.Threshold, Pass: ch.Pass, Required: ch.Required, Explanation: ch.Explanation,
 			Severity: Number(ch.Severity)})
 	}
+	rep.OOD.Causes = []Cause{}
+	for _, c := range r.Causes {
+		rep.OOD.Causes = append(rep.OOD.Causes, Cause{Name: c.Name, Title: c.Title, Explanation: c.Explanation,
+			Checks: append([]string{}, c.Checks...), Required: c.Required, Severity: Number(c.Severity)})
+	}
 	return rep
 }

@@ -4,6 +4,7 @@ import (
 	"errors"
 	"math"
 	"math/rand/v2"
+	"sort"
 )
 
 // PartialConfounderTest is the result of the partial confounder test.
@@ -35,9 +36,18 @@ func PartialConfounder(pred []float64, confounder [][]float64, target []int, per
 	if err != nil {
 		return PartialConfounderTest{}, err
 	}
-	strata := map[int][]int{}
+	byClass := map[int][]int{}
 	for i, t := range target {
-		strata[t] = append(strata[t], i)
+		byClass[t] = append(byClass[t], i)
+	}
+	classes := make([]int, 0, len(byClass))
+	for c := range byClass {
+		classes = append(classes, c)
+	}
+	sort.Ints(classes) // a fixed order, so that a seed gives one p
+	strata := make([][]int, len(classes))
+	for k, c := range classes {
+		strata[k] = byClass[c]
 	}
 	rng := rand.New(rand.NewPCG(seed, 0xda942042e4dd58b5))
 	perm := make([][]float64, n)

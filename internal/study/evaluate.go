@@ -67,6 +67,7 @@ type Case struct {
 	Verdict      string             `json:"verdict"`
 	FitScore     float64            `json:"fit_score"`
 	Failed       []string           `json:"failed_checks"` // required checks that failed
+	Causes       []string           `json:"causes"`        // required causes of the failed checks (inference.GroupCauses)
 	Severities   map[string]float64 `json:"severities"`    // every check's severity by name
 }
 
@@ -174,6 +175,11 @@ func fillResult(c *Case, r *inference.Result) {
 	}
 	c.Verdict = r.Verdict
 	c.FitScore = r.FitScore
+	for _, k := range r.Causes {
+		if k.Required {
+			c.Causes = append(c.Causes, k.Name)
+		}
+	}
 	c.Severities = map[string]float64{}
 	for _, ch := range r.Checks {
 		c.Severities[ch.Name] = ch.Severity

@@ -44,6 +44,14 @@ type Calibration struct {
 	ECEAfter    report.Number `json:"ece_after_scaling"`
 	NLLBefore   report.Number `json:"nll_before_scaling"`
 	NLLAfter    report.Number `json:"nll_after_scaling"`
+	// ECE percentile bootstrap 95 % intervals (stats.ECEInterval, 2000
+	// resamples) and Brier scores of the positive-class probability.
+	ECEBeforeCI []float64     `json:"ece_before_scaling_ci95"`
+	ECEAfterCI  []float64     `json:"ece_after_scaling_ci95"`
+	BrierBefore report.Number `json:"brier_before_scaling"`
+	BrierAfter  report.Number `json:"brier_after_scaling"`
+	// Decision is the card's sentence on which temperature it applies and why.
+	Decision string `json:"temperature_decision"`
 }
 
 // FalseAlarms counts in-distribution cases whose verdict is
@@ -53,6 +61,7 @@ type FalseAlarms struct {
 	Flagged      int            `json:"flagged"`
 	Rate         report.Number  `json:"rate"`
 	FailedChecks map[string]int `json:"failed_checks"`
+	Causes       map[string]int `json:"causes"` // flagged cases by required cause
 }
 
 // ShiftFigure is the fit check's detection of one shift type against the
@@ -71,6 +80,9 @@ type ShiftFigure struct {
 	// has only the checks that need no model).
 	CheckAUROC   map[string]report.Number `json:"check_auroc"`
 	FailedChecks map[string]int           `json:"failed_checks"`
+	// Causes counts flagged cases by required cause (inference.GroupCauses);
+	// a case with two causes counts in both.
+	Causes map[string]int `json:"causes"`
 }
 
 // Compute computes the figures from scored cases; card gives the classes
@@ -172,7 +184,7 @@ func heldOut(id []Case) HeldOut {
 func calibration(card *inference.Card, id []Case) Calibration {
 	ok := prepared(id)
 	T := card.Calibration.Temperature
-	k := Calibration{N: len(ok), Bins: ECEBins, Temperature: T}
+	k := Calibration{N: len(ok), Bins: ECEBins, Temperature: T, Decision: card.Calibration.Decision}
 	logits := make([][]float64, len(ok))
 	labels := make([]int, len(ok))
 	for i, c := range ok {
@@ -189,6 +201,8 @@ func calibration(card *inference.Card, id []Case) Calibration {
 		return stats.ECE(conf, right, ECEBins)
 	}
 	k.ECEBefore, k.ECEAfter = report.Number(ece(1)), report.Number(ece(T))
+	k.ECEBeforeCI, k.BrierBefore = calibrationSpread(card, ok, 1)
+	k.ECEAfterCI, k.BrierAfter = calibrationSpread(card, ok, T)
 	if len(ok) > 0 {
 		k.NLLBefore = report.Number(stats.NLL(logits, labels, 1))
 		k.NLLAfter = report.Number(stats.NLL(logits, labels, T))
@@ -221,16 +235,47 @@ func argmax(p []float64) int {
 	return best
 }
 
+// calibrationSpread is the percentile bootstrap 95 % interval of the ECE
+// and the Brier score of the positive-class probability at temperature t
+// (nil and NaN without cases).
+func calibrationSpread(card *inference.Card, ok []Case, t float64) ([]float64, report.Number) {
+	conf, right := make([]float64, len(ok)), make([]bool, len(ok))
+	prob, isPos := make([]float64, len(ok)), make([]bool, len(ok))
+	pos := card.PositiveIndex()
+	for i, c := range ok {
+		p := inference.ClassProbabilities(card, c.Logits, t)
+		best := argmax(p)
+		conf[i], right[i] = p[best], best == TrueClass(card, c.Label)
+		prob[i], isPos[i] = p[pos], TrueClass(card, c.Label) == pos
+	}
+	lo, hi, err := stats.ECEInterval(conf, right, ECEBins, 2000, 20261211, 0.95)
+	if err != nil {
+		return nil, report.Number(math.NaN())
+	}
+	b, err := stats.BrierBinary(prob, isPos)
+	if err != nil {
+		b = math.NaN()
+	}
+	return []float64{lo, hi}, report.Number(b)
+}
+
 func falseAlarms(id []Case) FalseAlarms {
-	fa := FalseAlarms{N: len(id), FailedChecks: map[string]int{}}
+	fa := FalseAlarms{N: len(id), FailedChecks: map[string]int{}, Causes: map[string]int{}}
 	for _, c := range id {
 		if c.Flagged() {
 			fa.Flagged++
 			countFailed(fa.FailedChecks, c)
+			countCauses(fa.Causes, c)
 		}
 	}
 	fa.Rate = report.Number(ratio(fa.Flagged, fa.N))
 	return fa
+}
+
+func countCauses(m map[string]int, c Case) {
+	for _, n := range c.Causes {
+		m[n]++
+	}
 }
 
 func countFailed(m map[string]int, c Case) {
@@ -240,7 +285,7 @@ func countFailed(m map[string]int, c Case) {
 }
 
 func shiftFigure(sh phantom.Shift, id, cs []Case, names []string) ShiftFigure {
-	f := ShiftFigure{Shift: sh, N: len(cs), FailedChecks: map[string]int{}, CheckAUROC: map[string]report.Number{}}
+	f := ShiftFigure{Shift: sh, N: len(cs), FailedChecks: map[string]int{}, CheckAUROC: map[string]report.Number{}, Causes: map[string]int{}}
 	var scores []float64
 	var pos []bool
 	for _, c := range id {
@@ -251,6 +296,7 @@ func shiftFigure(sh phantom.Shift, id, cs []Case, names []string) ShiftFigure {
 		if c.Flagged() {
 			f.Flagged++
 			countFailed(f.FailedChecks, c)
+			countCauses(f.Causes, c)
 		}
 		if !c.Prepared() {
 			f.NotPrepared++

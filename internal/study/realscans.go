@@ -86,6 +86,8 @@ type RealResult struct {
 	FitScore    report.Number `json:"fit_score"`
 	Probability *float64      `json:"probability"` // null when the model was not run
 	Failed      []FailedCheck `json:"failed_checks"`
+	// Causes group the failed checks (inference.GroupCauses).
+	Causes []inference.Cause `json:"causes"`
 }
 
 // ScoreReal loads each scan as `brightfold score` does (volume.Load, first
@@ -121,6 +123,7 @@ func scoreReal(sess *inference.Session, s RealScan) (RealResult, error) {
 		p := res.Prediction.Probability
 		r.Probability = &p
 	}
+	r.Causes = res.Causes
 	for _, c := range res.FailedChecks() {
 		r.Failed = append(r.Failed, FailedCheck{Name: c.Name, Title: inference.CheckTitle(c.Name), Required: c.Required,
 			Value: report.Number(c.Value), Threshold: c.Threshold, Explanation: c.Explanation})

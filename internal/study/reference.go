@@ -34,6 +34,8 @@ type ReferenceFigures struct {
 	HeldOutAUROC   *float64                       `json:"held_out_auroc"`
 	ECEBefore      *float64                       `json:"ece_before"`
 	ECEAfter       *float64                       `json:"ece_after"`
+	BrierBefore    *float64                       `json:"brier_before"`
+	BrierAfter     *float64                       `json:"brier_after"`
 	ProbDiff       *float64                       `json:"probability_max_abs_diff"`
 	FalseAlarmRate *float64                       `json:"false_alarm_rate"`
 	ShiftAUROC     map[string]*float64            `json:"shift_auroc"`
@@ -77,7 +79,7 @@ func (a *Agreement) OK() bool { return a != nil && len(a.Mismatches) == 0 }
 
 // Compare compares the figures with the reference's recomputation.
 func Compare(f Figures, ref *ReferenceFigures) *Agreement {
-	a := &Agreement{Reference: fmt.Sprintf("sklearn %s roc_auc_score; ECE (Guo et al. 2017, Eq. 3, %d bins) with numpy %s and scipy %s softmax",
+	a := &Agreement{Reference: fmt.Sprintf("sklearn %s roc_auc_score and brier_score_loss; ECE (Guo et al. 2017, Eq. 3, %d bins) with numpy %s and scipy %s softmax",
 		ref.SklearnVersion, ECEBins, ref.NumpyVersion, ref.ScipyVersion), Mismatches: []string{}}
 	if len(ref.Notices) != 1 || ref.Notices[0] != notice.Full {
 		a.Mismatches = append(a.Mismatches, fmt.Sprintf("cases CSV notice column holds %q, want notice.Full on every row", ref.Notices))
@@ -93,6 +95,8 @@ func Compare(f Figures, ref *ReferenceFigures) *Agreement {
 	auc("held-out AUROC", float64(f.HeldOut.AUROC), ref.HeldOutAUROC)
 	other("ECE before scaling", float64(f.Calibration.ECEBefore), ref.ECEBefore)
 	other("ECE after scaling", float64(f.Calibration.ECEAfter), ref.ECEAfter)
+	other("Brier score at temperature 1", float64(f.Calibration.BrierBefore), ref.BrierBefore)
+	other("Brier score at the card's temperature", float64(f.Calibration.BrierAfter), ref.BrierAfter)
 	other("false-alarm rate", float64(f.FalseAlarms.Rate), ref.FalseAlarmRate)
 	zero := 0.0
 	other("probability = softmax(z/T)", 0, refOr(ref.ProbDiff, &zero))

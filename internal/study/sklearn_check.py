@@ -18,6 +18,7 @@ import sys
 import numpy as np
 import scipy
 import sklearn
+from sklearn.metrics import brier_score_loss
 from scipy.special import softmax
 from sklearn.metrics import roc_auc_score
 
@@ -85,6 +86,13 @@ def main(path):
         pred = p.argmax(axis=1)
         res[name] = ece(p.max(axis=1), pred == y)
     out["ece_before"], out["ece_after"] = res["before"], res["after"]
+    # Brier score of the positive-class probability (sklearn brier_score_loss);
+    # the positive column is the one that reproduces the reported probability
+    pos_col = int(np.argmin([np.abs(softmax(z / T, axis=1)[:, k] - np.array([float(r["probability"]) for r in ind_ok])).max()
+                             for k in range(z.shape[1])])) if ind_ok else 0
+    yb = np.array([int(r["true_class"]) == pos_col for r in ind_ok], dtype=int)
+    for name, t in (("before", 1.0), ("after", T)):
+        out["brier_" + name] = float(brier_score_loss(yb, softmax(z / t, axis=1)[:, pos_col])) if ind_ok else None
     # the probability Brightfold reported equals softmax(z / T) of the
     # positive class (the column whose logit is the positive class is found
     # as the one that reproduces it best)

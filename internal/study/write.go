@@ -168,7 +168,7 @@ func WriteTable(w io.Writer, ev *Evaluation) {
 			meets(float64(s.AUROC) >= GoalShiftAUROC))
 	}
 	for _, s := range f.Shifts {
-		fmt.Fprintf(w, "  %s: failed checks: %s\n", s.Shift, counts(s.FailedChecks))
+		fmt.Fprintf(w, "  %s: causes: %s; failed checks: %s\n", s.Shift, counts(s.Causes), counts(s.FailedChecks))
 	}
 	fmt.Fprintln(w)
 	fmt.Fprintln(w, "Real reference scans:")
@@ -223,18 +223,22 @@ func Markdown(ev *Evaluation) string {
 		h.N, h.Positives, f3(float64(h.AUROC)), GoalHeldOutAUROC, meets(float64(h.AUROC) >= GoalHeldOutAUROC))
 	fmt.Fprintf(&b, "| accuracy (most probable class) | %s | |\n", f3(float64(h.Accuracy)))
 	k := f.Calibration
-	fmt.Fprintf(&b, "| ECE, %d bins, before temperature scaling | %s | |\n", k.Bins, f3(float64(k.ECEBefore)))
-	fmt.Fprintf(&b, "| ECE, %d bins, after temperature scaling (T = %.4g) | %s | |\n", k.Bins, k.Temperature, f3(float64(k.ECEAfter)))
-	fmt.Fprintf(&b, "| NLL before / after temperature scaling | %s / %s | |\n", f3(float64(k.NLLBefore)), f3(float64(k.NLLAfter)))
+	fmt.Fprintf(&b, "| ECE, %d bins, temperature 1 (bootstrap 95 %% interval) | %s (%s) | |\n", k.Bins, f3(float64(k.ECEBefore)), ciText(k.ECEBeforeCI))
+	fmt.Fprintf(&b, "| ECE, %d bins, the card's temperature T = %.4g (bootstrap 95 %% interval) | %s (%s) | |\n", k.Bins, k.Temperature, f3(float64(k.ECEAfter)), ciText(k.ECEAfterCI))
+	fmt.Fprintf(&b, "| Brier score, temperature 1 / T = %.4g | %s / %s | |\n", k.Temperature, f3(float64(k.BrierBefore)), f3(float64(k.BrierAfter)))
+	fmt.Fprintf(&b, "| NLL, temperature 1 / T = %.4g | %s / %s | |\n", k.Temperature, f3(float64(k.NLLBefore)), f3(float64(k.NLLAfter)))
 	fa := f.FalseAlarms
 	fmt.Fprintf(&b, "| false alarms (in-distribution cases flagged) | %d / %d = %s | ≤ %.0f %%: %s |\n\n",
 		fa.Flagged, fa.N, pct(float64(fa.Rate)), 100*GoalFalseAlarms, meets(float64(fa.Rate) <= GoalFalseAlarms))
-	fmt.Fprintf(&b, "False alarms by failed check: %s.\n\n", counts(fa.FailedChecks))
-	b.WriteString("| shift | n | flagged | AUROC of the fit score | goal ≥ 0.95 | best single check (AUROC) | failed checks |\n|---|---|---|---|---|---|---|\n")
+	if k.Decision != "" {
+		fmt.Fprintf(&b, "Temperature, as the card states: %s\n\n", k.Decision)
+	}
+	fmt.Fprintf(&b, "False alarms by failed check: %s; by cause: %s.\n\n", counts(fa.FailedChecks), counts(fa.Causes))
+	b.WriteString("| shift | n | flagged | AUROC of the fit score | goal ≥ 0.95 | best single check (AUROC) | causes (flagged cases) | failed checks |\n|---|---|---|---|---|---|---|---|\n")
 	for _, s := range f.Shifts {
 		bn, ba := bestCheck(s)
-		fmt.Fprintf(&b, "| %s | %d | %d | %s | %s | %s (%s) | %s |\n", s.Shift, s.N, s.Flagged, f3(float64(s.AUROC)),
-			meets(float64(s.AUROC) >= GoalShiftAUROC), bn, f3(ba), counts(s.FailedChecks))
+		fmt.Fprintf(&b, "| %s | %d | %d | %s | %s | %s (%s) | %s | %s |\n", s.Shift, s.N, s.Flagged, f3(float64(s.AUROC)),
+			meets(float64(s.AUROC) >= GoalShiftAUROC), bn, f3(ba), counts(s.Causes), counts(s.FailedChecks))
 	}
 	b.WriteString("\n| real scan | from | dims, spacing (mm) | status / verdict | failed checks |\n|---|---|---|---|---|\n")
 	for _, r := range ev.RealScans {
@@ -268,9 +272,17 @@ func Markdown(ev *Evaluation) string {
 			fmt.Fprintf(&b, "%s: %s\n", r.Status, r.Error)
 			continue
 		}
-		fmt.Fprintf(&b, "%s (fit score %.3g).\n", r.Verdict, float64(r.FitScore))
+		fmt.Fprintf(&b, "%s (fit score %.3g; %s, %s).\n", r.Verdict, float64(r.FitScore),
+			inference.Plural(len(r.Causes), "cause", "causes"), inference.Plural(len(r.Failed), "failed check", "failed checks"))
+		sentence := map[string]string{}
 		for _, c := range r.Failed {
-			fmt.Fprintf(&b, "  - %s: %s\n", inference.CheckTitle(c.Name), c.Explanation)
+			sentence[c.Name] = c.Explanation
+		}
+		for _, k := range r.Causes {
+			fmt.Fprintf(&b, "  - *%s* (severity %.3g): %s\n", k.Title, k.Severity, k.Explanation)
+			for _, n := range k.Checks {
+				fmt.Fprintf(&b, "    - %s: %s\n", inference.CheckTitle(n), sentence[n])
+			}
 		}
 	}
 	fmt.Fprintf(&b, "\n%s\n\n> %s\n", referenceLine(ev.Reference), notice.Full)
@@ -299,4 +311,12 @@ func UpdateDocument(path string, ev *Evaluation) error {
 	}
 	out := s[:i+len(BlockBegin)] + "\n" + Markdown(ev) + s[j:]
 	return atomicfile.WriteBytes(path, []byte(out))
+}
+
+// ciText prints an interval as "lo to hi" ("–" when there is none).
+func ciText(ci []float64) string {
+	if len(ci) != 2 {
+		return "–"
+	}
+	return f3(ci[0]) + " to " + f3(ci[1])
 }

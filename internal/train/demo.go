@@ -51,7 +51,7 @@ type Recipe struct {
 func DemoRecipe() Recipe {
 	return Recipe{
 		Arch: DefaultArch(), Train: DefaultConfig(20261201),
-		CohortSeed: 1, NTrain: 600, NVal: 200, NCal: 600,
+		CohortSeed: 1, NTrain: 600, NVal: 200, NCal: 300,
 		TestSeed: 20261202, NTest: 200,
 		ShiftSeed: 20261203, NPerShift: 8,
 		InitSeed: 20261204, Workers: 2,

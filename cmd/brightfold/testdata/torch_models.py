@@ -33,12 +33,12 @@ def nets():
     class Plain(nn.Module):
         def __init__(self):
             super().__init__()
-            ch = [1, 4, 8, 16]
+            ch = [1, 4, 8, 16, 16]
             layers = []
             for a, b in zip(ch, ch[1:]):
                 layers += [nn.Conv3d(a, b, 3, padding=1, bias=False), nn.BatchNorm3d(b), nn.ReLU(), nn.MaxPool3d(2)]
             self.body = nn.Sequential(*layers)
-            self.fc = nn.Linear(16 * 4 * 4 * 4, 2)
+            self.fc = nn.Linear(16 * 2 * 2 * 2, 2)
 
         def forward(self, x):
             return self.fc(torch.flatten(self.body(x), 1))

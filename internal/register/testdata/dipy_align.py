@@ -10,10 +10,12 @@ factors [4, 2, 1]) from the centres of mass, then translation -> rigid ->
 affine, each stage starting from the previous one (dipy's documented
 recipe). It prints one JSON list: per pair the 4x4 matrix (dipy's
 convention: static = template world -> moving = scan world, the same as
-internal/register's) and the wall time in seconds. With "single_thread"
+internal/register's), the wall time of the registration in seconds
+(loading excluded) and the process's peak resident memory (MiB). With "single_thread"
 set, numpy/BLAS are limited to one thread by the caller's environment.
 """
 import json
+import resource
 import sys
 import time
 
@@ -55,6 +57,9 @@ def main():
     for p in pairs:
         a, secs = align(p["template"], p["scan"], p.get("mask"), int(p.get("dof", 12)))
         out.append({"matrix": a.tolist(), "seconds": secs})
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    for o in out:
+        o["peak_mib"] = peak
     json.dump(out, sys.stdout)
 
 

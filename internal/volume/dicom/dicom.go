@@ -62,13 +62,18 @@ func loadDICOM(paths []string, opts volume.LoadOptions) (*volume.Volume, error) 
 	if len(s.broken) > 0 {
 		return nil, inputProblem(s.broken[0])
 	}
-	g, err := s.geometry()
+	g, err := s.volumeGeometry(opts.VolumeIndex)
 	if err != nil {
 		return nil, inputerr.New(sc.where, "series %s: %v", s.info.Key, err)
 	}
 	v, err := assembleVolume(s, g)
 	if err != nil {
 		return nil, err
+	}
+	if g.volumes > 1 {
+		v.Meta.NumVolumes = g.volumes
+		v.Warnings = append(v.Warnings, fmt.Sprintf("series %s holds %d volumes (every slice position repeats %d times); loaded volume %d, as for a 4D NIfTI",
+			s.info.Key, g.volumes, g.volumes, opts.VolumeIndex))
 	}
 	v.Source = sc.where
 	v.Warnings = append(v.Warnings, sc.warnings(s)...)

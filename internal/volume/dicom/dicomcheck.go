@@ -153,18 +153,26 @@ func unsupportedSyntax(ts string) error {
 		"convert with a decompressing tool first)", dcmPrintable(ts), name)
 }
 
+// dcmInflate inflates a deflated data set in two passes: the first only
+// counts (so a bomb is refused before anything is kept), the second fills a
+// buffer of exactly the counted size.
 func dcmInflate(b []byte) ([]byte, error) {
 	r := flate.NewReader(bytes.NewReader(b))
-	defer r.Close()
-	var out bytes.Buffer
-	n, err := io.Copy(&out, io.LimitReader(r, maxInflated+1))
+	n, err := io.Copy(io.Discard, io.LimitReader(r, maxInflated+1))
+	r.Close()
 	if err != nil {
 		return nil, fmt.Errorf("deflated data set: %w", err)
 	}
 	if n > maxInflated {
 		return nil, fmt.Errorf("deflated data set inflates to more than the limit of %d MiB", maxInflated>>20)
 	}
-	return out.Bytes(), nil
+	r = flate.NewReader(bytes.NewReader(b))
+	defer r.Close()
+	out := make([]byte, n)
+	if _, err := io.ReadFull(r, out); err != nil {
+		return nil, fmt.Errorf("deflated data set: %w", err)
+	}
+	return out, nil
 }
 
 // dcmWalker steps over encoded elements without keeping their values.

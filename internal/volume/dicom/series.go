@@ -18,11 +18,14 @@ type SeriesInfo struct {
 	// Key selects this series in LoadOptions.SeriesUID: the UID, or the UID
 	// with "/2", "/3", ... when one SeriesInstanceUID mixes orientations,
 	// matrix sizes, pixel spacings or echo times and was split.
-	Key         string   `json:"key"`
-	Number      int      `json:"number,omitempty"`
-	Description string   `json:"description,omitempty"`
-	Modality    string   `json:"modality,omitempty"`
-	Slices      int      `json:"slices"` // images (frames) in the series
+	Key         string `json:"key"`
+	Number      int    `json:"number,omitempty"`
+	Description string `json:"description,omitempty"`
+	Modality    string `json:"modality,omitempty"`
+	Slices      int    `json:"slices"` // images (frames) in the series
+	// Volumes is the number of volumes the images form (every slice
+	// position repeated that many times); 1 for an ordinary series.
+	Volumes     int      `json:"volumes,omitempty"`
 	Rows        int      `json:"rows"`
 	Cols        int      `json:"cols"`
 	Orientation string   `json:"orientation,omitempty"` // axis code of the assembled volume, e.g. "LPS"
@@ -153,6 +156,7 @@ func (s *dcmSeries) fillInfo() {
 		return
 	}
 	s.info.Orientation = g.affine.Orientation()
+	s.info.Volumes = g.volumes
 	s.info.Plane = planeName(s.frames[0].rowDir.cross(s.frames[0].colDir))
 }
 
@@ -174,9 +178,10 @@ func planeName(n pvec) string {
 
 // seriesGeometry is the result of assembling a series' frames.
 type seriesGeometry struct {
-	order    []dcmFrame // frames in slice order
+	order    []dcmFrame // frames in slice order (of the chosen volume)
 	affine   volume.Affine
 	warnings []string
+	volumes  int // volumes the series holds (1 unless every position repeats)
 }
 
 // Tolerances of the slice spacing checks, relative to the median spacing.
@@ -191,7 +196,15 @@ const (
 // step comes from the positions, never from SliceThickness. Duplicated,
 // missing, uneven or misaligned slices are refused; small unevenness and
 // gantry-tilt shear are reported as warnings.
-func (s *dcmSeries) geometry() (seriesGeometry, error) {
+func (s *dcmSeries) geometry() (seriesGeometry, error) { return s.volumeGeometry(0) }
+
+// volumeGeometry is geometry for volume index of a series that holds
+// several volumes: a series in which every slice position occurs the same
+// number k > 1 of times (a time series or several echoes stored as one
+// series, as a 4D NIfTI stores them) is split into k volumes, the images at
+// each position ordered by InstanceNumber (0020,0013), then file and frame;
+// volume index takes the index-th image at every position.
+func (s *dcmSeries) volumeGeometry(index int) (seriesGeometry, error) {
 	var g seriesGeometry
 	frames, dups := uniqueFrames(s.frames)
 	if len(frames) == 0 {
@@ -200,9 +213,25 @@ func (s *dcmSeries) geometry() (seriesGeometry, error) {
 	if dups > 0 {
 		g.warnings = append(g.warnings, fmt.Sprintf("%d duplicate copies of the same image (same SOPInstanceUID) ignored", dups))
 	}
+	for _, fr := range frames {
+		for _, x := range fr.pos {
+			if !(math.Abs(x) <= maxPositionMm) {
+				return g, fmt.Errorf("implausible slice position %.4g mm in %s (ImagePositionPatient (0020,0032)); positions beyond ±%g mm are refused", x, frameName(fr), float64(maxPositionMm))
+			}
+		}
+	}
 	ref := frames[0]
 	n := ref.rowDir.cross(ref.colDir)
 	sort.SliceStable(frames, func(a, b int) bool { return frames[a].pos.dot(n) < frames[b].pos.dot(n) })
+	vols, err := splitVolumes(frames, n)
+	if err != nil {
+		return g, err
+	}
+	g.volumes = len(vols)
+	if index < 0 || index >= len(vols) {
+		return g, fmt.Errorf("volume %d requested, the series holds %d", index, len(vols))
+	}
+	frames = vols[index]
 	g.order = frames
 	step, err := sliceStep(frames, n, &g.warnings)
 	if err != nil {
@@ -273,6 +302,11 @@ func sliceStep(frames []dcmFrame, n pvec, warnings *[]string) (pvec, error) {
 	}
 	return step, nil
 }
+
+// maxPositionMm bounds a coordinate of ImagePositionPatient: 1 km, far
+// beyond any scanner's field of view, so that sums of positions stay exact
+// enough and finite.
+const maxPositionMm = 1e6
 
 // maxSliceGap bounds a gap between slices, in median spacings, that is
 // still read as missing slices rather than as wrong positions.
@@ -386,4 +420,53 @@ func plural(n int, noun string) string {
 		return "1 " + noun
 	}
 	return fmt.Sprintf("%d %ss", n, noun)
+}
+
+// splitVolumes groups frames sorted along the normal n by position: when
+// every position holds the same number k of images, it returns k volumes
+// (the images at each position ordered by InstanceNumber, then file path
+// and frame); when positions are distinct, the frames as one volume. Any
+// other pattern is left to sliceStep, which names the two slices at the
+// same position.
+func splitVolumes(frames []dcmFrame, n pvec) ([][]dcmFrame, error) {
+	var groups [][]dcmFrame
+	for i, fr := range frames {
+		if i > 0 && samePosition(frames[i-1], fr, n) {
+			groups[len(groups)-1] = append(groups[len(groups)-1], fr)
+			continue
+		}
+		groups = append(groups, []dcmFrame{fr})
+	}
+	k := len(groups[0])
+	for _, g := range groups {
+		if len(g) != k {
+			return [][]dcmFrame{frames}, nil
+		}
+	}
+	if k == 1 || len(groups) == 1 {
+		return [][]dcmFrame{frames}, nil
+	}
+	vols := make([][]dcmFrame, k)
+	for _, g := range groups {
+		sort.SliceStable(g, func(a, b int) bool {
+			fa, fb := g[a], g[b]
+			if fa.file.instanceNumber != fb.file.instanceNumber {
+				return fa.file.instanceNumber < fb.file.instanceNumber
+			}
+			if fa.file.path != fb.file.path {
+				return fa.file.path < fb.file.path
+			}
+			return fa.index < fb.index
+		})
+		for v := range vols {
+			vols[v] = append(vols[v], g[v])
+		}
+	}
+	return vols, nil
+}
+
+// samePosition reports whether two frames lie at the same position along
+// the normal n (within 1 µm) and in the plane (within 1 µm).
+func samePosition(a, b dcmFrame, n pvec) bool {
+	return math.Abs(a.pos.dot(n)-b.pos.dot(n)) < 1e-3 && dcmCloseVec(a.pos, b.pos, 1e-3)
 }

@@ -337,9 +337,12 @@ func (fr *frameReader) read(r io.Reader, prealloc bool, index int, drain bool) (
 		if _, err := io.CopyN(io.Discard, r, rest); err != nil {
 			return nil, fr.short(err, "after volume %d (the header has %d)", index, fr.h.frames())
 		}
-		// Reading on to the end checks the gzip CRC; zero padding after the
-		// last member is allowed, other trailing bytes are refused.
-		if _, err := io.CopyN(io.Discard, r, 64<<20); err != nil && err != io.EOF {
+		// Reading on to the end checks the gzip CRC however much follows the
+		// image (no cap: the time is bounded by the file's size times
+		// deflate's largest ratio, the memory by io.Discard's buffer); zero
+		// padding after the last member is allowed, other trailing bytes
+		// are refused.
+		if _, err := io.Copy(io.Discard, r); err != nil {
 			return nil, fmt.Errorf("corrupt gzip data after the image: %w", err)
 		}
 	}
