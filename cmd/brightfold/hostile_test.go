@@ -122,7 +122,7 @@ func TestHostileInputs(t *testing.T) {
 	lib := refcheck.ORTLib(t)
 	dir := t.TempDir()
 	fx := newHostileFixtures(t, dir)
-	cases := fx.cases(lib)
+	cases := append(fx.cases(lib), pydicomBareCases(t)...)
 	if len(cases) < 60 {
 		t.Fatalf("only %d hostile cases", len(cases))
 	}
@@ -289,6 +289,7 @@ func newHostileFixtures(t *testing.T, dir string) *hostileFixtures {
 	fx.constShape = bigAllocModel(t, "ConstantOfShape")
 	fx.expand = bigAllocModel(t, "Expand")
 	fx.rangeBig = bigAllocModel(t, "Range")
+	fx.mismatch = mismatchModel(t)
 	fx.badOp = hostileModelFolder(t, func(m *onnx.Model) {
 		for _, n := range m.Graph.Nodes {
 			if n.OpType == "Relu" {
@@ -385,6 +386,8 @@ func (fx *hostileFixtures) cases(lib string) []hostileCase {
 		// 4. exit codes
 		{"exit", "operator ONNX Runtime lacks", check(fx.badOp), nil, 2, "", nil},
 		{"exit", "score with such a model", score(fx.scan, "--model", fx.badOp), nil, 2, "", nil},
+		{"exit", "card shape the graph cannot run: model check", check(fx.mismatch), nil, 2, "card's input shape", nil},
+		{"exit", "card shape the graph cannot run: score", score(fx.scan, "--model", fx.mismatch), nil, 2, "card's input shape", nil},
 		{"exit", "--threads 2000 is bounded", score(fx.scan, "--threads", "2000"), nil, 0, "Fit check", nil},
 		{"exit", "--threads -1", score(fx.scan, "--threads", "-1"), nil, 2, "--threads", nil},
 		{"exit", "--out holds a folder named result.json", score(fx.scan, "--map", "lrp", "--out", "out-resultdir"), nil, 2, "result.json", nothingIn("out-resultdir")},
@@ -571,4 +574,25 @@ func zipDeclaring(t *testing.T, size uint64, entries int) []byte {
 	w.Write([]byte{3, 0})
 	zw.Close()
 	return buf.Bytes()
+}
+
+// pydicomBareCases are pydicom's test files without the PS3.10 preamble
+// (no_meta.dcm, rtstruct.dcm). pydicom (the reference, run here) reads them
+// only with force=True and finds no PixelData in them; Brightfold refuses
+// them with that reason.
+func pydicomBareCases(t *testing.T) []hostileCase {
+	refcheck.PythonModule(t, "pydicom")
+	dir := "/usr/lib/python3/dist-packages/pydicom/data/test_files"
+	files := []string{refcheck.Path(t, filepath.Join(dir, "no_meta.dcm")), refcheck.Path(t, filepath.Join(dir, "rtstruct.dcm"))}
+	var ref map[string]struct{ Plain, Pixels bool }
+	refcheck.RunPython(t, filepath.Join("testdata", "pydicom_force.py"), &ref, files...)
+	var cs []hostileCase
+	for _, f := range files {
+		r := ref[f]
+		if r.Plain || r.Pixels {
+			t.Fatalf("pydicom reads %s differently than assumed: %+v", f, r)
+		}
+		cs = append(cs, hostileCase{"consistency", "no preamble: " + filepath.Base(f), []string{"inspect", f}, nil, 2, "DICM", nil})
+	}
+	return cs
 }
