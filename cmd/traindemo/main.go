@@ -17,6 +17,8 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
+	"strconv"
+	"strings"
 	"time"
 
 	"brightfold/inference"
@@ -253,9 +255,19 @@ func recalibrate(in, out, cache string, from, n, workers int) error {
 	if err := train.Recalibrate(r, &card, model, from, n, logf); err != nil {
 		return err
 	}
-	card.Version += "-recalibrated"
+	card.Version = nextPatch(card.Version)
 	if err := card.Validate(); err != nil {
 		return err
 	}
 	return inference.WriteModelFolderDir(out, &card, model)
+}
+
+// nextPatch is a version with its last dot-separated number one higher
+// ("1.2.0" → "1.2.1"), or the version with ".1" appended.
+func nextPatch(v string) string {
+	i := strings.LastIndexByte(v, '.')
+	if n, err := strconv.Atoi(v[i+1:]); err == nil && i >= 0 {
+		return v[:i+1] + strconv.Itoa(n+1)
+	}
+	return v + ".1"
 }
