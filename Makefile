@@ -5,7 +5,7 @@ BIN := bin/brightfold
 export BRIGHTFOLD_ORT_LIB ?= $(CURDIR)/.cache/onnxruntime/libonnxruntime.so.1
 export LANG ?= C.UTF-8
 
-.PHONY: setup build run demo test vet fuzz screenshot-check bench demo-model evaluate evaluate-maps clean
+.PHONY: demo-remake evaluate-register setup build run demo test vet fuzz screenshot-check bench demo-model evaluate evaluate-maps clean
 
 setup:
 	@scripts/setup.sh
@@ -47,9 +47,18 @@ bench: setup
 demo-model: setup
 	@scripts/demo-model.sh
 
+# model make on the committed demo model with the demo recipe's cases,
+# compared with its card (tens of minutes; issue 13).
+demo-remake: setup
+	@scripts/demo-remake.sh
+
 # Figures of the demo model folder on fresh phantoms and real scans (docs/evaluation.md).
 evaluate: setup
 	@scripts/evaluate.sh
+
+# The full alignment recovery evaluation (30 transforms, dipy on every pair; internal/register).
+evaluate-register: setup
+	@scripts/evaluate-register.sh
 
 # Relevance-map localisation and input shares on 50 phantoms (docs/evaluation.md).
 evaluate-maps: setup

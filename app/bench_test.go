@@ -1,6 +1,7 @@
 package app
 
 import (
+	"context"
 	"path/filepath"
 	"testing"
 	"time"
@@ -44,13 +45,42 @@ func BenchmarkChooseCase(b *testing.B) {
 	h := benchDemo(b, methodNone)
 	u := h.u
 	b.ResetTimer()
+	var total time.Duration
 	for i := 0; i < b.N; i++ {
 		next := (u.cur + 1) % 4 // the in-distribution demo cases come first
-		h.timeUntil(b, func() { u.selectCase(next) }, func() bool { return u.open != nil && u.open.result != nil && u.cur == next })
+		total += h.timeUntil(b, func() { u.selectCase(next) }, func() bool { return u.open != nil && u.open.result != nil && u.cur == next })
 		b.StopTimer()
 		h.settle()
 		b.StartTimer()
 	}
+	b.StopTimer()
+	// The reference, in the same run: the same cases loaded and scored
+	// directly, as the command line does (no window, no prefetch).
+	direct := directScore(b, u)
+	window := total.Seconds() * 1000 / float64(b.N)
+	b.ReportMetric(window, "window_ms")
+	b.ReportMetric(direct, "direct_ms")
+	b.ReportMetric(window/direct, "ratio_to_direct")
+}
+
+// directScore is the mean time to load and score the first four demo cases
+// without the window, in milliseconds.
+func directScore(b *testing.B, u *UI) float64 {
+	sess, err := u.model.get()
+	if err != nil {
+		b.Fatal(err)
+	}
+	t0 := time.Now()
+	for i := 0; i < 4; i++ {
+		oc, err := loadCase(context.Background(), u.cases[i], func(float64, string) {})
+		if err != nil {
+			b.Fatal(err)
+		}
+		if _, err := sess.Score(oc.vol); err != nil {
+			b.Fatal(err)
+		}
+	}
+	return time.Since(t0).Seconds() * 1000 / 4
 }
 
 func BenchmarkChooseCaseWithMap(b *testing.B) {

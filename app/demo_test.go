@@ -40,7 +40,7 @@ func startDemo(t testing.TB, opts Options) *harness {
 	first := !fileExists(filepath.Join(opts.DemoDir, "cohort.csv"))
 	h.u.start()
 	if first {
-		if !h.u.tasks.busy(taskDemo) || len(h.u.taskBox.Objects) == 0 {
+		if !h.u.tasks.busy(taskDemo) || !h.u.taskBox.Visible() {
 			t.Error("first start: no generation task with progress on screen")
 		}
 	}

@@ -185,9 +185,11 @@ func (p *evidencePanel) showPrediction(card *inference.Card, pr inference.Predic
 	p.training.SetText(firstSentence(card.TrainingData))
 	if withheld {
 		p.probCaption.SetText("")
+		p.probCaption.Hide()
 		p.status.SetText("Out of distribution: the fit check says this scan is unlike the training scans, so the probability should not be relied on.")
 		p.status.Importance = widget.DangerImportance
 	} else {
+		p.probCaption.Show()
 		p.probCaption.SetText(fmt.Sprintf("Calibrated by temperature scaling (T = %.2f; %s before calibration). Most probable class: %s.",
 			pr.Temperature, inference.FormatProbability(pr.Uncalibrated), className(pr.Label)))
 		p.status.SetText("A research score, not a diagnosis.")

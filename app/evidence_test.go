@@ -117,7 +117,7 @@ func TestCancelRelevance(t *testing.T) {
 	if u.evidence.compute.Visible() {
 		test.Tap(u.evidence.compute) // a slow method runs when asked
 	}
-	if !u.tasks.busy(taskRelevance) || len(u.taskBox.Objects) == 0 {
+	if !u.tasks.busy(taskRelevance) || !u.taskBox.Visible() {
 		t.Fatal("occlusion is not running with a progress row")
 	}
 	u.cancelTask(taskRelevance)

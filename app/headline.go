@@ -29,6 +29,9 @@ type headPanel struct {
 	anyway   *widget.Button
 }
 
+// maxCauses is how many failed checks the header names.
+const maxCauses = 3
+
 // Words of the header.
 const (
 	withheldText = "Probability withheld"
@@ -102,7 +105,12 @@ func (p *headPanel) show(oc *openCase, withheld bool) {
 	r := oc.result
 	pos := inference.ClassName(oc.card.PositiveClass)
 	if inference.Withheld(r) {
+		// The first causes, required checks first; the rest are in the
+		// Fit check panel below, so the header stays short.
 		causes := inference.VerdictCauses(r)
+		if len(causes) > maxCauses {
+			causes = append(causes[:maxCauses], fmt.Sprintf("and %d more below, under Fit check", len(causes)-maxCauses))
+		}
 		p.setVerdict(colOOD, verdictOOD, strings.Join(causes, "\n"))
 	} else {
 		p.setVerdict(colInDist, verdictIn, "")

@@ -289,10 +289,10 @@ func (p *readPanel) lockRead() {
 	if rec.Warning != "" {
 		msg += " Warning: " + rec.Warning + "."
 	}
-	p.u.say(msg)
 	if amend {
 		p.fillForm(t)
-		return
+	} else {
+		p.resume() // opening the next case clears the status line: say after it
 	}
-	p.resume()
+	p.u.say(msg)
 }

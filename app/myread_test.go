@@ -68,18 +68,62 @@ func TestMyReadSequentialSession(t *testing.T) {
 	if p.tasks[p.ti].Case.Code == first || p.tasks[p.ti].Phase != reading.Unaided || !hasText(h.texts(), "Case 2 of 2") {
 		t.Errorf("did not move on to the next case's unaided read: %+v", p.tasks[p.ti])
 	}
+	// Previous goes back to the locked aided read: it can only be amended.
+	p.step(-1)
+	h.settle()
+	if p.tasks[p.ti].Case.Code != first || p.tasks[p.ti].Phase != reading.Aided || !strings.HasPrefix(p.lock.Text, "Amend") || p.rating.Text != "70" {
+		t.Fatalf("previous: task %+v, button %q, rating %q", p.tasks[p.ti], p.lock.Text, p.rating.Text)
+	}
+	p.rating.SetText("75")
+	p.lockRead()
+	h.settle()
 	s, err = reading.Open(file)
 	if err != nil {
 		t.Fatal(err)
 	}
 	defer s.Close()
 	cur, _ := s.CurrentReads()
-	if u, a := cur[first][reading.Unaided], cur[first][reading.Aided]; u.Rating != 35 || u.Confidence != 2 || a.Rating != 70 || u.Seconds() < 0 {
+	if u, a := cur[first][reading.Unaided], cur[first][reading.Aided]; u.Rating != 35 || u.Confidence != 2 || a.Rating != 75 || a.Amendments != 1 || u.Seconds() < 0 {
 		t.Errorf("stored reads %+v %+v", u, a)
 	}
 	m, _ := s.ModelOutputs()
 	t.Logf("model outputs stored: %d (%+v)", len(m), m)
 	if !h.u.model.missing() && len(m) != 1 {
 		t.Errorf("model output not stored with the aided read: %v", m)
+	}
+}
+
+// A crossover session in the window: each read shows or hides the evidence
+// by its own condition, the first sitting comes first, and a second-sitting
+// read locked within the washout says so on the status line.
+func TestMyReadCrossoverSession(t *testing.T) {
+	dir := t.TempDir()
+	file := filepath.Join(dir, "x.bfread")
+	s, err := reading.Create(file, []reading.Case{{Name: "a", Source: anatomical(t), Truth: 1}, {Name: "b", Source: anatomical(t), Truth: 0}},
+		reading.Options{Reader: "R2", Seed: 8, Design: reading.Crossover})
+	if err != nil {
+		t.Fatal(err)
+	}
+	s.Close()
+	h := newHarness(t, Options{Session: file})
+	h.u.start()
+	h.settle()
+	p := h.u.read
+	for n := 0; n < 4; n++ {
+		task := p.tasks[p.ti]
+		if want := n/2 + 1; task.Sitting != want {
+			t.Fatalf("read %d is in sitting %d, want %d", n+1, task.Sitting, want)
+		}
+		blind := task.Phase == reading.Unaided
+		if h.u.evidence.root.Visible() == blind || h.u.scan.ovCheck.Disabled() != blind || (blind && !h.u.meeting) {
+			t.Errorf("read %d (%s): evidence visible %v, overlay check disabled %v, meeting %v",
+				n+1, task.Phase, h.u.evidence.root.Visible(), h.u.scan.ovCheck.Disabled(), h.u.meeting)
+		}
+		p.rating.SetText("50")
+		p.lockRead()
+		h.settle()
+		if n == 2 && !strings.Contains(h.u.message.Text, "washout") {
+			t.Errorf("second sitting within the washout: status %q", h.u.message.Text)
+		}
 	}
 }

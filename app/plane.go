@@ -207,7 +207,7 @@ func (v *planeView) layoutContent() {
 	back(v.backs[4], v.title)
 	bs := v.enlarge.MinSize()
 	v.enlarge.Resize(bs)
-	v.enlarge.Move(fyne.NewPos(size.Width-bs.Width-4, 2))
+	v.enlarge.Move(fyne.NewPos(size.Width-bs.Width-4, size.Height-bs.Height-2)) // clear of the title
 	if v.large {
 		v.enlarge.Hide()
 	} else {

@@ -1,11 +1,13 @@
 package app
 
 import (
+	"context"
 	"math"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/test"
@@ -181,4 +183,41 @@ func TestCoverageSliderDirection(t *testing.T) {
 	if !(hi > lo) || math.Abs(lo-5) > 1 || !strings.Contains(u.evidence.thrVal.Text, "50") {
 		t.Errorf("slider 5 shows %.1f %%, slider 50 shows %.1f %% (label %q)", lo, hi, u.evidence.thrVal.Text)
 	}
+}
+
+// The window opens to fit the screen (never wider or taller than a
+// 1280×800 screen less a task bar) and its content fits that size; the
+// planes keep their size when a task's progress strip appears.
+func TestWindowFitsAndPlanesStayPut(t *testing.T) {
+	for _, c := range []struct{ screen, want fyne.Size }{
+		{fyne.NewSize(1280, 800), fyne.NewSize(1280, 752)},
+		{fyne.NewSize(1920, 1080), windowSize},
+		{fyne.Size{}, windowSize},
+	} {
+		if got := fitWindow(c.screen); got != c.want {
+			t.Errorf("screen %v: window %v, want %v", c.screen, got, c.want)
+		}
+	}
+	h := newHarness(t, Options{})
+	if m := h.u.root.MinSize(); m.Width > minWindow.Width || m.Height > minWindow.Height {
+		t.Errorf("the content needs %v, more than %v", m, minWindow)
+	}
+	h.w.Resize(fitWindow(fyne.NewSize(1280, 800)))
+	h.open(anatomical(t))
+	before := h.u.scanSection.Size()
+	release := make(chan struct{})
+	h.u.tasks.start(taskRelevance, "a slow task", func(ctx context.Context, p progressFunc) (func(), error) {
+		p(0.5, "half way")
+		<-release
+		return nil, nil
+	}, nil)
+	h.drain(600 * time.Millisecond)
+	if !h.u.taskBox.Visible() {
+		t.Error("no progress strip while a task runs")
+	}
+	if after := h.u.scanSection.Size(); after != before {
+		t.Errorf("the Scan panel changed from %v to %v when the progress strip appeared", before, after)
+	}
+	close(release)
+	h.settle()
 }

@@ -7,6 +7,7 @@ import (
 	"fyne.io/fyne/v2/dialog"
 	"fyne.io/fyne/v2/widget"
 
+	"brightfold/inference"
 	"brightfold/internal/volume/dicom"
 )
 
@@ -16,7 +17,7 @@ func seriesLine(s dicom.SeriesInfo) string {
 	if desc == "" {
 		desc = "(no description)"
 	}
-	line := fmt.Sprintf("#%d  %s  ·  %s  ·  %d images %d×%d", s.Number, desc, dash(s.Modality), s.Slices, s.Cols, s.Rows)
+	line := fmt.Sprintf("#%d  %s  ·  %s  ·  %s %d×%d", s.Number, desc, dash(s.Modality), inference.Plural(s.Slices, "image", "images"), s.Cols, s.Rows)
 	if s.Plane != "" {
 		line += "  ·  " + s.Plane
 	}

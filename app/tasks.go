@@ -69,7 +69,9 @@ func (ts *tasks) start(kind, label string, w work, onErr func(error)) {
 	progress := func(frac float64, msg string) {
 		lastMu.Lock()
 		now := time.Now()
-		throttle := now.Sub(last) < 50*time.Millisecond && frac < 1
+		// Four updates a second: each repaints the window, which a
+		// software renderer does on the same processors as the work.
+		throttle := now.Sub(last) < 250*time.Millisecond && frac < 1
 		if !throttle {
 			last = now
 		}

@@ -53,6 +53,9 @@ type UI struct {
 	meetingChip  *fyne.Container
 	openBtn      *widget.Button
 	taskBox      *fyne.Container
+	taskText     *widget.Label
+	taskBar      *widget.ProgressBar
+	taskKind     string // the kind of task the strip shows
 	message      *widget.Label
 
 	scrolls []*container.Scroll // the reading column's panes, reflowed after text changes
@@ -134,9 +137,14 @@ func (u *UI) build() {
 
 	u.message = widget.NewLabel("")
 	u.message.Truncation = fyne.TextTruncateEllipsis
-	u.taskBox = container.NewStack()
+	u.taskText = widget.NewLabel("")
+	u.taskText.Truncation = fyne.TextTruncateEllipsis
+	u.taskBar = widget.NewProgressBar()
+	cancel := widget.NewButtonWithIcon("Cancel", theme.CancelIcon(), func() { u.cancelTask(u.taskKind) })
+	u.taskBox = container.NewBorder(nil, nil, nil, cancel, container.NewGridWithColumns(2, u.taskText, u.taskBar))
+	u.taskBox.Hide()
 	// The strip's height is reserved: a button's height, task or not.
-	strip := container.NewStack(spacer(0, widget.NewButton("Cancel", nil).MinSize().Height), u.taskBox)
+	strip := container.NewStack(spacer(0, cancel.MinSize().Height), u.taskBox)
 	bottom := container.NewVBox(strip, u.message)
 	u.root = container.NewBorder(container.NewVBox(banner, container.NewPadded(bar), widget.NewSeparator()),
 		bottom, nil, nil, main)
@@ -215,19 +223,19 @@ func (u *UI) fail(err error) {
 	u.message.SetText(u.clean(err.Error()))
 }
 
-// refreshTasks redraws the task strip: the first running task with its
-// progress and a Cancel button, and how many more run. The strip keeps its
-// height when nothing runs, so the planes do not jump; a task of unknown
-// length shows its words without an animated bar, which would repaint the
-// window many times a second and take processor time from the work.
+// refreshTasks shows the first running task in the task strip with its
+// progress and a Cancel button, and how many more run. The strip's widgets
+// are made once and changed in place, and the strip keeps its height when
+// nothing runs, so the planes do not jump; a task of unknown length shows
+// its words without an animated bar, which would repaint the window many
+// times a second and take processor time from the work.
 func (u *UI) refreshTasks() {
 	if u.taskBox == nil {
 		return
 	}
 	list := u.tasks.snapshot()
 	if len(list) == 0 {
-		u.taskBox.Objects = nil
-		u.taskBox.Refresh()
+		u.taskBox.Hide()
 		return
 	}
 	t := list[0]
@@ -238,17 +246,15 @@ func (u *UI) refreshTasks() {
 	if len(list) > 1 {
 		label += fmt.Sprintf("  (+%d more)", len(list)-1)
 	}
-	var prog fyne.CanvasObject = spacer(0, 0)
+	u.taskText.SetText(u.clean(label))
 	if t.frac >= 0 {
-		bar := widget.NewProgressBar()
-		bar.SetValue(t.frac)
-		prog = bar
+		u.taskBar.SetValue(t.frac)
+		u.taskBar.Show()
+	} else {
+		u.taskBar.Hide()
 	}
-	text := widget.NewLabel(u.clean(label))
-	text.Truncation = fyne.TextTruncateEllipsis
-	cancel := widget.NewButtonWithIcon("Cancel", theme.CancelIcon(), func() { u.cancelTask(t.kind) })
-	u.taskBox.Objects = []fyne.CanvasObject{container.NewBorder(nil, nil, nil, cancel, container.NewGridWithColumns(2, text, prog))}
-	u.taskBox.Refresh()
+	u.taskKind = t.kind
+	u.taskBox.Show()
 }
 
 // cancelTask stops one kind of work and says so where its result would go.

@@ -59,6 +59,14 @@ func (r rootFS) Open(name string) (fs.File, error) {
 	return f, nil
 }
 
+// Stat describes name inside the folder without opening it.
+func (r rootFS) Stat(name string) (fs.FileInfo, error) {
+	if !fs.ValidPath(name) {
+		return nil, &fs.PathError{Op: "stat", Path: name, Err: fs.ErrInvalid}
+	}
+	return r.root.Stat(name)
+}
+
 // modelRunBudget is how long one model run may take before it is stopped
 // (see SessionOptions.RunBudget).
 const modelRunBudget = 120 * time.Second

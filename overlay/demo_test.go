@@ -349,18 +349,3 @@ func positiveCaseOf(t testing.TB, card *inference.Card, seed uint64, i int, voxe
 		return c, pr
 	}
 }
-
-func meanSD(x []float64) (float64, float64) {
-	if len(x) == 0 {
-		return math.NaN(), math.NaN()
-	}
-	var s, ss float64
-	for _, v := range x {
-		s += v
-	}
-	m := s / float64(len(x))
-	for _, v := range x {
-		ss += sq(v - m)
-	}
-	return m, math.Sqrt(ss / float64(max(len(x)-1, 1)))
-}

@@ -121,3 +121,17 @@ print("sweep over %d 1 mm phantoms: --jobs 1 %.1f cases/min, --jobs 2 %.1f cases
       % (n, c1, c2, c2 / c1, cp, py["nibabel_seconds"], py["seconds"], c2 / cp, m2 / 1024))
 ' "$n" "$s1" "$s2" "$m2"
 rm -rf "$swdir"
+
+# --- the viewer's speed (issue 17) --------------------------------------------
+# On Fyne's test driver with the demo model: choosing a demo case until its
+# scan, score and fit check are on screen (goal <= 1 s), against loading and
+# scoring the same cases directly as the command line does, in the same run;
+# then with its LRP map (goal <= 1.5 s), and switching back to a method
+# already computed for the case (cached: no recomputation).
+echo "== viewer: choose a case, with its map, switch back to a method (app benchmarks) =="
+appline=$(go test -run '^$' -bench '^Benchmark(ChooseCase|ChooseCaseWithMap|SwitchBackToMethod)$' -benchtime 6x ./app 2>/dev/null | grep -E '^Benchmark')
+echo "$appline"
+echo "$appline" | awk '/ChooseCase-/ {for (i = 3; i < NF; i++) m[$(i+1)] = $i;
+    printf "choose a case: %.0f ms in the window (goal <= 1000), %.0f ms loading and scoring directly; ratio %.2f\n", m["window_ms"], m["direct_ms"], m["ratio_to_direct"]}
+  /ChooseCaseWithMap/ {printf "choose a case with its LRP map: %.0f ms (goal <= 1500)\n", $3/1e6}
+  /SwitchBackToMethod/ {printf "switch back to a computed method: %.0f ms\n", $3/1e6}'

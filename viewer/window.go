@@ -149,7 +149,7 @@ func (s *Scene) ScanWindow() (Window, bool) {
 func (s *Scene) Presets() []Preset {
 	var out []Preset
 	if w, ok := s.ScanWindow(); ok {
-		out = append(out, Preset{ID: "scan", Label: "Scan window (" + w.String() + ")", Window: w})
+		out = append(out, Preset{ID: "scan", Label: "Scan's own window", Window: w})
 	}
 	if s.values.empty() {
 		return out

@@ -33,8 +33,7 @@ func runDemo(e *env, args []string) error {
 	for _, a := range args[1:] {
 		if a == "-h" || a == "-help" || a == "--help" {
 			fmt.Fprintln(e.stdout, "usage: brightfold demo cohort DIR [--n N] [--seed S] [--shifts]")
-			fs.SetOutput(e.stdout)
-			fs.PrintDefaults()
+			printFlags(e.stdout, fs)
 			fmt.Fprintln(e.stdout, notice.Full)
 			return nil
 		}

@@ -77,8 +77,8 @@ func runInspect(e *env, args []string) error {
 	var o inspectOptions
 	fs.BoolVar(&o.json, "json", false, "print JSON instead of text")
 	fs.BoolVar(&o.showIDs, "show-identifiers", false, "also print patient identifiers (hidden by default)")
-	fs.IntVar(&o.volumeIndex, "volume", 0, "volume of a 4D NIfTI input to describe")
-	fs.StringVar(&o.series, "series", "", "DICOM series key to describe when the input holds several")
+	fs.IntVar(&o.volumeIndex, "volume", 0, "volume `N` of a 4D NIfTI input to describe (from 0)")
+	fs.StringVar(&o.series, "series", "", "DICOM series `KEY` to describe when the input holds several")
 	fs.Usage = commandHelp(fs, "inspect PATH... [--json] [--show-identifiers] [--volume N] [--series KEY]")
 	paths, err := parseFlags(fs, args)
 	if err != nil {

@@ -60,6 +60,7 @@ func run(args []string, e *env) (code int) {
 			code = 1
 		}
 	}()
+	setMemoryLimit()
 	if len(args) == 0 {
 		args = []string{"view"}
 	}

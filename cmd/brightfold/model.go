@@ -32,7 +32,7 @@ func runModelFolder(e *env, args []string) error {
 		return usageError("usage: brightfold model check|make|show|recalibrate ... (brightfold model make --help)")
 	}
 	fs := newFlags(e, "model check")
-	ortLib := fs.String("ort-lib", "", "path of the ONNX Runtime library "+ortlib.FileName)
+	ortLib := fs.String("ort-lib", "", "`PATH` of the ONNX Runtime library "+ortlib.FileName)
 	noRun := fs.Bool("no-run", false, "check the card and graph only; do not load the model in ONNX Runtime")
 	asJSON := fs.Bool("json", false, "print the card and what was found as JSON")
 	fs.Usage = commandHelp(fs, "model check [MODEL] [--ort-lib PATH] [--no-run] [--json]")

@@ -189,7 +189,7 @@ func TestSessionSurvivesSIGKILL(t *testing.T) {
 		}
 		var timer *time.Timer
 		if completed >= 3 { // the first reads measure how long a command takes
-			delay := time.Duration(rng.Float64() * float64(runtime))
+			delay := time.Duration(rng.Float64() * 1.5 * float64(runtime)) // before, during and after the transaction
 			timer = time.AfterFunc(delay, func() { cmd.Process.Signal(syscall.SIGKILL) })
 		}
 		err := cmd.Wait()

@@ -132,8 +132,12 @@ func sweepParticipant(e *env, d *cohort.Dataset, out string, mf *inference.Model
 	if err != nil {
 		return err
 	}
-	fmt.Fprintf(e.stdout, "sweep %s: %d cases (%d scored, %d not scored, %d already done) in %s\n",
-		shard, sum.Cases, sum.Scored, sum.NotScored, sum.Skipped, out)
+	what := "sweep"
+	if shard.Count > 1 {
+		what = "sweep shard " + shard.String()
+	}
+	fmt.Fprintf(e.stdout, "%s: %d cases (%d scored, %d not scored, %d already done) in %s\n",
+		what, sum.Cases, sum.Scored, sum.NotScored, sum.Skipped, out)
 	if shard.Count > 1 {
 		return nil
 	}
@@ -199,7 +203,7 @@ func writeSlurmScript(e *env, input, out string, o sweepOptions) error {
 	if err != nil {
 		return fmt.Errorf("find this program: %w", err)
 	}
-	j := cohort.SlurmJob{Program: prog}
+	j := cohort.SlurmJob{Program: prog, Jobs: o.jobs}
 	for _, p := range []struct {
 		dst *string
 		src string

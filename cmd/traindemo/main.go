@@ -73,9 +73,24 @@ func main() {
 	flag.IntVar(&ov.shift, "shift", -1, "development: override the translation augmentation (voxels)")
 	flag.Float64Var(&ov.lr, "lr", 0, "development: override the peak learning rate")
 	flag.Uint64Var(&ov.testSeed, "test-seed", 0, "development: evaluate on this seed instead of the held-out one")
+	remakeDir := flag.String("remake", "", "instead of training: `model make` the -out model folder on the recipe's calibration and held-out phantoms, written to this folder, and compare with its card")
+	remakeCal := flag.Int("remake-cal", 0, "with -remake: calibration cases (default: the recipe's validation and calibration cases)")
+	remakeVal := flag.Int("remake-val", 0, "with -remake: validation cases (default: the recipe's held-out cases)")
 	flag.Parse()
 	if *recal != "" {
 		if err := recalibrate(*recal, *out, *cache, *recalFrom, *recalN, *workers); err != nil {
+			fmt.Fprintln(os.Stderr, "traindemo:", err)
+			os.Exit(1)
+		}
+		return
+	}
+	if *remakeDir != "" {
+		logf := func(format string, args ...any) { fmt.Fprintf(os.Stderr, format+"\n", args...) }
+		w := *workers
+		if w <= 0 {
+			w = runtime.NumCPU()
+		}
+		if err := remake(*out, *remakeDir, *remakeCal, *remakeVal, w, *tol, logf); err != nil {
 			fmt.Fprintln(os.Stderr, "traindemo:", err)
 			os.Exit(1)
 		}

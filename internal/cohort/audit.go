@@ -192,7 +192,7 @@ func auditMethods() []string {
 		fmt.Sprintf("ECE: %d equal-width bins of the top-class confidence (Guo et al. 2017, Eq. 3), percentile bootstrap 95 %% interval over cases; Brier score with the same bootstrap.", auditECEBins),
 		"Calibration intercept (slope fixed at 1) and slope by logistic regression on logit(p) (Van Calster et al. 2019); recalibration chosen by the closed testing procedure of Vergouwe et al. 2017 at level 0.05.",
 		"Covariates only: ridge logistic regression (C = 1, standardised) on site, sex and age, stratified 5-fold cross-validation, AUROC of the pooled held-out predictions (Snoek et al. 2019 on why confounds matter).",
-		"Partial confounder test (Spisak 2022): R² of the probability on the covariate, p by permuting the covariate within label classes.",
+		"Partial confounder test (Spisak 2022): R² of the model's log-odds logit(p) on the covariate, p by permuting the covariate within label classes.",
 		"All figures are in-sample on this cohort's labelled, scored cases; none is held out from the model's training unless the cohort is.",
 	}
 }

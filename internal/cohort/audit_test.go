@@ -12,6 +12,7 @@ import (
 
 	"brightfold/internal/notice"
 	"brightfold/internal/refcheck"
+	"brightfold/internal/stats"
 )
 
 // TestAuditOfConfoundedCohort sweeps 60 coarse phantoms whose pattern
@@ -96,6 +97,29 @@ func TestAuditOfConfoundedCohort(t *testing.T) {
 		b := readTree(t, out)[f]
 		if !strings.Contains(b, notice.Full) {
 			t.Errorf("%s lacks the notice", f)
+		}
+	}
+	// The same cases with probabilities that also read the site (a model
+	// that learnt site A's and C's intensity): the partial confounder test
+	// must now flag site (Spisak 2022: the test's purpose).
+	shifted := make([]*Record, len(recs))
+	for i, r := range recs {
+		c := *r
+		res := *r.Result
+		pred := *r.Result.Prediction
+		shift := map[string]float64{"site-A": 2, "site-C": -2}[r.Covariates["site"]]
+		pred.Probability = stats.Sigmoid(stats.Logit(pred.Probability) + shift)
+		res.Prediction, c.Result = &pred, &res
+		shifted[i] = &c
+	}
+	b, err := RunAudit(shifted, AuditOptions{Seed: 1, Perms: 500, Bootstrap: 100})
+	must(t, err)
+	for _, p := range b.Partial {
+		if p.Covariate == "site" && float64(p.P) >= 0.05 {
+			t.Errorf("site-reading probabilities: partial confounder p for site %.3f, want < 0.05", p.P)
+		}
+		if p.Covariate == "site" {
+			t.Logf("site-reading probabilities: %s", p.Sentence)
 		}
 	}
 	t.Logf("AUROC %.3f [%.3f, %.3f]; covariates-only AUROC %.3f; %s", o.AUROC.Value, o.AUROC.Lo, o.AUROC.Hi, a.Covariates.AUROC, a.Calibration.Sentence)

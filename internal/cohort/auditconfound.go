@@ -136,7 +136,9 @@ func partialTests(cs []auditCase, opt AuditOptions) []PartialConfound {
 		var lab []int
 		for i, c := range cs {
 			if ok[i] && len(cols[i]) > 0 {
-				pred, x = append(pred, c.p), append(x, cols[i])
+				// the log-odds: probabilities near 0 and 1 hide shifts that
+				// a linear R² on the probability scale would barely see
+				pred, x = append(pred, stats.Logit(c.p)), append(x, cols[i])
 				lab = append(lab, b2i(c.y))
 			}
 		}

@@ -58,6 +58,7 @@ type SlurmJob struct {
 	Input   string   // absolute
 	Out     string   // absolute
 	Flags   []string // e.g. --model /abs/model --map lrp --jobs 2
+	Jobs    int      // the --jobs of each task; its ONNX Runtime threads are --cpus-per-task / Jobs
 }
 
 // slurmTemplate is the submission script; the %[n] verbs are filled by
@@ -79,7 +80,7 @@ array_id=$(sbatch --parsable --job-name=%[6]s --array=0-%[7]d%%%[8]d \
   --output="$OUTDIR/logs/%%x-%%A-%%a.out" <<EOF
 #!/bin/bash
 set -euo pipefail
-exec ${BRIGHTFOLD@Q} sweep ${INPUT@Q} ${OUTDIR@Q} participant --shard "\${SLURM_ARRAY_TASK_ID}/%[1]d" --threads %[9]d %[13]s
+exec ${BRIGHTFOLD@Q} sweep ${INPUT@Q} ${OUTDIR@Q} participant --shard "\${SLURM_ARRAY_TASK_ID}/%[1]d" --threads %[15]d %[13]s
 EOF
 )
 array_id=${array_id%%%%;*}
@@ -116,9 +117,10 @@ func WriteSlurmScript(w io.Writer, j SlurmJob, o SlurmOptions) error {
 	if o.Partition != "" {
 		part = " --partition=" + o.Partition
 	}
+	threads := max(1, o.CPUsPerTask/max(1, j.Jobs))
 	_, err := fmt.Fprintf(w, slurmTemplate, o.Shards, notice.Full, shellQuote(j.Program), shellQuote(j.Input),
 		shellQuote(j.Out), o.JobName, o.Shards-1, min(o.Concurrent, o.Shards), o.CPUsPerTask, o.Mem, o.Time,
-		part, strings.Join(flags, " "), o.GroupTime)
+		part, strings.Join(flags, " "), o.GroupTime, threads)
 	return err
 }
 

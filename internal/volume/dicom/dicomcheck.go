@@ -92,7 +92,7 @@ func checkDICOMPrefix(data []byte, size int64) (dcmLayout, error) {
 func walkDICOM(data []byte, size int64) (dcmLayout, bool, error) {
 	var lay dcmLayout
 	if len(data) < 132 || string(data[128:132]) != "DICM" {
-		return lay, false, errNotDICOM
+		return lay, false, bareDataSet(data, size)
 	}
 	meta := &dcmWalker{b: data, bo: binary.LittleEndian}
 	pos, ts, err := meta.fileMeta(132)
@@ -153,18 +153,26 @@ func unsupportedSyntax(ts string) error {
 		"convert with a decompressing tool first)", dcmPrintable(ts), name)
 }
 
+// dcmInflate inflates a deflated data set in two passes: the first only
+// counts (so a bomb is refused before anything is kept), the second fills a
+// buffer of exactly the counted size.
 func dcmInflate(b []byte) ([]byte, error) {
 	r := flate.NewReader(bytes.NewReader(b))
-	defer r.Close()
-	var out bytes.Buffer
-	n, err := io.Copy(&out, io.LimitReader(r, maxInflated+1))
+	n, err := io.Copy(io.Discard, io.LimitReader(r, maxInflated+1))
+	r.Close()
 	if err != nil {
 		return nil, fmt.Errorf("deflated data set: %w", err)
 	}
 	if n > maxInflated {
 		return nil, fmt.Errorf("deflated data set inflates to more than the limit of %d MiB", maxInflated>>20)
 	}
-	return out.Bytes(), nil
+	r = flate.NewReader(bytes.NewReader(b))
+	defer r.Close()
+	out := make([]byte, n)
+	if _, err := io.ReadFull(r, out); err != nil {
+		return nil, fmt.Errorf("deflated data set: %w", err)
+	}
+	return out, nil
 }
 
 // dcmWalker steps over encoded elements without keeping their values.
@@ -457,3 +465,35 @@ func dcmPrintable(s string) string {
 		return r
 	}, s)
 }
+
+// bareDataSet explains a file without the PS3.10 preamble: when it starts
+// like a data set (group 0002 or 0008, implicit or explicit VR little
+// endian), it is one written without the file meta, which pydicom reads only
+// with force=True; it is refused with that reason (and whether it holds
+// pixel data at all). The error wraps errNotDICOM.
+func bareDataSet(data []byte, size int64) error {
+	if len(data) < 8 {
+		return errNotDICOM
+	}
+	group := binary.LittleEndian.Uint16(data)
+	if group != 0x0002 && group != 0x0008 {
+		return errNotDICOM
+	}
+	pixels := "it holds pixel data (7FE0,0010), but"
+	if !bytes.Contains(data, []byte{0xE0, 0x7F, 0x10, 0x00}) {
+		if int64(len(data)) < size {
+			pixels = "its pixel data was not looked for, and"
+		} else {
+			pixels = "it holds no pixel data (7FE0,0010), so no image, and"
+		}
+	}
+	return bareDataSetError("a bare DICOM data set without the 128-byte preamble, \"DICM\" and file meta (DICOM PS3.10 7.1), as pydicom reads only with force=True; " +
+		pixels + " such files are not read")
+}
+
+// bareDataSetError is a file refused by bareDataSet; it is errNotDICOM.
+type bareDataSetError string
+
+func (e bareDataSetError) Error() string { return string(e) }
+
+func (e bareDataSetError) Unwrap() error { return errNotDICOM }

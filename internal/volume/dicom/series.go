@@ -213,6 +213,13 @@ func (s *dcmSeries) volumeGeometry(index int) (seriesGeometry, error) {
 	if dups > 0 {
 		g.warnings = append(g.warnings, fmt.Sprintf("%d duplicate copies of the same image (same SOPInstanceUID) ignored", dups))
 	}
+	for _, fr := range frames {
+		for _, x := range fr.pos {
+			if !(math.Abs(x) <= maxPositionMm) {
+				return g, fmt.Errorf("implausible slice position %.4g mm in %s (ImagePositionPatient (0020,0032)); positions beyond ±%g mm are refused", x, frameName(fr), float64(maxPositionMm))
+			}
+		}
+	}
 	ref := frames[0]
 	n := ref.rowDir.cross(ref.colDir)
 	sort.SliceStable(frames, func(a, b int) bool { return frames[a].pos.dot(n) < frames[b].pos.dot(n) })
@@ -295,6 +302,11 @@ func sliceStep(frames []dcmFrame, n pvec, warnings *[]string) (pvec, error) {
 	}
 	return step, nil
 }
+
+// maxPositionMm bounds a coordinate of ImagePositionPatient: 1 km, far
+// beyond any scanner's field of view, so that sums of positions stay exact
+// enough and finite.
+const maxPositionMm = 1e6
 
 // maxSliceGap bounds a gap between slices, in median spacings, that is
 // still read as missing slices rather than as wrong positions.

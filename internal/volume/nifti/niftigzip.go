@@ -25,8 +25,8 @@ type memberReader interface {
 type gzipMembers struct {
 	src  *bufio.Reader // the compressed bytes; a ByteReader, so gzip reads no further than a member
 	z    memberReader
-	off  int64 // compressed bytes consumed before the current member (for messages)
 	done bool
+	err  error // sticky: a caller that got bytes with it may read again
 }
 
 // newGzipMembers starts reading src, which begins with the gzip magic bytes.
@@ -52,14 +52,19 @@ func newGzipMembers(src io.Reader, size int64) (*gzipMembers, error) {
 // Read reads decompressed bytes across members.
 func (g *gzipMembers) Read(p []byte) (int, error) {
 	for {
+		if g.err != nil {
+			return 0, g.err
+		}
 		if g.done {
 			return 0, io.EOF
 		}
 		n, err := g.z.Read(p)
 		if err != io.EOF {
+			g.err = err
 			return n, err
 		}
 		if err := g.next(); err != nil {
+			g.err = err
 			return n, err
 		}
 		if n > 0 {
