@@ -56,7 +56,7 @@ type Stage struct {
 	Evaluations int     `json:"evaluations"`
 	Value       float64 `json:"value"` // the metric (higher is better) at the end of the stage
 	// Skipped is set when the overlap at this level held too few samples to
-	// optimise (fewer than 64 for NCC, 16 per histogram bin for MI).
+	// optimise (fewer than 512 for NCC, 16 per histogram bin for MI).
 	Skipped bool `json:"skipped,omitempty"`
 }
 
