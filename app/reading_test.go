@@ -261,3 +261,25 @@ func TestReadoutFollowsWheelAndLabels(t *testing.T) {
 		}
 	}
 }
+
+// A drop-down the toolkit has lost track of (its canvas cache entry
+// expired) ignores a click instead of ending the program; one on the
+// window opens its menu. (On the test driver Fyne's own Select survives
+// the first case too; on the desktop driver a menu on no canvas is the
+// suspected cause of the crash in issue 17, not reproduced.)
+func TestSafeSelect(t *testing.T) {
+	h := newHarness(t, Options{})
+	lost := newSafeSelect([]string{"a", "b"}, nil) // never placed on a canvas
+	func() {
+		defer func() {
+			if r := recover(); r != nil {
+				t.Fatalf("a click on a select without a canvas panicked: %v", r)
+			}
+		}()
+		lost.Tapped(&fyne.PointEvent{})
+	}()
+	test.Tap(h.u.scan.dragSel)
+	if len(h.w.Canvas().Overlays().List()) == 0 {
+		t.Error("the drag-mode choice on the window did not open its menu")
+	}
+}
