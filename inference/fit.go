@@ -643,3 +643,23 @@ func argmax(x []float64) int {
 	}
 	return best
 }
+
+// BoundThresholds runs every check of c, thresholds fixed, on held-out cases
+// (desc names them; they must not be the cases the thresholds were chosen
+// on) and returns the pass rate of every required check and its one-sided
+// Clopper–Pearson lower bound at opt.Confidence; it adds the bound to every
+// threshold's fitted_on. For cards whose thresholds were fitted before the
+// choosing and bounding splits existed.
+func BoundThresholds(c *Card, cases []FitCase, desc string, opt FitOptions) ([]Metric, error) {
+	if len(cases) == 0 || desc == "" {
+		return nil, fmt.Errorf("bound thresholds: need named held-out cases")
+	}
+	return boundThresholds(c, cases, desc, opt.withDefaults())
+}
+
+// FitTemperatureSplits fits the temperature on s.Temperature and keeps it
+// only if it lowers the NLL of s.HeldOut (see FitReferenceSplits), with the
+// calibration metrics of the held-out cases; the other splits are ignored.
+func FitTemperatureSplits(c *Card, s FitSplits, opt FitOptions) (Calibration, []Metric, error) {
+	return fitCalibration(c, s, opt.withDefaults())
+}

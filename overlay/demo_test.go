@@ -252,9 +252,9 @@ func TestSpearmanAgainstScipy(t *testing.T) {
 // mask's share of the scan's voxels. The cases are the first -overlay.cases
 // pattern-positive phantoms of seed 20261210 (2 by default, rendered at
 // 2 mm with m = 16 so that the test stays near a minute; -overlay.full uses
-// 1 mm and m = 64). On the 50-case table of docs/evaluation.md the smallest
-// ratio is well above 3 for both methods, so a failure here means the maps
-// stopped pointing at the pattern. As a control that the threshold
+// 1 mm and m = 64). On the 50-case table of docs/evaluation.md every case
+// passes for both methods (means 11.4 and 6.4 × chance), so a failure here
+// means the maps stopped pointing at the pattern. As a control that the threshold
 // discriminates, the LRP map with its values shuffled over the voxels must
 // fall below it. `make evaluate-maps` makes the full table.
 func TestLocalisation(t *testing.T) {

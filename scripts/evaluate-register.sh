@@ -7,6 +7,6 @@
 # on 2 cores). Prints the figures the tests log.
 set -euo pipefail
 cd "$(dirname "$0")/.."
-BRIGHTFOLD_REGISTER_FULL=1 go test -count=1 -timeout 60m -v \
+BRIGHTFOLD_REGISTER_FULL=1 go test -count=1 -timeout 180m -v \
   -run 'TestPhantomRecovery|TestPerturbedStarts|TestCrossContrast|TestNibabelAnatomicalRecovery|TestNibabelMovedCopies' \
   ./internal/register | grep -E 'register_test.go|^(--- |ok|FAIL)'

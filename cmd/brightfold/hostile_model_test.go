@@ -6,6 +6,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strconv"
 	"testing"
 
 	"google.golang.org/protobuf/encoding/protowire"
@@ -236,4 +237,32 @@ func bigAllocModel(t *testing.T, op string) string {
 		return hostileModelFolder(t, nil, c("r0", 0), c("r1", 5<<30), c("r2", 1), pbNode("Range", "grow", []string{"r0", "r1", "r2"}, []string{"big"}))
 	}
 	return hostileModelFolder(t, nil, shape, pbNode("ConstantOfShape", "grow", []string{"big_shape"}, []string{"big"}))
+}
+
+// mismatchModel takes any spatial size at its input (dynamic dims) but
+// reshapes the scan to 16³ inside, while its card says 20³: the graph
+// cannot run on the card's shape, which only a run shows.
+func mismatchModel(t *testing.T) string {
+	dir := hostileModelFolder(t, func(m *onnx.Model) {
+		in := m.Graph.RealInputs()[0]
+		for i := 2; i < len(in.Shape); i++ {
+			in.Shape[i] = onnx.Dim{Param: "d" + strconv.Itoa(i)}
+		}
+		renameInput("fixed")(m)
+	},
+		pbNode("Constant", "shape", nil, []string{"fixed_shape"}, pbAttrTensor("value", pbTensor("s", 7, []int64{5}, []int64{1, 1, 16, 16, 16}, false))),
+		pbNode("Reshape", "fix", []string{"scan", "fixed_shape"}, []string{"fixed"}),
+	)
+	raw, _ := os.ReadFile(filepath.Join(dir, inference.CardFile))
+	card, err := inference.ParseCard(raw)
+	if err != nil {
+		t.Fatal(err)
+	}
+	card.Input.Shape = []int64{-1, 1, 20, 20, 20}
+	card.Preprocessing.Shape = [3]int{20, 20, 20}
+	model, _ := os.ReadFile(filepath.Join(dir, inference.ModelFile))
+	if err := inference.WriteModelFolderDir(dir, card, model); err != nil {
+		t.Fatal(err)
+	}
+	return dir
 }

@@ -289,6 +289,7 @@ func newHostileFixtures(t *testing.T, dir string) *hostileFixtures {
 	fx.constShape = bigAllocModel(t, "ConstantOfShape")
 	fx.expand = bigAllocModel(t, "Expand")
 	fx.rangeBig = bigAllocModel(t, "Range")
+	fx.mismatch = mismatchModel(t)
 	fx.badOp = hostileModelFolder(t, func(m *onnx.Model) {
 		for _, n := range m.Graph.Nodes {
 			if n.OpType == "Relu" {
@@ -385,6 +386,8 @@ func (fx *hostileFixtures) cases(lib string) []hostileCase {
 		// 4. exit codes
 		{"exit", "operator ONNX Runtime lacks", check(fx.badOp), nil, 2, "", nil},
 		{"exit", "score with such a model", score(fx.scan, "--model", fx.badOp), nil, 2, "", nil},
+		{"exit", "card shape the graph cannot run: model check", check(fx.mismatch), nil, 2, "card's input shape", nil},
+		{"exit", "card shape the graph cannot run: score", score(fx.scan, "--model", fx.mismatch), nil, 2, "card's input shape", nil},
 		{"exit", "--threads 2000 is bounded", score(fx.scan, "--threads", "2000"), nil, 0, "Fit check", nil},
 		{"exit", "--threads -1", score(fx.scan, "--threads", "-1"), nil, 2, "--threads", nil},
 		{"exit", "--out holds a folder named result.json", score(fx.scan, "--map", "lrp", "--out", "out-resultdir"), nil, 2, "result.json", nothingIn("out-resultdir")},

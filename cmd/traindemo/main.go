@@ -17,6 +17,8 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
+	"strconv"
+	"strings"
 	"time"
 
 	"brightfold/inference"
@@ -58,6 +60,9 @@ func main() {
 	compare := flag.String("compare", "", "card.json whose metrics the new run must reproduce")
 	tol := flag.Float64("tol", 0.02, "largest allowed absolute difference of any metric with -compare")
 	cache := flag.String("cache", "", "development only: cache generated phantoms in this folder")
+	recal := flag.String("recalibrate", "", "bring this fitted model folder's card to the split rules on fresh phantoms (-recal-from, -recal-n) without refitting its reference (writes -out)")
+	recalFrom := flag.Int("recal-from", 1100, "first cohort index of the -recalibrate phantoms")
+	recalN := flag.Int("recal-n", 200, "phantoms for -recalibrate: the first half fits T, the second half is held out")
 	refit := flag.String("refit", "", "fit the card of this already trained model.onnx by the recipe without training (the model bytes stay the same)")
 	quick := flag.Bool("quick", false, "smoke test: a tiny cohort and one epoch (not the demo model)")
 	workers := flag.Int("workers", 0, "goroutines (default: all CPUs)")
@@ -72,6 +77,13 @@ func main() {
 	remakeCal := flag.Int("remake-cal", 0, "with -remake: calibration cases (default: the recipe's validation and calibration cases)")
 	remakeVal := flag.Int("remake-val", 0, "with -remake: validation cases (default: the recipe's held-out cases)")
 	flag.Parse()
+	if *recal != "" {
+		if err := recalibrate(*recal, *out, *cache, *recalFrom, *recalN, *workers); err != nil {
+			fmt.Fprintln(os.Stderr, "traindemo:", err)
+			os.Exit(1)
+		}
+		return
+	}
 	if *remakeDir != "" {
 		logf := func(format string, args ...any) { fmt.Fprintf(os.Stderr, format+"\n", args...) }
 		w := *workers
@@ -232,4 +244,45 @@ func compareWith(path string, card *inference.Card, tol float64) (*Comparison, e
 		c.Differences = append(c.Differences, fmt.Sprintf("temperature %.4f, reference %.4f", card.Calibration.Temperature, old.Calibration.Temperature))
 	}
 	return c, nil
+}
+
+// recalibrate runs train.Recalibrate on the model folder in and writes the
+// result to out (model bytes unchanged).
+func recalibrate(in, out, cache string, from, n, workers int) error {
+	mf, err := inference.LoadModelFolder(in)
+	if err != nil {
+		return err
+	}
+	model, err := os.ReadFile(filepath.Join(in, "model.onnx"))
+	if err != nil {
+		return err
+	}
+	r := train.DemoRecipe()
+	r.CacheDir = cache
+	r.Workers = runtime.NumCPU()
+	if workers > 0 {
+		r.Workers = workers
+	}
+	card := *mf.Card
+	logf := func(format string, args ...any) {
+		fmt.Fprintf(os.Stderr, "%s "+format+"\n", append([]any{time.Now().Format("15:04:05")}, args...)...)
+	}
+	if err := train.Recalibrate(r, &card, model, from, n, logf); err != nil {
+		return err
+	}
+	card.Version = nextPatch(card.Version)
+	if err := card.Validate(); err != nil {
+		return err
+	}
+	return inference.WriteModelFolderDir(out, &card, model)
+}
+
+// nextPatch is a version with its last dot-separated number one higher
+// ("1.2.0" → "1.2.1"), or the version with ".1" appended.
+func nextPatch(v string) string {
+	i := strings.LastIndexByte(v, '.')
+	if n, err := strconv.Atoi(v[i+1:]); err == nil && i >= 0 {
+		return v[:i+1] + strconv.Itoa(n+1)
+	}
+	return v + ".1"
 }

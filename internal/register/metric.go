@@ -83,13 +83,15 @@ func newEvaluator(fixed, moving *image, mask []bool, metric Metric, centre [3]fl
 	return e
 }
 
-// minSamples is the fewest overlapping samples a level needs: 64 for NCC,
-// 16 per histogram bin for MI (so that the joint histogram is not mostly empty).
+// minSamples is the fewest overlapping samples a level needs: 512 (8³)
+// for NCC, so that a level far coarser than a small template is skipped
+// rather than fitted to a handful of blurred voxels, and for MI 16 per
+// histogram bin (so that the joint histogram is not mostly empty).
 func (e *evaluator) minSamples() int {
 	if e.metric == MI {
 		return 16 * e.mi.bins
 	}
-	return 64
+	return 512
 }
 
 // gradient is d(metric)/d(transform): gL[r][c] for the linear part L and

@@ -56,7 +56,7 @@ type Stage struct {
 	Evaluations int     `json:"evaluations"`
 	Value       float64 `json:"value"` // the metric (higher is better) at the end of the stage
 	// Skipped is set when the overlap at this level held too few samples to
-	// optimise (fewer than 64 for NCC, 16 per histogram bin for MI).
+	// optimise (fewer than 512 for NCC, 16 per histogram bin for MI).
 	Skipped bool `json:"skipped,omitempty"`
 }
 
@@ -106,23 +106,35 @@ func Register(ctx context.Context, fixed, moving *volume.Volume, opts Options) (
 	a := start
 	var last *evaluator
 	levels := make([]*evaluator, len(o.LevelsMM)) // built once, when first needed
-	for _, sg := range o.schedule() {
-		{
-			li, lv, dof := sg.level, o.LevelsMM[sg.level], sg.dof
-			if levels[li] == nil {
-				if levels[li], err = newLevel(fixed, moving, o, lv, fc); err != nil {
-					return nil, err
-				}
+	rigidDone := false                            // an affine registration starts with one rigid stage that was not skipped
+	for li, lv := range o.LevelsMM {
+		if levels[li] == nil {
+			if levels[li], err = newLevel(fixed, moving, o, lv, fc); err != nil {
+				return nil, err
 			}
-			ev := levels[li]
+		}
+		ev := levels[li]
+		last = ev
+		var dofs []int
+		switch {
+		case o.DOF == 6:
+			dofs = []int{6}
+		case !rigidDone:
+			dofs = []int{6, 12}
+		default:
+			dofs = []int{12}
+		}
+		for _, dof := range dofs {
 			st, next, err := optimiseStage(ctx, ev, dof, a, fc, radius, o.MaxIterations[li])
 			if err != nil {
 				return nil, err
 			}
 			st.LevelMM = lv
 			a = next
-			last = ev
 			res.Stages = append(res.Stages, st)
+			if dof == 6 && !st.Skipped {
+				rigidDone = true
+			}
 			if o.Progress != nil {
 				o.Progress(st)
 			}
@@ -156,26 +168,6 @@ func Apply(scan, template *volume.Volume, a volume.Affine) (*volume.Volume, erro
 	}
 	out.Affine = template.Affine
 	return out, nil
-}
-
-type step struct{ level, dof int }
-
-// schedule lists the stages: for a rigid registration every level; for an
-// affine one a rigid stage on the coarsest level (the large rotations and
-// shifts), then affine stages on every level.
-func (o Options) schedule() []step {
-	if o.DOF == 6 {
-		var s []step
-		for i := range o.LevelsMM {
-			s = append(s, step{i, 6})
-		}
-		return s
-	}
-	s := []step{{0, 6}}
-	for i := range o.LevelsMM {
-		s = append(s, step{i, 12})
-	}
-	return s
 }
 
 func countMask(e *evaluator) int {

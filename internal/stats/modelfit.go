@@ -40,7 +40,13 @@ func CalibrationWald(p []float64, truth []bool) (intercept, slope Estimate, c Ca
 	if !(w0 > 0) || !(det > 0) {
 		return Estimate{}, Estimate{}, c, fmt.Errorf("calibration: singular information (constant or separated predictions)")
 	}
-	return modelfitWald(c.Intercept, 1/math.Sqrt(w0)), modelfitWald(c.Slope, math.Sqrt(s0/det)), c, nil
+	a, b := modelfitWald(c.Intercept, 1/math.Sqrt(w0)), modelfitWald(c.Slope, math.Sqrt(s0/det))
+	if !(a.SE < 1e3 && b.SE < 1e3) {
+		// the maximum-likelihood estimate runs off to infinity when the
+		// predictions separate the classes perfectly
+		return a, b, c, fmt.Errorf("calibration: not estimable (the predictions separate the classes: standard errors %.3g and %.3g)", a.SE, b.SE)
+	}
+	return a, b, c, nil
 }
 
 func modelfitWald(v, se float64) Estimate {
