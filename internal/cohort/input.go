@@ -161,17 +161,3 @@ func bidsLabel(s string) string {
 	}
 	return b.String()
 }
-
-// parseLabel reads a label cell: 1/0, true/false, yes/no, positive/negative;
-// empty or n/a is unknown (-1).
-func parseLabel(s string) (int, bool) {
-	switch strings.ToLower(strings.TrimSpace(s)) {
-	case "1", "true", "yes", "positive", "pos":
-		return 1, true
-	case "0", "false", "no", "negative", "neg":
-		return 0, true
-	case "", "n/a", "na", "nan":
-		return -1, true
-	}
-	return -1, false
-}
