@@ -615,9 +615,9 @@ func CalibrationMetrics(c *Card, cases []FitCase, T float64, desc string) ([]Met
 		if err != nil {
 			return nil, fmt.Errorf("calibration metrics: %w", err)
 		}
-		brier, err := stats.BrierBinary(prob, isPos)
-		if err != nil {
-			return nil, fmt.Errorf("calibration metrics: %w", err)
+		brier := stats.Brier(prob, isPos)
+		if math.IsNaN(brier) {
+			return nil, fmt.Errorf("calibration metrics: brier score: a probability is not in [0, 1]")
 		}
 		if at.suffix == "before_scaling" {
 			out = append(out,

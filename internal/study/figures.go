@@ -252,11 +252,7 @@ func calibrationSpread(card *inference.Card, ok []Case, t float64) ([]float64, r
 	if err != nil {
 		return nil, report.Number(math.NaN())
 	}
-	b, err := stats.BrierBinary(prob, isPos)
-	if err != nil {
-		b = math.NaN()
-	}
-	return []float64{lo, hi}, report.Number(b)
+	return []float64{lo, hi}, report.Number(stats.Brier(prob, isPos))
 }
 
 func falseAlarms(id []Case) FalseAlarms {
