@@ -138,15 +138,21 @@ func (d *Dataset) Participants() []string {
 
 // sortCases orders cases by participant, session and source.
 func sortCases(cs []Case) {
-	sort.Slice(cs, func(i, j int) bool {
-		a, b := cs[i], cs[j]
-		if a.Participant != b.Participant {
-			return a.Participant < b.Participant
+	sortByEntity(cs, func(c Case) (string, string, string) { return c.Participant, c.Session, c.Source })
+}
+
+// sortByEntity orders xs by the participant, session and source key gives.
+func sortByEntity[T any](xs []T, key func(T) (part, ses, src string)) {
+	sort.Slice(xs, func(i, j int) bool {
+		ap, as, asrc := key(xs[i])
+		bp, bs, bsrc := key(xs[j])
+		if ap != bp {
+			return ap < bp
 		}
-		if a.Session != b.Session {
-			return a.Session < b.Session
+		if as != bs {
+			return as < bs
 		}
-		return a.Source < b.Source
+		return asrc < bsrc
 	})
 }
 
