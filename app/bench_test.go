@@ -51,6 +51,7 @@ func BenchmarkChooseCase(b *testing.B) {
 		total += h.timeUntil(b, func() { u.selectCase(next) }, func() bool { return u.open != nil && u.open.result != nil && u.cur == next })
 		b.StopTimer()
 		h.settle()
+		h.readerPause()
 		b.StartTimer()
 	}
 	b.StopTimer()
@@ -92,6 +93,7 @@ func BenchmarkChooseCaseWithMap(b *testing.B) {
 		h.timeUntil(b, func() { u.selectCase(next) }, func() bool { return u.open != nil && u.cur == next && u.scan.overlay != nil })
 		b.StopTimer()
 		h.settle()
+		h.readerPause()
 		b.StartTimer()
 	}
 }
@@ -109,6 +111,17 @@ func BenchmarkSwitchBackToMethod(b *testing.B) {
 		})
 		b.StopTimer()
 		h.settle()
+		h.readerPause()
 		b.StartTimer()
 	}
+}
+
+// readerPause waits, as a reader looking at a case would, until the
+// background work the window started for later (the next case's prefetch)
+// has finished.
+func (h *harness) readerPause() {
+	for _, j := range h.u.store.jobs {
+		<-j.scored
+	}
+	h.settle()
 }

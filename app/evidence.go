@@ -350,13 +350,13 @@ func (labelledRows) Layout(objs []fyne.CanvasObject, size fyne.Size) {
 // methodTrust says how well a method's map found the pattern on the demo
 // cohort: relevance mass accuracy (the share of positive relevance inside
 // the ground-truth pattern mask) on 50 pattern-positive 1 mm phantoms,
-// measured by overlay's TestLocalisation and reported in
-// docs/evaluation.md ("Relevance maps: localisation on this model"); chance
-// is the mask's share of the scan, 0.45 %.
+// written by `make evaluate-maps` into docs/evaluation.md (run of
+// 2026-12-03, model sha256 e2c1f780…); chance is the mask's share of the
+// scan, 0.45 %.
 func methodTrust(m overlay.Method) string {
 	switch m {
 	case overlay.LRP:
-		return "On 50 demo phantoms with the pattern, 6.3 % of its relevance fell inside the pattern (14 × chance)."
+		return "On 50 demo phantoms with the pattern, 5.1 % of its relevance fell inside the pattern (11 × chance)."
 	case overlay.IntegratedGradients:
 		return "With a blurred-scan baseline, as here, 15 % of its relevance fell inside the pattern on 50 demo phantoms (34 × chance): the best-localised method on this model."
 	case overlay.GradientInput:

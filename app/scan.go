@@ -33,14 +33,14 @@ type scanPanel struct {
 	style   viewer.OverlayStyle
 	showOv  bool
 
-	preset   *widget.Select
-	convSel  *widget.Select
+	preset   *safeSelect
+	convSel  *safeSelect
 	smooth   *widget.Check
 	ovCheck  *widget.Check
 	wlLabel  *widget.Label
 	readout  *widget.Label
 	pointer  *widget.Label
-	dragSel  *widget.Select
+	dragSel  *safeSelect
 	quietSel bool
 }
 
@@ -53,7 +53,7 @@ func newScanPanel(u *UI) *scanPanel {
 	p.grid = container.New(&triLayout{})
 	p.arrange()
 
-	p.preset = widget.NewSelect(nil, func(label string) {
+	p.preset = newSafeSelect(nil, func(label string) {
 		u.refocus()
 		if p.quietSel {
 			return
@@ -65,7 +65,7 @@ func newScanPanel(u *UI) *scanPanel {
 		}
 	})
 	p.preset.PlaceHolder = "Window"
-	p.convSel = widget.NewSelect([]string{convRadiological, convNeurological}, func(s string) {
+	p.convSel = newSafeSelect([]string{convRadiological, convNeurological}, func(s string) {
 		u.refocus()
 		if p.quietSel {
 			return
@@ -93,7 +93,7 @@ func newScanPanel(u *UI) *scanPanel {
 	})
 	p.ovCheck.Checked = true
 	reset := widget.NewButton("Reset view", p.resetView)
-	p.dragSel = widget.NewSelect([]string{dragWL, dragPan}, func(string) { u.refocus() })
+	p.dragSel = newSafeSelect([]string{dragWL, dragPan}, func(string) { u.refocus() })
 	p.dragSel.SetSelectedIndex(0)
 	p.wlLabel = widget.NewLabel("")
 	p.wlLabel.TextStyle = fyne.TextStyle{Monospace: true}

@@ -595,7 +595,7 @@ func CalibrationMetrics(c *Card, cases []FitCase, T float64, desc string) ([]Met
 	right := 0
 	for i, z := range logits {
 		isPos[i] = labels[i] == pos
-		if argmax(z) == labels[i] {
+		if stats.Argmax(z) == labels[i] {
 			right++
 		}
 	}
@@ -608,16 +608,16 @@ func CalibrationMetrics(c *Card, cases []FitCase, T float64, desc string) ([]Met
 		conf, ok, prob := make([]float64, n), make([]bool, n), make([]float64, n)
 		for i, z := range logits {
 			p := fitcheck.Softmax(z, at.T)
-			k := argmax(p)
+			k := stats.Argmax(p)
 			conf[i], ok[i], prob[i] = p[k], k == labels[i], p[pos]
 		}
 		lo, hi, err := stats.ECEInterval(conf, ok, calibrationBins, calibrationResamples, calibrationSeed, 0.95)
 		if err != nil {
 			return nil, fmt.Errorf("calibration metrics: %w", err)
 		}
-		brier, err := stats.BrierBinary(prob, isPos)
-		if err != nil {
-			return nil, fmt.Errorf("calibration metrics: %w", err)
+		brier := stats.Brier(prob, isPos)
+		if math.IsNaN(brier) {
+			return nil, fmt.Errorf("calibration metrics: brier score: a probability is not in [0, 1]")
 		}
 		if at.suffix == "before_scaling" {
 			out = append(out,
@@ -632,16 +632,6 @@ func CalibrationMetrics(c *Card, cases []FitCase, T float64, desc string) ([]Met
 			Metric{Name: "nll_" + at.suffix, Value: stats.NLL(logits, labels, at.T), N: n, Split: desc, How: fmt.Sprintf("mean negative log-likelihood, %s", at.what)})
 	}
 	return out, nil
-}
-
-func argmax(x []float64) int {
-	best := 0
-	for k := range x {
-		if x[k] > x[best] {
-			best = k
-		}
-	}
-	return best
 }
 
 // BoundThresholds runs every check of c, thresholds fixed, on held-out cases

@@ -241,7 +241,7 @@ func (s *Session) runCancellable(ctx context.Context, in ort.Value, outs []ort.V
 		case err = <-ran:
 		case <-grace.C:
 			// the run goes on in its goroutine; its options stay alive with it
-			return runOverBudget(ctx, budget)
+			return runOverBudget(ctx, budget, s.mf.Source)
 		}
 	}
 	opts.Destroy()
@@ -252,14 +252,28 @@ func (s *Session) runCancellable(ctx context.Context, in ort.Value, outs []ort.V
 				outs[i] = nil
 			}
 		}
-		return runOverBudget(ctx, budget)
+		return runOverBudget(ctx, budget, s.mf.Source)
 	}
 	if err != nil {
 		// the session loaded, so a failing run means the graph cannot take
 		// the card's input: a problem of the model folder
-		return inputerr.New(s.mf.Source, "ONNX Runtime could not run the model on the card's input shape %v: %v", s.mf.Card.Input.Shape, firstLine(err.Error()))
+		return inputerr.New(s.mf.Source, "ONNX Runtime could not run the model on the card's input shape %v: %v", s.mf.Card.Input.Shape, ortMessage(err.Error()))
 	}
 	return nil
+}
+
+// ortMessage shortens an ONNX Runtime run error to one readable line: the
+// node and the reason, without the C++ source location and signature.
+func ortMessage(s string) string {
+	s = firstLine(s)
+	head, rest, ok := strings.Cut(s, " Status Message: ")
+	if !ok {
+		return s
+	}
+	if _, after, found := strings.Cut(rest, " was false. "); found {
+		rest = after
+	}
+	return head + ": " + rest
 }
 
 // firstLine is s up to its first line break.
@@ -275,9 +289,9 @@ const runGrace = 5 * time.Second
 
 // runOverBudget is the error of a run stopped by ctx: the caller's
 // cancellation as it is, or an input error for a spent budget.
-func runOverBudget(ctx context.Context, budget time.Duration) error {
+func runOverBudget(ctx context.Context, budget time.Duration, source string) error {
 	if errors.Is(context.Cause(ctx), context.DeadlineExceeded) && errors.Is(ctx.Err(), context.DeadlineExceeded) {
-		return inputerr.New(ModelFile, "one model run took longer than the budget of %s and was stopped (a graph that never ends?); set %s to give it more seconds", budget, RunBudgetEnv)
+		return inputerr.New(source, "%s: one model run took longer than the budget of %s and was stopped (a graph that never ends?); set %s to give it more seconds", ModelFile, budget, RunBudgetEnv)
 	}
 	return ctx.Err()
 }

@@ -8,6 +8,7 @@ import (
 
 	"brightfold/inference"
 	"brightfold/inference/preprocess"
+	"brightfold/internal/inputerr"
 	"brightfold/internal/notice"
 	"brightfold/internal/ortlib"
 )
@@ -78,6 +79,9 @@ func trialRun(b *inference.ModelFolder, lib string) (string, error) {
 	t := &preprocess.Tensor{Data: make([]float32, p[0]*p[1]*p[2]), Shape: append([]int64{1}, c.Input.Shape[1:]...),
 		Layout: c.Input.Layout, Grid: p}
 	out, err := s.Run([]*preprocess.Tensor{t})
+	if inputerr.Is(err) {
+		return "", err // names the model folder and the problem already
+	}
 	if err != nil {
 		return "", fmt.Errorf("%s: ONNX Runtime could not run the model: %w", b.Source, err)
 	}

@@ -12,6 +12,7 @@ import (
 	"strings"
 
 	"brightfold/internal/inputerr"
+	"brightfold/internal/manifest"
 	"brightfold/internal/volume/nifti"
 )
 
@@ -25,7 +26,7 @@ const BIDSSuffix = "T1w"
 func ReadBIDS(root string) (*Dataset, error) {
 	d := &Dataset{Kind: KindBIDS, Root: root, Name: filepath.Base(root)}
 	descPath := filepath.Join(root, "dataset_description.json")
-	b, err := readBounded(descPath)
+	b, err := manifest.ReadBounded(descPath)
 	if err != nil {
 		return nil, err
 	}
@@ -201,7 +202,7 @@ func ParseParticipants(b []byte) ([]string, map[string]map[string]string, error)
 // addCovariates merges a participants table into the cases: its label
 // column sets the label, the other columns are covariates.
 func (d *Dataset) addCovariates(path string) error {
-	b, err := readBounded(path)
+	b, err := manifest.ReadBounded(path)
 	if err != nil {
 		return err
 	}
@@ -228,7 +229,7 @@ func (d *Dataset) addCovariates(path string) error {
 				d.Cases[i].Covariates[k] = v
 				continue
 			}
-			l, ok := parseLabel(v)
+			l, ok := manifest.Binary(v)
 			if !ok {
 				return inputerr.New(path, "participant %s: label %q: want 1 or 0 (or n/a)", d.Cases[i].Participant, v)
 			}

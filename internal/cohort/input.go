@@ -138,15 +138,21 @@ func (d *Dataset) Participants() []string {
 
 // sortCases orders cases by participant, session and source.
 func sortCases(cs []Case) {
-	sort.Slice(cs, func(i, j int) bool {
-		a, b := cs[i], cs[j]
-		if a.Participant != b.Participant {
-			return a.Participant < b.Participant
+	sortByEntity(cs, func(c Case) (string, string, string) { return c.Participant, c.Session, c.Source })
+}
+
+// sortByEntity orders xs by the participant, session and source key gives.
+func sortByEntity[T any](xs []T, key func(T) (part, ses, src string)) {
+	sort.Slice(xs, func(i, j int) bool {
+		ap, as, asrc := key(xs[i])
+		bp, bs, bsrc := key(xs[j])
+		if ap != bp {
+			return ap < bp
 		}
-		if a.Session != b.Session {
-			return a.Session < b.Session
+		if as != bs {
+			return as < bs
 		}
-		return a.Source < b.Source
+		return asrc < bsrc
 	})
 }
 
@@ -160,18 +166,4 @@ func bidsLabel(s string) string {
 		}
 	}
 	return b.String()
-}
-
-// parseLabel reads a label cell: 1/0, true/false, yes/no, positive/negative;
-// empty or n/a is unknown (-1).
-func parseLabel(s string) (int, bool) {
-	switch strings.ToLower(strings.TrimSpace(s)) {
-	case "1", "true", "yes", "positive", "pos":
-		return 1, true
-	case "0", "false", "no", "negative", "neg":
-		return 0, true
-	case "", "n/a", "na", "nan":
-		return -1, true
-	}
-	return -1, false
 }

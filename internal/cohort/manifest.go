@@ -1,20 +1,14 @@
 package cohort
 
 import (
-	"bytes"
-	"encoding/csv"
 	"errors"
 	"fmt"
-	"io"
-	"os"
 	"path/filepath"
 	"strings"
 
 	"brightfold/internal/inputerr"
+	"brightfold/internal/manifest"
 )
-
-// maxTableBytes bounds a manifest or participants table read into memory.
-const maxTableBytes = 64 << 20
 
 // manifestReserved are manifest columns that are not covariates.
 var manifestReserved = map[string]bool{"path": true, "nifti_path": true, "label": true, "split": true,
@@ -23,7 +17,7 @@ var manifestReserved = map[string]bool{"path": true, "nifti_path": true, "label"
 // ReadManifestFile reads a CSV manifest; its paths are relative to the
 // manifest's folder.
 func ReadManifestFile(path string) (*Dataset, error) {
-	b, err := readBounded(path)
+	b, err := manifest.ReadBounded(path)
 	if err != nil {
 		return nil, err
 	}
@@ -38,88 +32,53 @@ func ReadManifestFile(path string) (*Dataset, error) {
 	return d, nil
 }
 
-func readBounded(path string) ([]byte, error) {
-	f, err := os.Open(path)
-	if err != nil {
-		return nil, inputerr.Wrap(path, err)
-	}
-	defer f.Close()
-	b, err := io.ReadAll(io.LimitReader(f, maxTableBytes+1))
-	if err != nil {
-		return nil, inputerr.Wrap(path, err)
-	}
-	if len(b) > maxTableBytes {
-		return nil, inputerr.New(path, "table larger than %d MiB", maxTableBytes>>20)
-	}
-	return b, nil
-}
-
 // ParseManifest reads a CSV manifest with a header row: a path column
 // ("path", or "nifti_path" as in a phantom cohort.csv), optional "label"
 // (1/0), "split", "participant_id" or "case_id", "session_id", and any other
 // columns (site, age, sex, ...) as covariates; columns ending in "_path" and
 // "notice" are ignored. Relative paths are taken from root.
 func ParseManifest(b []byte, root string) (*Dataset, error) {
-	r := csv.NewReader(bytes.NewReader(bytes.TrimPrefix(b, []byte("\ufeff"))))
+	r := manifest.NewCSVReader(b)
 	r.FieldsPerRecord = 0
-	header, err := r.Read()
-	if errors.Is(err, io.EOF) {
-		return nil, errors.New("empty manifest: want a header row with a path column")
-	}
-	if err != nil {
-		return nil, fmt.Errorf("manifest: %w", err)
-	}
-	col := map[string]int{}
 	d := &Dataset{Kind: KindManifest, Root: root}
-	for i, h := range header {
-		h = strings.ToLower(strings.TrimSpace(h))
-		if _, dup := col[h]; dup {
-			return nil, fmt.Errorf("manifest: column %q appears twice", h)
+	var col manifest.Header
+	pathCol := "path"
+	err := manifest.ReadTable(r, "manifest", func(h manifest.Header) error {
+		col = h
+		for _, n := range h.Names {
+			if !manifestReserved[n] && !strings.HasSuffix(n, "_path") && n != "" {
+				d.Covariates = append(d.Covariates, n)
+			}
 		}
-		col[h] = i
-		if !manifestReserved[h] && !strings.HasSuffix(h, "_path") && h != "" {
-			d.Covariates = append(d.Covariates, h)
+		if !h.Has(pathCol) {
+			if pathCol = "nifti_path"; !h.Has(pathCol) {
+				return errors.New("manifest: no path column (want a header with path, label and optional split, site, age, sex, ...)")
+			}
 		}
-	}
-	pathCol, ok := col["path"]
-	if !ok {
-		if pathCol, ok = col["nifti_path"]; !ok {
-			return nil, errors.New("manifest: no path column (want a header with path, label and optional split, site, age, sex, ...)")
-		}
-	}
-	for line := 2; ; line++ {
-		rec, err := r.Read()
-		if errors.Is(err, io.EOF) {
-			break
-		}
-		if err != nil {
-			return nil, fmt.Errorf("manifest: %w", err)
-		}
+		return nil
+	}, func(line int, rec []string) error {
 		c, err := manifestCase(rec, col, pathCol, d.Covariates, root)
 		if err != nil {
-			return nil, fmt.Errorf("manifest line %d: %w", line, err)
+			return fmt.Errorf("manifest line %d: %w", line, err)
 		}
 		d.Cases = append(d.Cases, c)
+		return nil
+	})
+	if err != nil {
+		return nil, err
 	}
 	sortCases(d.Cases)
 	return d, nil
 }
 
-func cell(rec []string, col map[string]int, name string) string {
-	if i, ok := col[name]; ok && i < len(rec) {
-		return strings.TrimSpace(rec[i])
-	}
-	return ""
-}
-
-func manifestCase(rec []string, col map[string]int, pathCol int, covs []string, root string) (Case, error) {
-	p := strings.TrimSpace(rec[pathCol])
+func manifestCase(rec []string, col manifest.Header, pathCol string, covs []string, root string) (Case, error) {
+	p := col.Cell(rec, pathCol)
 	if p == "" {
 		return Case{}, errors.New("empty path")
 	}
-	id := cell(rec, col, "participant_id")
+	id := col.Cell(rec, "participant_id")
 	if id == "" {
-		id = cell(rec, col, "case_id")
+		id = col.Cell(rec, "case_id")
 	}
 	if id == "" {
 		base := filepath.Base(filepath.FromSlash(p))
@@ -129,20 +88,16 @@ func manifestCase(rec []string, col map[string]int, pathCol int, covs []string, 
 	if part == "" {
 		return Case{}, fmt.Errorf("participant %q has no letters or digits", id)
 	}
-	ses := bidsLabel(strings.TrimPrefix(cell(rec, col, "session_id"), "ses-"))
-	label, ok := parseLabel(cell(rec, col, "label"))
+	ses := bidsLabel(strings.TrimPrefix(col.Cell(rec, "session_id"), "ses-"))
+	label, ok := manifest.Binary(col.Cell(rec, "label"))
 	if !ok {
-		return Case{}, fmt.Errorf("label %q: want 1 or 0 (or empty when unknown)", cell(rec, col, "label"))
+		return Case{}, fmt.Errorf("label %q: want 1 or 0 (or empty when unknown)", col.Cell(rec, "label"))
 	}
-	full := filepath.FromSlash(p)
-	if !filepath.IsAbs(full) {
-		full = filepath.Join(root, full)
-	}
-	c := Case{Participant: part, Session: ses, Paths: []string{full}, Source: filepath.ToSlash(p),
-		Label: label, Split: cell(rec, col, "split"), Covariates: map[string]string{}}
+	c := Case{Participant: part, Session: ses, Paths: []string{manifest.Resolve(p, root)}, Source: filepath.ToSlash(p),
+		Label: label, Split: col.Cell(rec, "split"), Covariates: map[string]string{}}
 	c.Entities = entityStem(part, ses)
 	for _, k := range covs {
-		c.Covariates[k] = cell(rec, col, k)
+		c.Covariates[k] = col.Cell(rec, k)
 	}
 	return c, nil
 }

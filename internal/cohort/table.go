@@ -5,7 +5,6 @@ import (
 	"io"
 	"math"
 	"path/filepath"
-	"sort"
 	"strconv"
 	"strings"
 
@@ -32,7 +31,7 @@ var scoreColumns = [][2]string{
 // WriteScores writes OUTDIR/scores.tsv and scores.json for the records,
 // sorted by participant, session and source.
 func WriteScores(out string, recs []*Record, covariates []string) error {
-	sortRecords(recs)
+	sortByEntity(recs, func(r *Record) (string, string, string) { return r.Participant, r.Session, r.Source })
 	tsv := filepath.Join(out, ScoresTable)
 	removeTemporaries(tsv, filepath.Join(out, ScoresSidecar))
 	err := atomicfile.Write(tsv, func(w io.Writer) error {
@@ -63,19 +62,6 @@ func WriteScores(out string, recs []*Record, covariates []string) error {
 	}
 	side["notice"] = map[string]string{"Description": "The research-use notice, repeated on every row: " + notice.Full}
 	return writeJSON(filepath.Join(out, ScoresSidecar), side)
-}
-
-func sortRecords(recs []*Record) {
-	sort.Slice(recs, func(i, j int) bool {
-		a, b := recs[i], recs[j]
-		if a.Participant != b.Participant {
-			return a.Participant < b.Participant
-		}
-		if a.Session != b.Session {
-			return a.Session < b.Session
-		}
-		return a.Source < b.Source
-	})
 }
 
 // tsvCell makes a value safe for a TSV cell: tabs and newlines become

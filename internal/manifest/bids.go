@@ -1,8 +1,6 @@
 package manifest
 
 import (
-	"bytes"
-	"encoding/csv"
 	"fmt"
 	"os"
 	"path/filepath"
@@ -22,7 +20,7 @@ func readBIDS(dir, labelColumn string) (*Manifest, error) {
 		return nil, inputerr.New(dir, "a BIDS folder needs --label-column (the participants.tsv column holding the class names)")
 	}
 	tsv := filepath.Join(dir, "participants.tsv")
-	b, err := readBounded(tsv)
+	b, err := ReadBounded(tsv)
 	if err != nil {
 		return nil, err
 	}
@@ -54,12 +52,12 @@ func readBIDS(dir, labelColumn string) (*Manifest, error) {
 // ParseParticipants reads a participants.tsv: participant_id, the label
 // column, optional split and site, and any other columns as covariates.
 func ParseParticipants(b []byte, labelColumn string) (map[string]Case, []string, error) {
-	r := csv.NewReader(bytes.NewReader(bytes.TrimPrefix(b, []byte("\ufeff"))))
+	r := NewCSVReader(b)
 	r.Comma = '\t'
 	r.LazyQuotes = true
 	r.FieldsPerRecord = -1
-	m, err := parseTable(r, "", "participants.tsv", func(rec []string, col map[string]int) (string, error) {
-		id := cell(rec, col, "participant_id")
+	m, err := parseTable(r, "", "participants.tsv", func(rec []string, col Header) (string, error) {
+		id := col.Cell(rec, "participant_id")
 		if !strings.HasPrefix(id, "sub-") || len(id) == 4 {
 			return "", fmt.Errorf("participant_id %q: want sub-<label>", id)
 		}

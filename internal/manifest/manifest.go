@@ -7,11 +7,9 @@
 package manifest
 
 import (
-	"bytes"
 	"encoding/csv"
 	"errors"
 	"fmt"
-	"io"
 	"os"
 	"path/filepath"
 	"sort"
@@ -62,7 +60,7 @@ func Read(path, labelColumn string) (*Manifest, error) {
 	if st.IsDir() {
 		return readBIDS(path, labelColumn)
 	}
-	b, err := readBounded(path)
+	b, err := ReadBounded(path)
 	if err != nil {
 		return nil, err
 	}
@@ -74,30 +72,14 @@ func Read(path, labelColumn string) (*Manifest, error) {
 	return m, nil
 }
 
-func readBounded(path string) ([]byte, error) {
-	f, err := os.Open(path)
-	if err != nil {
-		return nil, inputerr.Wrap(path, err)
-	}
-	defer f.Close()
-	b, err := io.ReadAll(io.LimitReader(f, MaxTableBytes+1))
-	if err != nil {
-		return nil, inputerr.Wrap(path, err)
-	}
-	if len(b) > MaxTableBytes {
-		return nil, inputerr.New(path, "table larger than %d MiB", MaxTableBytes>>20)
-	}
-	return b, nil
-}
-
 // ParseCSV parses a CSV manifest with a header row. Relative paths are
 // joined to root. Column names are case-insensitive.
 func ParseCSV(b []byte, root string) (*Manifest, error) {
-	r := csv.NewReader(bytes.NewReader(bytes.TrimPrefix(b, []byte("\ufeff"))))
+	r := NewCSVReader(b)
 	r.FieldsPerRecord = -1
 	r.ReuseRecord = false
-	return parseTable(r, root, "manifest", func(rec []string, col map[string]int) (string, error) {
-		p := cell(rec, col, "path")
+	return parseTable(r, root, "manifest", func(rec []string, col Header) (string, error) {
+		p := col.Cell(rec, "path")
 		if p == "" {
 			return "", errors.New("empty path")
 		}
@@ -106,61 +88,44 @@ func ParseCSV(b []byte, root string) (*Manifest, error) {
 }
 
 // parseTable reads a header and rows; pathOf gives a row's scan path.
-func parseTable(r *csv.Reader, root, what string, pathOf func([]string, map[string]int) (string, error), labelCol string) (*Manifest, error) {
-	header, err := r.Read()
-	if errors.Is(err, io.EOF) {
-		return nil, fmt.Errorf("empty %s: want a header row", what)
-	}
-	if err != nil {
-		return nil, fmt.Errorf("%s: %w", what, err)
-	}
-	col := map[string]int{}
+func parseTable(r *csv.Reader, root, what string, pathOf func([]string, Header) (string, error), labelCol string) (*Manifest, error) {
 	m := &Manifest{}
-	for i, h := range header {
-		h = strings.ToLower(strings.TrimSpace(h))
-		if h == "" {
-			continue
-		}
-		if _, dup := col[h]; dup {
-			return nil, fmt.Errorf("%s: column %q appears twice", what, h)
-		}
-		col[h] = i
-		if !reserved[h] && h != labelCol && h != "notice" && !strings.HasSuffix(h, "_path") {
-			m.Covariates = append(m.Covariates, h)
-		}
-	}
-	if _, ok := col[labelCol]; !ok {
-		return nil, fmt.Errorf("%s: no %q column (want path, label and optional split, site, age, sex, ...)", what, labelCol)
-	}
-	if what == "manifest" {
-		if _, ok := col["path"]; !ok {
-			return nil, fmt.Errorf("manifest: no \"path\" column (want path, label and optional split, site, age, sex, ...)")
-		}
-	}
 	seen := map[string]int{}
-	for line := 2; ; line++ {
-		rec, err := r.Read()
-		if errors.Is(err, io.EOF) {
-			break
+	var col Header
+	err := ReadTable(r, what, func(h Header) error {
+		col = h
+		for _, n := range h.Names {
+			if n != "" && !reserved[n] && n != labelCol && n != "notice" && !strings.HasSuffix(n, "_path") {
+				m.Covariates = append(m.Covariates, n)
+			}
 		}
-		if err != nil {
-			return nil, fmt.Errorf("%s: %w", what, err)
+		if !h.Has(labelCol) {
+			return fmt.Errorf("%s: no %q column (want path, label and optional split, site, age, sex, ...)", what, labelCol)
 		}
+		if what == "manifest" && !h.Has("path") {
+			return fmt.Errorf("manifest: no \"path\" column (want path, label and optional split, site, age, sex, ...)")
+		}
+		return nil
+	}, func(line int, rec []string) error {
 		if len(rec) == 1 && strings.TrimSpace(rec[0]) == "" {
-			continue
+			return nil
 		}
 		if len(m.Cases) >= MaxCases {
-			return nil, fmt.Errorf("%s: more than %d cases", what, MaxCases)
+			return fmt.Errorf("%s: more than %d cases", what, MaxCases)
 		}
 		c, err := row(rec, col, labelCol, m.Covariates, root, pathOf)
 		if err != nil {
-			return nil, fmt.Errorf("%s line %d: %w", what, line, err)
+			return fmt.Errorf("%s line %d: %w", what, line, err)
 		}
 		if prev, dup := seen[c.Path]; dup {
-			return nil, fmt.Errorf("%s line %d: path %q already listed on line %d", what, line, c.Path, prev)
+			return fmt.Errorf("%s line %d: path %q already listed on line %d", what, line, c.Path, prev)
 		}
 		seen[c.Path] = line
 		m.Cases = append(m.Cases, c)
+		return nil
+	})
+	if err != nil {
+		return nil, err
 	}
 	if len(m.Cases) == 0 {
 		return nil, fmt.Errorf("%s: no cases", what)
@@ -168,47 +133,37 @@ func parseTable(r *csv.Reader, root, what string, pathOf func([]string, map[stri
 	return m, nil
 }
 
-func row(rec []string, col map[string]int, labelCol string, covs []string, root string, pathOf func([]string, map[string]int) (string, error)) (Case, error) {
+func row(rec []string, col Header, labelCol string, covs []string, root string, pathOf func([]string, Header) (string, error)) (Case, error) {
 	p, err := pathOf(rec, col)
 	if err != nil {
 		return Case{}, err
 	}
-	c := Case{Label: cell(rec, col, labelCol), Site: cell(rec, col, "site"), Covariates: map[string]string{}}
+	c := Case{Label: col.Cell(rec, labelCol), Site: col.Cell(rec, "site"), Covariates: map[string]string{}}
 	if c.Label == "" || strings.EqualFold(c.Label, "n/a") {
 		return Case{}, fmt.Errorf("%s: empty label", p)
 	}
-	switch s := strings.ToLower(cell(rec, col, "split")); s {
+	switch s := strings.ToLower(col.Cell(rec, "split")); s {
 	case "", SplitCalibration, SplitValidation:
 		c.Split = s
 	default:
 		return Case{}, fmt.Errorf("split %q: want %q, %q or empty", s, SplitCalibration, SplitValidation)
 	}
 	for _, k := range covs {
-		if v := cell(rec, col, k); v != "" && !strings.EqualFold(v, "n/a") {
+		if v := col.Cell(rec, k); v != "" && !strings.EqualFold(v, "n/a") {
 			c.Covariates[k] = v
 		}
 	}
-	c.ID = cell(rec, col, "participant_id")
+	c.ID = col.Cell(rec, "participant_id")
 	if c.ID == "" {
-		c.ID = cell(rec, col, "case_id")
+		c.ID = col.Cell(rec, "case_id")
 	}
-	full := filepath.FromSlash(p)
-	if !filepath.IsAbs(full) {
-		full = filepath.Join(root, full)
-	}
+	full := Resolve(p, root)
 	c.Path = full
 	if c.ID == "" {
 		base := strings.TrimSuffix(filepath.Base(full), ".gz")
 		c.ID = strings.TrimSuffix(base, filepath.Ext(base))
 	}
 	return c, nil
-}
-
-func cell(rec []string, col map[string]int, name string) string {
-	if i, ok := col[name]; ok && i < len(rec) {
-		return strings.TrimSpace(rec[i])
-	}
-	return ""
 }
 
 // Classes returns the distinct labels in first-seen order.

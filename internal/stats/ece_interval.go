@@ -1,15 +1,10 @@
 package stats
 
-import (
-	"errors"
-	"fmt"
-	"math/rand/v2"
-	"sort"
-)
+import "fmt"
 
 // ECEInterval is a percentile bootstrap interval at level (e.g. 0.95) for
-// the binned ECE of ECE(confidence, correct, bins): the cases are resampled
-// with replacement resamples times (Efron & Tibshirani 1993, An
+// the binned ECE of ECE(confidence, correct, bins): Bootstrap resamples the
+// cases with replacement resamples times (Efron & Tibshirani 1993, An
 // Introduction to the Bootstrap, Section 13.3), from a PCG generator seeded
 // with seed so that the interval is reproducible, and the ECE of each
 // resample is computed; the interval is the (1 − level)/2 and (1 + level)/2
@@ -36,40 +31,15 @@ func ECEInterval(confidence []float64, correct []bool, bins, resamples int, seed
 			return 0, 0, fmt.Errorf("ECE interval: confidence %d is %v, not in [0, 1]", i, c)
 		}
 	}
-	rng := rand.New(rand.NewPCG(seed, 0x9e3779b97f4a7c15))
-	eces := make([]float64, resamples)
 	bc, bo := make([]float64, n), make([]bool, n)
-	for r := range eces {
-		for i := range bc {
-			j := rng.IntN(n)
+	b, err := Bootstrap(n, resamples, seed, level, func(idx []int) float64 {
+		for i, j := range idx {
 			bc[i], bo[i] = confidence[j], correct[j]
 		}
-		eces[r] = ECE(bc, bo, bins)
+		return ECE(bc, bo, bins)
+	})
+	if err != nil {
+		return 0, 0, fmt.Errorf("ECE interval: %w", err)
 	}
-	sort.Float64s(eces)
-	return Quantile(eces, (1-level)/2), Quantile(eces, (1+level)/2), nil
-}
-
-// BrierBinary is the Brier score of probabilities of the positive class
-// against the outcomes: (1/n) Σ (p_i − y_i)², y_i = 1 for a positive
-// (Brier 1950, Monthly Weather Review 78:1; sklearn's brier_score_loss). A
-// proper scoring rule, unbiased by binning, so it is reported beside the
-// ECE. An error for no cases, different lengths, or a probability outside
-// [0, 1] (NaN included).
-func BrierBinary(prob []float64, positive []bool) (float64, error) {
-	if len(prob) == 0 || len(prob) != len(positive) {
-		return 0, errors.New("brier score: need probabilities and outcomes of the same, non-zero length")
-	}
-	var s float64
-	for i, p := range prob {
-		if !(p >= 0 && p <= 1) {
-			return 0, fmt.Errorf("brier score: probability %d is %v, not in [0, 1]", i, p)
-		}
-		y := 0.0
-		if positive[i] {
-			y = 1
-		}
-		s += (p - y) * (p - y)
-	}
-	return s / float64(len(prob)), nil
+	return b.Lo, b.Hi, nil
 }

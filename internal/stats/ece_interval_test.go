@@ -10,7 +10,7 @@ import (
 	"brightfold/internal/refcheck"
 )
 
-// BrierBinary against sklearn.metrics.brier_score_loss, and ECEInterval
+// Brier against sklearn.metrics.brier_score_loss, and ECEInterval
 // against scipy.stats.bootstrap (percentile method, paired resampling of the
 // cases) of the same numpy ECE: the two bootstraps use different random
 // generators, so their ends agree only up to Monte-Carlo error; with 4000
@@ -44,11 +44,7 @@ func TestECEIntervalAndBrierAgainstScipy(t *testing.T) {
 	}
 	var ref struct{ Brier, ECE, Lo, Hi float64 }
 	refcheck.RunPython(t, "testdata/ref_ece_interval.py", &ref, f)
-	b, err := BrierBinary(prob, pos)
-	if err != nil {
-		t.Fatal(err)
-	}
-	kernelNear(t, "Brier", b, ref.Brier, 1e-12)
+	kernelNear(t, "Brier", Brier(prob, pos), ref.Brier, 1e-12)
 	kernelNear(t, "ECE", ECE(conf, correct, 15), ref.ECE, 1e-12)
 	lo, hi, err := ECEInterval(conf, correct, 15, 4000, 1, 0.95)
 	if err != nil {

@@ -137,8 +137,8 @@ func FuzzCalibration(f *testing.F) {
 		if err == nil && !(lo <= hi && lo >= 0 && hi <= 1) {
 			t.Fatalf("ECE interval [%v, %v]", lo, hi)
 		}
-		if _, err := BrierBinary(conf, ok); (err == nil) != (len(conf) > 0 && allProbabilities(conf)) {
-			t.Fatalf("Brier error %v", err)
+		if b := Brier(conf, ok); math.IsNaN(b) != !(len(conf) > 0 && allProbabilities(conf)) {
+			t.Fatalf("Brier %v", b)
 		}
 	})
 }
@@ -259,7 +259,7 @@ func TestNonFiniteTerminates(t *testing.T) {
 			_, _, err := ECEInterval([]float64{nan, 0.5}, []bool{true, false}, 15, 10, 1, 0.95)
 			return err != nil
 		}},
-		{"BrierBinary NaN", func() bool { _, err := BrierBinary([]float64{nan}, []bool{true}); return err != nil }},
+		{"Brier NaN", func() bool { return math.IsNaN(Brier([]float64{nan}, []bool{true})) }},
 	}
 	for _, c := range cases {
 		done := make(chan bool, 1)

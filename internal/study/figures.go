@@ -195,7 +195,7 @@ func calibration(card *inference.Card, id []Case) Calibration {
 		right := make([]bool, len(ok))
 		for i, c := range ok {
 			p := inference.ClassProbabilities(card, c.Logits, t)
-			best := argmax(p)
+			best := stats.Argmax(p)
 			conf[i], right[i] = p[best], best == TrueClass(card, c.Label)
 		}
 		return stats.ECE(conf, right, ECEBins)
@@ -225,16 +225,6 @@ func TrueClass(card *inference.Card, label int) int {
 	return 0
 }
 
-func argmax(p []float64) int {
-	best := 0
-	for i := range p {
-		if p[i] > p[best] {
-			best = i
-		}
-	}
-	return best
-}
-
 // calibrationSpread is the percentile bootstrap 95 % interval of the ECE
 // and the Brier score of the positive-class probability at temperature t
 // (nil and NaN without cases).
@@ -244,7 +234,7 @@ func calibrationSpread(card *inference.Card, ok []Case, t float64) ([]float64, r
 	pos := card.PositiveIndex()
 	for i, c := range ok {
 		p := inference.ClassProbabilities(card, c.Logits, t)
-		best := argmax(p)
+		best := stats.Argmax(p)
 		conf[i], right[i] = p[best], best == TrueClass(card, c.Label)
 		prob[i], isPos[i] = p[pos], TrueClass(card, c.Label) == pos
 	}
@@ -252,11 +242,7 @@ func calibrationSpread(card *inference.Card, ok []Case, t float64) ([]float64, r
 	if err != nil {
 		return nil, report.Number(math.NaN())
 	}
-	b, err := stats.BrierBinary(prob, isPos)
-	if err != nil {
-		b = math.NaN()
-	}
-	return []float64{lo, hi}, report.Number(b)
+	return []float64{lo, hi}, report.Number(stats.Brier(prob, isPos))
 }
 
 func falseAlarms(id []Case) FalseAlarms {

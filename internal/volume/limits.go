@@ -10,9 +10,11 @@ import (
 )
 
 // DefaultVoxelLimit is how many voxels one volume may hold on the default
-// settings: 64 Mi voxels (256 MiB as float32, e.g. 512×512×256), so that
-// loading, preparing and mapping a scan stays within 1 GiB of memory.
-const DefaultVoxelLimit = 64 << 20
+// settings: 32 Mi voxels (128 MiB as float32, e.g. 512×512×128 or
+// 320×320×320), so that loading, preparing, scoring and mapping a scan
+// stays within 1 GiB (a 512×512×128 scan at the limit peaked at 0.73 GiB
+// with --map lrp, ig or occlusion; one at 64 Mi voxels reached 0.98 GiB).
+const DefaultVoxelLimit = 32 << 20
 
 // VoxelLimitEnv names the environment variable that raises (or lowers) the
 // voxel limit for legitimate larger scans, e.g. BRIGHTFOLD_MAX_VOXELS=200000000.

@@ -43,8 +43,8 @@ const (
 const maxDICOMNesting = 16
 
 // maxInflated bounds the inflated size of a deflated data set: 160 MiB
-// holds the default voxel limit's 64 Mi voxels at 16 bits plus the header,
-// and keeps two files inflating at once within the 1 GiB budget.
+// holds the default voxel limit (32 Mi voxels) at 32 bits plus the header.
+// The size is counted before anything is kept (dcmInflate).
 const maxInflated = 160 << 20
 
 // errNotDICOM marks a file that lacks the PS3.10 preamble and "DICM" prefix.
