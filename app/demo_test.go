@@ -7,6 +7,7 @@ import (
 	"testing"
 
 	"brightfold/inference"
+	"brightfold/inference/fitcheck"
 	"brightfold/internal/refcheck"
 )
 
@@ -75,21 +76,11 @@ func TestDemoCaseShowsEvidence(t *testing.T) {
 	if h := u.fit.headline.Text; h != verdictIn && h != verdictOOD {
 		t.Errorf("verdict %q", h)
 	}
-	if n := len(u.open.result.Checks); n < 10 || len(u.fit.checks.Objects) != n {
-		t.Errorf("%d checks, %d rows", n, len(u.fit.checks.Objects))
+	if n := len(u.open.result.Checks); n < 10 || len(u.fit.checks.Objects) != len(passed(u.open.result.Checks)) || len(u.fit.causes.Objects) != len(u.open.result.Causes) {
+		t.Errorf("%d checks, %d cause rows, %d passing rows", n, len(u.fit.causes.Objects), len(u.fit.checks.Objects))
 	}
 
-	ct := -1
-	for i, c := range u.cases {
-		if strings.Contains(c.Note, "CT-like") {
-			ct = i
-		}
-	}
-	if ct < 0 {
-		t.Fatal("no CT-like case in the demo cohort")
-	}
-	u.selectCase(ct)
-	h.settle()
+	h.openShifted("CT-like")
 	if u.fit.headline.Text != verdictOOD || u.fit.block.FillColor != colOOD || u.fit.headline.TextSize < 24 {
 		t.Fatalf("CT-like case: verdict %q colour %v size %v", u.fit.headline.Text, u.fit.block.FillColor, u.fit.headline.TextSize)
 	}
@@ -154,4 +145,72 @@ func TestSwitchingCaseMidwayIsSafe(t *testing.T) {
 	if !strings.Contains(u.identity.Text, u.cases[last].Code) {
 		t.Errorf("identity %q", u.identity.Text)
 	}
+}
+
+// passed returns the checks that pass, in their order.
+func passed(cs []fitcheck.Check) []fitcheck.Check {
+	var out []fitcheck.Check
+	for _, c := range cs {
+		if c.Pass {
+			out = append(out, c)
+		}
+	}
+	return out
+}
+
+// A thick-slice scan fails several geometry checks at once; the header and
+// the Fit check panel show them as one cause (inference.GroupCauses) with
+// the checks that saw it, the fit score in the header, and the passing
+// checks below, not one line per failed check.
+func TestThickSliceOneCause(t *testing.T) {
+	h := startDemo(t, Options{})
+	u := h.u
+	h.openShifted("thick slices")
+	r := u.open.result
+	if r == nil || u.head.verdict.Text != verdictOOD {
+		t.Fatalf("thick-slice case: verdict %q", u.head.verdict.Text)
+	}
+	failed := len(r.FailedChecks())
+	if failed < 2 || len(r.Causes) == 0 || r.Causes[0].Name != inference.CauseGeometry || len(r.Causes[0].Checks) < 2 {
+		t.Fatalf("thick-slice case: %d failed checks, causes %+v", failed, r.Causes)
+	}
+	head := u.head.causes.Text
+	lines := strings.Split(head, "\n")
+	if !strings.HasPrefix(lines[0], r.Causes[0].Title+":") || !strings.Contains(lines[0], inference.CheckTitle(r.Causes[0].Checks[0])) ||
+		len(lines) != min(len(r.Causes), maxCauses+1)+1 || !strings.HasPrefix(lines[len(lines)-1], "Fit score "+inference.FormatValue(r.FitScore)) {
+		t.Errorf("header causes (%d failed checks, %d causes):\n%s", failed, len(r.Causes), head)
+	}
+	if len(u.fit.causes.Objects) != len(r.Causes) || len(u.fit.checks.Objects) != len(passed(r.Checks)) || !u.fit.passing.Visible() {
+		t.Errorf("Fit check: %d cause rows for %d causes, %d passing rows for %d", len(u.fit.causes.Objects), len(r.Causes),
+			len(u.fit.checks.Objects), len(passed(r.Checks)))
+	}
+	all := strings.Join(h.texts(), "\n")
+	for _, n := range r.Causes[0].Checks {
+		if !strings.Contains(all, inference.CheckTitle(n)+" ("+inference.CheckDetail(fitCheck(r.Checks, n))+")") {
+			t.Errorf("Fit check panel does not list %s with its value and limit", n)
+		}
+	}
+}
+
+// openShifted opens the demo's shifted case whose note names the shift.
+func (h *harness) openShifted(shift string) {
+	h.t.Helper()
+	for i, c := range h.u.cases {
+		if strings.Contains(c.Note, shift) {
+			h.u.selectCase(i)
+			h.settle()
+			return
+		}
+	}
+	h.t.Fatalf("no %s case in the demo cohort", shift)
+}
+
+// fitCheck is the named check of a list.
+func fitCheck(cs []fitcheck.Check, name string) fitcheck.Check {
+	for _, c := range cs {
+		if c.Name == name {
+			return c
+		}
+	}
+	return fitcheck.Check{}
 }

@@ -2,7 +2,6 @@ package app
 
 import (
 	"fmt"
-	"sort"
 	"strings"
 
 	"fyne.io/fyne/v2"
@@ -229,13 +228,9 @@ func (p *evidencePanel) selectedMethod() (overlay.Method, bool) {
 // showRelevance describes a computed map and its own check.
 func (p *evidencePanel) showRelevance(m *overlay.Map, om *viewer.OverlayMap) {
 	text := fmt.Sprintf("%s map of the %s logit, %s.", m.Method.Title(), className(m.Class), inference.Plural(m.Passes, "model pass", "model passes"))
-	// The method's own check (LRP conservation, integrated-gradients
-	// completeness), as the score JSON reports it.
-	for _, k := range sortedKeys(m.Checks) {
-		if strings.HasSuffix(k, "_error") {
-			text += fmt.Sprintf(" Its own check: %s %.2g.", strings.ReplaceAll(k, "_", " "), m.Checks[k])
-		}
-	}
+	// How much of the logit the voxels carry, with the method's own check
+	// named for what it is (overlay.ShareSentence, as the CLI says it).
+	text += " " + m.ShareSentence()
 	if om.HasNegative() && !p.signed.Checked {
 		text += " Negative values (evidence against the class) are hidden."
 	}
@@ -243,15 +238,6 @@ func (p *evidencePanel) showRelevance(m *overlay.Map, om *viewer.OverlayMap) {
 	p.peak.Enable()
 	p.refreshColorBar()
 	p.refreshOverlayState()
-}
-
-func sortedKeys(m map[string]float64) []string {
-	out := make([]string, 0, len(m))
-	for k := range m {
-		out = append(out, k)
-	}
-	sort.Strings(out)
-	return out
 }
 
 // styleChanged applies the opacity and threshold sliders.

@@ -10,7 +10,6 @@ import (
 
 	"brightfold/assets"
 	"brightfold/inference"
-	"brightfold/inference/fitcheck"
 	"brightfold/inference/preprocess"
 	"brightfold/internal/ortlib"
 	"brightfold/internal/volume"
@@ -188,28 +187,7 @@ func (u *UI) showAnyway() {
 }
 
 // showChecks fills the Fit check panel from a result.
-func (u *UI) showChecks(r *inference.Result) {
-	ood := r.Verdict == fitcheck.OutOfDistribution
-	// Failed checks first, so that the reasons for the verdict come first.
-	checks := append(r.FailedChecks(), passed(r.Checks)...)
-	rows := make([]checkRow, len(checks))
-	for i, c := range checks {
-		rows[i] = checkRow{Name: inference.CheckTitle(c.Name), Detail: inference.CheckDetail(c),
-			Sentence: c.Explanation, Pass: c.Pass, Required: c.Required}
-	}
-	u.fit.showChecks(ood, rows)
-}
-
-// passed returns the checks that pass, in their order.
-func passed(cs []fitcheck.Check) []fitcheck.Check {
-	var out []fitcheck.Check
-	for _, c := range cs {
-		if c.Pass {
-			out = append(out, c)
-		}
-	}
-	return out
-}
+func (u *UI) showChecks(r *inference.Result) { u.fit.showChecks(r) }
 
 // startRelevance shows the relevance map of the chosen method for the open
 // case: from the case's cache when it was computed before, else computed

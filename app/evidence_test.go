@@ -71,15 +71,18 @@ func TestScoreAndRelevance(t *testing.T) {
 	if h := u.fit.headline.Text; h != verdictIn && h != verdictOOD {
 		t.Fatalf("verdict %q", h)
 	}
-	if len(u.fit.checks.Objects) != len(u.open.result.Checks) {
-		t.Errorf("%d check rows for %d checks", len(u.fit.checks.Objects), len(u.open.result.Checks))
+	if len(u.fit.checks.Objects) != len(passed(u.open.result.Checks)) || len(u.fit.causes.Objects) != len(u.open.result.Causes) {
+		t.Errorf("%d cause rows, %d passing rows for %d checks", len(u.fit.causes.Objects), len(u.fit.checks.Objects), len(u.open.result.Checks))
 	}
 	ax := u.scan.views[viewer.Axial]
 	if u.scan.overlay == nil || u.evidence.colorBar.Image == nil || u.open.relevance == nil {
 		t.Fatalf("no relevance overlay: %q", u.evidence.ovState.Text)
 	}
-	if !strings.Contains(u.evidence.ovState.Text, "LRP map") {
-		t.Errorf("overlay state %q", u.evidence.ovState.Text)
+	// The map's line says what share of the logit its voxels carry
+	// (overlay.ShareSentence), not a raw key such as "consistency error".
+	if st := u.evidence.ovState.Text; !strings.Contains(st, "LRP map") || !strings.Contains(st, u.open.relevance.ShareSentence()) ||
+		!strings.Contains(st, "The voxels carry") || strings.Contains(st, "consistency error") {
+		t.Errorf("overlay state %q", st)
 	}
 	u.goToPeak()
 	withOverlay := colouredPixels(ax)

@@ -29,7 +29,7 @@ type headPanel struct {
 	anyway   *widget.Button
 }
 
-// maxCauses is how many failed checks the header names.
+// maxCauses is how many causes the header names.
 const maxCauses = 3
 
 // Words of the header.
@@ -105,15 +105,9 @@ func (p *headPanel) show(oc *openCase, withheld bool) {
 	r := oc.result
 	pos := inference.ClassName(oc.card.PositiveClass)
 	if inference.Withheld(r) {
-		// The first causes, required checks first; the rest are in the
-		// Fit check panel below, so the header stays short.
-		causes := inference.VerdictCauses(r)
-		if len(causes) > maxCauses {
-			causes = append(causes[:maxCauses], fmt.Sprintf("and %d more below, under Fit check", len(causes)-maxCauses))
-		}
-		p.setVerdict(colOOD, verdictOOD, strings.Join(causes, "\n"))
+		p.setVerdict(colOOD, verdictOOD, headCauses(r))
 	} else {
-		p.setVerdict(colInDist, verdictIn, "")
+		p.setVerdict(colInDist, verdictIn, inference.FitScoreNote(r))
 	}
 	switch {
 	case oc.unprepared != nil || r.Prepared == nil:
@@ -132,4 +126,27 @@ func (p *headPanel) show(oc *openCase, withheld bool) {
 		p.anyway.Hide()
 	}
 	p.u.reflow()
+}
+
+// headCauses are the header's words for an out-of-distribution result: the
+// first causes (inference.GroupCauses, most severe first), each with its
+// explanation and the checks that saw it by name, then the fit score.
+func headCauses(r *inference.Result) string {
+	causes := r.Causes
+	if causes == nil {
+		causes = inference.GroupCauses(r.Checks)
+	}
+	var lines []string
+	for i, c := range causes {
+		if i == maxCauses {
+			lines = append(lines, fmt.Sprintf("and %s below, under Fit check", inference.Plural(len(causes)-maxCauses, "more cause", "more causes")))
+			break
+		}
+		names := make([]string, len(c.Checks))
+		for j, n := range c.Checks {
+			names[j] = inference.CheckTitle(n)
+		}
+		lines = append(lines, fmt.Sprintf("%s: %s Seen by %s.", inference.CauseTitle(c), c.Explanation, strings.Join(names, ", ")))
+	}
+	return strings.Join(append(lines, inference.FitScoreNote(r)), "\n")
 }

@@ -1,6 +1,7 @@
 package inference
 
 import (
+	"math"
 	"strings"
 
 	"brightfold/inference/fitcheck"
@@ -16,21 +17,64 @@ func Withheld(r *Result) bool {
 }
 
 // VerdictCauses lists the reasons for an out-of-distribution verdict, one
-// short line per failed check, required checks first: the check's title and
-// its value with units against the training limit.
+// line per cause (GroupCauses; most severe first, required before
+// advisory): the cause's title, "(advisory)" when no required check saw it,
+// then the checks that saw it with their values against the training
+// limits. A thick-slice scan gives one line, not one per failed check.
 func VerdictCauses(r *Result) []string {
 	if r == nil {
 		return nil
 	}
-	var out []string
-	for _, c := range r.FailedChecks() {
-		line := CheckTitle(c.Name)
-		if d := CheckDetail(c); d != "" {
-			line += ": " + d
+	causes := r.Causes
+	if causes == nil {
+		causes = GroupCauses(r.Checks)
+	}
+	byName := map[string]fitcheck.Check{}
+	for _, c := range r.Checks {
+		byName[c.Name] = c
+	}
+	out := make([]string, 0, len(causes))
+	for _, c := range causes {
+		out = append(out, CauseTitle(c)+": "+strings.Join(CauseChecks(c, byName), "; "))
+	}
+	return out
+}
+
+// CauseTitle is a cause's title, marked "(advisory)" when it does not
+// decide the verdict.
+func CauseTitle(c Cause) string {
+	if !c.Required {
+		return c.Title + " (advisory)"
+	}
+	return c.Title
+}
+
+// CauseChecks are the checks that saw a cause, most severe first, each as
+// its title with its value against the limit (CheckDetail).
+func CauseChecks(c Cause, byName map[string]fitcheck.Check) []string {
+	out := make([]string, 0, len(c.Checks))
+	for _, n := range c.Checks {
+		line := CheckTitle(n)
+		if d := CheckDetail(byName[n]); d != "" {
+			line += " (" + d + ")"
 		}
 		out = append(out, line)
 	}
 	return out
+}
+
+// FitScoreNote says in plain words what a result's fit score means: how
+// far the scan is beyond the training limits (FitScore), with the rule that
+// above 1 is out of distribution.
+func FitScoreNote(r *Result) string {
+	if r == nil || math.IsNaN(r.FitScore) {
+		return ""
+	}
+	v := FormatValue(r.FitScore)
+	if r.FitScore > 1 {
+		return "Fit score " + v + ": how far the scan is beyond the training limits, multiplied over independent causes (above 1 is out of distribution)."
+	}
+	return "Fit score " + v + ": how close the scan comes to the nearest training limit (1 or below is in distribution)."
 }
 
 // CheckDetail is a check's value with its units beside the training limit,

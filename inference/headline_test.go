@@ -10,8 +10,8 @@ import (
 )
 
 // The headline rules: the probability is withheld for an
-// out-of-distribution verdict and for an unprepared scan; causes name the
-// failed checks, required first, with value and limit in units; the
+// out-of-distribution verdict and for an unprepared scan; causes group the
+// failed checks by cause, required first, with value and limit in units; the
 // prevalence note quotes the card's own words.
 func TestHeadlineRules(t *testing.T) {
 	pass := fitcheck.Check{Name: CheckModality, Value: 1, Threshold: "MR", Pass: true, Required: true}
@@ -24,10 +24,17 @@ func TestHeadlineRules(t *testing.T) {
 	if Withheld(in) || !Withheld(out) || !Withheld(&Result{Verdict: in.Verdict}) || !Withheld(nil) {
 		t.Errorf("Withheld: in %v, out %v, unprepared %v", Withheld(in), Withheld(out), Withheld(&Result{Verdict: in.Verdict}))
 	}
+	// Spacing and slice count are one cause (slice geometry), and the
+	// model's energy score, which reacts to anything unfamiliar, is counted
+	// with it: one line, not three.
 	causes := VerdictCauses(out)
-	want := []string{"Voxel spacing: value 2 mm · limit 0.87 to 1.15 mm", "3D volume: value 25.0 slices · limit ≥ 80 slices", "Energy score"}
-	if len(causes) != 3 || causes[0] != want[0] || causes[1] != want[1] || !strings.HasPrefix(causes[2], want[2]) {
+	want := "Resolution and slice geometry: Voxel spacing (value 2 mm · limit 0.87 to 1.15 mm); 3D volume (value 25.0 slices · limit ≥ 80 slices); Energy score"
+	if len(causes) != 1 || !strings.HasPrefix(causes[0], want) {
 		t.Errorf("causes %q, want %q…", causes, want)
+	}
+	adv := &Result{Checks: []fitcheck.Check{pass, energy}}
+	if got := VerdictCauses(adv); len(got) != 1 || !strings.HasPrefix(got[0], "Unfamiliar to the model (advisory): Energy score") {
+		t.Errorf("advisory cause %q", got)
 	}
 	if d := CheckDetail(fitcheck.Check{Name: CheckPreparation, Value: math.NaN(), Threshold: "the scan can be prepared as the card states"}); strings.Contains(d, "value") {
 		t.Errorf("a rule-limited check shows a value: %q", d)

@@ -1,7 +1,6 @@
 package cohort
 
 import (
-	"bytes"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -151,50 +150,50 @@ func ParseBIDSName(stem string) (entities [][2]string, suffix string, err error)
 
 // ParseParticipants reads a participants.tsv table: a header row with
 // participant_id (values with or without "sub-") and further columns. It
-// returns the column names after participant_id and one map per participant
-// label. "n/a" cells are kept as written.
+// returns the column names (as written) after participant_id and one map per
+// participant label. "n/a" cells are kept as written.
 func ParseParticipants(b []byte) ([]string, map[string]map[string]string, error) {
-	lines := strings.Split(strings.ReplaceAll(string(bytes.TrimPrefix(b, []byte("\ufeff"))), "\r\n", "\n"), "\n")
-	header := strings.Split(lines[0], "\t")
-	idCol := -1
-	for i, h := range header {
-		header[i] = strings.TrimSpace(h)
-		if header[i] == "participant_id" {
-			idCol = i
-		}
-	}
-	if idCol < 0 {
-		return nil, nil, errors.New("no participant_id column in the header")
-	}
+	r := manifest.NewCSVReader(b)
+	r.Comma, r.LazyQuotes, r.FieldsPerRecord = '\t', true, -1
+	var h manifest.Header
 	var cols []string
-	for i, h := range header {
-		if i != idCol && h != "" && h != "notice" {
-			cols = append(cols, h)
-		}
-	}
 	rows := map[string]map[string]string{}
-	for n, line := range lines[1:] {
-		if strings.TrimSpace(line) == "" {
-			continue
+	err := manifest.ReadTable(r, "participants table", func(hd manifest.Header) error {
+		h = hd
+		if !h.Has("participant_id") {
+			return errors.New("no participant_id column in the header")
 		}
-		f := strings.Split(line, "\t")
-		if len(f) != len(header) {
-			return nil, nil, fmt.Errorf("line %d has %d columns, the header %d", n+2, len(f), len(header))
+		for i, n := range h.Raw {
+			if h.Names[i] != "participant_id" && n != "" && h.Names[i] != "notice" {
+				cols = append(cols, n)
+			}
 		}
-		id := bidsLabel(strings.TrimPrefix(strings.TrimSpace(f[idCol]), "sub-"))
+		return nil
+	}, func(line int, f []string) error {
+		if len(f) == 1 && strings.TrimSpace(f[0]) == "" {
+			return nil
+		}
+		if len(f) != len(h.Raw) {
+			return fmt.Errorf("line %d has %d columns, the header %d", line, len(f), len(h.Raw))
+		}
+		id := bidsLabel(strings.TrimPrefix(h.Cell(f, "participant_id"), "sub-"))
 		if id == "" {
-			return nil, nil, fmt.Errorf("line %d: empty participant_id", n+2)
+			return fmt.Errorf("line %d: empty participant_id", line)
 		}
 		if _, dup := rows[id]; dup {
-			return nil, nil, fmt.Errorf("line %d: participant %s appears twice", n+2, id)
+			return fmt.Errorf("line %d: participant %s appears twice", line, id)
 		}
 		row := map[string]string{}
-		for i, h := range header {
-			if i != idCol && h != "" {
-				row[h] = strings.TrimSpace(f[i])
+		for i, n := range h.Raw {
+			if h.Names[i] != "participant_id" && n != "" {
+				row[n] = strings.TrimSpace(f[i])
 			}
 		}
 		rows[id] = row
+		return nil
+	})
+	if err != nil {
+		return nil, nil, err
 	}
 	return cols, rows, nil
 }

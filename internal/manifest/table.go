@@ -17,6 +17,7 @@ import (
 // trimmed, in file order, and where each stands.
 type Header struct {
 	Names []string
+	Raw   []string // the names as written, trimmed
 	index map[string]int
 }
 
@@ -54,6 +55,7 @@ func ReadTable(r *csv.Reader, what string, header func(Header) error, row func(l
 	}
 	h := Header{index: map[string]int{}}
 	for i, n := range names {
+		h.Raw = append(h.Raw, strings.TrimSpace(n))
 		n = strings.ToLower(strings.TrimSpace(n))
 		h.Names = append(h.Names, n)
 		if n == "" {
