@@ -35,13 +35,13 @@ func loadAlignment(fsys fs.FS, dir string, c *Card) error {
 	if !al.Active() {
 		return nil
 	}
-	tpl, err := readFolderVolume(fsys, dir, al.Template)
+	tpl, err := readFolderVolume(fsys, dir, al.Template, al.TemplateSHA256)
 	if err != nil {
 		return fmt.Errorf("card.json: preprocessing.alignment.template: %w", err)
 	}
 	files := &alignmentFiles{template: tpl}
 	if al.Mask != "" {
-		if files.mask, err = readFolderVolume(fsys, dir, al.Mask); err != nil {
+		if files.mask, err = readFolderVolume(fsys, dir, al.Mask, al.MaskSHA256); err != nil {
 			return fmt.Errorf("card.json: preprocessing.alignment.mask: %w", err)
 		}
 	}
@@ -65,10 +65,14 @@ func (c *Card) AlignmentTemplate() (template, mask *volume.Volume) {
 }
 
 // readFolderVolume loads a NIfTI file of the model folder through a
-// private temporary copy (the folder may be a zip).
-func readFolderVolume(fsys fs.FS, dir, name string) (*volume.Volume, error) {
+// private temporary copy (the folder may be a zip), refusing a file whose
+// sha256 differs from want (when want is given).
+func readFolderVolume(fsys fs.FS, dir, name, want string) (*volume.Volume, error) {
 	b, err := readLimited(fsys, path.Join(dir, name), MaxTemplateBytes)
 	if err != nil {
+		return nil, err
+	}
+	if err := checkFileSHA256(name, b, want); err != nil {
 		return nil, err
 	}
 	ext := ".nii"

@@ -12,13 +12,6 @@ import (
 	"brightfold/internal/refcheck"
 )
 
-func kernelNear(t *testing.T, what string, got, want, tol float64) {
-	t.Helper()
-	if math.Abs(got-want) > tol || math.IsNaN(got) {
-		t.Errorf("%s = %.12g, want %.12g (±%g)", what, got, want, tol)
-	}
-}
-
 // Guo et al. 2017, Eq. 3, with M = 15 equal-width bins. Hand example:
 // confidences 0.9, 0.9 (one correct) fall in bin (13/15, 14/15]: accuracy 0.5,
 // confidence 0.9, weight 2/5 → 0.16; confidences 0.62 ×3 (two correct) fall in

@@ -28,16 +28,7 @@ func TestECEIntervalAndBrierAgainstScipy(t *testing.T) {
 		c := max(p, 1-p)
 		conf, correct = append(conf, c), append(correct, (p >= 0.5) == y)
 	}
-	ints := func(b []bool) []int {
-		out := make([]int, len(b))
-		for i, x := range b {
-			if x {
-				out[i] = 1
-			}
-		}
-		return out
-	}
-	job, _ := json.Marshal(map[string]any{"prob": prob, "positive": ints(pos), "conf": conf, "correct": ints(correct), "bins": 15})
+	job, _ := json.Marshal(map[string]any{"prob": prob, "positive": boolsTo01(pos), "conf": conf, "correct": boolsTo01(correct), "bins": 15})
 	f := filepath.Join(t.TempDir(), "job.json")
 	if err := os.WriteFile(f, job, 0o644); err != nil {
 		t.Fatal(err)

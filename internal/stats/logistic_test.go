@@ -24,16 +24,6 @@ func calibrationCase(seed uint64, n int, a, b float64) ([]float64, []bool) {
 	return p, y
 }
 
-func boolsTo01(y []bool) []int {
-	out := make([]int, len(y))
-	for i, v := range y {
-		if v {
-			out[i] = 1
-		}
-	}
-	return out
-}
-
 // TestCalibrationAgainstStatsmodels: calibration intercept, slope and
 // log-likelihoods against statsmodels (GLM with offset; Logit), Brier
 // against sklearn's brier_score_loss; cross-validated AUROC of a ridge
@@ -131,11 +121,4 @@ func TestCalibrationAgainstStatsmodels(t *testing.T) {
 			}
 		}
 	}
-}
-
-func b2f(b bool) float64 {
-	if b {
-		return 1
-	}
-	return 0
 }

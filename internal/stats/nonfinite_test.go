@@ -220,15 +220,6 @@ func FuzzBinomial(f *testing.F) {
 	})
 }
 
-// quantileSortForTest sorts as sort.Float64s does (NaNs first).
-func quantileSortForTest(x []float64) {
-	for i := 1; i < len(x); i++ {
-		for j := i; j > 0 && (x[j] < x[j-1] || math.IsNaN(x[j]) && !math.IsNaN(x[j-1])); j-- {
-			x[j], x[j-1] = x[j-1], x[j]
-		}
-	}
-}
-
 // TestNonFiniteTerminates runs every statistic on NaN and ±Inf input with a
 // deadline and checks the documented result.
 func TestNonFiniteTerminates(t *testing.T) {

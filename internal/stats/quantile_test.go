@@ -23,20 +23,12 @@ func TestSelectQuantileMatchesSort(t *testing.T) {
 			x[i] = math.Round(rng.NormFloat64() * 3) // ties
 		}
 		s := append([]float64(nil), x...)
-		quantileSortFloats(s)
+		quantileSortForTest(s)
 		for _, u := range []float64{0, 0.1, 0.25, 0.5, 0.75, 0.999, 1} {
 			c := append([]float64(nil), x...)
 			if got, want := SelectQuantile(c, u), Quantiles(s, []float64{u})[0]; got != want {
 				t.Fatalf("n %d u %g: select %v, sort %v", n, u, got, want)
 			}
-		}
-	}
-}
-
-func quantileSortFloats(x []float64) {
-	for i := 1; i < len(x); i++ {
-		for j := i; j > 0 && x[j] < x[j-1]; j-- {
-			x[j], x[j-1] = x[j-1], x[j]
 		}
 	}
 }
