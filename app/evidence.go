@@ -69,7 +69,8 @@ type evidencePanel struct {
 	signed      *widget.Check
 	peak        *widget.Button
 	export      *widget.Button
-	mapInfo     string // what the shown map is, with its own check
+	report      *widget.Button // the one-page case report (internal/report)
+	mapInfo     string         // what the shown map is, with its own check
 	quiet       bool
 }
 
@@ -133,6 +134,7 @@ func newEvidencePanel(u *UI) *evidencePanel {
 	p.peak = widget.NewButtonWithIcon("Go to the strongest relevance", theme.ZoomFitIcon(), u.goToPeak)
 	p.peak.Disable()
 	p.export = widget.NewButtonWithIcon("Export view as PNG", theme.DocumentSaveIcon(), u.exportView)
+	p.report = widget.NewButtonWithIcon("Case report (PDF)", theme.DocumentPrintIcon(), u.exportCaseReport)
 
 	form := container.New(&labelledRows{},
 		widget.NewLabel("Opacity"), p.opacity, p.opacityVal,
@@ -146,7 +148,7 @@ func newEvidencePanel(u *UI) *evidencePanel {
 		p.about,
 		form, p.signed,
 		p.colorBar, p.ovState, p.peak,
-		p.export,
+		container.NewGridWithColumns(2, p.export, p.report),
 	)
 	p.clear()
 	return p

@@ -78,23 +78,27 @@ func (u *UI) exportName() string {
 	return fmt.Sprintf("%s-%s-%s.png", code, what, u.scan.order[0])
 }
 
-// exportView saves the current view as PNG. Outside Meeting mode a save
-// dialog asks where; in Meeting mode (where a file dialog would show folder
-// names) it goes to the export folder and only the file name is shown.
+// exportView saves the current view as PNG.
 func (u *UI) exportView() {
 	img, err := u.exportImage()
 	if err != nil {
 		u.fail(err)
 		return
 	}
-	write := func(w io.Writer) error { return png.Encode(w, img) }
+	u.saveExport(u.exportName(), func(w io.Writer) error { return png.Encode(w, img) })
+}
+
+// saveExport writes an export through write. Outside Meeting mode a save
+// dialog asks where; in Meeting mode (where a file dialog would show folder
+// names) it goes to the export folder and only the file name is shown.
+func (u *UI) saveExport(name string, write func(io.Writer) error) {
 	if u.meeting {
 		dir, err := exportDir()
 		if err != nil {
 			u.fail(err)
 			return
 		}
-		name := uniqueName(dir, u.exportName())
+		name = uniqueName(dir, name)
 		if err := atomicfile.Write(filepath.Join(dir, name), write); err != nil {
 			u.fail(err)
 			return
@@ -118,7 +122,7 @@ func (u *UI) exportView() {
 		}
 		u.say("Exported " + filepath.Base(path))
 	}, u.win)
-	d.SetFileName(u.exportName())
+	d.SetFileName(name)
 	if dir, err := exportDir(); err == nil {
 		if l, err := storage.ListerForURI(storage.NewFileURI(dir)); err == nil {
 			d.SetLocation(l)

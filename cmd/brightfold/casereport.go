@@ -74,21 +74,11 @@ func caseReportReads(o caseReportOptions, paths []string, cr *report.CaseReport)
 	if found == nil {
 		return inputerr.New(o.session, "no case %s in this session (give --case CODE)", map[bool]string{true: o.code, false: "for this scan"}[o.code != ""])
 	}
-	cur, err := s.CurrentReads()
-	if err != nil {
+	if cr.Reads, err = s.CaseReads(found.Code); err != nil {
 		return err
 	}
-	for _, p := range []reading.Phase{reading.Unaided, reading.Aided} {
-		if r, ok := cur[found.Code][p]; ok {
-			cr.Reads = append(cr.Reads, report.CaseRead{Condition: string(p), Rating: r.Rating,
-				Confidence: r.Confidence, Locked: r.Locked, Amendments: r.Amendments})
-		}
-	}
 	cr.Reader = s.Meta.Reader
-	cr.Label = found.Code
-	if !o.meeting {
-		cr.Label = fmt.Sprintf("%s (%s)", found.Code, filepath.Base(paths[0]))
-	}
+	cr.Label = report.CaseLabel(found.Code, filepath.Base(paths[0]), o.meeting)
 	return nil
 }
 

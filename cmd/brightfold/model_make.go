@@ -24,7 +24,7 @@ import (
 	"brightfold/internal/ortlib"
 )
 
-const modelMakeUsage = "usage: brightfold model make MODEL.onnx --cases CASES --classes NEG,POS --out DIR [--spec SPEC.json] [--spacing MM] [--shape X,Y,Z] [--intensity zscore-head|percentile-minmax] [--name N --version V] [--intended-use TEXT --training-data TEXT] [--seed S]"
+const modelMakeUsage = "usage: brightfold model make MODEL.onnx --cases CASES --classes NEG,POS --out DIR [--spec SPEC.json] [--spacing MM] [--shape X,Y,Z] [--intensity zscore-head|percentile-minmax] [--name N --version V] [--intended-use TEXT --training-data TEXT] [--seed S] [--template FILE | --build-template] [--align rigid|affine] [--metric ncc|mi]"
 
 // runModelMake makes a model folder from an exported ONNX model and the
 // group's labelled cases (package inference/modelmake).
@@ -53,6 +53,7 @@ func runModelMake(e *env, args []string) error {
 	fs.StringVar(&ov.Activation, "activation", "", "softmax or sigmoid (default: by the number of logits)")
 	ortLib := fs.String("ort-lib", "", "path of the ONNX Runtime library "+ortlib.FileName)
 	threads := fs.Int("threads", 0, "ONNX Runtime intra-op threads (default: all cores)")
+	align := templateFlags(fs)
 	fs.Usage = func() { fmt.Fprintln(e.stderr, modelMakeUsage); fs.PrintDefaults() }
 	pos, err := parseFlags(fs, args)
 	if err != nil {
@@ -106,7 +107,7 @@ func runModelMake(e *env, args []string) error {
 	opt := modelmake.Options{Classes: splitList(*classes), Spec: spec, Name: *name, Version: *version,
 		IntendedUse: *intended, TrainingData: *training, Seed: *seed, ValidationFraction: *valFrac,
 		SkipUnreadable: *skip, Threads: *threads, Progress: prog,
-		Log: func(f string, a ...any) { fmt.Fprintf(e.stderr, f+"\n", a...) }}
+		Log: func(f string, a ...any) { fmt.Fprintf(e.stderr, f+"\n", a...) }, Align: align.options()}
 	t0 := time.Now()
 	res, err := modelmake.Make(ctx, pos[0], model, g, m, opt)
 	finish(err == nil)
@@ -119,7 +120,7 @@ func runModelMake(e *env, args []string) error {
 	for _, u := range res.Unreadable {
 		fmt.Fprintln(e.stderr, "skipped (cannot be prepared): "+u)
 	}
-	if err := writeFolderWhole(*out, res.Card, res.Model); err != nil {
+	if err := writeFolderWhole(*out, res.Card, res.Model, res.Files); err != nil {
 		return err
 	}
 	fmt.Fprintf(e.stdout, "%s\nwrote %s from %d cases in %.1f s (%.2f cases/s)\n", notice.Full, *out, len(res.Cases), time.Since(t0).Seconds(),
@@ -212,13 +213,13 @@ func splitList(s string) []string {
 
 // writeFolderWhole writes the model folder into a temporary sibling and
 // renames it into place, so that the folder appears complete or not at all.
-func writeFolderWhole(dir string, card *inference.Card, model []byte) error {
+func writeFolderWhole(dir string, card *inference.Card, model []byte, extra map[string][]byte) error {
 	parent := filepath.Dir(filepath.Clean(dir))
 	tmp, err := os.MkdirTemp(parent, "."+filepath.Base(dir)+".partial-")
 	if err != nil {
 		return inputerr.Wrap(dir, err)
 	}
-	if err := inference.WriteModelFolderDir(tmp, card, model); err != nil {
+	if err := inference.WriteModelFolderFiles(tmp, card, model, extra); err != nil {
 		os.RemoveAll(tmp)
 		return fmt.Errorf("write %s: %w", dir, err)
 	}

@@ -44,6 +44,8 @@ type Options struct {
 	Progress func(done, total int)
 	// Log, when set, receives a line per stage.
 	Log func(format string, args ...any)
+	// Align, when set, aligns every case to a template first (template.go).
+	Align *Alignment
 }
 
 // Case is one prepared and scored case: only what the fit needs.
@@ -52,6 +54,8 @@ type Case struct {
 	Site  string
 	Split string
 	Fit   inference.FitCase
+	// AlignValue is the final metric of the alignment to the template.
+	AlignValue float64
 }
 
 // Result is what Make returns.
@@ -60,6 +64,8 @@ type Result struct {
 	Model      []byte
 	Cases      []Case   // every case used, in manifest order
 	Unreadable []string // "path: reason" of the scans skipped
+	// Files are further files of the model folder (the template), by name.
+	Files map[string][]byte
 }
 
 // Make builds a card for model from the manifest's cases. The ONNX Runtime
@@ -89,6 +95,9 @@ func Make(ctx context.Context, source string, model []byte, g Graph, m *manifest
 	defer sess.Close()
 	splits := assignSplits(m, labels, opt)
 	res := &Result{Model: model}
+	if err := setupAlignment(ctx, card, m, splits, opt, res); err != nil {
+		return nil, err
+	}
 	cases, unreadable, err := runCases(ctx, sess, card, m, labels, splits, opt)
 	if err != nil {
 		return nil, err
@@ -97,6 +106,7 @@ func Make(ctx context.Context, source string, model []byte, g Graph, m *manifest
 		return nil, inputerr.New(m.Source, "%d scan(s) cannot be prepared (use --skip-unreadable to leave them out): %s", len(unreadable), strings.Join(unreadable, "; "))
 	}
 	res.Cases, res.Unreadable = cases, unreadable
+	fitMetricRange(card, cases)
 	if err := fitCard(card, res, m, g, opt); err != nil {
 		return nil, err
 	}
@@ -271,7 +281,7 @@ func runCases(ctx context.Context, sess *inference.Session, card *inference.Card
 		for j, k := range at {
 			c := m.Cases[lo+k]
 			cases = append(cases, Case{ID: c.ID, Site: c.Site, Split: splits[lo+k],
-				Fit: inference.FitCase{Facts: facts[k], Output: outs[j], Label: labels[lo+k]}})
+				Fit: inference.FitCase{Facts: facts[k], Output: outs[j], Label: labels[lo+k]}, AlignValue: alignValue(prs[k])})
 		}
 		done = hi
 		if opt.Progress != nil {

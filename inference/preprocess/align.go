@@ -30,6 +30,13 @@ type Alignment struct {
 	// for the alignment-quality fit check; absent means fixed plausibility
 	// limits only.
 	MetricRange *[2]float64 `json:"metric_range,omitempty"`
+	// MetricRangeMethod says how MetricRange was fitted.
+	MetricRangeMethod string `json:"metric_range_method,omitempty"`
+	// TemplateSHA256 and MaskSHA256 are the sha256 of the template and
+	// mask files; when given, loading the model folder refuses a file that
+	// does not match (model make always writes them).
+	TemplateSHA256 string `json:"template_sha256,omitempty"`
+	MaskSHA256     string `json:"mask_sha256,omitempty"`
 }
 
 // Active reports whether the card asks for alignment.
@@ -70,10 +77,28 @@ func (a *Alignment) validate() error {
 	if a.Metric != "" && a.Metric != "ncc" && a.Metric != "mi" {
 		return fieldError("preprocessing.alignment.metric", "want \"ncc\" or \"mi\", got %q", a.Metric)
 	}
+	for _, h := range [][2]string{{"template_sha256", a.TemplateSHA256}, {"mask_sha256", a.MaskSHA256}} {
+		if h[1] != "" && !isSHA256Hex(h[1]) {
+			return fieldError("preprocessing.alignment."+h[0], "want 64 lower-case hex digits, got %q", h[1])
+		}
+	}
 	if r := a.MetricRange; r != nil && !(r[0] <= r[1]) {
 		return fieldError("preprocessing.alignment.metric_range", "want [low, high] with low ≤ high, got %v", *r)
 	}
 	return nil
+}
+
+// isSHA256Hex reports whether s is 64 lower-case hex digits.
+func isSHA256Hex(s string) bool {
+	if len(s) != 64 {
+		return false
+	}
+	for _, r := range s {
+		if !(r >= '0' && r <= '9' || r >= 'a' && r <= 'f') {
+			return false
+		}
+	}
+	return true
 }
 
 // folderFileName accepts a plain file name inside the model folder.

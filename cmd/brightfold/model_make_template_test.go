@@ -1,0 +1,193 @@
+package main
+
+import (
+	"encoding/json"
+	"fmt"
+	"math"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"brightfold/inference"
+	"brightfold/inference/fitcheck"
+	"brightfold/internal/phantom"
+	"brightfold/internal/refcheck"
+	"brightfold/internal/volume"
+	"brightfold/internal/volume/nifti"
+)
+
+// templateCases writes coarse (4 mm) phantoms of seed 42 until each class
+// has perClass cases, alternately calibration and validation, and returns
+// the manifest's path.
+func templateCases(t *testing.T, dir string, perClass int) string {
+	t.Helper()
+	n := [2]int{}
+	rows := []string{"path,label,split"}
+	for i := 0; n[0] < perClass || n[1] < perClass; i++ {
+		c, err := phantom.Generate(42, i, phantom.Options{VoxelMM: 4})
+		if err != nil {
+			t.Fatal(err)
+		}
+		l := c.Subject.Label
+		if n[l] >= perClass {
+			continue
+		}
+		p := filepath.Join(dir, fmt.Sprintf("case-%03d.nii.gz", i))
+		if err := nifti.Write(p, c.Volume, nifti.WriteOptions{}); err != nil {
+			t.Fatal(err)
+		}
+		split := []string{"calibration", "validation"}[n[l]%2]
+		n[l]++
+		rows = append(rows, fmt.Sprintf("%s,%s,%s", filepath.Base(p), []string{"no_pattern", "atrophy_pattern"}[l], split))
+	}
+	man := filepath.Join(dir, "cases.csv")
+	if err := os.WriteFile(man, []byte(strings.Join(rows, "\n")+"\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return man
+}
+
+// movedPhantom writes phantom (seed 43) i with its world moved by m (the
+// voxels stay; the affine becomes m·affine).
+func movedPhantom(t *testing.T, dir, name string, i int, m volume.Affine) string {
+	t.Helper()
+	c, err := phantom.Generate(43, i, phantom.Options{VoxelMM: 4})
+	if err != nil {
+		t.Fatal(err)
+	}
+	v := c.Volume
+	v.Affine = m.Mul(v.Affine)
+	p := filepath.Join(dir, name+".nii.gz")
+	if err := nifti.Write(p, v, nifti.WriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
+
+// alignmentCheck scores scan with the model folder and returns its
+// alignment_quality check.
+func alignmentCheck(t *testing.T, scan, mf, lib string) fitcheck.Check {
+	t.Helper()
+	js, _ := runBF(t, "score", scan, "--model", mf, "--json", "--ort-lib", lib)
+	var s struct {
+		OOD struct {
+			Checks []fitcheck.Check `json:"checks"`
+		} `json:"ood"`
+	}
+	if err := json.Unmarshal([]byte(js), &s); err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range s.OOD.Checks {
+		if c.Name == inference.CheckAlignment {
+			return c
+		}
+	}
+	t.Fatalf("score of %s has no %s check:\n%s", scan, inference.CheckAlignment, js)
+	return fitcheck.Check{}
+}
+
+// sha256sum is GNU coreutils' sha256 of a file (the outside reference for
+// the card's template_sha256).
+func sha256sum(t *testing.T, p string) string {
+	t.Helper()
+	refcheck.Path(t, "/usr/bin/sha256sum")
+	out, err := exec.Command("/usr/bin/sha256sum", p).Output()
+	if err != nil {
+		t.Fatal(err)
+	}
+	return strings.Fields(string(out))[0]
+}
+
+// TestModelMakeTemplate: `model make --template` (and --build-template)
+// with the demo model on 4 mm phantoms copies (builds) the template into
+// the model folder, records its sha256 (checked against coreutils
+// sha256sum) and the calibration cases' metric range; a tampered template
+// is refused on load; `score` of a rotated and shifted phantom passes the
+// alignment check and a phantom squashed to 0.6 of its height fails it.
+func TestModelMakeTemplate(t *testing.T) {
+	lib := refcheck.ORTLib(t)
+	model := filepath.Join(refcheck.RepoRoot(), "assets", "demo-model", "model.onnx")
+	dir := t.TempDir()
+	man := templateCases(t, dir, 10)
+	tc, err := phantom.Generate(7, 0, phantom.Options{VoxelMM: 4})
+	if err != nil {
+		t.Fatal(err)
+	}
+	tpl := filepath.Join(dir, "given-template.nii.gz")
+	if err := nifti.Write(tpl, tc.Volume, nifti.WriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	cz, sz := math.Cos(10*math.Pi/180), math.Sin(10*math.Pi/180)
+	moved := movedPhantom(t, dir, "moved", 0, volume.Affine{{cz, -sz, 0, 6}, {sz, cz, 0, -4}, {0, 0, 1, 3}, {0, 0, 0, 1}})
+	squashed := movedPhantom(t, dir, "squashed", 1, volume.Affine{{1, 0, 0, 0}, {0, 1, 0, 0}, {0, 0, 0.6, 0}, {0, 0, 0, 1}})
+
+	for _, mode := range []string{"given", "built"} {
+		t.Run(mode, func(t *testing.T) {
+			mf := filepath.Join(dir, "mf-"+mode)
+			args := []string{"model", "make", model, "--cases", man, "--classes", "no_pattern,atrophy_pattern",
+				"--out", mf, "--ort-lib", lib, "--spacing", "4", "--align", "affine"}
+			if mode == "given" {
+				args = append(args, "--template", tpl)
+			} else {
+				args = append(args, "--build-template")
+			}
+			runBF(t, args...)
+			folder, err := inference.LoadModelFolder(mf)
+			if err != nil {
+				t.Fatal(err)
+			}
+			al := folder.Card.Preprocessing.Alignment
+			if al == nil || al.Method != "affine" || al.Metric != "ncc" || al.Template != "template.nii.gz" {
+				t.Fatalf("card alignment %+v", al)
+			}
+			inFolder := filepath.Join(mf, al.Template)
+			if got := sha256sum(t, inFolder); al.TemplateSHA256 != got {
+				t.Errorf("card template_sha256 %s, sha256sum %s", al.TemplateSHA256, got)
+			}
+			if mode == "given" {
+				if a, b := sha256sum(t, tpl), sha256sum(t, inFolder); a != b {
+					t.Errorf("the folder's template is not a byte copy of the given one (%s vs %s)", b, a)
+				}
+			} else {
+				v, err := volume.Load([]string{inFolder}, volume.LoadOptions{})
+				if err != nil {
+					t.Fatal(err)
+				}
+				if !strings.Contains(v.Meta.Description, "Research") {
+					t.Errorf("built template descrip %q lacks the notice", v.Meta.Description)
+				}
+			}
+			r := al.MetricRange
+			if r == nil || !(r[0] > 0.5 && r[0] <= r[1] && r[1] <= 1) || !strings.Contains(al.MetricRangeMethod, "10 calibration cases") {
+				t.Fatalf("metric_range %v (%q): want the 10 calibration cases' NCC range inside (0.5, 1]", r, al.MetricRangeMethod)
+			}
+			t.Logf("%s template: calibration NCC range %.4f to %.4f", mode, r[0], r[1])
+
+			if ch := alignmentCheck(t, moved, mf, lib); !ch.Pass || !strings.Contains(ch.Threshold, "calibration") {
+				t.Errorf("rotated 10° and shifted phantom: %+v, want a pass against the calibration range", ch)
+			} else {
+				t.Logf("moved: ncc %.4f, %s", ch.Value, ch.Explanation)
+			}
+			if ch := alignmentCheck(t, squashed, mf, lib); ch.Pass || !strings.Contains(ch.Explanation, "could not be matched") {
+				t.Errorf("phantom squashed to 0.6 of its height: %+v, want a failure", ch)
+			} else {
+				t.Logf("squashed: %s", ch.Explanation)
+			}
+
+			// a swapped template is refused when the folder is loaded
+			b, err := os.ReadFile(inFolder)
+			if err != nil {
+				t.Fatal(err)
+			}
+			b[len(b)/2] ^= 0xff
+			if err := os.WriteFile(inFolder, b, 0o644); err != nil {
+				t.Fatal(err)
+			}
+			if _, err := inference.LoadModelFolder(mf); err == nil || !strings.Contains(err.Error(), "sha256") {
+				t.Errorf("tampered template: got %v, want a sha256 refusal", err)
+			}
+		})
+	}
+}
