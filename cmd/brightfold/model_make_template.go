@@ -2,6 +2,7 @@ package main
 
 import (
 	"flag"
+	"fmt"
 	"os"
 
 	"brightfold/inference/modelmake"
@@ -45,4 +46,23 @@ func (a templateArgs) options() (*modelmake.Alignment, error) {
 		}
 	}
 	return &modelmake.Alignment{Method: *a.align, Metric: *a.metric, TemplatePath: *a.template, Build: *a.build}, nil
+}
+
+// alignmentText describes the card's alignment for model show.
+func alignmentText(al *preprocess.Alignment) string {
+	s := fmt.Sprintf("%s to %s (sha256 %s), metric %s", al.Method, al.Template, orNone(al.TemplateSHA256), orNone(al.Metric))
+	if al.Mask != "" {
+		s += fmt.Sprintf(", mask %s (sha256 %s)", al.Mask, orNone(al.MaskSHA256))
+	}
+	if r := al.MetricRange; r != nil {
+		s += fmt.Sprintf("; calibration range %.4f to %.4f: %s", r[0], r[1], al.MetricRangeMethod)
+	}
+	return s
+}
+
+func orNone(s string) string {
+	if s == "" {
+		return "not recorded"
+	}
+	return s
 }

@@ -164,6 +164,9 @@ func TestModelMakeTemplate(t *testing.T) {
 				t.Fatalf("metric_range %v (%q): want the 10 calibration cases' NCC range inside (0.5, 1]", r, al.MetricRangeMethod)
 			}
 			t.Logf("%s template: calibration NCC range %.4f to %.4f", mode, r[0], r[1])
+			if show, _ := runBF(t, "model", "show", mf); !strings.Contains(show, "affine to template.nii.gz (sha256 "+al.TemplateSHA256) {
+				t.Errorf("model show lacks the alignment line:\n%s", show)
+			}
 
 			if ch := alignmentCheck(t, moved, mf, lib); !ch.Pass || !strings.Contains(ch.Threshold, "calibration") {
 				t.Errorf("rotated 10° and shifted phantom: %+v, want a pass against the calibration range", ch)
