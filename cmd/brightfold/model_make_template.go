@@ -2,9 +2,11 @@ package main
 
 import (
 	"flag"
+	"os"
 
 	"brightfold/inference/modelmake"
 	"brightfold/inference/preprocess"
+	"brightfold/internal/inputerr"
 )
 
 // templateArgs are model make's alignment flags.
@@ -24,10 +26,23 @@ func templateFlags(fs *flag.FlagSet) templateArgs {
 	}
 }
 
-// options is nil without --template and --build-template.
-func (a templateArgs) options() *modelmake.Alignment {
-	if *a.template == "" && !*a.build {
-		return nil
+// options checks the flags before any work and returns nil without
+// --template and --build-template.
+func (a templateArgs) options() (*modelmake.Alignment, error) {
+	switch {
+	case *a.template != "" && *a.build:
+		return nil, usageError("give --template FILE or --build-template, not both")
+	case *a.align != preprocess.AlignRigid && *a.align != preprocess.AlignAffine:
+		return nil, usageError("--align: want %s or %s, got %q", preprocess.AlignRigid, preprocess.AlignAffine, *a.align)
+	case *a.metric != "ncc" && *a.metric != "mi":
+		return nil, usageError("--metric: want ncc or mi, got %q", *a.metric)
+	case *a.template == "" && !*a.build:
+		return nil, nil
 	}
-	return &modelmake.Alignment{Method: *a.align, Metric: *a.metric, TemplatePath: *a.template, Build: *a.build}
+	if *a.template != "" {
+		if _, err := os.Stat(*a.template); err != nil {
+			return nil, inputerr.Wrap(*a.template, err)
+		}
+	}
+	return &modelmake.Alignment{Method: *a.align, Metric: *a.metric, TemplatePath: *a.template, Build: *a.build}, nil
 }

@@ -191,3 +191,31 @@ func TestModelMakeTemplate(t *testing.T) {
 		})
 	}
 }
+
+// TestModelMakeTemplateRefusals: contradictory or unknown alignment flags
+// and a missing template are refused at once with exit 2, nothing written.
+func TestModelMakeTemplateRefusals(t *testing.T) {
+	dir := t.TempDir()
+	model := filepath.Join(refcheck.RepoRoot(), "assets", "demo-model", "model.onnx")
+	man := filepath.Join(dir, "m.csv")
+	os.WriteFile(man, []byte("path,label\nx.nii,a\n"), 0o644)
+	base := []string{"model", "make", model, "--cases", man, "--classes", "a,b", "--out", filepath.Join(dir, "o")}
+	missing := filepath.Join(dir, "none.nii.gz")
+	for _, c := range []struct {
+		extra []string
+		want  string
+	}{
+		{[]string{"--template", missing, "--build-template"}, "not both"},
+		{[]string{"--build-template", "--align", "warp"}, "--align: want rigid or affine"},
+		{[]string{"--build-template", "--metric", "ssd"}, "--metric: want ncc or mi"},
+		{[]string{"--template", missing}, "none.nii.gz"},
+	} {
+		code, _, stderr := runCLI(append(append([]string{}, base...), c.extra...)...)
+		if code != 2 || !strings.Contains(stderr, c.want) {
+			t.Errorf("%v: exit %d, %q; want exit 2 with %q", c.extra, code, stderr, c.want)
+		}
+	}
+	if _, err := os.Stat(filepath.Join(dir, "o")); err == nil {
+		t.Error("a refused model make left a folder")
+	}
+}
