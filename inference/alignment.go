@@ -26,6 +26,7 @@ const MaxTemplateBytes = 256 << 20
 // preprocessing.alignment names, loaded with the model folder.
 type alignmentFiles struct {
 	template, mask *volume.Volume
+	raw            map[string][]byte // the files' bytes by name (folders read from disk)
 }
 
 // loadAlignment reads the template and mask files the card names from the
@@ -35,13 +36,13 @@ func loadAlignment(fsys fs.FS, dir string, c *Card) error {
 	if !al.Active() {
 		return nil
 	}
-	tpl, err := readFolderVolume(fsys, dir, al.Template, al.TemplateSHA256)
-	if err != nil {
+	files := &alignmentFiles{raw: map[string][]byte{}}
+	var err error
+	if files.template, err = readFolderVolume(fsys, dir, al.Template, al.TemplateSHA256, files.raw); err != nil {
 		return fmt.Errorf("card.json: preprocessing.alignment.template: %w", err)
 	}
-	files := &alignmentFiles{template: tpl}
 	if al.Mask != "" {
-		if files.mask, err = readFolderVolume(fsys, dir, al.Mask, al.MaskSHA256); err != nil {
+		if files.mask, err = readFolderVolume(fsys, dir, al.Mask, al.MaskSHA256, files.raw); err != nil {
 			return fmt.Errorf("card.json: preprocessing.alignment.mask: %w", err)
 		}
 	}
@@ -52,7 +53,7 @@ func loadAlignment(fsys fs.FS, dir string, c *Card) error {
 // SetAlignmentFiles gives a card built in memory its template and mask
 // (LoadModelFolder does this for cards read from a folder).
 func (c *Card) SetAlignmentFiles(template, mask *volume.Volume) {
-	c.alignment = &alignmentFiles{template, mask}
+	c.alignment = &alignmentFiles{template: template, mask: mask}
 }
 
 // AlignmentTemplate returns the loaded template and mask (nil when the
@@ -66,8 +67,8 @@ func (c *Card) AlignmentTemplate() (template, mask *volume.Volume) {
 
 // readFolderVolume loads a NIfTI file of the model folder through a
 // private temporary copy (the folder may be a zip), refusing a file whose
-// sha256 differs from want (when want is given).
-func readFolderVolume(fsys fs.FS, dir, name, want string) (*volume.Volume, error) {
+// sha256 differs from want (when want is given); the bytes go into raw.
+func readFolderVolume(fsys fs.FS, dir, name, want string, raw map[string][]byte) (*volume.Volume, error) {
 	b, err := readLimited(fsys, path.Join(dir, name), MaxTemplateBytes)
 	if err != nil {
 		return nil, err
@@ -75,6 +76,7 @@ func readFolderVolume(fsys fs.FS, dir, name, want string) (*volume.Volume, error
 	if err := checkFileSHA256(name, b, want); err != nil {
 		return nil, err
 	}
+	raw[name] = b
 	ext := ".nii"
 	if strings.HasSuffix(strings.ToLower(name), ".nii.gz") {
 		ext = ".nii.gz"

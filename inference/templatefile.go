@@ -52,3 +52,13 @@ func WriteModelFolderFiles(dir string, card *Card, model []byte, extra map[strin
 	}
 	return nil
 }
+
+// AlignmentFileBytes returns the template and mask files of a card loaded
+// from a model folder, by name, so that a derived folder (model
+// recalibrate) carries them unchanged; nil when the card does not align.
+func (c *Card) AlignmentFileBytes() map[string][]byte {
+	if c.alignment == nil {
+		return nil
+	}
+	return c.alignment.raw
+}

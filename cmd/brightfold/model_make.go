@@ -65,6 +65,10 @@ func runModelMake(e *env, args []string) error {
 	if _, err := os.Stat(*out); err == nil {
 		return inputerr.New(*out, "already exists; model make creates a new model folder (remove it or choose another --out)")
 	}
+	alignOpt, err := align.options()
+	if err != nil {
+		return err
+	}
 	model, err := readModelFile(pos[0])
 	if err != nil {
 		return err
@@ -107,7 +111,7 @@ func runModelMake(e *env, args []string) error {
 	opt := modelmake.Options{Classes: splitList(*classes), Spec: spec, Name: *name, Version: *version,
 		IntendedUse: *intended, TrainingData: *training, Seed: *seed, ValidationFraction: *valFrac,
 		SkipUnreadable: *skip, Threads: *threads, Progress: prog,
-		Log: func(f string, a ...any) { fmt.Fprintf(e.stderr, f+"\n", a...) }, Align: align.options()}
+		Log: func(f string, a ...any) { fmt.Fprintf(e.stderr, f+"\n", a...) }, Align: alignOpt}
 	t0 := time.Now()
 	res, err := modelmake.Make(ctx, pos[0], model, g, m, opt)
 	finish(err == nil)

@@ -164,6 +164,9 @@ func TestModelMakeTemplate(t *testing.T) {
 				t.Fatalf("metric_range %v (%q): want the 10 calibration cases' NCC range inside (0.5, 1]", r, al.MetricRangeMethod)
 			}
 			t.Logf("%s template: calibration NCC range %.4f to %.4f", mode, r[0], r[1])
+			if show, _ := runBF(t, "model", "show", mf); !strings.Contains(show, "affine to template.nii.gz (sha256 "+al.TemplateSHA256) {
+				t.Errorf("model show lacks the alignment line:\n%s", show)
+			}
 
 			if ch := alignmentCheck(t, moved, mf, lib); !ch.Pass || !strings.Contains(ch.Threshold, "calibration") {
 				t.Errorf("rotated 10° and shifted phantom: %+v, want a pass against the calibration range", ch)
@@ -189,5 +192,33 @@ func TestModelMakeTemplate(t *testing.T) {
 				t.Errorf("tampered template: got %v, want a sha256 refusal", err)
 			}
 		})
+	}
+}
+
+// TestModelMakeTemplateRefusals: contradictory or unknown alignment flags
+// and a missing template are refused at once with exit 2, nothing written.
+func TestModelMakeTemplateRefusals(t *testing.T) {
+	dir := t.TempDir()
+	model := filepath.Join(refcheck.RepoRoot(), "assets", "demo-model", "model.onnx")
+	man := filepath.Join(dir, "m.csv")
+	os.WriteFile(man, []byte("path,label\nx.nii,a\n"), 0o644)
+	base := []string{"model", "make", model, "--cases", man, "--classes", "a,b", "--out", filepath.Join(dir, "o")}
+	missing := filepath.Join(dir, "none.nii.gz")
+	for _, c := range []struct {
+		extra []string
+		want  string
+	}{
+		{[]string{"--template", missing, "--build-template"}, "not both"},
+		{[]string{"--build-template", "--align", "warp"}, "--align: want rigid or affine"},
+		{[]string{"--build-template", "--metric", "ssd"}, "--metric: want ncc or mi"},
+		{[]string{"--template", missing}, "none.nii.gz"},
+	} {
+		code, _, stderr := runCLI(append(append([]string{}, base...), c.extra...)...)
+		if code != 2 || !strings.Contains(stderr, c.want) {
+			t.Errorf("%v: exit %d, %q; want exit 2 with %q", c.extra, code, stderr, c.want)
+		}
+	}
+	if _, err := os.Stat(filepath.Join(dir, "o")); err == nil {
+		t.Error("a refused model make left a folder")
 	}
 }

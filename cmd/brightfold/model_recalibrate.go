@@ -73,7 +73,7 @@ func runModelRecalibrate(e *env, args []string) error {
 		}
 		return err
 	}
-	if err := writeFolderWhole(*out, card, mf.Model, nil); err != nil {
+	if err := writeFolderWhole(*out, card, mf.Model, mf.Card.AlignmentFileBytes()); err != nil {
 		return err
 	}
 	r := card.Provenance.Recalibration

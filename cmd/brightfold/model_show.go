@@ -85,6 +85,9 @@ func writeModelCard(w io.Writer, mf *inference.ModelFolder, md bool) {
 		c.Preprocessing.Shape[0], c.Preprocessing.Shape[1], c.Preprocessing.Shape[2], c.Preprocessing.SpacingMm[0], c.Preprocessing.SpacingMm[1], c.Preprocessing.SpacingMm[2],
 		c.Preprocessing.Orientation, c.Preprocessing.Intensity.Method)
 	cw.item("model.onnx sha256", "%s", c.ModelSHA256)
+	if al := c.Preprocessing.Alignment; al.Active() {
+		cw.item("Alignment", "%s", alignmentText(al))
+	}
 	cw.item("Calibration", "temperature %.4g: %s", c.Calibration.Temperature, c.Calibration.Method)
 	if l := c.Calibration.Logistic; l != nil {
 		cw.item("Logistic recalibration", "logit ↦ %.4f + %.4f · logit (%s)", l.Intercept, l.Slope, l.FittedOn)

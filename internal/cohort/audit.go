@@ -254,13 +254,7 @@ func ece(p []float64, y []bool) float64 {
 }
 
 func bootIv(p []float64, y []bool, opt AuditOptions, f func([]float64, []bool) float64) Interval {
-	pp, yy := make([]float64, len(p)), make([]bool, len(p))
-	b, err := stats.Bootstrap(len(p), opt.Bootstrap, opt.Seed, 0.95, func(idx []int) float64 {
-		for k, i := range idx {
-			pp[k], yy[k] = p[i], y[i]
-		}
-		return f(pp[:len(idx)], yy[:len(idx)])
-	})
+	b, err := stats.BootstrapPairs(p, y, opt.Bootstrap, opt.Seed, 0.95, f)
 	if err != nil {
 		return nanIv("bootstrap")
 	}

@@ -2,6 +2,7 @@ package stats
 
 import (
 	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"sort"
@@ -47,4 +48,20 @@ func Bootstrap(n, reps int, seed uint64, level float64, stat func(idx []int) flo
 	a := (1 - level) / 2
 	out.Lo, out.Hi = Quantile(vals, a), Quantile(vals, 1-a)
 	return out, nil
+}
+
+// BootstrapPairs is Bootstrap of stat over paired cases (a value and an
+// outcome each, such as a probability and the truth): each resample hands
+// stat the resampled pairs, in the resampled order.
+func BootstrapPairs(x []float64, y []bool, reps int, seed uint64, level float64, stat func(x []float64, y []bool) float64) (BootstrapInterval, error) {
+	if len(x) != len(y) {
+		return BootstrapInterval{}, fmt.Errorf("bootstrap: %d values but %d outcomes", len(x), len(y))
+	}
+	bx, by := make([]float64, len(x)), make([]bool, len(x))
+	return Bootstrap(len(x), reps, seed, level, func(idx []int) float64 {
+		for k, i := range idx {
+			bx[k], by[k] = x[i], y[i]
+		}
+		return stat(bx[:len(idx)], by[:len(idx)])
+	})
 }

@@ -3,7 +3,7 @@ package stats
 import "fmt"
 
 // ECEInterval is a percentile bootstrap interval at level (e.g. 0.95) for
-// the binned ECE of ECE(confidence, correct, bins): Bootstrap resamples the
+// the binned ECE of ECE(confidence, correct, bins): BootstrapPairs resamples the
 // cases with replacement resamples times (Efron & Tibshirani 1993, An
 // Introduction to the Bootstrap, Section 13.3), from a PCG generator seeded
 // with seed so that the interval is reproducible, and the ECE of each
@@ -31,12 +31,8 @@ func ECEInterval(confidence []float64, correct []bool, bins, resamples int, seed
 			return 0, 0, fmt.Errorf("ECE interval: confidence %d is %v, not in [0, 1]", i, c)
 		}
 	}
-	bc, bo := make([]float64, n), make([]bool, n)
-	b, err := Bootstrap(n, resamples, seed, level, func(idx []int) float64 {
-		for i, j := range idx {
-			bc[i], bo[i] = confidence[j], correct[j]
-		}
-		return ECE(bc, bo, bins)
+	b, err := BootstrapPairs(confidence, correct, resamples, seed, level, func(c []float64, ok []bool) float64 {
+		return ECE(c, ok, bins)
 	})
 	if err != nil {
 		return 0, 0, fmt.Errorf("ECE interval: %w", err)

@@ -12,7 +12,8 @@ import (
 // Trillos & Cuturi 2017, "On Wasserstein two-sample testing", Section 2).
 // NaN when either sample is empty or holds a NaN or ±Inf (the distance to a
 // distribution with mass at infinity is not a finite number; a NaN has no
-// place in a CDF).
+// place in a CDF). +Inf when finite samples lie so far apart that the
+// distance overflows float64.
 func Wasserstein1(a, b []float64) float64 {
 	if len(a) == 0 || len(b) == 0 || !allFinite(a) || !allFinite(b) {
 		return math.NaN()
@@ -33,7 +34,12 @@ func Wasserstein1(a, b []float64) float64 {
 		default:
 			t = sb[j]
 		}
-		dist += math.Abs(float64(i)/na-float64(j)/nb) * (t - prev)
+		// A step where the two distribution functions agree adds nothing;
+		// skipping it keeps 0 · (t − prev) from becoming NaN when the step
+		// overflows (values near ±MaxFloat64).
+		if w := math.Abs(float64(i)/na - float64(j)/nb); w != 0 {
+			dist += w * (t - prev)
+		}
 		prev = t
 		for i < len(sa) && sa[i] == t {
 			i++

@@ -132,20 +132,9 @@ func RunMaps(b *inference.ModelFolder, sess *inference.Session, cfg MapsConfig) 
 	subs := positiveSubjects(cfg.Seed, cfg.Cases)
 	res := &MapsResult{Config: cfg, Started: time.Now().UTC(), Model: ModelInfo{Name: b.Card.Name, Version: b.Card.Version, SHA256: b.SHA256},
 		Chance: make([]float64, len(subs)), ChanceBrain: make([]float64, len(subs)), Methods: make([]MapFigures, len(methods))}
-	per := make([][]mapCase, len(subs))
 	t0, cpu0 := time.Now(), cputime.Seconds()
-	var done atomic.Int64
-	err = parallel.EachErr(len(subs), cfg.Workers, func(_, k int) error {
-		c, err := phantom.Generate(cfg.Seed, subs[k], phantom.Options{VoxelMM: cfg.VoxelMM})
-		if err != nil {
-			return err
-		}
+	per, err := measureSubjects(ex, b.Card, cfg, subs, methods, func(k int, c *phantom.Case) {
 		res.Chance[k], res.ChanceBrain[k] = chanceOf(c)
-		per[k], err = measureCase(cfg.Context, ex, c, methods, b.Card)
-		if cfg.Progress != nil {
-			cfg.Progress(int(done.Add(1)), len(subs))
-		}
-		return err
 	})
 	if err != nil {
 		return nil, err
@@ -207,6 +196,29 @@ type mapCase struct {
 }
 
 // measureCase computes every method's map of case c and its mass accuracy.
+// measureSubjects generates the phantom of each subject of cfg.Seed and
+// measures every method on it, cfg.Workers at a time, reporting progress;
+// each, when set, also sees every generated case.
+func measureSubjects(ex *overlay.Explainer, card *inference.Card, cfg MapsConfig, subs []int, methods []MapMethod, each func(k int, c *phantom.Case)) ([][]mapCase, error) {
+	per := make([][]mapCase, len(subs))
+	var done atomic.Int64
+	err := parallel.EachErr(len(subs), cfg.Workers, func(_, k int) error {
+		c, err := phantom.Generate(cfg.Seed, subs[k], phantom.Options{VoxelMM: cfg.VoxelMM})
+		if err != nil {
+			return err
+		}
+		if each != nil {
+			each(k, c)
+		}
+		per[k], err = measureCase(cfg.Context, ex, c, methods, card)
+		if cfg.Progress != nil {
+			cfg.Progress(int(done.Add(1)), len(subs))
+		}
+		return err
+	})
+	return per, err
+}
+
 func measureCase(ctx context.Context, ex *overlay.Explainer, c *phantom.Case, methods []MapMethod, card *inference.Card) ([]mapCase, error) {
 	pr, err := inference.PrepareForCard(c.Volume, card)
 	if err != nil {
@@ -333,12 +345,13 @@ func mapsMeanSD(x []float64) (float64, float64) {
 func UpdateMapsDocument(path string, r *MapsResult) error {
 	var b strings.Builder
 	WriteMapsMarkdown(&b, r)
-	return replaceBlock(path, MapsBlockBegin, MapsBlockEnd, b.String())
+	return replaceBlock(path, "block", MapsBlockBegin, MapsBlockEnd, b.String())
 }
 
 // replaceBlock replaces what lies between the lines begin and end of the
-// document at path with body.
-func replaceBlock(path, begin, end, body string) error {
+// document at path with body, atomically; what names the block in the
+// error for a document without it.
+func replaceBlock(path, what, begin, end, body string) error {
 	old, err := os.ReadFile(path)
 	if err != nil {
 		return inputerr.Wrap(path, err)
@@ -346,7 +359,7 @@ func replaceBlock(path, begin, end, body string) error {
 	s := string(old)
 	i, j := strings.Index(s, begin), strings.Index(s, end)
 	if i < 0 || j < i {
-		return inputerr.New(path, "no block (%q … %q) to update", begin, end)
+		return inputerr.New(path, "no %s (%q … %q) to update", what, begin, end)
 	}
 	return atomicfile.WriteBytes(path, []byte(s[:i+len(begin)]+"\n"+body+s[j:]))
 }

@@ -4,13 +4,10 @@ import (
 	"fmt"
 	"io"
 	"strings"
-	"sync/atomic"
 	"time"
 
 	"brightfold/inference"
 	"brightfold/internal/notice"
-	"brightfold/internal/parallel"
-	"brightfold/internal/phantom"
 	"brightfold/internal/stats"
 	"brightfold/overlay"
 )
@@ -69,20 +66,8 @@ func RunRuleSearch(b *inference.ModelFolder, cfg MapsConfig) (*RuleSearchResult,
 	}
 	cands := RuleCandidates()
 	subs := positiveSubjects(cfg.Seed, cfg.Cases)
-	per := make([][]mapCase, len(subs))
 	t0 := time.Now()
-	var done atomic.Int64
-	err = parallel.EachErr(len(subs), cfg.Workers, func(_, k int) error {
-		c, err := phantom.Generate(cfg.Seed, subs[k], phantom.Options{VoxelMM: cfg.VoxelMM})
-		if err != nil {
-			return err
-		}
-		per[k], err = measureCase(cfg.Context, ex, c, cands, b.Card)
-		if cfg.Progress != nil {
-			cfg.Progress(int(done.Add(1)), len(subs))
-		}
-		return err
-	})
+	per, err := measureSubjects(ex, b.Card, cfg, subs, cands, nil)
 	if err != nil {
 		return nil, err
 	}
@@ -126,5 +111,5 @@ func WriteRuleSearchMarkdown(w io.Writer, r *RuleSearchResult) {
 func UpdateRuleSearchDocument(path string, r *RuleSearchResult) error {
 	var b strings.Builder
 	WriteRuleSearchMarkdown(&b, r)
-	return replaceBlock(path, RuleSearchBlockBegin, RuleSearchBlockEnd, b.String())
+	return replaceBlock(path, "block", RuleSearchBlockBegin, RuleSearchBlockEnd, b.String())
 }

@@ -300,17 +300,7 @@ const (
 // Markdown file at path with Markdown(ev), atomically; the text around the
 // block is kept. A file without the markers is refused.
 func UpdateDocument(path string, ev *Evaluation) error {
-	old, err := os.ReadFile(path)
-	if err != nil {
-		return inputerr.Wrap(path, err)
-	}
-	s := string(old)
-	i, j := strings.Index(s, BlockBegin), strings.Index(s, BlockEnd)
-	if i < 0 || j < i {
-		return inputerr.New(path, "no figures block (%q … %q) to update", BlockBegin, BlockEnd)
-	}
-	out := s[:i+len(BlockBegin)] + "\n" + Markdown(ev) + s[j:]
-	return atomicfile.WriteBytes(path, []byte(out))
+	return replaceBlock(path, "figures block", BlockBegin, BlockEnd, Markdown(ev))
 }
 
 // ciText prints an interval as "lo to hi" ("–" when there is none).
