@@ -14,7 +14,8 @@ import (
 )
 
 // fitPanel is the "Fit check" panel: whether the scan is the kind of scan
-// the model knows. The verdict block carries its sentence and the fit score;
+// the model knows. The verdict block carries its sentence (the fit score is
+// in the header);
 // the causes of a failure follow, each with the checks that saw it, then
 // the passing checks.
 type fitPanel struct {
@@ -98,16 +99,15 @@ func (p *fitPanel) showCancelled() {
 // that saw it, then the passing checks.
 func (p *fitPanel) showChecks(r *inference.Result) {
 	ood := r.Verdict == fitcheck.OutOfDistribution
-	score := inference.FitScoreNote(r)
 	causes := r.Causes
 	if causes == nil {
 		causes = inference.GroupCauses(r.Checks)
 	}
 	if ood {
 		p.setBlock(colOOD, verdictOOD, inference.Plural(len(causes), "cause", "causes")+
-			": this scan is unlike the scans the model was trained on. Do not rely on its probability. "+score)
+			": this scan is unlike the scans the model was trained on. Do not rely on its probability.")
 	} else {
-		p.setBlock(colInDist, verdictIn, "Every required check passes: the scan resembles the model's training scans. This does not make the probability a diagnosis. "+score)
+		p.setBlock(colInDist, verdictIn, "Every required check passes: the scan resembles the model's training scans. This does not make the probability a diagnosis.")
 	}
 	byName := map[string]fitcheck.Check{}
 	for _, c := range r.Checks {

@@ -30,8 +30,13 @@ type scanPanel struct {
 	conv    viewer.Convention
 
 	overlay *viewer.OverlayMap // relevance map on the scan grid, nil when none
-	style   viewer.OverlayStyle
-	showOv  bool
+	input   bool               // the planes show the model input, not the scan
+	inputCk *widget.Check      // "Model input": show the model input
+	// scanAt is the crosshair on the scan when the model input was shown,
+	// inputAt where it went on the model grid.
+	scanAt, inputAt [3]float64
+	style           viewer.OverlayStyle
+	showOv          bool
 
 	preset   *safeSelect
 	convSel  *safeSelect
@@ -93,6 +98,14 @@ func newScanPanel(u *UI) *scanPanel {
 	})
 	p.ovCheck.Checked = true
 	reset := widget.NewButton("Reset view", p.resetView)
+	p.inputCk = widget.NewCheck("Model input", func(on bool) {
+		u.refocus()
+		if p.quietSel {
+			return
+		}
+		u.showModelInput(on)
+	})
+	p.setInput(false)
 	p.dragSel = newSafeSelect([]string{dragWL, dragPan}, func(string) { u.refocus() })
 	p.dragSel.SetSelectedIndex(0)
 	p.wlLabel = widget.NewLabel("")
@@ -106,7 +119,7 @@ func newScanPanel(u *UI) *scanPanel {
 	p.pointer.Truncation = fyne.TextTruncateEllipsis
 	// The preset choice takes the room the other tools leave, so its
 	// labels are not cut.
-	tools := container.NewBorder(nil, nil, nil, container.NewHBox(p.dragSel, p.convSel, p.smooth, p.ovCheck, reset), p.preset)
+	tools := container.NewBorder(nil, nil, nil, container.NewHBox(p.inputCk, p.dragSel, p.convSel, p.smooth, p.ovCheck, reset), p.preset)
 	info := container.NewVBox(p.wlLabel, p.readout, p.pointer)
 	p.root = container.NewBorder(tools, info, nil, nil, p.grid)
 	p.clear("No case open.")
@@ -162,6 +175,7 @@ func (p *scanPanel) cyclePlanes() { p.makeLarge(p.order[1]) }
 func (p *scanPanel) clear(msg string) {
 	p.scene = nil
 	p.overlay = nil
+	p.setInput(false)
 	for _, v := range p.views {
 		v.setMessage(msg)
 	}
@@ -176,11 +190,28 @@ func (p *scanPanel) clear(msg string) {
 // showMessage replaces the planes with a message (load failed, cancelled).
 func (p *scanPanel) showMessage(msg string) { p.clear(msg) }
 
-// show puts a scene on screen: crosshair at the centre, its default window.
+// show puts a case's scan on screen: crosshair at the centre, its default
+// window, the scan (not the model input) shown.
 func (p *scanPanel) show(s *viewer.Scene) {
-	p.scene = s
 	p.overlay = nil
-	p.at = s.Snap(s.Center())
+	p.setInput(false)
+	p.showScene(s, s.Center())
+}
+
+// setInput records whether the model input is shown, and shows it in its
+// check box without acting on it.
+func (p *scanPanel) setInput(on bool) {
+	p.input = on
+	p.quietSel = true
+	p.inputCk.SetChecked(on)
+	p.quietSel = false
+}
+
+// showScene puts a scene on screen with the crosshair on its voxel nearest
+// the RAS point at and the scene's default window; the overlay is kept.
+func (p *scanPanel) showScene(s *viewer.Scene, at [3]float64) {
+	p.scene = s
+	p.at = s.Snap(at)
 	p.presets = s.Presets()
 	labels := make([]string, len(p.presets))
 	for i, pr := range p.presets {
@@ -274,6 +305,9 @@ func (p *scanPanel) valueUnits() string {
 	if p.scene == nil {
 		return ""
 	}
+	if p.input {
+		return "(model input)"
+	}
 	if p.scene.Volume().Meta.Modality == "CT" {
 		return "HU"
 	}
@@ -293,7 +327,7 @@ func (p *scanPanel) refreshReadout() {
 }
 
 func (p *scanPanel) visibleOverlay() *viewer.OverlayMap {
-	if p.showOv && !p.u.read.blinds() {
+	if p.showOv && !p.input && !p.u.read.blinds() {
 		return p.overlay
 	}
 	return nil

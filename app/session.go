@@ -22,6 +22,7 @@ type openCase struct {
 	c     Case
 	vol   *volume.Volume
 	scene *viewer.Scene
+	input *viewer.Scene // the model input on its grid (inputScene), once shown
 
 	result     *inference.Result // the score, once applied on the UI thread
 	card       *inference.Card

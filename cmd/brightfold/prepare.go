@@ -58,20 +58,13 @@ func runPrepare(e *env, args []string) error {
 		}
 		return inputerr.New(paths[0], "cannot be prepared: %v", err)
 	}
-	if err := nifti.Write(*out, modelInputVolume(pr), nifti.WriteOptions{DataType: nifti.DTFloat32, Description: notice.Short}); err != nil {
+	if err := nifti.Write(*out, pr.GridVolume(), nifti.WriteOptions{DataType: nifti.DTFloat32, Description: notice.Short}); err != nil {
 		return inputerr.Wrap(*out, err)
 	}
 	g := pr.Transform.GridDims
 	fmt.Fprintf(e.stdout, "%s\nwrote %s: model grid %d×%d×%d at %g×%g×%g mm, intensity %s (the model reads it in layout %s)\n",
 		notice.Full, *out, g[0], g[1], g[2], spec.SpacingMm[0], spec.SpacingMm[1], spec.SpacingMm[2], spec.Intensity.Method, layout)
 	return nil
-}
-
-// modelInputVolume is the prepared tensor as a volume on the model grid
-// (x fastest, the grid's RAS affine), without identifiers or source path.
-func modelInputVolume(pr *preprocess.Prepared) *volume.Volume {
-	return &volume.Volume{Data: pr.Tensor.GridValues(), Dims: pr.Transform.GridDims, Affine: pr.Transform.GridAffine,
-		Meta: volume.Metadata{Format: "nifti"}}
 }
 
 // prepareSpec reads the spec from a spec file, a model folder's card, or the
