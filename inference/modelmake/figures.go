@@ -54,12 +54,7 @@ func score(card *inference.Card, cases []Case) scoredSet {
 	var s scoredSet
 	for _, c := range cases {
 		pr := inference.CalibratedProbabilities(card, c.Fit.Output.Logits)
-		best := 0
-		for k := range pr {
-			if pr[k] > pr[best] {
-				best = k
-			}
-		}
+		best := stats.Argmax(pr)
 		q := math.Min(math.Max(pr[pos], 1e-15), 1-1e-15)
 		s.p = append(s.p, pr[pos])
 		s.lp = append(s.lp, math.Log(q/(1-q)))
