@@ -32,7 +32,7 @@ vet:
 
 test: setup vet
 	$(GO) test -count=1 -timeout 20m ./...
-	@scripts/fuzz.sh
+	@FUZZTIME=$${FUZZTIME:-5s} scripts/fuzz.sh
 	@scripts/screenshot-check.sh
 
 fuzz:
