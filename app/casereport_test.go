@@ -7,6 +7,7 @@ import (
 	"strings"
 	"testing"
 
+	"brightfold/inference"
 	"brightfold/internal/notice"
 	"brightfold/internal/reading"
 	"brightfold/internal/refcheck"
@@ -62,6 +63,13 @@ func TestCaseReportMeeting(t *testing.T) {
 		"Unaided read: probability 35 of 100, confidence 2 of 5"} {
 		if !strings.Contains(txt, want) {
 			t.Errorf("report lacks %q:\n%s", want, txt)
+		}
+	}
+	// An out-of-distribution verdict: the probability is marked unreliable
+	// and the fit check is given by cause, as in the window.
+	if r := h.u.open.result; inference.Withheld(r) {
+		if !strings.Contains(txt, "UNRELIABLE") || len(r.Causes) == 0 || !strings.Contains(txt, r.Causes[0].Title) {
+			t.Errorf("out-of-distribution report without the unreliable mark or its first cause:\n%s", txt)
 		}
 	}
 	for _, secret := range append(identifying(dir), home, "/tmp", "dicom") {

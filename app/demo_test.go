@@ -1,6 +1,7 @@
 package app
 
 import (
+	"fyne.io/fyne/v2"
 	"os"
 	"path/filepath"
 	"strings"
@@ -165,7 +166,14 @@ func passed(cs []fitcheck.Check) []fitcheck.Check {
 func TestThickSliceOneCause(t *testing.T) {
 	h := startDemo(t, Options{})
 	u := h.u
+	size := fitWindow(fyne.NewSize(1280, 800))
+	h.w.Resize(size)
 	h.openShifted("thick slices")
+	// The header never scrolls: its causes must leave the window within a
+	// 1280×800 screen.
+	if m := u.root.MinSize(); m.Width > size.Width || m.Height > size.Height {
+		t.Errorf("with the thick-slice case's causes the content needs %v, more than the window's %v", m, size)
+	}
 	r := u.open.result
 	if r == nil || u.head.verdict.Text != verdictOOD {
 		t.Fatalf("thick-slice case: verdict %q", u.head.verdict.Text)

@@ -129,8 +129,10 @@ func (p *headPanel) show(oc *openCase, withheld bool) {
 }
 
 // headCauses are the header's words for an out-of-distribution result: the
-// first causes (inference.GroupCauses, most severe first), each with its
-// explanation and the checks that saw it by name, then the fit score.
+// first causes (inference.GroupCauses, most severe first), each with the
+// checks that saw it by name, then the fit score. The header never scrolls,
+// so the causes' explanations and the checks' values are in the Fit check
+// panel below it.
 func headCauses(r *inference.Result) string {
 	causes := r.Causes
 	if causes == nil {
@@ -146,7 +148,7 @@ func headCauses(r *inference.Result) string {
 		for j, n := range c.Checks {
 			names[j] = inference.CheckTitle(n)
 		}
-		lines = append(lines, fmt.Sprintf("%s: %s Seen by %s.", inference.CauseTitle(c), c.Explanation, strings.Join(names, ", ")))
+		lines = append(lines, fmt.Sprintf("%s: %s.", inference.CauseTitle(c), strings.Join(names, ", ")))
 	}
 	return strings.Join(append(lines, inference.FitScoreNote(r)), "\n")
 }

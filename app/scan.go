@@ -119,8 +119,10 @@ func newScanPanel(u *UI) *scanPanel {
 	p.pointer.Truncation = fyne.TextTruncateEllipsis
 	// The preset choice takes the room the other tools leave, so its
 	// labels are not cut.
-	tools := container.NewBorder(nil, nil, nil, container.NewHBox(p.inputCk, p.dragSel, p.convSel, p.smooth, p.ovCheck, reset), p.preset)
-	info := container.NewVBox(p.wlLabel, p.readout, p.pointer)
+	tools := container.NewBorder(nil, nil, nil, container.NewHBox(p.dragSel, p.convSel, p.smooth, p.ovCheck, reset), p.preset)
+	// The model-input switch sits at the end of the Window line, whose text
+	// gives way, so the tool row stays within a 1280-pixel window.
+	info := container.NewVBox(container.NewBorder(nil, nil, nil, p.inputCk, p.wlLabel), p.readout, p.pointer)
 	p.root = container.NewBorder(tools, info, nil, nil, p.grid)
 	p.clear("No case open.")
 	return p

@@ -72,9 +72,9 @@ func FitScoreNote(r *Result) string {
 	}
 	v := FormatValue(r.FitScore)
 	if r.FitScore > 1 {
-		return "Fit score " + v + ": how far the scan is beyond the training limits, multiplied over independent causes (above 1 is out of distribution)."
+		return "Fit score " + v + ": the factor by which the scan is beyond the training limits (over 1 is out of distribution)."
 	}
-	return "Fit score " + v + ": how close the scan comes to the nearest training limit (1 or below is in distribution)."
+	return "Fit score " + v + ": how near the scan comes to a training limit (over 1 is out of distribution)."
 }
 
 // CheckDetail is a check's value with its units beside the training limit,

@@ -11,6 +11,8 @@ import (
 
 	"codeberg.org/go-pdf/fpdf"
 
+	"brightfold/inference"
+	"brightfold/inference/fitcheck"
 	"brightfold/internal/notice"
 )
 
@@ -110,23 +112,18 @@ func caseReportSections(c CaseReport) []caseReportSection {
 	model := caseReportSection{title: "Model and probability"}
 	model.lines = append(model.lines, fmt.Sprintf("Model: %s, version %s (model folder sha256 %s).", s.Model.Name, s.Model.Version, caseReportShort(s.Model.SHA256)))
 	if p := s.Prediction; p != nil {
-		model.lines = append(model.lines,
-			fmt.Sprintf("Calibrated probability of %q: %.2f (prediction: %s).", p.PositiveClass, p.Probability, p.Label),
+		prob := fmt.Sprintf("Calibrated probability of %q: %.2f (prediction: %s).", p.PositiveClass, p.Probability, p.Label)
+		if s.OOD.Verdict == fitcheck.OutOfDistribution {
+			prob = fmt.Sprintf("Probability of %q as computed: %.2f, UNRELIABLE: the fit check fails, so the scan is unlike the training scans.", p.PositiveClass, p.Probability)
+		}
+		model.lines = append(model.lines, prob,
 			fmt.Sprintf("Calibration: temperature scaling, T = %.3g (uncalibrated probability %.2f).", p.Temperature, p.Uncalibrated))
 	} else {
 		model.lines = append(model.lines, "No probability: the scan could not be prepared for the model.")
 	}
 	out = append(out, model)
 	fit := caseReportSection{title: "Fit check: " + s.OOD.Verdict}
-	for _, ch := range s.OOD.Checks {
-		if !ch.Pass {
-			req := "advisory"
-			if ch.Required {
-				req = "required"
-			}
-			fit.lines = append(fit.lines, fmt.Sprintf("Fails (%s) %s: %s", req, ch.Name, ch.Explanation))
-		}
-	}
+	fit.lines = caseReportCauses(s.OOD)
 	if len(fit.lines) == 0 {
 		fit.lines = append(fit.lines, fmt.Sprintf("All %d checks pass: the scan resembles the model's training scans in every respect checked.", len(s.OOD.Checks)))
 	}
@@ -148,6 +145,31 @@ func caseReportSections(c CaseReport) []caseReportSection {
 			reads.lines = append(reads.lines, "No read of this case is locked yet.")
 		}
 		out = append(out, reads)
+	}
+	return out
+}
+
+// caseReportCauses are the causes of the failed checks (inference.GroupCauses,
+// as the viewer and `score` show them), each with the checks that saw it and
+// their sentences.
+func caseReportCauses(o OOD) []string {
+	byName := map[string]Check{}
+	for _, ch := range o.Checks {
+		byName[ch.Name] = ch
+	}
+	var out []string
+	for _, c := range o.Causes {
+		tag := ""
+		if !c.Required {
+			tag = " (advisory)"
+		}
+		out = append(out, fmt.Sprintf("%s%s: %s", c.Title, tag, c.Explanation))
+		for _, n := range c.Checks {
+			out = append(out, fmt.Sprintf("    %s: %s", inference.CheckTitle(n), byName[n].Explanation))
+		}
+	}
+	if o.Verdict == fitcheck.OutOfDistribution {
+		out = append(out, fmt.Sprintf("Fit score %s (the factor by which the scan is beyond the training limits; over 1 is out of distribution).", inference.FormatValue(float64(o.Score))))
 	}
 	return out
 }
