@@ -39,7 +39,7 @@ func commands() []command {
 		{"align", "align SCAN --to TEMPLATE [--dof 6|12] [--metric ncc|mi] [--mask FILE] [--out DIR] [--json]", runAlign},
 		{"sweep", sweepUsage, runSweep},
 		{"session", sessionUsage, runSession},
-		{"mrmc", mrmcUsage, runMRMC},
+		{"mrmc", mrmcUsage + "   reader-study analysis: AUROC per reader, DeLong or Obuchowski–Rockette test", runMRMC},
 		{"version", "version                 program version", runVersion},
 	}
 }
