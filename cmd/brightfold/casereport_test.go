@@ -73,4 +73,3 @@ func TestScoreCaseReportMeeting(t *testing.T) {
 		t.Errorf("pdfinfo: %v\n%s", err, out)
 	}
 }
-
