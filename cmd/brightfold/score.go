@@ -275,7 +275,7 @@ func writeFitText(w io.Writer, rep *report.Score, r *inference.Result) {
 	}
 	writeCausesText(w, r)
 	fmt.Fprintf(w, "  (%d checks, %d failed, %s; fit score %s; --json lists every check with its value and threshold)\n",
-		len(r.Checks), len(failed), inference.Plural(len(r.Causes), "cause", "causes"), inference.FormatValue(r.FitScore))
+		len(r.Checks), len(failed), inference.Plural(inference.CountCauses(r.Causes), "cause", "causes"), inference.FormatValue(r.FitScore))
 }
 
 // writeCausesText lists the causes of the failed checks (inference.GroupCauses),
@@ -286,11 +286,11 @@ func writeCausesText(w io.Writer, r *inference.Result) {
 		byName[c.Name] = c
 	}
 	for _, cause := range r.Causes {
-		tag := ""
-		if !cause.Required {
-			tag = " (advisory)"
+		if cause.Consequence {
+			fmt.Fprintf(w, "  %s (%s, not counted as causes): %s\n", cause.Title, inference.Plural(len(cause.Checks), "check", "checks"), cause.Explanation)
+		} else {
+			fmt.Fprintf(w, "  * %s: %s Seen by %s:\n", inference.CauseTitle(cause), cause.Explanation, inference.Plural(len(cause.Checks), "check", "checks"))
 		}
-		fmt.Fprintf(w, "  * %s%s: %s Seen by %s:\n", cause.Title, tag, cause.Explanation, inference.Plural(len(cause.Checks), "check", "checks"))
 		for _, n := range cause.Checks {
 			fmt.Fprintf(w, "    - %s: %s\n", inference.CheckTitle(n), byName[n].Explanation)
 		}
