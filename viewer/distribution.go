@@ -4,6 +4,7 @@ import (
 	"math"
 	"slices"
 
+	"brightfold/inference/fitcheck"
 	"brightfold/internal/stats"
 )
 
@@ -63,7 +64,7 @@ func newDistribution(data []float32, magnitudes bool) distribution {
 		}
 		seen++
 	}
-	radixSortFloat32(out)
+	fitcheck.SortFloat32(out) // a radix sort, several times faster than slices.Sort here
 	return distribution{sorted: out, sampled: stride > 1}
 }
 
