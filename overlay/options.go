@@ -43,6 +43,24 @@ const (
 	BiasIgnore LRPBias = "ignore"
 )
 
+// LRPInput is the rule of the input layer (the weighted layer nearest the
+// input) under the composite and alpha1-beta0 rule sets.
+type LRPInput string
+
+// The input-layer rules (Montavon et al. 2019, section 10.1 and Table 1;
+// the flat rule is from Lapuschkin et al. 2019, from memory).
+const (
+	// InputZB is the z^B rule with the bounds of the card's intensity
+	// normalisation.
+	InputZB LRPInput = "zb"
+	// InputW2 is the w² rule: R_i = Σ_j w_ij² R_j / Σ_i w_ij², blind to
+	// the input's values.
+	InputW2 LRPInput = "w2"
+	// InputFlat is the flat rule: R_j spread evenly over its receptive
+	// field.
+	InputFlat LRPInput = "flat"
+)
+
 // Baseline is the integrated-gradients reference input.
 type Baseline string
 
@@ -81,6 +99,11 @@ type Options struct {
 	// first get alpha1-beta0; the convolutions above get the epsilon rule
 	// (0 means all of them, a negative value none).
 	LowerConvs int
+	// Input is the input layer's rule ("" means InputZB).
+	Input LRPInput
+	// Gamma, when positive, gives the composite's convolutions above the
+	// alpha1-beta0 ones LRP-γ with this γ instead of the epsilon rule.
+	Gamma float64
 
 	// Steps is the number of integrated-gradients steps m (0 means 64).
 	Steps int
@@ -113,6 +136,9 @@ type Options struct {
 func (o Options) withDefaults() Options {
 	if o.Rule == "" {
 		o.Rule = RuleComposite
+	}
+	if o.Input == "" {
+		o.Input = InputZB
 	}
 	if o.Bias == "" {
 		o.Bias = BiasAbsorb
