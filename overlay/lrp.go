@@ -203,9 +203,9 @@ func (p *lrpPlan) numberLayers() {
 }
 
 // rule is the rule a weighted layer gets under options opt: for the
-// composite, z^B at the input layer, alpha1-beta0 in the next
-// lowerConvs(opt) convolutions, epsilon in the convolutions above (none by
-// default), LRP-0 in dense layers (Montavon et al. 2019, section 10.1:
+// composite, the Options.Input rule at the input layer, alpha1-beta0 in the next
+// lowerConvs(opt) convolutions, epsilon or LRP-γ in the convolutions above
+// (none by default), LRP-0 in dense layers (Montavon et al. 2019, section 10.1:
 // LRP-γ-like rules low, LRP-ε in the middle, LRP-0 at the top).
 func (p *lrpPlan) rule(st *lrpStep, opt Options) ruleKind {
 	switch {
@@ -231,7 +231,7 @@ func (p *lrpPlan) rule(st *lrpStep, opt Options) ruleKind {
 
 // lowerConvs is how many convolutions after the first the composite gives
 // alpha1-beta0: Options.LowerConvs, or by default all of them (the
-// configuration chosen on phantom seed 20261211, see RuleComposite).
+// configuration chosen on the tuning seed, see RuleComposite).
 func (p *lrpPlan) lowerConvs(opt Options) int {
 	switch {
 	case opt.LowerConvs < 0:

@@ -126,7 +126,7 @@ func TestLRPGammaLimits(t *testing.T) {
 func TestLRPInputLayerRules(t *testing.T) {
 	ex := testExplainer(t, modelSpec{grid: testGrid}, false)
 	in := testInput(testGrid, 13)
-	zb := compute(t, ex, LRP, in, Options{})
+	zb := compute(t, ex, LRP, in, Options{Input: InputZB})
 	for _, rule := range []LRPInput{InputW2, InputFlat} {
 		m := compute(t, ex, LRP, in, Options{Input: rule})
 		if d := math.Abs(m.Checks["input_share"] - zb.Checks["input_share"]); d > 1e-5 {
