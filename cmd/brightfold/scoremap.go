@@ -68,11 +68,7 @@ func addRelevance(e *env, o scoreOptions, dir string, paths []string, v *volume.
 		return err
 	}
 	prob := res.Prediction.Probabilities[m.Class]
-	input := ""
-	if o.showPaths {
-		input = strings.Join(paths, " ")
-	}
-	info := relevanceInfo(m, method, b, res, prob, input)
+	info := relevanceInfo(m, method, b, res, prob, shownInput(o, paths))
 	if _, _, err := report.WriteRelevance(dir, onScan, info); err != nil {
 		return wrapPathError(o.out, err)
 	}
