@@ -72,6 +72,11 @@ func isAllocationRefused(msg string) bool {
 	return false
 }
 
+// errArenaRefused is a run's error when the arena refused an allocation;
+// RunContext retries a batch one case at a time before it reports
+// memoryRefused.
+var errArenaRefused = errors.New("ONNX Runtime's arena refused an allocation")
+
 // memoryRefused is the input error of a model that asked ONNX Runtime for
 // more memory than the limit.
 func memoryRefused(source string, limit int64) error {

@@ -23,6 +23,8 @@ var ortEnv struct {
 	sync.Mutex
 	lib    string
 	memory int64 // bytes of the registered arena (ModelMemoryLimit)
+	// retry serialises the runs repeated after the arena refused them
+	retry sync.Mutex
 }
 
 // InitRuntime loads the ONNX Runtime library at libPath (see ortlib.Find) and
@@ -163,6 +165,33 @@ func (s *Session) RunContext(ctx context.Context, ts []*preprocess.Tensor) ([]Ou
 		}
 		hi := min(len(ts), lo+s.maxBatch)
 		o, err := s.runBatch(ctx, ts[lo:hi])
+		if errors.Is(err, errArenaRefused) {
+			o, err = s.retryAlone(ctx, ts[lo:hi])
+		}
+		if errors.Is(err, errArenaRefused) {
+			return nil, memoryRefused(s.mf.Source, modelMemory())
+		}
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, o...)
+	}
+	return out, nil
+}
+
+// retryAlone runs a batch the arena refused again, one case per run (when
+// the batch is dynamic) and one refused run at a time in the process: the
+// arena is shared by all sessions and concurrent runs, and a batch or a
+// neighbour may have taken what a single case needs.
+func (s *Session) retryAlone(ctx context.Context, ts []*preprocess.Tensor) ([]Output, error) {
+	ortEnv.retry.Lock()
+	defer ortEnv.retry.Unlock()
+	if !s.mf.Graph.BatchDynamic {
+		return s.runBatch(ctx, ts)
+	}
+	var out []Output
+	for i := range ts {
+		o, err := s.runBatch(ctx, ts[i:i+1])
 		if err != nil {
 			return nil, err
 		}
@@ -271,7 +300,7 @@ func (s *Session) runCancellable(ctx context.Context, in ort.Value, outs []ort.V
 		return runOverBudget(ctx, budget, s.mf.Source)
 	}
 	if err != nil && isAllocationRefused(err.Error()) {
-		return memoryRefused(s.mf.Source, modelMemory())
+		return errArenaRefused
 	}
 	if err != nil {
 		// the session loaded, so a failing run means the graph cannot take
