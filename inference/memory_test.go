@@ -73,14 +73,7 @@ func TestRunWithinModelMemory(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer s.Close()
-	ts := make([]*preprocess.Tensor, 8)
-	for i := range ts {
-		d := make([]float32, 4096)
-		for j := range d {
-			d[j] = float32(math.Cos(float64(i*4096+j) / 53))
-		}
-		ts[i] = &preprocess.Tensor{Data: d, Shape: []int64{1, 1, 16, 16, 16}, Layout: preprocess.LayoutNCDHW, Grid: [3]int{16, 16, 16}}
-	}
+	ts := waveTensors(8, math.Cos, 53)
 	all, err := s.Run(ts)
 	if err != nil {
 		t.Fatalf("batch of 8 over the limit, then one by one: %v", err)
@@ -107,4 +100,17 @@ func TestRunWithinModelMemory(t *testing.T) {
 	if !errors.As(err, &ie) || !strings.Contains(err.Error(), ModelMemoryEnv) {
 		t.Fatalf("a case over the limit gave %v, want an input error naming %s", err, ModelMemoryEnv)
 	}
+}
+
+// waveTensors are n 16³ input tensors of wave(index / period) values.
+func waveTensors(n int, wave func(float64) float64, period float64) []*preprocess.Tensor {
+	ts := make([]*preprocess.Tensor, n)
+	for i := range ts {
+		d := make([]float32, 4096)
+		for j := range d {
+			d[j] = float32(wave(float64(i*4096+j) / period))
+		}
+		ts[i] = &preprocess.Tensor{Data: d, Shape: []int64{1, 1, 16, 16, 16}, Layout: preprocess.LayoutNCDHW, Grid: [3]int{16, 16, 16}}
+	}
+	return ts
 }
