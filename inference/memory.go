@@ -10,30 +10,25 @@ import (
 	"time"
 
 	"brightfold/internal/inputerr"
+	"brightfold/internal/onnx/exec"
 	ort "github.com/yalue/onnxruntime_go"
 )
 
 // DefaultModelMemory is the memory ONNX Runtime may take for one process's
-// model runs on the default settings: tensors, their intermediate values and
-// the model's initializers, in all sessions together. With the Go heap's
-// soft limit of 700 MiB (cmd/brightfold/memlimit.go) and the library itself
-// the process stays under 1 GiB.
-const DefaultModelMemory = 256 << 20
+// model runs on the default settings (256 MiB): tensors, their intermediate
+// values and the model's initializers, in all sessions together. With the
+// Go heap's soft limit of 700 MiB (cmd/brightfold/memlimit.go) and the
+// library itself the process stays under 1 GiB. The Go executor of
+// relevance maps has the same limit (exec.MemoryLimit).
+const DefaultModelMemory = exec.DefaultMemoryLimit
 
 // ModelMemoryEnv raises (or lowers) the model memory limit in MiB for a
 // legitimate larger model, e.g. BRIGHTFOLD_MODEL_MEMORY_MB=2048.
-const ModelMemoryEnv = "BRIGHTFOLD_MODEL_MEMORY_MB"
+const ModelMemoryEnv = exec.MemoryLimitEnv
 
 // ModelMemoryLimit is the byte budget of ONNX Runtime's CPU allocator:
 // ModelMemoryEnv MiB when set to a positive integer, else DefaultModelMemory.
-func ModelMemoryLimit() int64 {
-	if s := os.Getenv(ModelMemoryEnv); s != "" {
-		if n, err := strconv.ParseInt(s, 10, 64); err == nil && n > 0 && n < 1<<40 {
-			return n << 20
-		}
-	}
-	return DefaultModelMemory
-}
+func ModelMemoryLimit() int64 { return exec.MemoryLimit() }
 
 // useEnvAllocators is ONNX Runtime's session configuration key that makes a
 // session allocate through the environment's registered allocators

@@ -181,3 +181,51 @@ func TestHostileModelMemory(t *testing.T) {
 		}
 	}
 }
+
+// outerProductModel multiplies the scan (4096 values) as a column by itself
+// as a row: a 4096×4096 tensor of 64 MiB, which ONNX Runtime's arena holds,
+// but which the Go executor of relevance maps makes with two broadcast index
+// tables (320 MiB in all), over the limit of 256 MiB.
+func outerProductModel(t *testing.T) string {
+	return feedsScan(t,
+		pbConst("col_shape", []int64{2}, 4096, 1),
+		pbConst("row_shape", []int64{2}, 1, 4096),
+		pbNode("Reshape", "as_col", []string{"scan", "col_shape"}, []string{"col"}),
+		pbNode("Reshape", "as_row", []string{"scan", "row_shape"}, []string{"row"}),
+		pbNode("Mul", "outer", []string{"col", "row"}, []string{"outer_product"}),
+		sumAll("outer_product", "outer_sum"),
+		pbNode("Constant", "nought", nil, []string{"nought"}, pbAttrTensor("value", pbTensor("nought", 1, nil, []int64{0}, false))),
+		pbNode("Mul", "silence", []string{"outer_sum", "nought"}, []string{"grown"}),
+	)
+}
+
+// TestHostileGoExecutorMemory: the same model scores (ONNX Runtime stays
+// within its arena), and its gradient × input map, computed by the Go
+// executor, is refused before the allocation with exit 2 and one line
+// naming the limit; peak RSS stays under 1 GiB.
+func TestHostileGoExecutorMemory(t *testing.T) {
+	lib := refcheck.ORTLib(t)
+	dir := t.TempDir()
+	scan := headNIfTI(t)
+	model := outerProductModel(t)
+	L := []string{"--ort-lib", lib}
+	r := runHostile(t, dir, nil, append([]string{"score", scan, "--model", model}, L...)...)
+	if r.code != 0 {
+		t.Fatalf("score without a map: exit %d\n%s", r.code, r.stderr)
+	}
+	r = runHostile(t, dir, nil, append([]string{"score", scan, "--model", model, "--map", "gradinput", "--out", dir + "/out"}, L...)...)
+	t.Logf("--map gradinput: exit %d, peak RSS %d MiB, %.1f s: %s", r.code, r.peakRSS>>20, r.wall.Seconds(), r.stderr)
+	switch {
+	case r.killed != "":
+		t.Errorf("killed at the %s", r.killed)
+	case r.code != 2:
+		t.Errorf("exit %d, want 2\nstderr %q", r.code, r.stderr)
+	case strings.Count(strings.TrimRight(r.stderr, "\n"), "\n") != 0:
+		t.Errorf("stderr is not one line: %q", r.stderr)
+	case !strings.Contains(r.stderr, inference.ModelMemoryEnv) || !strings.Contains(r.stderr, "256 MiB"):
+		t.Errorf("stderr does not name the memory limit: %q", r.stderr)
+	}
+	if r.peakRSS > hostileMemLimit {
+		t.Errorf("peak RSS %d MiB > 1 GiB", r.peakRSS>>20)
+	}
+}
