@@ -35,7 +35,7 @@ const maxCauses = 3
 // Words of the header.
 const (
 	withheldText = "Probability withheld"
-	unreliable   = "unreliable: the fit check fails"
+	unreliable   = "unreliable"
 )
 
 func newHeadPanel(u *UI) *headPanel {
@@ -118,7 +118,7 @@ func (p *headPanel) show(oc *openCase, withheld bool) {
 		p.anyway.Show()
 	case inference.Withheld(r):
 		p.setProb(inference.FormatProbability(r.Prediction.Probability)+"  ("+unreliable+")", colMuted,
-			fmt.Sprintf("Probability of %s as computed, shown on request. Do not rely on it: the scan is unlike the training scans.", pos))
+			fmt.Sprintf("Unreliable because the fit check fails. Probability of %s as computed, shown on request. Do not rely on it: the scan is unlike the training scans.", pos))
 		p.anyway.Hide()
 	default:
 		p.setProb(inference.FormatProbability(r.Prediction.Probability), colText,

@@ -31,6 +31,7 @@ func (u *UI) applyMeeting() {
 		u.meetingChip.Hide()
 		u.openBtn.Enable()
 	}
+	u.topBar.Refresh()
 	u.refreshIdentity()
 	u.casesPanel.refresh()
 	u.message.SetText(u.clean(u.message.Text))

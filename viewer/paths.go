@@ -40,3 +40,33 @@ func HidePaths(s, mark string) string {
 	b.WriteString(s[last:])
 	return b.String()
 }
+
+// ElidePath shortens path p for a line with limited room: p itself when
+// fits says it fits, else its first folder, an ellipsis and as many of its
+// last names as fit ("/tmp/…/HMRU-0001/dicom"), else an ellipsis and its
+// last name ("…/dicom"), which is returned even if it does not fit.
+func ElidePath(p string, fits func(string) bool) string {
+	if fits(p) {
+		return p
+	}
+	sep := "/"
+	if strings.Contains(p, `\`) && !strings.Contains(p, "/") {
+		sep = `\`
+	}
+	parts := strings.Split(p, sep)
+	if len(parts) < 2 {
+		return p
+	}
+	first := parts[0] + sep
+	if parts[0] == "" && len(parts) > 2 {
+		first = sep + parts[1] + sep
+		parts = parts[1:]
+	}
+	for k := len(parts) - 2; k >= 1; k-- {
+		s := first + "…" + sep + strings.Join(parts[len(parts)-k:], sep)
+		if fits(s) {
+			return s
+		}
+	}
+	return "…" + sep + parts[len(parts)-1]
+}

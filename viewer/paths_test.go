@@ -77,3 +77,24 @@ func TestHidePathsWholePathsOnly(t *testing.T) {
 		}
 	}
 }
+
+// ElidePath keeps the first folder and the last names that fit, and never
+// cuts a name.
+func TestElidePath(t *testing.T) {
+	p := "/tmp/brightfold-demo/demo/HMRU-0001/dicom"
+	for room, want := range map[int]string{
+		100: p,
+		30:  "/tmp/…/demo/HMRU-0001/dicom",
+		22:  "/tmp/…/HMRU-0001/dicom",
+		12:  "/tmp/…/dicom",
+		3:   "…/dicom",
+	} {
+		got := ElidePath(p, func(s string) bool { return len([]rune(s)) <= room })
+		if got != want {
+			t.Errorf("room %d: %q, want %q", room, got, want)
+		}
+	}
+	if got := ElidePath(`C:\Users\Roe\scans\t1.nii`, func(s string) bool { return len([]rune(s)) <= 14 }); got != `C:\…\t1.nii` {
+		t.Errorf("drive path: %q", got)
+	}
+}

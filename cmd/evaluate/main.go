@@ -49,7 +49,7 @@ func main() {
 	flag.BoolVar(&o.noReal, "no-real", false, "skip the real reference scans")
 	flag.BoolVar(&o.noReference, "no-reference", false, "skip the sklearn check (figures are then unchecked)")
 	flag.BoolVar(&o.maps, "maps", false, "measure the relevance maps instead (-n pattern-positive phantoms of -seed, default 20261210; make evaluate-maps)")
-	flag.BoolVar(&o.ruleSearch, "rule-search", false, "compare the LRP composite candidates instead (-n pattern-positive phantoms of -seed, default 20261211)")
+	flag.BoolVar(&o.ruleSearch, "rule-search", false, "compare the LRP composite candidates and apply the choice rule instead (-n pattern-positive phantoms of -seed, default the tuning seed 20261230; make evaluate-lrp-rules)")
 	flag.Parse()
 	if flag.NArg() > 0 {
 		fmt.Fprintf(os.Stderr, "evaluate: unexpected argument %q\n", flag.Arg(0))
