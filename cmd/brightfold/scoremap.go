@@ -13,6 +13,7 @@ import (
 
 	"brightfold/inference"
 	"brightfold/internal/inputerr"
+	"brightfold/internal/onnx/exec"
 	"brightfold/internal/report"
 	"brightfold/internal/volume"
 	"brightfold/overlay"
@@ -59,6 +60,11 @@ func addRelevance(e *env, o scoreOptions, dir string, paths []string, v *volume.
 	m, err := ex.Compute(ctx, method, res.Prepared.Tensor, opt)
 	if errors.Is(err, context.Canceled) {
 		return inputerr.New(o.out, "--map %s: stopped before the map was complete; nothing written", method)
+	}
+	var me *exec.MemoryError
+	if errors.As(err, &me) {
+		// the model, run in Go for the map, asked for more than the limit
+		return inputerr.New(b.Source, "%s: --map %s: %v", inference.ModelFile, method, me)
 	}
 	if err != nil {
 		return fmt.Errorf("relevance map (%s): %w", method, err)
