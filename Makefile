@@ -5,7 +5,7 @@ BIN := bin/brightfold
 export BRIGHTFOLD_ORT_LIB ?= $(CURDIR)/.cache/onnxruntime/libonnxruntime.so.1
 export LANG ?= C.UTF-8
 
-.PHONY: demo-remake evaluate-register setup build run demo test vet fuzz screenshot-check bench demo-model evaluate evaluate-maps clean
+.PHONY: demo-remake evaluate-register setup build run demo test vet fuzz screenshot-check bench demo-model evaluate evaluate-maps evaluate-lrp-rules clean
 
 setup:
 	@scripts/setup.sh
@@ -63,6 +63,10 @@ evaluate-register: setup
 # Relevance-map localisation and input shares on 50 phantoms (docs/evaluation.md).
 evaluate-maps: setup
 	@scripts/evaluate-maps.sh
+
+# The LRP rule search alone: composite candidates on 50 phantoms of the tuning seed (docs/evaluation.md).
+evaluate-lrp-rules: setup
+	@SEARCH_ONLY=1 scripts/evaluate-maps.sh
 
 clean:
 	rm -rf bin out

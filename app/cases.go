@@ -7,6 +7,7 @@ import (
 
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/container"
+	"fyne.io/fyne/v2/theme"
 	"fyne.io/fyne/v2/widget"
 
 	"brightfold/inference"
@@ -31,6 +32,9 @@ type casesPanel struct {
 	list  *widget.List
 	note  *widget.Label
 	quiet bool // true while the list is selected programmatically
+	// width is the list's width; rowMin the height of a row whose
+	// subtitle takes one line.
+	width, rowMin float32
 }
 
 func newCasesPanel(u *UI) *casesPanel {
@@ -41,22 +45,15 @@ func newCasesPanel(u *UI) *casesPanel {
 			code := widget.NewLabelWithStyle("HMRU-0000", fyne.TextAlignLeading, fyne.TextStyle{Bold: true, Monospace: true})
 			sub := widget.NewLabel("")
 			sub.Truncation = fyne.TextTruncateEllipsis
-			sub.SizeName = "helperText"
+			sub.SizeName = theme.SizeNameCaptionText
 			verdict := widget.NewLabel("")
 			verdict.Truncation = fyne.TextTruncateEllipsis
-			verdict.SizeName = "helperText"
+			verdict.SizeName = theme.SizeNameCaptionText
 			return container.NewVBox(code, sub, verdict)
 		},
-		func(id widget.ListItemID, o fyne.CanvasObject) {
-			if id >= len(u.cases) {
-				return
-			}
-			c := u.cases[id]
-			box := o.(*fyne.Container)
-			box.Objects[0].(*widget.Label).SetText(u.shownCode(id))
-			box.Objects[1].(*widget.Label).SetText(u.clean(u.caseSubtitle(c)))
-			box.Objects[2].(*widget.Label).SetText(u.caseVerdict(c))
-		})
+		nil)
+	p.list.UpdateItem = p.updateRow
+	p.rowMin = p.list.CreateItem().MinSize().Height
 	p.list.OnSelected = func(id widget.ListItemID) {
 		if !p.quiet {
 			u.selectCase(id)
@@ -67,8 +64,49 @@ func newCasesPanel(u *UI) *casesPanel {
 	}
 	p.note = widget.NewLabel("")
 	p.note.Wrapping = fyne.TextWrapWord
-	p.root = container.NewBorder(nil, p.note, nil, nil, p.list)
+	p.root = container.New(&widthLayout{changed: p.setWidth}, container.NewBorder(nil, p.note, nil, nil, p.list))
 	return p
+}
+
+// updateRow fills row id: the shown code, the subtitle wrapped at word
+// boundaries to the list's width (the row is made as tall as it needs,
+// fitRows), and the verdict.
+func (p *casesPanel) updateRow(id widget.ListItemID, o fyne.CanvasObject) {
+	u := p.u
+	if id >= len(u.cases) {
+		return
+	}
+	c := u.cases[id]
+	box := o.(*fyne.Container)
+	box.Objects[0].(*widget.Label).SetText(u.shownCode(id))
+	box.Objects[1].(*widget.Label).SetText(strings.Join(p.subtitleLines(c), "\n"))
+	box.Objects[2].(*widget.Label).SetText(u.caseVerdict(c))
+}
+
+// subtitleLines is a case's subtitle as the lines it takes in the list.
+func (p *casesPanel) subtitleLines(c Case) []string {
+	th := p.list.Theme()
+	room := p.width - 2*th.Size(theme.SizeNameInnerPadding) - 2*th.Size(theme.SizeNamePadding) - th.Size(theme.SizeNameScrollBar)
+	return wrapWords(p.u.clean(p.u.caseSubtitle(c)), room, th.Size(theme.SizeNameCaptionText), fyne.TextStyle{})
+}
+
+// setWidth is called when the panel's width changes.
+func (p *casesPanel) setWidth(w float32) {
+	p.width = w
+	p.fitRows()
+	p.list.Refresh()
+}
+
+// fitRows makes each row as tall as its subtitle's lines need.
+func (p *casesPanel) fitRows() {
+	if p.width <= 0 {
+		return
+	}
+	th := p.list.Theme()
+	line := fyne.MeasureText("Hg", th.Size(theme.SizeNameCaptionText), fyne.TextStyle{}).Height + th.Size(theme.SizeNameLineSpacing)
+	for i, c := range p.u.cases {
+		p.list.SetItemHeight(i, p.rowMin+float32(len(p.subtitleLines(c))-1)*line)
+	}
 }
 
 // setNote shows a line under the list (cohort progress, hints).
@@ -76,6 +114,7 @@ func (p *casesPanel) setNote(s string) { p.note.SetText(p.u.clean(s)) }
 
 // refresh redraws the list and its selection.
 func (p *casesPanel) refresh() {
+	p.fitRows()
 	p.list.Refresh()
 	p.quiet = true
 	if p.u.cur >= 0 {

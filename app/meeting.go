@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
-	"regexp"
 	"sort"
 	"strings"
 
@@ -32,17 +31,12 @@ func (u *UI) applyMeeting() {
 		u.meetingChip.Hide()
 		u.openBtn.Enable()
 	}
+	u.topBar.Refresh()
 	u.refreshIdentity()
 	u.casesPanel.refresh()
 	u.message.SetText(u.clean(u.message.Text))
 	u.refreshTasks()
 }
-
-// absPath matches absolute and home-relative file paths in free text. A
-// path runs to the end of its last folder separator's component; folder
-// names before a separator may hold spaces ("/home/Roe Jane 1953/x.png"),
-// so the whole path is hidden, not only its first word.
-var absPath = regexp.MustCompile(`(~|[A-Za-z]:)?[/\\]([^/\\\n"'<>|:;]*[/\\])*[^\s"':;,()/\\]*`)
 
 // shownCode is how case i is named on screen: in Meeting mode a code from
 // its place in the list ("Case 03"), or the reading session's code, never a
@@ -70,6 +64,9 @@ func (u *UI) clean(s string) string {
 	if !u.meeting || s == "" {
 		return s
 	}
+	// Paths first and whole (folder names with spaces included), then
+	// what is left of names, codes and folders.
+	s = viewer.HidePaths(s, "[path hidden]")
 	var secrets []string
 	add := func(x string) {
 		if x = strings.TrimSpace(x); len(x) >= 3 {
@@ -107,7 +104,7 @@ func (u *UI) clean(s string) string {
 	for _, x := range secrets {
 		s = strings.ReplaceAll(s, x, "[hidden]")
 	}
-	return absPath.ReplaceAllString(s, "[path hidden]")
+	return s
 }
 
 // userFolders are the user's home, cache and export folders, which name the

@@ -137,3 +137,25 @@ func ocr(t *testing.T, tess string, img image.Image, k int) string {
 	}
 	return string(out)
 }
+
+// Meeting mode hides whole paths and only paths in the status line: the
+// issue's example with a home folder holding spaces, and two paths with
+// ordinary words between them (the words stay).
+func TestMeetingModeHidesWholePathsOnly(t *testing.T) {
+	h := newHarness(t, Options{})
+	h.u.setMeeting(true)
+	for in, want := range map[string]string{
+		"Exported /root/Roe Jane 1953/exports/x.png and /tmp/y":         "Exported [path hidden] and [path hidden]",
+		"Read /data/Harbour side/t1.nii.gz, then wrote /tmp/out.png ok": "Read [path hidden], then wrote [path hidden] ok",
+	} {
+		h.u.say(in)
+		if got := h.u.message.Text; got != want {
+			t.Errorf("Meeting mode shows %q as %q, want %q", in, got, want)
+		}
+	}
+	h.u.setMeeting(false)
+	h.u.say("Exported /tmp/y")
+	if got := h.u.message.Text; got != "Exported /tmp/y" {
+		t.Errorf("outside Meeting mode the path should stay: %q", got)
+	}
+}

@@ -241,7 +241,7 @@ func TestReadoutFollowsWheelAndLabels(t *testing.T) {
 	// driver's Scroll does not), so the event is sent as the driver would.
 	ax.Scrolled(&fyne.ScrollEvent{PointEvent: fyne.PointEvent{Position: fyne.NewPos(ax.Size().Width/2, ax.Size().Height/2)}, Scrolled: fyne.Delta{DY: 10}})
 	want := fmt.Sprintf(", %d)", ax.frame.Slice)
-	if !strings.HasPrefix(sp.pointer.Text, "Pointer") || !strings.Contains(sp.pointer.Text, want) {
+	if !strings.HasPrefix(sp.pointer.Text, "voxel (") || !strings.Contains(sp.pointer.Text, want) {
 		t.Errorf("after the wheel the pointer readout %q is not on slice %d", sp.pointer.Text, ax.frame.Slice)
 	}
 	h.u.typedRune('+')

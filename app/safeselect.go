@@ -19,6 +19,13 @@ type safeSelect struct {
 func newSafeSelect(options []string, changed func(string)) *safeSelect {
 	s := &safeSelect{}
 	s.Options, s.OnChanged = options, changed
+	// Fyne sizes a select by its placeholder, not by its choices: with the
+	// longest choice as placeholder a fixed list of choices is never cut.
+	for _, o := range options {
+		if len([]rune(o)) > len([]rune(s.PlaceHolder)) {
+			s.PlaceHolder = o
+		}
+	}
 	s.ExtendBaseWidget(s)
 	return s
 }

@@ -5,6 +5,8 @@ import (
 
 	"fyne.io/fyne/v2"
 	"fyne.io/fyne/v2/container"
+	"fyne.io/fyne/v2/layout"
+	"fyne.io/fyne/v2/theme"
 	"fyne.io/fyne/v2/widget"
 
 	"brightfold/inference"
@@ -29,9 +31,11 @@ type scanPanel struct {
 	interp  viewer.Interp
 	conv    viewer.Convention
 
-	overlay *viewer.OverlayMap // relevance map on the scan grid, nil when none
-	input   bool               // the planes show the model input, not the scan
-	inputCk *widget.Check      // "Model input": show the model input
+	overlay *viewer.OverlayMap   // relevance map on the scan grid, nil when none
+	input   bool                 // the planes show the model input, not the scan
+	inputCk *widget.Check        // "Model input": show the model input
+	tpl     *viewer.TemplateView // the scan in its template's space, while shown
+	tplCk   *widget.Check        // "Template": show it
 	// scanAt is the crosshair on the scan when the model input was shown,
 	// inputAt where it went on the model grid.
 	scanAt, inputAt [3]float64
@@ -106,26 +110,47 @@ func newScanPanel(u *UI) *scanPanel {
 		u.showModelInput(on)
 	})
 	p.setInput(false)
+	p.tplCk = widget.NewCheck("Template", func(on bool) {
+		u.refocus()
+		if p.quietSel {
+			return
+		}
+		u.showTemplate(on)
+	})
+	p.tplCk.Disable()
 	p.dragSel = newSafeSelect([]string{dragWL, dragPan}, func(string) { u.refocus() })
 	p.dragSel.SetSelectedIndex(0)
-	p.wlLabel = widget.NewLabel("")
-	p.wlLabel.TextStyle = fyne.TextStyle{Monospace: true}
-	p.wlLabel.Truncation = fyne.TextTruncateEllipsis
-	p.readout = widget.NewLabel("")
-	p.readout.TextStyle = fyne.TextStyle{Monospace: true}
-	p.readout.Truncation = fyne.TextTruncateEllipsis
-	p.pointer = widget.NewLabel("")
-	p.pointer.TextStyle = fyne.TextStyle{Monospace: true}
-	p.pointer.Truncation = fyne.TextTruncateEllipsis
+	p.wlLabel, p.readout, p.pointer = readoutLabel(), readoutLabel(), readoutLabel()
 	// The preset choice takes the room the other tools leave, so its
 	// labels are not cut.
 	tools := container.NewBorder(nil, nil, nil, container.NewHBox(p.dragSel, p.convSel, p.smooth, p.ovCheck, reset), p.preset)
-	// The model-input switch sits at the end of the Window line, whose text
-	// gives way, so the tool row stays within a 1280-pixel window.
-	info := container.NewVBox(container.NewBorder(nil, nil, nil, p.inputCk, p.wlLabel), p.readout, p.pointer)
+	// Three named lines under the planes; the model-input switch sits at
+	// the end of the Window line, whose text gives way, so the tool row
+	// stays within a 1280-pixel window.
+	info := container.New(layout.NewFormLayout(),
+		readoutName("Window"), container.NewBorder(nil, nil, nil, container.NewHBox(p.tplCk, p.inputCk), p.wlLabel),
+		readoutName("Crosshair"), p.readout, readoutName("Pointer"), p.pointer)
 	p.root = container.NewBorder(tools, info, nil, nil, p.grid)
 	p.clear("No case open.")
 	return p
+}
+
+// readoutLabel is a value line under the planes: caption-size text in the
+// proportional font, so that a readout of a 1 mm scan with its relevance
+// fits a 1280-pixel window whole; it ends in an ellipsis rather than
+// spilling if a narrower window cuts it.
+func readoutLabel() *widget.Label {
+	l := widget.NewLabel("")
+	l.SizeName = theme.SizeNameCaptionText
+	l.Truncation = fyne.TextTruncateEllipsis
+	return l
+}
+
+// readoutName names a value line under the planes.
+func readoutName(s string) *widget.Label {
+	l := widget.NewLabelWithStyle(s, fyne.TextAlignLeading, fyne.TextStyle{Bold: true})
+	l.SizeName = theme.SizeNameCaptionText
+	return l
 }
 
 // mouseHint stands in the pointer line while the mouse is off the planes.
@@ -178,6 +203,8 @@ func (p *scanPanel) clear(msg string) {
 	p.scene = nil
 	p.overlay = nil
 	p.setInput(false)
+	p.setTemplate(nil)
+	p.tplCk.Disable()
 	for _, v := range p.views {
 		v.setMessage(msg)
 	}
@@ -197,6 +224,8 @@ func (p *scanPanel) showMessage(msg string) { p.clear(msg) }
 func (p *scanPanel) show(s *viewer.Scene) {
 	p.overlay = nil
 	p.setInput(false)
+	p.setTemplate(nil)
+	p.refreshTemplateCheck()
 	p.showScene(s, s.Center())
 }
 
@@ -271,6 +300,9 @@ func (p *scanPanel) layers() viewer.Layers {
 	if o := p.visibleOverlay(); o != nil {
 		l.Overlay, l.Style = o, p.style
 	}
+	if p.tpl != nil {
+		l.Outline = p.tpl.Outline
+	}
 	return l
 }
 
@@ -283,7 +315,7 @@ func (p *scanPanel) renderAll() {
 	for _, v := range p.views {
 		v.render(l)
 	}
-	p.wlLabel.SetText("Window     " + p.windowText())
+	p.wlLabel.SetText(p.windowText())
 	p.refreshReadout()
 }
 
@@ -296,7 +328,7 @@ func (p *scanPanel) windowText() string {
 		w += " " + u
 	}
 	if p.scene != nil && p.scene.Volume().Meta.Format == "dicom" {
-		w += fmt.Sprintf("  (%s, DICOM VOI function)", p.win.Function)
+		w += fmt.Sprintf(" (%s, DICOM VOI function)", p.win.Function)
 	}
 	return w
 }
@@ -325,11 +357,11 @@ func (p *scanPanel) refreshReadout() {
 	f := v.frame
 	x, y := f.WorldToPixel(p.at)
 	r := p.scene.ReadoutAt(f, x, y, p.visibleOverlay())
-	p.readout.SetText("Crosshair  " + p.readoutText(r))
+	p.readout.SetText(p.readoutText(r))
 }
 
 func (p *scanPanel) visibleOverlay() *viewer.OverlayMap {
-	if p.showOv && !p.input && !p.u.read.blinds() {
+	if p.showOv && !p.input && p.tpl == nil && !p.u.read.blinds() {
 		return p.overlay
 	}
 	return nil
@@ -342,13 +374,13 @@ func (p *scanPanel) readoutText(r viewer.Readout) string {
 	if !r.Inside {
 		return "outside the volume"
 	}
-	s := fmt.Sprintf("voxel (%d, %d, %d)  ·  RAS (%.1f, %.1f, %.1f) mm  ·  %s %s",
+	s := fmt.Sprintf("voxel (%d, %d, %d) · RAS (%.1f, %.1f, %.1f) mm · %s %s",
 		r.Voxel[0], r.Voxel[1], r.Voxel[2], r.World[0], r.World[1], r.World[2], inference.FormatValue(float64(r.Value)), p.valueUnits())
 	if r.HasOverlay {
 		if top := p.overlay.TopShare(float64(r.Overlay)); top == top {
-			s += fmt.Sprintf("  ·  relevance in the top %s %%", inference.FormatValue(top))
+			s += fmt.Sprintf(" · relevance in the top %s %%", inference.FormatValue(top))
 		} else {
-			s += "  ·  no relevance"
+			s += " · no relevance"
 		}
 	}
 	return s
@@ -360,7 +392,7 @@ func (p *scanPanel) pointerAt(v *planeView, x, y float64) {
 		return
 	}
 	r := p.scene.ReadoutAt(v.frame, x, y, p.visibleOverlay())
-	p.pointer.SetText("Pointer    " + p.readoutText(r))
+	p.pointer.SetText(p.readoutText(r))
 }
 
 // moveCrosshair puts the crosshair on the voxel nearest to the RAS point.

@@ -51,6 +51,9 @@ type UI struct {
 	identity     *widget.Label
 	meetingCheck *widget.Check
 	meetingChip  *fyne.Container
+	idHead       string          // the identity line without the path
+	idPath       string          // the open case's path, "" in Meeting mode
+	topBar       *fyne.Container // identity line with the chip; laid out again when the chip shows or hides
 	openBtn      *widget.Button
 	taskBox      *fyne.Container
 	taskText     *widget.Label
@@ -108,10 +111,10 @@ func (u *UI) build() {
 	title := canvas.NewText("Brightfold", colSeaGlass)
 	title.TextStyle = fyne.TextStyle{Bold: true}
 	title.TextSize = theme.TextSubHeadingSize()
-	bar := container.NewBorder(nil, nil,
+	u.topBar = container.NewBorder(nil, nil,
 		container.NewHBox(title, widget.NewSeparator(), u.openBtn),
 		container.NewHBox(u.meetingChip, u.meetingCheck, help),
-		u.identity)
+		container.New(&widthLayout{changed: func(float32) { u.fitIdentity() }}, u.identity))
 
 	u.casesPanel = newCasesPanel(u)
 	u.scan = newScanPanel(u)
@@ -146,7 +149,7 @@ func (u *UI) build() {
 	// The strip's height is reserved: a button's height, task or not.
 	strip := container.NewStack(spacer(0, cancel.MinSize().Height), u.taskBox)
 	bottom := container.NewVBox(strip, u.message)
-	u.root = container.NewBorder(container.NewVBox(banner, container.NewPadded(bar), widget.NewSeparator()),
+	u.root = container.NewBorder(container.NewVBox(banner, container.NewPadded(u.topBar), widget.NewSeparator()),
 		bottom, nil, nil, main)
 }
 
@@ -279,31 +282,48 @@ func (u *UI) cancelTask(kind string) {
 // patient's name and dates in readable form, and the scan's path.
 func (u *UI) refreshIdentity() {
 	if u.cur < 0 || u.cur >= len(u.cases) {
-		u.identity.SetText("No case open")
+		u.idHead, u.idPath = "No case open", ""
+		u.fitIdentity()
 		u.win.SetTitle("Brightfold")
 		return
 	}
 	c := u.cases[u.cur]
 	code := u.shownCode(u.cur)
-	text := code
+	head, path := code, ""
 	if !u.meeting {
 		if u.open != nil {
 			if p := u.open.vol.Patient; !p.Empty() {
-				text += fmt.Sprintf("  ·  %s  ·  ID %s  ·  born %s  ·  study %s", dash(viewer.PersonName(p.Name)), dash(p.ID),
+				head += fmt.Sprintf("  ·  %s  ·  ID %s  ·  born %s  ·  study %s", dash(viewer.PersonName(p.Name)), dash(p.ID),
 					dash(viewer.DICOMDate(p.BirthDate)), dash(viewer.DICOMDate(p.StudyDate)))
 			}
 		}
-		if len(c.Paths) > 0 {
-			text += "  ·  " + c.Paths[0]
-		}
+		path = firstPath(c)
 		u.win.SetTitle("Brightfold · " + code + " · " + filepath.Base(firstPath(c)))
 	} else {
 		u.win.SetTitle("Brightfold · " + code + " · Meeting mode")
 	}
 	if c.Note != "" {
-		text += "  ·  " + c.Note
+		head += "  ·  " + c.Note
 	}
-	u.identity.SetText(u.clean(text))
+	u.idHead, u.idPath = u.clean(head), path
+	u.fitIdentity()
+}
+
+// fitIdentity shows the identity line in the room the bar gives it: the
+// case, its identifiers and note, then its path, shortened in the middle
+// (viewer.ElidePath) rather than cut when the line is too long.
+func (u *UI) fitIdentity() {
+	text := u.idHead
+	if u.idPath != "" && !u.meeting {
+		th := u.identity.Theme()
+		room := u.identity.Size().Width - 2*th.Size(theme.SizeNameInnerPadding)
+		size := th.Size(theme.SizeNameText)
+		fits := func(p string) bool {
+			return room <= 0 || fyne.MeasureText(text+"  ·  "+p, size, u.identity.TextStyle).Width <= room
+		}
+		text += "  ·  " + viewer.ElidePath(u.idPath, fits)
+	}
+	u.identity.SetText(text)
 }
 
 func dash(s string) string {

@@ -41,9 +41,9 @@ func VerdictCauses(r *Result) []string {
 }
 
 // CauseTitle is a cause's title, marked "(advisory)" when it does not
-// decide the verdict.
+// decide the verdict (the consequences entry keeps its own title).
 func CauseTitle(c Cause) string {
-	if !c.Required {
+	if !c.Required && !c.Consequence {
 		return c.Title + " (advisory)"
 	}
 	return c.Title

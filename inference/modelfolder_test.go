@@ -498,14 +498,7 @@ func TestExampleCard(t *testing.T) {
 func TestSessionConcurrentRuns(t *testing.T) {
 	s := tinySession(t)
 	defer s.Close()
-	ts := make([]*preprocess.Tensor, 4)
-	for i := range ts {
-		d := make([]float32, 4096)
-		for j := range d {
-			d[j] = float32(math.Sin(float64(i*4096+j) / 97))
-		}
-		ts[i] = &preprocess.Tensor{Data: d, Shape: []int64{1, 1, 16, 16, 16}, Layout: preprocess.LayoutNCDHW, Grid: [3]int{16, 16, 16}}
-	}
+	ts := waveTensors(4, math.Sin, 97)
 	var want []Output
 	for i := range ts {
 		o, err := s.Run(ts[i : i+1])

@@ -21,13 +21,17 @@ import (
 // mutex; sessions are per model folder.
 var ortEnv struct {
 	sync.Mutex
-	lib string
+	lib    string
+	memory int64 // bytes of the registered arena (ModelMemoryLimit)
+	// retry serialises the runs repeated after the arena refused them
+	retry sync.Mutex
 }
 
 // InitRuntime loads the ONNX Runtime library at libPath (see ortlib.Find) and
-// creates the process's environment; later calls with the same path do
-// nothing. A missing or unusable library is an input error with the command
-// that installs the right one.
+// creates the process's environment with its bounded CPU allocator (see
+// ModelMemoryLimit); later calls with the same path do nothing. A missing or
+// unusable library is an input error with the command that installs the
+// right one.
 func InitRuntime(libPath string) error {
 	ortEnv.Lock()
 	defer ortEnv.Unlock()
@@ -44,7 +48,12 @@ func InitRuntime(libPath string) error {
 		return inputerr.New(libPath, "cannot use this ONNX Runtime library (Brightfold needs %s of ONNX Runtime 1.30.0, C API 24): %s; %s",
 			ortlib.FileName, why, ortlib.InstallHint)
 	}
-	ortEnv.lib = libPath
+	limit := ModelMemoryLimit()
+	if err := registerBoundedAllocator(limit); err != nil {
+		ort.DestroyEnvironment()
+		return fmt.Errorf("ONNX Runtime memory limit of %d MiB: %w", limit>>20, err)
+	}
+	ortEnv.lib, ortEnv.memory = libPath, limit
 	return nil
 }
 
@@ -99,9 +108,15 @@ func NewSession(b *ModelFolder, opt SessionOptions) (*Session, error) {
 	if err := so.SetInterOpNumThreads(1); err != nil {
 		return nil, fmt.Errorf("inter-op threads: %w", err)
 	}
+	if err := so.AddSessionConfigEntry(useEnvAllocators, "1"); err != nil {
+		return nil, fmt.Errorf("session allocator: %w", err)
+	}
 	c := b.Card
 	outs := []string{c.Outputs.Logits, c.Outputs.Features}
 	s, err := ort.NewDynamicAdvancedSessionWithONNXData(b.SessionModel, []string{c.Input.Name}, outs, so)
+	if err != nil && isAllocationRefused(err.Error()) {
+		return nil, memoryRefused(b.Source, modelMemory())
+	}
 	if err != nil {
 		return nil, inputerr.New(b.Source, "ONNX Runtime cannot load %s: %v", ModelFile, err)
 	}
@@ -150,6 +165,33 @@ func (s *Session) RunContext(ctx context.Context, ts []*preprocess.Tensor) ([]Ou
 		}
 		hi := min(len(ts), lo+s.maxBatch)
 		o, err := s.runBatch(ctx, ts[lo:hi])
+		if errors.Is(err, errArenaRefused) {
+			o, err = s.retryAlone(ctx, ts[lo:hi])
+		}
+		if errors.Is(err, errArenaRefused) {
+			return nil, memoryRefused(s.mf.Source, modelMemory())
+		}
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, o...)
+	}
+	return out, nil
+}
+
+// retryAlone runs a batch the arena refused again, one case per run (when
+// the batch is dynamic) and one refused run at a time in the process: the
+// arena is shared by all sessions and concurrent runs, and a batch or a
+// neighbour may have taken what a single case needs.
+func (s *Session) retryAlone(ctx context.Context, ts []*preprocess.Tensor) ([]Output, error) {
+	ortEnv.retry.Lock()
+	defer ortEnv.retry.Unlock()
+	if !s.mf.Graph.BatchDynamic {
+		return s.runBatch(ctx, ts)
+	}
+	var out []Output
+	for i := range ts {
+		o, err := s.runBatch(ctx, ts[i:i+1])
 		if err != nil {
 			return nil, err
 		}
@@ -221,6 +263,9 @@ func (s *Session) runBatch(ctx context.Context, ts []*preprocess.Tensor) ([]Outp
 // input error naming the budget, and the command line exits.
 func (s *Session) runCancellable(ctx context.Context, in ort.Value, outs []ort.Value) error {
 	budget := RunBudget()
+	ctx, stop := context.WithCancelCause(ctx)
+	defer stop(nil)
+	go watchMemory(ctx, stop, processCeiling(modelMemory()))
 	ctx, cancel := context.WithTimeout(ctx, budget)
 	defer cancel()
 	opts, err := ort.NewRunOptions()
@@ -254,12 +299,22 @@ func (s *Session) runCancellable(ctx context.Context, in ort.Value, outs []ort.V
 		}
 		return runOverBudget(ctx, budget, s.mf.Source)
 	}
+	if err != nil && isAllocationRefused(err.Error()) {
+		return errArenaRefused
+	}
 	if err != nil {
 		// the session loaded, so a failing run means the graph cannot take
 		// the card's input: a problem of the model folder
 		return inputerr.New(s.mf.Source, "ONNX Runtime could not run the model on the card's input shape %v: %v", s.mf.Card.Input.Shape, ortMessage(err.Error()))
 	}
 	return nil
+}
+
+// modelMemory is the limit of the registered allocator.
+func modelMemory() int64 {
+	ortEnv.Lock()
+	defer ortEnv.Unlock()
+	return ortEnv.memory
 }
 
 // ortMessage shortens an ONNX Runtime run error to one readable line: the
@@ -288,8 +343,12 @@ func firstLine(s string) string {
 const runGrace = 5 * time.Second
 
 // runOverBudget is the error of a run stopped by ctx: the caller's
-// cancellation as it is, or an input error for a spent budget.
+// cancellation as it is, or an input error for a spent budget or a passed
+// memory ceiling.
 func runOverBudget(ctx context.Context, budget time.Duration, source string) error {
+	if errors.Is(context.Cause(ctx), errMemoryCeiling) {
+		return ceilingPassed(source, modelMemory())
+	}
 	if errors.Is(context.Cause(ctx), context.DeadlineExceeded) && errors.Is(ctx.Err(), context.DeadlineExceeded) {
 		return inputerr.New(source, "%s: one model run took longer than the budget of %s and was stopped (a graph that never ends?); set %s to give it more seconds", ModelFile, budget, RunBudgetEnv)
 	}

@@ -4,12 +4,12 @@
 //
 //   - LRP, layer-wise relevance propagation (Bach et al. 2015), on the Go
 //     executor of package internal/onnx/exec, node by node over a forward
-//     Trace. The default composite (RuleComposite) applies the z^B rule at
-//     the input layer with the bounds of the card's intensity
-//     normalisation, alpha1-beta0 in the convolutions above it and LRP-0
+//     Trace. The default composite (RuleComposite) applies the w² rule at
+//     the input layer, alpha1-beta0 in the convolutions above it and LRP-0
 //     in the dense layers (Montavon et al. 2019, section 10.1;
-//     Kohlbrenner et al. 2020); epsilon in the upper convolutions is an
-//     option. BatchNormalization after a convolution is folded
+//     Kohlbrenner et al. 2020); z^B (with the bounds of the card's
+//     intensity normalisation) or the flat rule at the input layer, and
+//     epsilon or LRP-γ in the upper convolutions, are options. BatchNormalization after a convolution is folded
 //     into it first (onnx.FoldBatchNorm); ReLU, Dropout, Identity and the
 //     shape operators pass relevance on unchanged; max pooling routes it to
 //     the winner; average pooling splits it in proportion to the inputs.

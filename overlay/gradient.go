@@ -49,7 +49,7 @@ func (e *Explainer) computeLRP(ctx context.Context, t *preprocess.Tensor, tg tar
 		Additive: true,
 		Passes:   1,
 		Checks:   checks,
-		Settings: map[string]any{"rule": string(opt.Rule), "epsilon": opt.Epsilon, "bias": string(opt.Bias), "lower_convs": e.lrp.lowerConvs(opt)},
+		Settings: map[string]any{"rule": string(opt.Rule), "epsilon": opt.Epsilon, "bias": string(opt.Bias), "lower_convs": e.lrp.lowerConvs(opt), "gamma": opt.Gamma, "input": string(opt.Input)},
 	}, nil
 }
 

@@ -40,10 +40,13 @@ const (
 	ruleAlphaBeta                 // alpha = 1, beta = 0 (Bach et al. 2015)
 	ruleEpsilon                   // epsilon rule (Bach et al. 2015)
 	ruleZero                      // LRP-0: epsilon rule with a vanishing epsilon
+	ruleGamma                     // LRP-γ (Montavon et al. 2019, section 10.1)
+	ruleW2                        // w² (Montavon et al. 2017) for the input layer
+	ruleFlat                      // flat (Lapuschkin et al. 2019) for the input layer
 )
 
 func (r ruleKind) String() string {
-	return [...]string{"z^B", "alpha1-beta0", "epsilon", "LRP-0"}[r]
+	return [...]string{"z^B", "alpha1-beta0", "epsilon", "LRP-0", "gamma", "w²", "flat"}[r]
 }
 
 // lrpStep is the plan for one node of the folded model.
@@ -200,14 +203,18 @@ func (p *lrpPlan) numberLayers() {
 }
 
 // rule is the rule a weighted layer gets under options opt: for the
-// composite, z^B at the input layer, alpha1-beta0 in the next
-// lowerConvs(opt) convolutions, epsilon in the convolutions above (none by
-// default), LRP-0 in dense layers (Montavon et al. 2019, section 10.1:
+// composite, the Options.Input rule at the input layer, alpha1-beta0 in the next
+// lowerConvs(opt) convolutions, epsilon or LRP-γ in the convolutions above
+// (none by default), LRP-0 in dense layers (Montavon et al. 2019, section 10.1:
 // LRP-γ-like rules low, LRP-ε in the middle, LRP-0 at the top).
 func (p *lrpPlan) rule(st *lrpStep, opt Options) ruleKind {
 	switch {
 	case opt.Rule == RuleEpsilon:
 		return ruleEpsilon
+	case st.first && opt.Input == InputW2:
+		return ruleW2
+	case st.first && opt.Input == InputFlat:
+		return ruleFlat
 	case st.first:
 		return ruleZB
 	case opt.Rule == RuleAlphaBeta:
@@ -216,13 +223,15 @@ func (p *lrpPlan) rule(st *lrpStep, opt Options) ruleKind {
 		return ruleZero
 	case st.convAt <= p.lowerConvs(opt):
 		return ruleAlphaBeta
+	case opt.Gamma > 0:
+		return ruleGamma
 	}
 	return ruleEpsilon
 }
 
 // lowerConvs is how many convolutions after the first the composite gives
 // alpha1-beta0: Options.LowerConvs, or by default all of them (the
-// configuration chosen on phantom seed 20261211, see RuleComposite).
+// configuration chosen on the tuning seed, see RuleComposite).
 func (p *lrpPlan) lowerConvs(opt Options) int {
 	switch {
 	case opt.LowerConvs < 0:
@@ -255,8 +264,11 @@ func (p *lrpPlan) describe(opt Options) string {
 	var parts []string
 	for _, r := range order {
 		label := r.String()
-		if r == ruleEpsilon {
+		switch r {
+		case ruleEpsilon:
 			label = fmt.Sprintf("epsilon (%.2g × RMS)", opt.Epsilon)
+		case ruleGamma:
+			label = fmt.Sprintf("gamma (%.2g)", opt.Gamma)
 		}
 		parts = append(parts, label+": "+strings.Join(names[r], ", "))
 	}
@@ -363,6 +375,10 @@ func (p *lrpPlan) step(st *lrpStep, n *onnx.Node, ins, outs []*onnx.Tensor, r *o
 			parts[0], err = p.zB(st.layer, x, z, r, lg)
 		case ruleAlphaBeta:
 			parts[0], err = alphaBeta(st.layer, x, r, lg)
+		case ruleGamma:
+			parts[0], err = gammaRule(st.layer, x, z, r, opt.Gamma, opt.Bias, lg)
+		case ruleW2, ruleFlat:
+			parts[0], err = valueBlind(st.layer, x, r, rk == ruleFlat, lg)
 		default:
 			eps := opt.Epsilon
 			if rk == ruleZero {
@@ -469,6 +485,86 @@ func alphaBeta(l *linearLayer, x, r *onnx.Tensor, lg *ledger) (*onnx.Tensor, err
 		out = addTensors(out, mulTensors(xn, cn))
 	}
 	return out, nil
+}
+
+// gammaRule is LRP-γ (Montavon et al. 2019, section 10.1): R_i = Σ_j
+// (x_i w_ij + γ (x_i w_ij)⁺) R_j / Σ_i (…), between LRP-0 (γ = 0) and
+// alpha1-beta0 (γ → ∞). With BiasAbsorb the bias enters as an input of its
+// own, b_j + γ b_j⁺, and keeps its share; with BiasIgnore it is left out of
+// the denominator.
+func gammaRule(l *linearLayer, x, z, r *onnx.Tensor, gamma float64, bt LRPBias, lg *ledger) (*onnx.Tensor, error) {
+	bias, err := l.cached("bias", x.Shape)
+	if err != nil {
+		return nil, err
+	}
+	xp, xn := onnx.New(x.Shape...), onnx.New(x.Shape...)
+	for i, v := range x.Data {
+		if v > 0 {
+			xp.Data[i] = v
+		} else if v < 0 {
+			xn.Data[i] = v
+		}
+	}
+	zp, err := forward(l.pos, xp)
+	if err != nil {
+		return nil, err
+	}
+	zn, err := forward(l.neg, xn)
+	if err != nil {
+		return nil, err
+	}
+	g := float32(gamma)
+	d, kept := onnx.New(z.Shape...), onnx.New(z.Shape...)
+	for i, v := range z.Data {
+		pos := zp.Data[i] + zn.Data[i]
+		if bias == nil {
+			d.Data[i] = v + g*pos
+			continue
+		}
+		b := bias.Data[i]
+		d.Data[i] = v - b + g*pos
+		if bt == BiasAbsorb {
+			kept.Data[i] = b + g*max(b, 0)
+			d.Data[i] += kept.Data[i]
+		}
+	}
+	s := stabilised(r, d, tinyEps, lg)
+	c, err := l.vjpFull(x, z, s)
+	if err != nil {
+		return nil, err
+	}
+	cp, cn, err := l.vjpPosNeg(x, d, s)
+	if err != nil {
+		return nil, err
+	}
+	out := onnx.New(x.Shape...)
+	for i, v := range x.Data {
+		out.Data[i] = v*c.Data[i] + g*(xp.Data[i]*cp.Data[i]+xn.Data[i]*cn.Data[i])
+	}
+	lg.bias += dot(s.Data, kept.Data)
+	return out, nil
+}
+
+// valueBlind is the w² rule (Montavon et al. 2017, section 4; Montavon
+// et al. 2019, Table 1): R_i = Σ_j w_ij² R_j / Σ_i w_ij², or with flat the
+// flat rule (every w_ij² replaced by 1; Lapuschkin et al. 2019). Neither
+// looks at the input's values; the sums run over the real inputs only (a
+// zero-padded border has fewer).
+func valueBlind(l *linearLayer, x, r *onnx.Tensor, flat bool, lg *ledger) (*onnx.Tensor, error) {
+	kind := "ones²"
+	if flat {
+		kind = "ones·1"
+	}
+	den, err := l.cached(kind, x.Shape)
+	if err != nil {
+		return nil, err
+	}
+	e, w, err := l.blind(flat)
+	if err != nil {
+		return nil, err
+	}
+	s := stabilised(r, den, tinyEps, lg)
+	return vjp(e, w, nil, onnx.New(x.Shape...), den, s)
 }
 
 // zB is the z^B rule for an input layer whose inputs lie in [L, H]

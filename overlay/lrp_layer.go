@@ -29,10 +29,46 @@ type linearLayer struct {
 
 	mu    sync.Mutex
 	cache map[string]*onnx.Tensor // input-independent maps by kind and shape
+	// sq and ones run the layer with the squared weights and with
+	// weights of 1 (the w² and flat rules), made on first use.
+	sq, ones   *exec.Executor
+	wSq, wOnes *onnx.Tensor
+	opset      int64
+}
+
+// blind returns the executor and weight of the w² rule (flat false) or of
+// the flat rule, making them on first use.
+func (l *linearLayer) blind(flat bool) (*exec.Executor, *onnx.Tensor, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.blindLocked(flat)
+}
+
+func (l *linearLayer) blindLocked(flat bool) (*exec.Executor, *onnx.Tensor, error) {
+	e, w := &l.sq, &l.wSq
+	if flat {
+		e, w = &l.ones, &l.wOnes
+	}
+	if *e != nil {
+		return *e, *w, nil
+	}
+	t := onnx.New(l.w.Shape...)
+	for i, v := range l.w.Data {
+		t.Data[i] = v * v
+		if flat {
+			t.Data[i] = 1
+		}
+	}
+	ex, err := exec.NewExecutor(layerModel(l.node, l.opset, t, nil))
+	if err != nil {
+		return nil, nil, fmt.Errorf("%s: %w", l.node.Describe(), err)
+	}
+	*e, *w = ex, t
+	return ex, t, nil
 }
 
 func newLinearLayer(n *onnx.Node, opset int64, w, b *onnx.Tensor) (*linearLayer, error) {
-	l := &linearLayer{node: n, w: w, b: b, cache: map[string]*onnx.Tensor{}}
+	l := &linearLayer{node: n, w: w, b: b, cache: map[string]*onnx.Tensor{}, opset: opset}
 	l.wPos, l.wNeg = onnx.New(w.Shape...), onnx.New(w.Shape...)
 	for i, v := range w.Data {
 		if v > 0 {
@@ -200,6 +236,14 @@ func (l *linearLayer) cached(kind string, shape []int) (*onnx.Tensor, error) {
 		e = l.pos
 		if kind == "ones-" {
 			e = l.neg
+		}
+	case "ones²", "ones·1":
+		for i := range in.Data {
+			in.Data[i] = 1
+		}
+		var err error
+		if e, _, err = l.blindLocked(kind == "ones·1"); err != nil {
+			return nil, err
 		}
 	default:
 		return nil, fmt.Errorf("unknown layer map %q", kind)

@@ -84,6 +84,66 @@ func TestLRPLedgerConsistency(t *testing.T) {
 	}
 }
 
+// LRP-γ sits between LRP-0 and alpha1-beta0 (Montavon et al. 2019,
+// section 10.1: γ = 0 gives LRP-0, and as γ grows the positive
+// contributions dominate, the z⁺ rule, alpha1-beta0): with the gamma layers'
+// biases left out, a vanishing γ gives the composite with a vanishing
+// epsilon in the same layers and a large γ the composite with alpha1-beta0
+// there; at every γ the ledger adds up (consistency check) and the
+// biases keep relevance only when absorbed.
+func TestLRPGammaLimits(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid}, false)
+	in := testInput(testGrid, 11)
+	zero := compute(t, ex, LRP, in, Options{LowerConvs: -1, Epsilon: 1e-9, Bias: BiasIgnore})
+	ab := compute(t, ex, LRP, in, Options{Bias: BiasIgnore})
+	g0 := compute(t, ex, LRP, in, Options{LowerConvs: -1, Gamma: 1e-9, Bias: BiasIgnore})
+	gBig := compute(t, ex, LRP, in, Options{LowerConvs: -1, Gamma: 1e6, Bias: BiasIgnore})
+	if d := relDiff(g0.Values, zero.Values); d > 1e-3 {
+		t.Errorf("gamma 1e-9 differs from LRP-0 in the same layers by %.3g of the largest value", d)
+	}
+	if d := relDiff(gBig.Values, ab.Values); d > 1e-3 {
+		t.Errorf("gamma 1e6 differs from alpha1-beta0 in the same layers by %.3g of the largest value", d)
+	}
+	if d := relDiff(gBig.Values, zero.Values); d < 1e-2 {
+		t.Errorf("gamma 1e6 and LRP-0 give the same map (difference %.3g): the check cannot tell the limits apart", d)
+	}
+	for _, bias := range []LRPBias{BiasAbsorb, BiasIgnore} {
+		m := compute(t, ex, LRP, in, Options{LowerConvs: -1, Gamma: 0.25, Bias: bias})
+		if c := m.Checks; c["consistency_error"] > 1e-5 {
+			t.Errorf("gamma 0.25, bias %s: consistency error %.3g", bias, c["consistency_error"])
+		}
+		if !strings.Contains(m.Rule, "gamma (0.25)") {
+			t.Errorf("rule description %q does not name the gamma layers", m.Rule)
+		}
+	}
+}
+
+// The input-layer rules z^B, w² and flat all pass on exactly the relevance
+// they receive (Montavon et al. 2019, section 10.1: each redistributes R_j
+// in proportions that sum to 1 over the receptive field), so with the same
+// rules above the input share is the same for the three, while the maps
+// differ.
+func TestLRPInputLayerRules(t *testing.T) {
+	ex := testExplainer(t, modelSpec{grid: testGrid}, false)
+	in := testInput(testGrid, 13)
+	zb := compute(t, ex, LRP, in, Options{Input: InputZB})
+	for _, rule := range []LRPInput{InputW2, InputFlat} {
+		m := compute(t, ex, LRP, in, Options{Input: rule})
+		if d := math.Abs(m.Checks["input_share"] - zb.Checks["input_share"]); d > 1e-5 {
+			t.Errorf("%s: input share %.7g, z^B %.7g", rule, m.Checks["input_share"], zb.Checks["input_share"])
+		}
+		if m.Checks["consistency_error"] > 1e-5 {
+			t.Errorf("%s: consistency error %.3g", rule, m.Checks["consistency_error"])
+		}
+		if d := relDiff(m.Values, zb.Values); d < 1e-3 {
+			t.Errorf("%s gives the z^B map (difference %.3g)", rule, d)
+		}
+		if !strings.Contains(m.Rule, map[LRPInput]string{InputW2: "w²: ", InputFlat: "flat: "}[rule]) {
+			t.Errorf("%s: rule description %q", rule, m.Rule)
+		}
+	}
+}
+
 // With a vanishing epsilon, LRP on a ReLU network equals gradient × input
 // voxel by voxel (Ancona et al. 2018, "Towards better understanding of
 // gradient-based attribution methods", Proposition 1; Montavon et al. 2019,

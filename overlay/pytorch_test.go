@@ -51,8 +51,10 @@ func fixtureModelFolder(t *testing.T) (*inference.ModelFolder, *preprocess.Tenso
 // (Shrikumar et al. 2016), integrated gradients (Sundararajan et al. 2017,
 // eq. 3, midpoint rule, m = 64), LRP-epsilon (Bach et al. 2015, eq. 58) and
 // the composite of Montavon et al. 2019 (section 10.1) with the gradient
-// trick of their section 10.2, with epsilon or (the default) alpha1-beta0
-// at conv2, and LRP-epsilon with the biases left out of the denominators.
+// trick of their section 10.2: z^B at the input layer with epsilon,
+// alpha1-beta0 or LRP-γ (γ = 0.5, biases left out) at conv2, the w² rule
+// (the default) and the flat rule at the input layer with alpha1-beta0 at
+// conv2, and LRP-epsilon with the biases left out of the denominators.
 func TestPyTorchFixtureAgainstTorch(t *testing.T) {
 	refcheck.PythonModule(t, "torch")
 	b, in := fixtureModelFolder(t)
@@ -87,8 +89,11 @@ func TestPyTorchFixtureAgainstTorch(t *testing.T) {
 		{"gradient × input", GradientInput, Options{}, ref.GradInput},
 		{"integrated gradients", IntegratedGradients, Options{Steps: steps}, ref.IG},
 		{"LRP-epsilon", LRP, Options{Rule: RuleEpsilon, Epsilon: eps}, ref.LRPEpsilon},
-		{"LRP composite with epsilon above the first layer", LRP, Options{Epsilon: eps, LowerConvs: -1}, ref.LRPComposite},
-		{"LRP composite (default: alpha1-beta0 above the first layer)", LRP, Options{}, floats("lrp_composite_alpha_beta")},
+		{"LRP composite with epsilon above the first layer", LRP, Options{Epsilon: eps, LowerConvs: -1, Input: InputZB}, ref.LRPComposite},
+		{"LRP composite, z^B input layer, alpha1-beta0 above", LRP, Options{Input: InputZB}, floats("lrp_composite_alpha_beta")},
+		{"LRP composite (default: w² input layer, alpha1-beta0 above)", LRP, Options{}, floats("lrp_composite_w2")},
+		{"LRP composite, flat input layer", LRP, Options{Input: InputFlat}, floats("lrp_composite_flat")},
+		{"LRP composite, gamma 0.5 above the input layer, biases left out", LRP, Options{Input: InputZB, LowerConvs: -1, Gamma: 0.5, Bias: BiasIgnore}, floats("lrp_composite_gamma")},
 		{"LRP-epsilon, biases left out", LRP, Options{Rule: RuleEpsilon, Epsilon: eps, Bias: BiasIgnore}, floats("lrp_epsilon_no_bias")},
 	} {
 		m := compute(t, ex, c.m, in, c.opt)

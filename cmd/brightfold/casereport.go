@@ -36,9 +36,12 @@ func caseReportFlags(fs *flag.FlagSet, o *caseReportOptions) {
 // overlay is a gradient × input map (one backward pass) when the model allows
 // it; with --map it is the figure already written to --out.
 func writeCaseReport(o scoreOptions, paths []string, v *volume.Volume, mf *inference.ModelFolder, sess *inference.Session, res *inference.Result, rep *report.Score) error {
-	cr := report.CaseReport{Score: rep, Label: filepath.Base(paths[0])}
+	cr := report.CaseReport{Score: rep, Label: "scan (name not shown: --show-paths shows it)"}
+	if o.showPaths {
+		cr.Label = filepath.Base(paths[0])
+	}
 	if o.report.session != "" {
-		if err := caseReportReads(o.report, paths, &cr); err != nil {
+		if err := caseReportReads(o.report, o.showPaths, paths, &cr); err != nil {
 			return err
 		}
 	}
@@ -54,7 +57,7 @@ func writeCaseReport(o scoreOptions, paths []string, v *volume.Volume, mf *infer
 }
 
 // caseReportReads adds the session's reads of this case and its code.
-func caseReportReads(o caseReportOptions, paths []string, cr *report.CaseReport) error {
+func caseReportReads(o caseReportOptions, showPaths bool, paths []string, cr *report.CaseReport) error {
 	s, err := reading.Open(o.session)
 	if err != nil {
 		return err
@@ -78,7 +81,11 @@ func caseReportReads(o caseReportOptions, paths []string, cr *report.CaseReport)
 		return err
 	}
 	cr.Reader = s.Meta.Reader
-	cr.Label = report.CaseLabel(found.Code, filepath.Base(paths[0]), o.meeting)
+	file := ""
+	if showPaths {
+		file = filepath.Base(paths[0])
+	}
+	cr.Label = report.CaseLabel(found.Code, file, o.meeting)
 	return nil
 }
 

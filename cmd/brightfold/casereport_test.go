@@ -73,22 +73,3 @@ func TestScoreCaseReportMeeting(t *testing.T) {
 		t.Errorf("pdfinfo: %v\n%s", err, out)
 	}
 }
-
-// Without Meeting mode and without a session the report names the scan by
-// its file name only, never its folder.
-func TestScoreCaseReportNoSession(t *testing.T) {
-	lib := refcheck.ORTLib(t)
-	scan := headNIfTI(t)
-	pdf := filepath.Join(t.TempDir(), "case.pdf")
-	code, _, stderr := runCLI("score", scan, "--model", tinyModelFolder(t), "--ort-lib", lib, "--threads", "1", "--report", pdf)
-	if code != 0 {
-		t.Fatalf("exit %d: %s", code, stderr)
-	}
-	txt := pdfText(t, pdf)
-	if !strings.Contains(txt, notice.Full) || !strings.Contains(txt, "Case report: "+filepath.Base(scan)) || strings.Contains(txt, filepath.Dir(scan)) {
-		t.Errorf("report text:\n%s", txt)
-	}
-	if strings.Contains(txt, "Reads by") {
-		t.Errorf("reads section without a session")
-	}
-}

@@ -22,7 +22,7 @@ import (
 
 type scoreOptions struct {
 	model, out, mapMethod, ortLib, series string
-	json, showPaths, hidePaths, showProb  bool
+	json, showPaths, showProb             bool
 	threads, volumeIndex                  int
 	report                                caseReportOptions
 }
@@ -39,9 +39,8 @@ func runScore(e *env, args []string) error {
 	fs.StringVar(&o.out, "out", "", "folder `DIR` for the result set (result.json, with --map the map files); created if needed, replaced whole")
 	fs.StringVar(&o.mapMethod, "map", "none", "relevance map `METHOD`: "+strings.Join(relevanceMethods, "|"))
 	fs.BoolVar(&o.json, "json", false, "print JSON instead of text")
-	fs.BoolVar(&o.showPaths, "show-paths", false, "write the input path into result.json and relevance.json (default: no path, which may carry names)")
+	fs.BoolVar(&o.showPaths, "show-paths", false, "name the input by its path on the screen, in the JSON, result.json, relevance.json and the report (default: no path or file name, which may carry names)")
 	fs.BoolVar(&o.showProb, "show-probability", false, "also print the probability when the fit check fails (labelled unreliable)")
-	fs.BoolVar(&o.hidePaths, "hide-paths", false, "print only the input's file name, also on the screen")
 	fs.StringVar(&o.ortLib, "ort-lib", "", "`PATH` of the ONNX Runtime library "+ortlib.FileName)
 	fs.IntVar(&o.threads, "threads", 0, "`N` ONNX Runtime intra-op threads; more than the cores are cut to the cores (default: all cores)")
 	fs.IntVar(&o.volumeIndex, "volume", 0, "volume `N` of a 4D NIfTI input to score (from 0)")
@@ -101,8 +100,10 @@ func scoreScan(e *env, o scoreOptions, paths []string) error {
 	if err != nil {
 		return err
 	}
-	input := strings.Join(paths, " ")
-	rep := scoreReport(input, v, mf, res)
+	rep := scoreReport(shownInput(o, paths), v, mf, res)
+	if !o.showPaths && o.model != "" {
+		rep.Model.Source = filepath.Base(o.model)
+	}
 	rep.TimingMs["load"] = loadMs
 	var set *outSet
 	if o.out != "" {
@@ -115,14 +116,8 @@ func scoreScan(e *env, o scoreOptions, paths []string) error {
 		return err
 	}
 	rep.TimingMs["total"] = msSince(t0)
-	if o.hidePaths {
-		rep.Input.Path = baseNames(paths)
-		if o.model != "" {
-			rep.Model.Source = filepath.Base(o.model)
-		}
-	}
 	if set != nil {
-		if err := writeResult(o, set.tmp, paths, rep); err != nil {
+		if err := writeResult(o, set.tmp, rep); err != nil {
 			return err
 		}
 		if err := set.commit(); err != nil {
@@ -188,25 +183,19 @@ func openSession(b *inference.ModelFolder, libFlag string, threads int) (*infere
 	return inference.NewSession(b, inference.SessionOptions{IntraOpThreads: threads})
 }
 
-func baseNames(paths []string) string {
-	names := make([]string, len(paths))
-	for i, p := range paths {
-		names[i] = filepath.Base(p)
+// shownInput is how every output of score names the input: its paths with
+// --show-paths, else nothing (folder and file names often carry a
+// patient's name or record number).
+func shownInput(o scoreOptions, paths []string) string {
+	if !o.showPaths {
+		return ""
 	}
-	return strings.Join(names, " ")
+	return strings.Join(paths, " ")
 }
 
-// writeResult writes result.json into dir (the set's temporary folder);
-// the input path is left out unless --show-paths.
-func writeResult(o scoreOptions, dir string, paths []string, rep *report.Score) error {
-	c := *rep
-	if !o.showPaths {
-		c.Input.Path = ""
-		if o.model != "" {
-			c.Model.Source = filepath.Base(o.model)
-		}
-	}
-	if _, err := report.WriteScore(dir, &c); err != nil {
+// writeResult writes result.json into dir (the set's temporary folder).
+func writeResult(o scoreOptions, dir string, rep *report.Score) error {
+	if _, err := report.WriteScore(dir, rep); err != nil {
 		var pe *os.PathError
 		if errors.As(err, &pe) {
 			return inputerr.Wrap(o.out, err)
@@ -238,8 +227,13 @@ func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result, showPro
 		fmt.Fprintln(w)
 	}
 	in := rep.Input
-	fmt.Fprintf(w, "Scan:        %s (%s, %d×%d×%d voxels, %.2f×%.2f×%.2f mm, %s)\n", in.Path, in.Format,
+	desc := fmt.Sprintf("%s, %d×%d×%d voxels, %.2f×%.2f×%.2f mm, %s", in.Format,
 		in.Dims[0], in.Dims[1], in.Dims[2], in.SpacingMm[0], in.SpacingMm[1], in.SpacingMm[2], in.Orientation)
+	if in.Path != "" {
+		fmt.Fprintf(w, "Scan:        %s (%s)\n", in.Path, desc)
+	} else {
+		fmt.Fprintf(w, "Scan:        %s; path not shown (--show-paths shows it)\n", desc)
+	}
 	fmt.Fprintf(w, "Model:       %s %s (sha256 %.12s…)\n", rep.Model.Name, rep.Model.Version, rep.Model.SHA256)
 	fmt.Fprintln(w)
 	p := rep.Prediction
@@ -281,7 +275,7 @@ func writeFitText(w io.Writer, rep *report.Score, r *inference.Result) {
 	}
 	writeCausesText(w, r)
 	fmt.Fprintf(w, "  (%d checks, %d failed, %s; fit score %s; --json lists every check with its value and threshold)\n",
-		len(r.Checks), len(failed), inference.Plural(len(r.Causes), "cause", "causes"), inference.FormatValue(r.FitScore))
+		len(r.Checks), len(failed), inference.Plural(inference.CountCauses(r.Causes), "cause", "causes"), inference.FormatValue(r.FitScore))
 }
 
 // writeCausesText lists the causes of the failed checks (inference.GroupCauses),
@@ -292,11 +286,11 @@ func writeCausesText(w io.Writer, r *inference.Result) {
 		byName[c.Name] = c
 	}
 	for _, cause := range r.Causes {
-		tag := ""
-		if !cause.Required {
-			tag = " (advisory)"
+		if cause.Consequence {
+			fmt.Fprintf(w, "  %s (%s, not counted as causes): %s\n", cause.Title, inference.Plural(len(cause.Checks), "check", "checks"), cause.Explanation)
+		} else {
+			fmt.Fprintf(w, "  * %s: %s Seen by %s:\n", inference.CauseTitle(cause), cause.Explanation, inference.Plural(len(cause.Checks), "check", "checks"))
 		}
-		fmt.Fprintf(w, "  * %s%s: %s Seen by %s:\n", cause.Title, tag, cause.Explanation, inference.Plural(len(cause.Checks), "check", "checks"))
 		for _, n := range cause.Checks {
 			fmt.Fprintf(w, "    - %s: %s\n", inference.CheckTitle(n), byName[n].Explanation)
 		}

@@ -81,7 +81,7 @@ func TestScoreJSONAndResultFile(t *testing.T) {
 		t.Error("JSON notice missing")
 	}
 	in := got["input"].(map[string]any)
-	if in["path"] != scan || in["format"] != "nifti" || in["orientation"] != "RAS" {
+	if _, ok := in["path"]; ok || in["format"] != "nifti" || in["orientation"] != "RAS" {
 		t.Errorf("input block: %v", in)
 	}
 	pred := got["prediction"].(map[string]any)

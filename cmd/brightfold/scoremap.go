@@ -13,6 +13,7 @@ import (
 
 	"brightfold/inference"
 	"brightfold/internal/inputerr"
+	"brightfold/internal/onnx/exec"
 	"brightfold/internal/report"
 	"brightfold/internal/volume"
 	"brightfold/overlay"
@@ -60,6 +61,11 @@ func addRelevance(e *env, o scoreOptions, dir string, paths []string, v *volume.
 	if errors.Is(err, context.Canceled) {
 		return inputerr.New(o.out, "--map %s: stopped before the map was complete; nothing written", method)
 	}
+	var me *exec.MemoryError
+	if errors.As(err, &me) {
+		// the model, run in Go for the map, asked for more than the limit
+		return inputerr.New(b.Source, "%s: --map %s: %v", inference.ModelFile, method, me)
+	}
 	if err != nil {
 		return fmt.Errorf("relevance map (%s): %w", method, err)
 	}
@@ -68,11 +74,7 @@ func addRelevance(e *env, o scoreOptions, dir string, paths []string, v *volume.
 		return err
 	}
 	prob := res.Prediction.Probabilities[m.Class]
-	input := ""
-	if o.showPaths {
-		input = strings.Join(paths, " ")
-	}
-	info := relevanceInfo(m, method, b, res, prob, input)
+	info := relevanceInfo(m, method, b, res, prob, shownInput(o, paths))
 	if _, _, err := report.WriteRelevance(dir, onScan, info); err != nil {
 		return wrapPathError(o.out, err)
 	}

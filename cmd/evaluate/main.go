@@ -43,17 +43,22 @@ func main() {
 	flag.StringVar(&o.doc, "doc", "", "Markdown document whose figures block to refresh (e.g. docs/evaluation.md)")
 	flag.StringVar(&o.ortLib, "ort-lib", "", "path of the ONNX Runtime library "+ortlib.FileName)
 	flag.Uint64Var(&o.seed, "seed", study.DefaultSeed, "phantom cohort seed (must not be a training or fitting seed)")
-	flag.IntVar(&o.n, "n", 200, "fresh in-distribution phantoms")
+	flag.IntVar(&o.n, "n", 200, "fresh in-distribution phantoms (with -maps or -rule-search: pattern-positive phantoms, default 50)")
 	flag.IntVar(&o.perShift, "per-shift", 20, "phantoms of each shift type")
 	flag.IntVar(&o.workers, "workers", 0, "cases at once (default: all CPUs)")
 	flag.BoolVar(&o.noReal, "no-real", false, "skip the real reference scans")
 	flag.BoolVar(&o.noReference, "no-reference", false, "skip the sklearn check (figures are then unchecked)")
 	flag.BoolVar(&o.maps, "maps", false, "measure the relevance maps instead (-n pattern-positive phantoms of -seed, default 20261210; make evaluate-maps)")
-	flag.BoolVar(&o.ruleSearch, "rule-search", false, "compare the LRP composite candidates instead (-n pattern-positive phantoms of -seed, default 20261211)")
+	flag.BoolVar(&o.ruleSearch, "rule-search", false, "compare the LRP composite candidates and apply the choice rule instead (-n pattern-positive phantoms of -seed, default the tuning seed 20261230; make evaluate-lrp-rules)")
 	flag.Parse()
 	if flag.NArg() > 0 {
 		fmt.Fprintf(os.Stderr, "evaluate: unexpected argument %q\n", flag.Arg(0))
 		os.Exit(2)
+	}
+	nSet := false
+	flag.Visit(func(f *flag.Flag) { nSet = nSet || f.Name == "n" })
+	if (o.maps || o.ruleSearch) && !nSet {
+		o.n = 50
 	}
 	runner := run
 	if o.maps {

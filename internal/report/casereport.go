@@ -160,7 +160,7 @@ func caseReportCauses(o OOD) []string {
 	var out []string
 	for _, c := range o.Causes {
 		tag := ""
-		if !c.Required {
+		if !c.Required && !c.Consequence {
 			tag = " (advisory)"
 		}
 		out = append(out, fmt.Sprintf("%s%s: %s", c.Title, tag, c.Explanation))

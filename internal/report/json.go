@@ -83,6 +83,10 @@ type Cause struct {
 	Checks      []string `json:"checks"`
 	Required    bool     `json:"required"`
 	Severity    Number   `json:"severity"`
+	// Consequence marks the last entry: failed checks that may follow
+	// from the causes above it, not a cause of their own (not counted in
+	// the fit score).
+	Consequence bool `json:"consequence"`
 }
 
 // Check is one fit-check result. Value is null when not measurable.

@@ -36,7 +36,7 @@ func NewScore(input string, v *volume.Volume, b *inference.ModelFolder, r *infer
 	rep.OOD.Causes = []Cause{}
 	for _, c := range r.Causes {
 		rep.OOD.Causes = append(rep.OOD.Causes, Cause{Name: c.Name, Title: c.Title, Explanation: c.Explanation,
-			Checks: append([]string{}, c.Checks...), Required: c.Required, Severity: Number(c.Severity)})
+			Checks: append([]string{}, c.Checks...), Required: c.Required, Severity: Number(c.Severity), Consequence: c.Consequence})
 	}
 	return rep
 }

@@ -176,7 +176,7 @@ func fillResult(c *Case, r *inference.Result) {
 	c.Verdict = r.Verdict
 	c.FitScore = r.FitScore
 	for _, k := range r.Causes {
-		if k.Required {
+		if k.Required && !k.Consequence {
 			c.Causes = append(c.Causes, k.Name)
 		}
 	}

@@ -273,13 +273,17 @@ func Markdown(ev *Evaluation) string {
 			continue
 		}
 		fmt.Fprintf(&b, "%s (fit score %.3g; %s, %s).\n", r.Verdict, float64(r.FitScore),
-			inference.Plural(len(r.Causes), "cause", "causes"), inference.Plural(len(r.Failed), "failed check", "failed checks"))
+			inference.Plural(inference.CountCauses(r.Causes), "cause", "causes"), inference.Plural(len(r.Failed), "failed check", "failed checks"))
 		sentence := map[string]string{}
 		for _, c := range r.Failed {
 			sentence[c.Name] = c.Explanation
 		}
 		for _, k := range r.Causes {
-			fmt.Fprintf(&b, "  - *%s* (severity %.3g): %s\n", k.Title, k.Severity, k.Explanation)
+			if k.Consequence {
+				fmt.Fprintf(&b, "  - %s (not counted as causes): %s\n", k.Title, k.Explanation)
+			} else {
+				fmt.Fprintf(&b, "  - *%s* (severity %.3g): %s\n", inference.CauseTitle(k), k.Severity, k.Explanation)
+			}
 			for _, n := range k.Checks {
 				fmt.Fprintf(&b, "    - %s: %s\n", inference.CheckTitle(n), sentence[n])
 			}

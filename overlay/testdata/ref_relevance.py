@@ -79,7 +79,18 @@ def rule_zb(w, conv_kw, x, r, lo, hi):
     return (xa * xa.grad + l * l.grad + h * h.grad).detach()
 
 
-def lrp(net, x, cls, eps, lo, hi, composite, conv2="epsilon", bias=True):
+def rule_blind(w, conv_kw, x, r, flat):
+    """w^2 rule (flat: every weight 1): R_i = sum_j w_ij^2 R_j / sum_i w_ij^2,
+    the sums over the real (unpadded) inputs."""
+    v = torch.ones_like(w) if flat else w * w
+    a = torch.ones_like(x).requires_grad_(True)
+    z = F.conv3d(a, v, **conv_kw)
+    s = (r / stab(z, TINY)).detach()
+    (z * s).sum().backward()
+    return a.grad.detach()
+
+
+def lrp(net, x, cls, eps, lo, hi, composite, conv2="epsilon", bias=True, first="zb", gamma=0.0):
     w1, b1 = fold(net.conv1, net.bn1)
     w2, b2 = fold(net.conv2, net.bn2)
     k1 = dict(padding=1)
@@ -99,13 +110,19 @@ def lrp(net, x, cls, eps, lo, hi, composite, conv2="epsilon", bias=True):
     r = rule_linear(lambda a: a.mean(dim=(2, 3, 4)), a2, r, TINY)
     if conv2 == "zplus":
         r = rule_linear(lambda a: F.conv3d(a, w2.clamp(min=0), None, **k2), p1, r, TINY)
+    elif conv2 == "gamma":
+        # LRP-gamma (Montavon et al. 2019, section 10.1) on non-negative
+        # inputs: weights w + gamma w+, the bias left out
+        r = rule_linear(lambda a: F.conv3d(a, w2 + gamma * w2.clamp(min=0), None, **k2), p1, r, TINY)
     else:
         r = rule_linear(lambda a: F.conv3d(a, w2, cb2, **k2), p1, r, eps)
     # max pooling: the relevance goes to the winner (the gradient of the max)
     a = a1.detach().requires_grad_(True)
     (F.max_pool3d(a, 2) * r).sum().backward()
     r = a.grad.detach()
-    if composite:
+    if composite and first != "zb":
+        r = rule_blind(w1, k1, x, r, first == "flat")
+    elif composite:
         r = rule_zb(w1, k1, x, r, lo, hi)
     else:
         r = rule_linear(lambda a: F.conv3d(a, w1, cb1, **k1), x, r, eps)
@@ -136,6 +153,9 @@ def main():
     r_comp, _ = lrp(net, x, cls, eps, lo, hi, composite=True)
     r_comp_ab, _ = lrp(net, x, cls, eps, lo, hi, composite=True, conv2="zplus")
     r_eps_nobias, _ = lrp(net, x, cls, eps, lo, hi, composite=False, bias=False)
+    r_w2, _ = lrp(net, x, cls, eps, lo, hi, composite=True, conv2="zplus", first="w2")
+    r_flat, _ = lrp(net, x, cls, eps, lo, hi, composite=True, conv2="zplus", first="flat")
+    r_gamma, _ = lrp(net, x, cls, eps, lo, hi, composite=True, conv2="gamma", bias=False, gamma=0.5)
     out = {
         "logit": f,
         "baseline_logit": f_base,
@@ -145,6 +165,9 @@ def main():
         "lrp_composite": r_comp.flatten().tolist(),
         "lrp_composite_alpha_beta": r_comp_ab.flatten().tolist(),
         "lrp_epsilon_no_bias": r_eps_nobias.flatten().tolist(),
+        "lrp_composite_w2": r_w2.flatten().tolist(),
+        "lrp_composite_flat": r_flat.flatten().tolist(),
+        "lrp_composite_gamma": r_gamma.flatten().tolist(),
     }
     json.dump(out, sys.stdout)
 

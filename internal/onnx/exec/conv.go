@@ -275,6 +275,9 @@ func (k *convKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	if err != nil {
 		return nil, err
 	}
+	if err := checkAlloc(p.outShape, 4); err != nil {
+		return nil, err
+	}
 	y := onnx.New(p.outShape...)
 	tasks := p.tasks()
 	bufs := make([][]float32, k.workers)

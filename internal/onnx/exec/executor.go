@@ -348,15 +348,16 @@ func (e *Executor) Forward(inputs map[string]*onnx.Tensor) (*Trace, error) {
 		}
 	}
 	tr := &Trace{Values: vals}
+	budget := newPassBudget("the values of one forward pass")
 	for i, n := range e.order {
-		if err := e.runNode(tr, n, e.kernels[i]); err != nil {
+		if err := e.runNode(tr, n, e.kernels[i], budget); err != nil {
 			return nil, err
 		}
 	}
 	return tr, nil
 }
 
-func (e *Executor) runNode(tr *Trace, n *onnx.Node, k kernel) error {
+func (e *Executor) runNode(tr *Trace, n *onnx.Node, k kernel, budget *passBudget) error {
 	outs, err := k.forward(tr.NodeInputs(n))
 	var ue *UnsupportedError
 	if errors.As(err, &ue) {
@@ -372,6 +373,9 @@ func (e *Executor) runNode(tr *Trace, n *onnx.Node, k kernel) error {
 		if o != "" {
 			tr.Values[o] = outs[j]
 		}
+	}
+	if err := budget.add(outs...); err != nil {
+		return fmt.Errorf("forward: %s: %w", n.Describe(), err)
 	}
 	return nil
 }
@@ -449,9 +453,16 @@ func (e *Executor) BackwardWith(tr *Trace, seeds map[string]*onnx.Tensor, opt Ba
 		}
 		acc.add(name, s)
 	}
+	budget := newPassBudget("the gradients of one backward pass")
 	for i := len(e.order) - 1; i >= 0; i-- {
-		if err := e.backNode(tr, e.order[i], e.kernels[i], acc, opt); err != nil {
+		n := e.order[i]
+		if err := e.backNode(tr, n, e.kernels[i], acc, opt); err != nil {
 			return nil, err
+		}
+		for _, in := range n.Inputs {
+			if err := budget.add(acc.grads[in]); err != nil {
+				return nil, fmt.Errorf("backward: %s: %w", n.Describe(), err)
+			}
 		}
 	}
 	return &Grads{Values: acc.grads}, nil

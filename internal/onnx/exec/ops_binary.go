@@ -117,6 +117,9 @@ func binaryForward(kind binKind, in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	if err != nil {
 		return nil, err
 	}
+	if err := checkAlloc(shape, binaryBytes(a, b, shape)); err != nil {
+		return nil, err
+	}
 	if !a.IsFloat() {
 		return []*onnx.Tensor{intBinary(kind, a, b, shape)}, nil
 	}
@@ -234,4 +237,17 @@ func binaryBackward(kind binKind, in []*onnx.Tensor, g *onnx.Tensor) ([]*onnx.Te
 		}
 	}
 	return []*onnx.Tensor{ga, gb}, nil
+}
+
+// binaryBytes is the memory per output element of a binary operator: the
+// element, and two index tables unless both operands already have the
+// output's shape (floats only; integers always broadcast through them).
+func binaryBytes(a, b *onnx.Tensor, shape []int) int64 {
+	if !a.IsFloat() {
+		return 8 + 16
+	}
+	if onnx.SameShape(a.Shape, shape) && onnx.SameShape(b.Shape, shape) {
+		return 4
+	}
+	return 4 + 16
 }

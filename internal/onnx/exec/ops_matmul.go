@@ -62,6 +62,9 @@ func (g *gemmKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	if err != nil {
 		return nil, err
 	}
+	if err := checkAlloc([]int{m, n}, 4); err != nil {
+		return nil, err
+	}
 	y := onnx.New(m, n)
 	gemmParallel(g.workers, m, n, k, av, bv, y.Data, n, false)
 	if g.alpha != 1 {
@@ -192,6 +195,9 @@ func (mk *matmulKernel) forward(in []*onnx.Tensor) ([]*onnx.Tensor, error) {
 	}
 	p, err := planMatMul(a.Shape, b.Shape)
 	if err != nil {
+		return nil, err
+	}
+	if err := checkAlloc(p.outShape, 4); err != nil {
 		return nil, err
 	}
 	y := onnx.New(p.outShape...)

@@ -58,8 +58,8 @@ func (k *poolKernel) plan(x *onnx.Tensor) (window, []int, error) {
 		return w, nil, err
 	}
 	shape := append([]int{x.Shape[0], x.Shape[1]}, w.spatialOut...)
-	_, err = onnx.CheckedNumel(shape)
-	return w, shape, err
+	// the values and, for max pooling, their int64 indices
+	return w, shape, checkAlloc(shape, 4+8)
 }
 
 // axisTaps describes, for one output coordinate along one axis, the first

@@ -412,7 +412,8 @@ func gatherIndex(shape []int, ind *onnx.Tensor, axis int64) ([]int, []int, error
 	}
 	outer, inner, dim := onnx.Numel(shape[:ax]), onnx.Numel(shape[ax+1:]), shape[ax]
 	out := append(append(append([]int{}, shape[:ax]...), ind.Shape...), shape[ax+1:]...)
-	if _, err := onnx.CheckedNumel(out); err != nil {
+	// the index table and the gathered elements
+	if err := checkAlloc(out, 8+8); err != nil {
 		return nil, nil, err
 	}
 	idx := make([]int, 0, onnx.Numel(out))
