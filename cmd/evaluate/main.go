@@ -43,7 +43,7 @@ func main() {
 	flag.StringVar(&o.doc, "doc", "", "Markdown document whose figures block to refresh (e.g. docs/evaluation.md)")
 	flag.StringVar(&o.ortLib, "ort-lib", "", "path of the ONNX Runtime library "+ortlib.FileName)
 	flag.Uint64Var(&o.seed, "seed", study.DefaultSeed, "phantom cohort seed (must not be a training or fitting seed)")
-	flag.IntVar(&o.n, "n", 200, "fresh in-distribution phantoms")
+	flag.IntVar(&o.n, "n", 200, "fresh in-distribution phantoms (with -maps or -rule-search: pattern-positive phantoms, default 50)")
 	flag.IntVar(&o.perShift, "per-shift", 20, "phantoms of each shift type")
 	flag.IntVar(&o.workers, "workers", 0, "cases at once (default: all CPUs)")
 	flag.BoolVar(&o.noReal, "no-real", false, "skip the real reference scans")
@@ -54,6 +54,11 @@ func main() {
 	if flag.NArg() > 0 {
 		fmt.Fprintf(os.Stderr, "evaluate: unexpected argument %q\n", flag.Arg(0))
 		os.Exit(2)
+	}
+	nSet := false
+	flag.Visit(func(f *flag.Flag) { nSet = nSet || f.Name == "n" })
+	if (o.maps || o.ruleSearch) && !nSet {
+		o.n = 50
 	}
 	runner := run
 	if o.maps {
