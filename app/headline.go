@@ -57,8 +57,9 @@ func newHeadPanel(u *UI) *headPanel {
 	p.anyway.Importance = widget.LowImportance
 	p.anyway.Hide()
 	verdict := container.NewStack(p.block, container.NewPadded(container.NewVBox(p.verdict, p.causes)))
-	probRow := container.NewBorder(nil, nil, nil, p.anyway, p.prob)
-	p.root = container.NewVBox(verdict, probRow, p.probNote)
+	// "Show anyway" goes beside the note, not the large probability, so
+	// the header fits the reading column of a 1280-pixel window.
+	p.root = container.NewVBox(verdict, p.prob, container.NewBorder(nil, nil, nil, p.anyway, p.probNote))
 	p.clear()
 	return p
 }
