@@ -91,6 +91,9 @@ func TestTemplateView(t *testing.T) {
 	if p.tplCk.Disabled() {
 		t.Fatal("the Template check box is disabled for a model folder with a template")
 	}
+	if hasText(h.texts(), inference.CheckAlignment) {
+		t.Errorf("the alignment check is named by its key %q on screen", inference.CheckAlignment)
+	}
 	scanScene, before := p.scene, p.at
 	p.tplCk.SetChecked(true)
 	if p.tpl == nil || p.scene != p.tpl.Scene || p.scene.Volume().Dims != mask.Dims {
