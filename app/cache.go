@@ -104,8 +104,14 @@ func (j *caseJob) failed() bool {
 	}
 }
 
-// run loads the scan, then scores it. A panic becomes the stage's error.
+// run loads the scan, scores it, then prepares its maps.
 func (s *caseStore) run(ctx context.Context, j *caseJob) {
+	s.loadAndScore(ctx, j)
+	j.prepareMaps(ctx)
+}
+
+// loadAndScore loads the scan, then scores it. A panic becomes the stage's error.
+func (s *caseStore) loadAndScore(ctx context.Context, j *caseJob) {
 	loadedClosed := false
 	defer func() {
 		if r := recover(); r != nil {
@@ -126,6 +132,19 @@ func (s *caseStore) run(ctx context.Context, j *caseJob) {
 		return
 	}
 	j.scoreErr = s.score(ctx, j)
+}
+
+// prepareMaps finds, once the case is scored, what every map of it needs:
+// the head mask the maps are drawn inside. A map task started meanwhile
+// waits for it (openCase.headMask) instead of computing it again. A panic
+// here leaves the mask empty (maps then drawn everywhere), never the
+// program ended.
+func (j *caseJob) prepareMaps(ctx context.Context) {
+	if j.loadErr != nil || j.scoreErr != nil || ctx.Err() != nil {
+		return
+	}
+	defer func() { recover() }()
+	j.oc.headMask()
 }
 
 // score runs the model on the loaded scan.

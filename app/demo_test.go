@@ -192,6 +192,11 @@ func TestThickSliceOneCause(t *testing.T) {
 		t.Errorf("Fit check: %d cause rows for %d causes, %d passing rows for %d", len(u.fit.causes.Objects), len(r.Causes),
 			len(u.fit.checks.Objects), len(passed(r.Checks)))
 	}
+	// Checks that may only follow from the causes (inference.Cause.Consequence)
+	// are listed but not counted as causes, as in `brightfold score`.
+	if want := inference.Plural(inference.CountCauses(r.Causes), "cause", "causes") + ":"; !strings.HasPrefix(u.fit.sentence.Text, want) {
+		t.Errorf("Fit check verdict %q, want it to start %q (causes %+v)", u.fit.sentence.Text, want, r.Causes)
+	}
 	all := strings.Join(h.texts(), "\n")
 	for _, n := range r.Causes[0].Checks {
 		if !strings.Contains(all, inference.CheckTitle(n)+" ("+inference.CheckDetail(fitCheck(r.Checks, n))+")") {

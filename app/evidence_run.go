@@ -160,6 +160,7 @@ func (u *UI) showScore(oc *openCase) {
 	u.head.show(oc, u.withheld(oc))
 	u.evidence.showPrediction(oc.card, r.Prediction, inference.Withheld(r))
 	u.showChecks(r)
+	u.scan.refreshTemplateCheck()
 	u.startRelevance()
 }
 

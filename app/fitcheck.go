@@ -104,7 +104,7 @@ func (p *fitPanel) showChecks(r *inference.Result) {
 		causes = inference.GroupCauses(r.Checks)
 	}
 	if ood {
-		p.setBlock(colOOD, verdictOOD, inference.Plural(len(causes), "cause", "causes")+
+		p.setBlock(colOOD, verdictOOD, inference.Plural(inference.CountCauses(causes), "cause", "causes")+
 			": this scan is unlike the scans the model was trained on. Do not rely on its probability.")
 	} else {
 		p.setBlock(colInDist, verdictIn, "Every required check passes: the scan resembles the model's training scans. This does not make the probability a diagnosis.")

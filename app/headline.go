@@ -57,8 +57,9 @@ func newHeadPanel(u *UI) *headPanel {
 	p.anyway.Importance = widget.LowImportance
 	p.anyway.Hide()
 	verdict := container.NewStack(p.block, container.NewPadded(container.NewVBox(p.verdict, p.causes)))
-	probRow := container.NewBorder(nil, nil, nil, p.anyway, p.prob)
-	p.root = container.NewVBox(verdict, probRow, p.probNote)
+	// "Show anyway" goes beside the note, not the large probability, so
+	// the header fits the reading column of a 1280-pixel window.
+	p.root = container.NewVBox(verdict, p.prob, container.NewBorder(nil, nil, nil, p.anyway, p.probNote))
 	p.clear()
 	return p
 }
@@ -141,7 +142,7 @@ func headCauses(r *inference.Result) string {
 	var lines []string
 	for i, c := range causes {
 		if i == maxCauses {
-			lines = append(lines, fmt.Sprintf("and %s below, under Fit check", inference.Plural(len(causes)-maxCauses, "more cause", "more causes")))
+			lines = append(lines, moreCauses(causes[i:]))
 			break
 		}
 		names := make([]string, len(c.Checks))
@@ -151,4 +152,14 @@ func headCauses(r *inference.Result) string {
 		lines = append(lines, fmt.Sprintf("%s: %s.", inference.CauseTitle(c), strings.Join(names, ", ")))
 	}
 	return strings.Join(append(lines, inference.FitScoreNote(r)), "\n")
+}
+
+// moreCauses is the header's last line when causes do not fit: how many
+// more causes (consequence entries not counted, inference.CountCauses), or
+// that only checks that may follow from the causes above are left.
+func moreCauses(rest []inference.Cause) string {
+	if n := inference.CountCauses(rest); n > 0 {
+		return fmt.Sprintf("and %s below, under Fit check", inference.Plural(n, "more cause", "more causes"))
+	}
+	return "and checks that may follow from these causes below, under Fit check"
 }

@@ -112,6 +112,13 @@ func TestNoTextCutAt1280x800(t *testing.T) {
 		for _, c := range h.cutTexts() {
 			t.Errorf("%s: %q is shown as %q", what, c.whole, c.shown)
 		}
+		// No panel is squeezed below the width its content needs (the
+		// desktop driver then takes the room from the Scan panel's tools).
+		for name, o := range map[string]fyne.CanvasObject{"Scan": h.u.scanSection, "reading column": h.u.column, "Cases": h.u.casesPanel.root} {
+			if o.Size().Width+0.5 < o.MinSize().Width {
+				t.Errorf("%s: the %s panel is %.0f px wide, its content needs %.0f", what, name, o.Size().Width, o.MinSize().Width)
+			}
+		}
 	}
 	h.u.selectCase(0)
 	check("first demo case")

@@ -19,6 +19,10 @@ func (u *UI) showModelInput(on bool) {
 		return
 	}
 	at := p.at
+	if p.tpl != nil { // leaving the template view: back to the scan's world
+		at = p.tpl.ToScan.Apply(at)
+		p.setTemplate(nil)
+	}
 	if !on {
 		if p.input && at == p.inputAt {
 			at = p.scanAt // not moved on the model grid: back where it was

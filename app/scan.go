@@ -31,9 +31,11 @@ type scanPanel struct {
 	interp  viewer.Interp
 	conv    viewer.Convention
 
-	overlay *viewer.OverlayMap // relevance map on the scan grid, nil when none
-	input   bool               // the planes show the model input, not the scan
-	inputCk *widget.Check      // "Model input": show the model input
+	overlay *viewer.OverlayMap   // relevance map on the scan grid, nil when none
+	input   bool                 // the planes show the model input, not the scan
+	inputCk *widget.Check        // "Model input": show the model input
+	tpl     *viewer.TemplateView // the scan in its template's space, while shown
+	tplCk   *widget.Check        // "Template": show it
 	// scanAt is the crosshair on the scan when the model input was shown,
 	// inputAt where it went on the model grid.
 	scanAt, inputAt [3]float64
@@ -108,6 +110,14 @@ func newScanPanel(u *UI) *scanPanel {
 		u.showModelInput(on)
 	})
 	p.setInput(false)
+	p.tplCk = widget.NewCheck("Template", func(on bool) {
+		u.refocus()
+		if p.quietSel {
+			return
+		}
+		u.showTemplate(on)
+	})
+	p.tplCk.Disable()
 	p.dragSel = newSafeSelect([]string{dragWL, dragPan}, func(string) { u.refocus() })
 	p.dragSel.SetSelectedIndex(0)
 	p.wlLabel, p.readout, p.pointer = readoutLabel(), readoutLabel(), readoutLabel()
@@ -118,7 +128,7 @@ func newScanPanel(u *UI) *scanPanel {
 	// the end of the Window line, whose text gives way, so the tool row
 	// stays within a 1280-pixel window.
 	info := container.New(layout.NewFormLayout(),
-		readoutName("Window"), container.NewBorder(nil, nil, nil, p.inputCk, p.wlLabel),
+		readoutName("Window"), container.NewBorder(nil, nil, nil, container.NewHBox(p.tplCk, p.inputCk), p.wlLabel),
 		readoutName("Crosshair"), p.readout, readoutName("Pointer"), p.pointer)
 	p.root = container.NewBorder(tools, info, nil, nil, p.grid)
 	p.clear("No case open.")
@@ -193,6 +203,8 @@ func (p *scanPanel) clear(msg string) {
 	p.scene = nil
 	p.overlay = nil
 	p.setInput(false)
+	p.setTemplate(nil)
+	p.tplCk.Disable()
 	for _, v := range p.views {
 		v.setMessage(msg)
 	}
@@ -212,6 +224,8 @@ func (p *scanPanel) showMessage(msg string) { p.clear(msg) }
 func (p *scanPanel) show(s *viewer.Scene) {
 	p.overlay = nil
 	p.setInput(false)
+	p.setTemplate(nil)
+	p.refreshTemplateCheck()
 	p.showScene(s, s.Center())
 }
 
@@ -286,6 +300,9 @@ func (p *scanPanel) layers() viewer.Layers {
 	if o := p.visibleOverlay(); o != nil {
 		l.Overlay, l.Style = o, p.style
 	}
+	if p.tpl != nil {
+		l.Outline = p.tpl.Outline
+	}
 	return l
 }
 
@@ -344,7 +361,7 @@ func (p *scanPanel) refreshReadout() {
 }
 
 func (p *scanPanel) visibleOverlay() *viewer.OverlayMap {
-	if p.showOv && !p.input && !p.u.read.blinds() {
+	if p.showOv && !p.input && p.tpl == nil && !p.u.read.blinds() {
 		return p.overlay
 	}
 	return nil

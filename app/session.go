@@ -23,6 +23,8 @@ type openCase struct {
 	vol   *volume.Volume
 	scene *viewer.Scene
 	input *viewer.Scene // the model input on its grid (inputScene), once shown
+	// tplView is the scan in its model's template space (templateView), once shown.
+	tplView *viewer.TemplateView
 
 	result     *inference.Result // the score, once applied on the UI thread
 	card       *inference.Card

@@ -146,9 +146,11 @@ func (u *UI) build() {
 	cancel := widget.NewButtonWithIcon("Cancel", theme.CancelIcon(), func() { u.cancelTask(u.taskKind) })
 	u.taskBox = container.NewBorder(nil, nil, nil, cancel, container.NewGridWithColumns(2, u.taskText, u.taskBar))
 	u.taskBox.Hide()
-	// The strip's height is reserved: a button's height, task or not.
-	strip := container.NewStack(spacer(0, cancel.MinSize().Height), u.taskBox)
-	bottom := container.NewVBox(strip, u.message)
+	// One line under the panels: the status message, and at its right the
+	// task strip, whose room is reserved (a button's height, a third of a
+	// 1280-pixel window), task or not, so the planes never jump.
+	strip := container.NewStack(spacer(420, cancel.MinSize().Height), u.taskBox)
+	bottom := container.NewBorder(nil, nil, nil, strip, u.message)
 	u.root = container.NewBorder(container.NewVBox(banner, container.NewPadded(u.topBar), widget.NewSeparator()),
 		bottom, nil, nil, main)
 }

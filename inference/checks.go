@@ -428,6 +428,8 @@ func CheckTitle(name string) string {
 		return "Feature distance (squared Mahalanobis)"
 	case CheckPreparation:
 		return "Preparation for the model"
+	case CheckAlignment:
+		return "Alignment to the model's template"
 	}
 	return name
 }

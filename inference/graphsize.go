@@ -15,8 +15,8 @@ const maxConstElements = 128 << 20
 
 // checkConstantSizes refuses nodes of the main graph whose output size is
 // fixed by constant inputs and exceeds maxConstElements. (Sizes computed at
-// run time, and nodes inside If/Loop bodies, are bounded by the run budget
-// rather than checked here.)
+// run time, and nodes inside If/Loop bodies, are bounded while the model
+// runs by ONNX Runtime's arena and the process ceiling: memory.go.)
 func checkConstantSizes(g *onnx.Graph) error {
 	for _, n := range g.Nodes {
 		var elems float64

@@ -4,6 +4,7 @@ import (
 	"math"
 	"slices"
 
+	"brightfold/inference/fitcheck"
 	"brightfold/internal/stats"
 )
 
@@ -23,16 +24,21 @@ type distribution struct {
 // newDistribution keeps the finite values of data (their absolute values,
 // zeros dropped, when magnitudes is set), subsampled to maxSample.
 func newDistribution(data []float32, magnitudes bool) distribution {
+	// keep works on the bit pattern (IEEE 754: an exponent of all ones is
+	// an infinity or a NaN), which is several times faster than through
+	// float64 on the 5 million voxels of a 1 mm scan.
+	const expMask, signBit = 0x7f800000, 0x80000000
 	keep := func(x float32) (float32, bool) {
-		f := float64(x)
-		if math.IsNaN(f) || math.IsInf(f, 0) {
+		b := math.Float32bits(x)
+		if b&expMask == expMask {
 			return 0, false
 		}
 		if magnitudes {
-			if x == 0 {
+			b &^= signBit
+			if b == 0 {
 				return 0, false
 			}
-			return float32(math.Abs(f)), true
+			return math.Float32frombits(b), true
 		}
 		return x, true
 	}
@@ -58,7 +64,7 @@ func newDistribution(data []float32, magnitudes bool) distribution {
 		}
 		seen++
 	}
-	slices.Sort(out)
+	fitcheck.SortFloat32(out) // a radix sort, several times faster than slices.Sort here
 	return distribution{sorted: out, sampled: stride > 1}
 }
 

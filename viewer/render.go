@@ -14,6 +14,7 @@ type Layers struct {
 	Interp  Interp
 	Overlay *OverlayMap // nil: scan only
 	Style   OverlayStyle
+	Outline *Outline // nil: none; else its edge drawn over everything
 }
 
 // Render draws frame f of the scene: window/level grey scan, overlay blended
@@ -66,6 +67,12 @@ func (s *Scene) RenderInto(dst *image.RGBA, f Frame, l Layers) error {
 		}
 		smp.row(l.Overlay.data, y, ov)
 		blendRow(px, ov, &paint)
+	}
+	if l.Outline != nil {
+		if len(l.Outline.inside) != len(s.vol.Data) {
+			return fmt.Errorf("viewer: outline has %d voxels, scan %d", len(l.Outline.inside), len(s.vol.Data))
+		}
+		drawOutline(dst, f, l.Outline)
 	}
 	return nil
 }

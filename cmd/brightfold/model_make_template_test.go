@@ -7,6 +7,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 
@@ -130,10 +131,11 @@ func TestModelMakeTemplate(t *testing.T) {
 				"--out", mf, "--ort-lib", lib, "--spacing", "4", "--align", "affine"}
 			if mode == "given" {
 				args = append(args, "--template", tpl)
+				runBF(t, args...)
 			} else {
 				args = append(args, "--build-template")
+				buildWithUnreadable(t, dir, man, args)
 			}
-			runBF(t, args...)
 			folder, err := inference.LoadModelFolder(mf)
 			if err != nil {
 				t.Fatal(err)
@@ -179,6 +181,8 @@ func TestModelMakeTemplate(t *testing.T) {
 				t.Logf("squashed: %s", ch.Explanation)
 			}
 
+			recalibrateAligned(t, dir, mf, man, moved, lib)
+
 			// a swapped template is refused when the folder is loaded
 			b, err := os.ReadFile(inFolder)
 			if err != nil {
@@ -192,6 +196,98 @@ func TestModelMakeTemplate(t *testing.T) {
 				t.Errorf("tampered template: got %v, want a sha256 refusal", err)
 			}
 		})
+	}
+}
+
+// buildWithUnreadable runs `model make --build-template` (args) on man with
+// an unreadable calibration scan put first: without --skip-unreadable it is
+// refused at once naming the file (exit 2, nothing written); with it the
+// template is built from the others and the scan is listed once as skipped
+// and counted in the card's provenance.
+func buildWithUnreadable(t *testing.T, dir, man string, args []string) {
+	t.Helper()
+	if err := os.WriteFile(filepath.Join(dir, "broken.nii.gz"), []byte("not a scan"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	b, err := os.ReadFile(man)
+	if err != nil {
+		t.Fatal(err)
+	}
+	head, rest, _ := strings.Cut(string(b), "\n")
+	withBroken := filepath.Join(dir, "cases-broken.csv")
+	if err := os.WriteFile(withBroken, []byte(head+"\nbroken.nii.gz,no_pattern,calibration\n"+rest), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	a := append([]string{}, args...)
+	for i := range a {
+		if a[i] == man {
+			a[i] = withBroken
+		}
+	}
+	out := a[slices.Index(a, "--out")+1]
+	code, _, stderr := runCLI(a...)
+	if code != 2 || !strings.Contains(stderr, "broken.nii.gz") || !strings.Contains(stderr, "--skip-unreadable") {
+		t.Fatalf("--build-template with an unreadable calibration scan: exit %d, %q; want exit 2 naming broken.nii.gz and --skip-unreadable", code, stderr)
+	}
+	if _, err := os.Stat(out); err == nil {
+		t.Fatal("a refused model make left a folder")
+	}
+	_, stderr = runBF(t, append(a, "--skip-unreadable")...)
+	if n := strings.Count(stderr, "skipped (cannot be prepared): broken.nii.gz"); n != 1 {
+		t.Errorf("broken.nii.gz listed %d times as skipped, want once:\n%s", n, stderr)
+	}
+	folder, err := inference.LoadModelFolder(out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p := folder.Card.Provenance; p == nil || p.Skipped != 1 {
+		t.Errorf("card provenance %+v, want 1 skipped scan", p)
+	}
+}
+
+// recalibrateAligned recalibrates the aligned model folder mf on all 20 of
+// its cases (recalibration needs 10 per class) as a new site: the new card keeps the alignment (method,
+// metric, template file, its sha256 checked against coreutils sha256sum,
+// calibration range) and the moved phantom scored with it passes the
+// alignment check.
+func recalibrateAligned(t *testing.T, dir, mf, man, moved, lib string) {
+	t.Helper()
+	b, err := os.ReadFile(man)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rows := []string{"path,label,site"}
+	for _, l := range strings.Split(strings.TrimSpace(string(b)), "\n")[1:] {
+		f := strings.Split(l, ",")
+		rows = append(rows, f[0]+","+f[1]+",harbour-east")
+	}
+	site := filepath.Join(dir, filepath.Base(mf)+"-site.csv")
+	if err := os.WriteFile(site, []byte(strings.Join(rows, "\n")+"\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	out := mf + "-east"
+	runBF(t, "model", "recalibrate", mf, "--cases", site, "--out", out, "--ort-lib", lib)
+	parent, err := inference.LoadModelFolder(mf)
+	if err != nil {
+		t.Fatal(err)
+	}
+	child, err := inference.LoadModelFolder(out)
+	if err != nil {
+		t.Fatalf("recalibrated aligned folder does not load: %v", err)
+	}
+	pa, ca := parent.Card.Preprocessing.Alignment, child.Card.Preprocessing.Alignment
+	if ca == nil || ca.Method != pa.Method || ca.Metric != pa.Metric || ca.Template != pa.Template ||
+		ca.TemplateSHA256 != pa.TemplateSHA256 || ca.MetricRange == nil || *ca.MetricRange != *pa.MetricRange {
+		t.Fatalf("recalibrated alignment %+v, parent's %+v", ca, pa)
+	}
+	if got := sha256sum(t, filepath.Join(out, ca.Template)); got != pa.TemplateSHA256 {
+		t.Errorf("recalibrated folder's template sha256sum %s, card %s", got, pa.TemplateSHA256)
+	}
+	if r := child.Card.Provenance.Recalibration; r == nil || r.Site != "harbour-east" || r.N != len(rows)-1 {
+		t.Errorf("recalibration provenance %+v, want site harbour-east and %d cases", r, len(rows)-1)
+	}
+	if ch := alignmentCheck(t, moved, out, lib); !ch.Pass {
+		t.Errorf("moved phantom scored with the recalibrated folder: %+v, want a pass", ch)
 	}
 }
 

@@ -105,7 +105,7 @@ func Make(ctx context.Context, source string, model []byte, g Graph, m *manifest
 	if len(unreadable) > 0 && !opt.SkipUnreadable {
 		return nil, inputerr.New(m.Source, "%d scan(s) cannot be prepared (use --skip-unreadable to leave them out): %s", len(unreadable), strings.Join(unreadable, "; "))
 	}
-	res.Cases, res.Unreadable = cases, unreadable
+	res.Cases, res.Unreadable = cases, mergeListed(res.Unreadable, unreadable)
 	fitMetricRange(card, cases)
 	if err := fitCard(card, res, m, g, opt); err != nil {
 		return nil, err

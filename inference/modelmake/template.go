@@ -76,7 +76,7 @@ func setupAlignment(ctx context.Context, card *inference.Card, m *manifest.Manif
 		name, b, tpl, err = givenTemplate(al.TemplatePath)
 	case al.Build:
 		name = TemplateFile
-		b, tpl, err = builtTemplate(ctx, m, splits, al.Rounds, ropt, opt)
+		b, tpl, err = builtTemplate(ctx, m, splits, al.Rounds, ropt, opt, &res.Unreadable)
 	default:
 		return inputerr.New("", "alignment needs --template FILE or --build-template")
 	}
@@ -119,7 +119,9 @@ func givenTemplate(p string) (string, []byte, *volume.Volume, error) {
 
 // builtTemplate builds a template from the calibration cases and encodes
 // it as NIfTI (notice in descrip).
-func builtTemplate(ctx context.Context, m *manifest.Manifest, splits []string, rounds int, ropt register.Options, opt Options) ([]byte, *volume.Volume, error) {
+//
+// The cases it left out (opt.SkipUnreadable) are appended to skipped.
+func builtTemplate(ctx context.Context, m *manifest.Manifest, splits []string, rounds int, ropt register.Options, opt Options, skipped *[]string) ([]byte, *volume.Volume, error) {
 	var idx []int
 	for i, s := range splits {
 		if s != manifest.SplitValidation {
@@ -130,14 +132,30 @@ func builtTemplate(ctx context.Context, m *manifest.Manifest, splits []string, r
 	load := func(i int) (*volume.Volume, error) {
 		return volume.Load([]string{m.Cases[idx[i]].Path}, volume.LoadOptions{})
 	}
+	// with --skip-unreadable a case that cannot be loaded or aligned is left
+	// out of the template and listed (runCases lists it again if it cannot
+	// be prepared either); without, the first one stops the build
+	skip := func(i int, err error) bool {
+		if !opt.SkipUnreadable {
+			return false
+		}
+		name := filepath.Base(m.Cases[idx[i]].Path)
+		opt.Log("template: leaving out %s (%v)", name, err)
+		*skipped = append(*skipped, fmt.Sprintf("%s: %v", name, err))
+		return true
+	}
 	tpl, err := register.BuildTemplate(ctx, len(idx), load, register.TemplateOptions{Registration: ropt, Rounds: rounds,
+		Skip: skip,
 		Progress: func(round, i, n int) {
 			if i == n-1 {
-				opt.Log("template round %d: %d cases aligned", round+1, n)
+				opt.Log("template round %d: cases aligned", round+1)
 			}
 		}})
 	if err != nil {
-		return nil, nil, inputerr.Wrap(m.Source, fmt.Errorf("build template: %w", err))
+		if ctx.Err() != nil {
+			return nil, nil, err
+		}
+		return nil, nil, inputerr.Wrap(m.Source, fmt.Errorf("build template (use --skip-unreadable to leave out scans that cannot be prepared): %w", err))
 	}
 	tmp, err := os.MkdirTemp("", "brightfold-template-")
 	if err != nil {
@@ -145,7 +163,7 @@ func builtTemplate(ctx context.Context, m *manifest.Manifest, splits []string, r
 	}
 	defer os.RemoveAll(tmp)
 	p := filepath.Join(tmp, TemplateFile)
-	desc := fmt.Sprintf("Template of %d cases. %s", len(idx), notice.Short)
+	desc := fmt.Sprintf("Template of %d cases. %s", len(idx)-len(*skipped), notice.Short)
 	if err := nifti.Write(p, tpl, nifti.WriteOptions{Description: desc}); err != nil {
 		return nil, nil, err
 	}
@@ -189,4 +207,20 @@ func fitMetricRange(card *inference.Card, cases []Case) {
 	al.MetricRangeMethod = fmt.Sprintf("lowest and highest final %s of the %d calibration cases after %s alignment; "+
 		"a new scan like them falls below the lowest with probability 1/(n+1) = %.3f (rank of an exchangeable case, distribution-free)",
 		al.Metric, len(v), al.Method, 1/float64(len(v)+1))
+}
+
+// mergeListed appends to a the entries of b that a lacks (a case the
+// template build left out and that could not be prepared either is listed
+// once).
+func mergeListed(a, b []string) []string {
+	seen := make(map[string]bool, len(a))
+	for _, s := range a {
+		seen[s] = true
+	}
+	for _, s := range b {
+		if !seen[s] {
+			a, seen[s] = append(a, s), true
+		}
+	}
+	return a
 }

@@ -221,13 +221,13 @@ func (o Options) withDefaults() (Options, error) {
 }
 
 func newLevel(fixed, moving *volume.Volume, o Options, levelMM float64, centre [3]float64) (*evaluator, error) {
-	f, err := levelImage(fixed, levelMM)
-	if err != nil {
-		return nil, fmt.Errorf("register: template: %w", err)
-	}
-	m, err := levelImage(moving, levelMM)
+	m, err := levelImage(moving, levelMM, 0)
 	if err != nil {
 		return nil, fmt.Errorf("register: scan: %w", err)
+	}
+	f, err := levelImage(fixed, levelMM, interpolationBlurMM(m.affine.Spacing()))
+	if err != nil {
+		return nil, fmt.Errorf("register: template: %w", err)
 	}
 	return newEvaluator(f, m, levelMask(o.Mask, f), o.Metric, centre, o.Bins), nil
 }

@@ -7,6 +7,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strconv"
 	"testing"
 
 	"brightfold/internal/phantom"
@@ -26,10 +27,35 @@ const (
 	goalMaxMM  = 2.0
 )
 
+// dipyToleranceMM is how much larger than dipy's our MI error on an
+// anatomical.nii pair may be: 0.02 mm, 1 % of the template's 2 mm voxel, a
+// stated tolerance and not a published figure. With seed 14 (seen while the
+// method was revised) our MI error is at most dipy's on all 30 pairs; on the
+// fresh seed 20261203 it was larger on 3 of 30 pairs, by 0.003, 0.005 and
+// 0.012 mm (0.093 vs 0.090, 0.089 vs 0.084, 0.088 vs 0.076 mm), where both
+// are within a tenth of a millimetre of the truth. The tolerance was set
+// after seeing that run (docs/evaluation.md says so).
+const dipyToleranceMM = 0.02
+
 // full reports whether the long evaluation runs (scripts/evaluate-register.sh
 // sets BRIGHTFOLD_REGISTER_FULL=1): 30 transforms, 10 starting points and
 // dipy on every nibabel pair. `go test` runs a few of each.
 func full() bool { return os.Getenv("BRIGHTFOLD_REGISTER_FULL") == "1" }
+
+// seed is the first word of the random streams that draw the transforms:
+// BRIGHTFOLD_REGISTER_SEED, default 14 (scripts/evaluate-register.sh reruns
+// the anatomical.nii comparison with a second seed).
+func seed(t testing.TB) uint64 {
+	s := os.Getenv("BRIGHTFOLD_REGISTER_SEED")
+	if s == "" {
+		return 14
+	}
+	v, err := strconv.ParseUint(s, 10, 64)
+	if err != nil {
+		t.Fatalf("BRIGHTFOLD_REGISTER_SEED=%q: %v", s, err)
+	}
+	return v
+}
 
 func count(short, long int) int {
 	if full() {
@@ -96,7 +122,7 @@ func TestGradientMatchesDifferences(t *testing.T) {
 func TestPhantomRecovery(t *testing.T) {
 	tpl := phantomCase(t, 2, "")
 	src := phantomCase(t, 1.5, "")
-	rng := rand.New(rand.NewPCG(14, 1))
+	rng := rand.New(rand.NewPCG(seed(t), 1))
 	n := count(2, 30)
 	s := recoverPhantom(t, tpl, src, rng, n, Options{}, "phantom transform ")
 	t.Logf("phantom recovery, %d transforms: mean displacement %.3f mm on average, worst mean %.3f mm, worst max %.3f mm", n, s.sumMean/float64(n), s.worstMean, s.worstMax)
@@ -126,7 +152,7 @@ func recoverPhantom(t *testing.T, tpl, src *phantom.Case, rng *rand.Rand, n int,
 func TestPerturbedStarts(t *testing.T) {
 	tpl := phantomCase(t, 2, "")
 	src := phantomCase(t, 1.5, "")
-	rng := rand.New(rand.NewPCG(14, 2))
+	rng := rand.New(rand.NewPCG(seed(t), 2))
 	truth := randomAffine(rng, [3]float64{})
 	scan := moveScan(t, src.Volume, truth, 2, [3]int{100, 112, 100})
 	fc, _ := centreOfMass(tpl.Volume)
@@ -159,7 +185,7 @@ func TestCrossContrast(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	rng := rand.New(rand.NewPCG(14, 3))
+	rng := rand.New(rand.NewPCG(seed(t), 3))
 	n := count(2, 10)
 	s := recoverPhantom(t, tpl, src, rng, n, Options{Metric: MI}, "T2 to T1 transform ")
 	t.Logf("cross-contrast (T2 to T1, MI), %d transforms: mean displacement %.3f mm on average, worst max %.3f mm", n, s.sumMean/float64(n), s.worstMax)
@@ -274,8 +300,8 @@ func writeNIfTI(t testing.TB, dir, name string, v *volume.Volume) string {
 // TestNibabelAnatomicalRecovery applies random transforms to nibabel's
 // anatomical.nii (python3-nibabel test data), recovers them with NCC and
 // MI, and runs dipy 1.6's AffineRegistration on the same pairs in the same
-// run: our mean displacement must meet the goal and be at most dipy's (plus
-// 0.05 mm, a rounding allowance). Both get the template mask of
+// run: our mean displacement must meet the goal and be at most dipy's plus
+// dipyToleranceMM on every pair. Both get the template mask of
 // TestNibabelMovedCopies (anatomical.nii has tissue up to its edges, and the
 // moved copy is zero outside the moved crop). `go test`: 2 transforms; full: 30.
 func TestNibabelAnatomicalRecovery(t *testing.T) {
@@ -285,8 +311,9 @@ func TestNibabelAnatomicalRecovery(t *testing.T) {
 	tplPath := writeNIfTI(t, dir, "template.nii", tpl)
 	mask := interior(tpl, 8)
 	maskPath := writeNIfTI(t, dir, "mask.nii", mask)
-	rng := rand.New(rand.NewPCG(14, 4))
+	rng := rand.New(rand.NewPCG(seed(t), 4))
 	n := count(2, 30)
+	t.Logf("anatomical.nii transforms drawn with seed %d", seed(t))
 	c, _ := centreOfMass(tpl)
 	var truths []volume.Affine
 	var pairs []map[string]string
@@ -320,10 +347,11 @@ func TestNibabelAnatomicalRecovery(t *testing.T) {
 		sOurs.add(m1, x1)
 		sMI.add(m2, x2)
 		sDipy.add(md, xd)
+		t.Logf("anatomical.nii pair %d: mean (max) displacement ours NCC %.3f (%.3f) mm, ours MI %.3f (%.3f) mm, dipy MI %.3f (%.3f) mm", i, m1, x1, m2, x2, md, xd)
 		checkGoal(t, "anatomical.nii NCC transform "+itoa(i), m1, x1)
 		checkGoal(t, "anatomical.nii MI transform "+itoa(i), m2, x2)
-		if m2 > md+0.05 {
-			t.Errorf("anatomical.nii transform %d: our MI error %.3f mm > dipy's %.3f mm", i, m2, md)
+		if m2 > md+dipyToleranceMM {
+			t.Errorf("anatomical.nii transform %d: our MI error %.3f mm > dipy's %.3f mm + %g mm", i, m2, md, dipyToleranceMM)
 		}
 	}
 	k := float64(n)
@@ -390,7 +418,7 @@ func TestNibabelMovedCopies(t *testing.T) {
 		m, x := displacement(tpl, head, ours[i], truth)
 		md, xd := bestOf(tpl, head, truth, dipy[i], dipyNoMask[i])
 		t.Logf("%s: ours mean %.3f mm (max %.3f), dipy 1.6 (better of with and without the mask) mean %.3f mm (max %.3f)", name, m, x, md, xd)
-		if m > md+0.05 {
+		if m > md {
 			t.Errorf("%s: our error %.3f mm > dipy's %.3f mm", name, m, md)
 		}
 		if name == "reoriented_anat_moved.nii" {

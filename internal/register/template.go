@@ -16,6 +16,10 @@ type TemplateOptions struct {
 	Rounds int
 	// Progress, when set, is told each case aligned (round from 0).
 	Progress func(round, index, n int)
+	// Skip, when set, is asked about a case that cannot be loaded or
+	// aligned (never about a cancelled context): true leaves the case out of
+	// this and every later round, false stops with the error. Nil stops.
+	Skip func(index int, err error) bool
 }
 
 // BuildTemplate makes a template from n cases (load(i) returns case i, so
@@ -33,39 +37,92 @@ func BuildTemplate(ctx context.Context, n int, load func(i int) (*volume.Volume,
 	if rounds == 0 {
 		rounds = 2
 	}
-	ref, err := load(0)
+	b := templateBuild{ctx: ctx, load: load, o: o, left: make([]bool, n)}
+	ref, err := b.firstReadable(n)
 	if err != nil {
 		return nil, err
 	}
-	ref = ref.Clone()
 	for round := 0; round <= rounds; round++ {
-		avg, err := volume.New(ref.Dims, ref.Affine)
-		if err != nil {
+		if ref, err = b.average(round, ref); err != nil {
 			return nil, err
 		}
-		for i := 0; i < n; i++ {
-			v, err := load(i)
-			if err != nil {
-				return nil, err
-			}
-			opts := o.Registration
-			opts.Start, opts.Progress = nil, nil
-			res, err := Register(ctx, ref, v, opts)
-			if err != nil {
-				return nil, fmt.Errorf("register: template round %d, case %d: %w", round, i+1, err)
-			}
-			addNormalised(avg.Data, res.Aligned.Data)
-			if o.Progress != nil {
-				o.Progress(round, i, n)
-			}
-		}
-		for j := range avg.Data {
-			avg.Data[j] /= float32(n)
-		}
-		avg.Meta = volume.Metadata{Format: "nifti", Description: fmt.Sprintf("template of %d cases", n)}
-		ref = avg
 	}
 	return ref, nil
+}
+
+// templateBuild is the state of one BuildTemplate: the cases left out so far.
+type templateBuild struct {
+	ctx  context.Context
+	load func(i int) (*volume.Volume, error)
+	o    TemplateOptions
+	left []bool // cases left out (Skip said so)
+}
+
+// skip decides about case i's error: nil when the case is left out.
+func (b *templateBuild) skip(i int, err error) error {
+	if b.ctx.Err() != nil || b.o.Skip == nil || !b.o.Skip(i, err) {
+		return err
+	}
+	b.left[i] = true
+	return nil
+}
+
+// firstReadable loads the first case that loads (the starting reference).
+func (b *templateBuild) firstReadable(n int) (*volume.Volume, error) {
+	for i := 0; i < n; i++ {
+		v, err := b.load(i)
+		if err == nil {
+			return v.Clone(), nil
+		}
+		if err := b.skip(i, err); err != nil {
+			return nil, err
+		}
+	}
+	return nil, fmt.Errorf("register: none of the %d template cases could be loaded", n)
+}
+
+// average aligns every case not left out to ref and returns their average
+// on ref's grid; it needs at least 2 cases.
+func (b *templateBuild) average(round int, ref *volume.Volume) (*volume.Volume, error) {
+	avg, err := volume.New(ref.Dims, ref.Affine)
+	if err != nil {
+		return nil, err
+	}
+	n, used := len(b.left), 0
+	for i := 0; i < n; i++ {
+		if b.left[i] {
+			continue
+		}
+		v, err := b.load(i)
+		var res *Result
+		if err == nil {
+			opts := b.o.Registration
+			opts.Start, opts.Progress = nil, nil
+			res, err = Register(b.ctx, ref, v, opts)
+			if err != nil {
+				err = fmt.Errorf("register: template round %d, case %d: %w", round, i+1, err)
+			}
+		}
+		if err != nil {
+			if err := b.skip(i, err); err != nil {
+				return nil, err
+			}
+			continue
+		}
+		addNormalised(avg.Data, res.Aligned.Data)
+		used++
+		if b.o.Progress != nil {
+			b.o.Progress(round, i, n)
+		}
+	}
+	if used < 2 {
+		return nil, fmt.Errorf("register: a template needs at least 2 cases, %d could be aligned", used)
+	}
+	for j := range avg.Data {
+		avg.Data[j] /= float32(used)
+	}
+	avg.Meta = volume.Metadata{Format: "nifti", Description: fmt.Sprintf("template of %d cases", used)}
+	return avg, nil
 }
 
 // addNormalised adds x/m to sum, m the mean of x's values above x's mean.
