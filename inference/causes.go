@@ -319,8 +319,11 @@ func causeFinish(c *Cause, byName map[string]fitcheck.Check) {
 //     cause 3 times beyond its limit scores 3, two independent causes each
 //     3 times beyond score 9, and several checks that saw the same cause
 //     count once; the checks that may follow from the causes (the
-//     consequences entry) do not count, since they would count a cause
-//     twice;
+//     consequences entry) do not multiply it, since they may be a cause's
+//     own effect, but the score is never lower than the largest severity
+//     of any failed required check, so a scan whose feature distance is 14
+//     times its limit beside a field of view 1.15 times too small scores
+//     14, not 1.15, and ranks above a scan that is only a little unusual;
 //   - when every required check passes, it is the largest severity of the
 //     required checks, at most 1: how close the scan comes to the nearest
 //     limit.
@@ -339,6 +342,11 @@ func FitScore(checks []fitcheck.Check, causes []Cause) float64 {
 		}
 	}
 	if failed {
+		for _, c := range checks {
+			if c.Required && !c.Pass && !math.IsNaN(c.Severity) {
+				score = math.Max(score, c.Severity)
+			}
+		}
 		return math.Min(score, maxSeverity)
 	}
 	s := 0.0

@@ -83,8 +83,12 @@ func TestGroupCausesShiftTypes(t *testing.T) {
 			t.Errorf("%s: CountCauses %d, want %d", c.shift, CountCauses(causes), len(c.want))
 		}
 		// the fit score is the product over the causes of each one's largest
-		// severity; the checks that may follow do not count
-		want := 1.0
+		// severity; the checks that may follow do not multiply it, but it is
+		// at least the largest severity of any failed required check
+		want, worst := 1.0, 0.0
+		for _, sev := range c.failed {
+			worst = math.Max(worst, sev)
+		}
 		for _, k := range causes {
 			if k.Consequence {
 				if k.Required {
@@ -98,6 +102,7 @@ func TestGroupCausesShiftTypes(t *testing.T) {
 			}
 			want *= sev
 		}
+		want = math.Max(want, worst)
 		if got := FitScore(checks, causes); math.Abs(got-want) > 1e-12 {
 			t.Errorf("%s: fit score %v, want %v", c.shift, got, want)
 		}
@@ -133,6 +138,17 @@ func TestFitScore(t *testing.T) {
 	pass[3].Severity = 0.9
 	if got := FitScore(pass, GroupCauses(pass)); got != 0.9 || GroupCauses(pass) != nil {
 		t.Errorf("passing scan: fit score %v, causes %v", got, GroupCauses(pass))
+	}
+	// A consequence far beyond its limit beside a slight cause: the score is
+	// the consequence's severity, not the cause's (ranking), and the
+	// consequence still does not multiply the causes.
+	far := causeChecks(map[string]float64{CheckFOV: 1.15, CheckMahalanobis: 14})
+	if got := FitScore(far, GroupCauses(far)); got != 14 {
+		t.Errorf("field of view 1.15 with feature distance 14: fit score %v, want 14 (causes %+v)", got, GroupCauses(far))
+	}
+	near := causeChecks(map[string]float64{CheckFOV: 3, CheckMahalanobis: 2})
+	if got := FitScore(near, GroupCauses(near)); got != 3 {
+		t.Errorf("field of view 3 with feature distance 2: fit score %v, want 3", got)
 	}
 	adv := causeChecks(map[string]float64{CheckMSP: 1.5}, CheckMSP, CheckEnergy)
 	causes := GroupCauses(adv)

@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"strings"
 	"testing"
+	"time"
 
 	"brightfold/inference"
 	"brightfold/internal/refcheck"
@@ -135,35 +136,38 @@ func loopScanOutputModel(t *testing.T) string {
 // TestHostileModelMemory runs each run-time allocation model through
 // `model check`, `score` and `score --map lrp --out` as the real command
 // line: exit 2, one line naming the model memory limit and how to raise it
-// (not the run budget of 55 s, which would stop them later), and peak RSS
+// (not the run budget, which would stop them later), and peak RSS
 // (ru_maxrss of the child) at most 1 GiB.
 func TestHostileModelMemory(t *testing.T) {
 	lib := refcheck.ORTLib(t)
 	dir := t.TempDir()
 	scan := headNIfTI(t)
 	// the arena refuses the first four at once; the fifth grows outside it
-	// (about 35 MB/s here) until the process ceiling stops it, so it runs
-	// under model check and score only
+	// (about 35 MB/s here, 15-35 s to the ceiling) until the process ceiling
+	// stops it, so it runs under model check and score only, with a run
+	// budget long enough that a slow or loaded machine still reaches the
+	// ceiling first
 	models := []struct {
 		name, dir string
 		commands  int
+		seconds   int
 	}{
-		{"ConstantOfShape in an If branch", ifBranchModel(t), 3},
-		{"ConstantOfShape of a run-time shape", runtimeConstantOfShapeModel(t), 3},
-		{"Loop doubling by Concat", loopConcatModel(t), 3},
-		{"Expand to a run-time shape", runtimeExpandModel(t), 3},
-		{"Loop stacking scan outputs", loopScanOutputModel(t), 2},
+		{"ConstantOfShape in an If branch", ifBranchModel(t), 3, 55},
+		{"ConstantOfShape of a run-time shape", runtimeConstantOfShapeModel(t), 3, 55},
+		{"Loop doubling by Concat", loopConcatModel(t), 3, 55},
+		{"Expand to a run-time shape", runtimeExpandModel(t), 3, 55},
+		{"Loop stacking scan outputs", loopScanOutputModel(t), 2, 240},
 	}
 	L := []string{"--ort-lib", lib}
-	budget := []string{inference.RunBudgetEnv + "=55"}
 	for _, m := range models {
+		budget := []string{fmt.Sprintf("%s=%d", inference.RunBudgetEnv, m.seconds)}
 		for _, args := range [][]string{
 			append([]string{"model", "check", m.dir}, L...),
 			append([]string{"score", scan, "--model", m.dir}, L...),
 			append([]string{"score", scan, "--model", m.dir, "--map", "lrp", "--out", dir + "/out"}, L...),
 		}[:m.commands] {
 			name := m.name + ": " + strings.Join(args[:len(args)-2], " ")
-			r := runHostile(t, dir, budget, args...)
+			r := runHostileFor(t, time.Duration(m.seconds+5)*time.Second, dir, budget, args...)
 			t.Logf("%s: exit %d, peak RSS %d MiB, %.1f s", name, r.code, r.peakRSS>>20, r.wall.Seconds())
 			switch {
 			case r.killed != "":

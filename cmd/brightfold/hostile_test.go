@@ -50,7 +50,13 @@ type hostileRun struct {
 // the memory limit (watched through /proc every 20 ms) or the time limit.
 func runHostile(t *testing.T, dir string, env []string, args ...string) hostileRun {
 	t.Helper()
-	ctx, cancel := context.WithTimeout(context.Background(), hostileTimeLimit)
+	return runHostileFor(t, hostileTimeLimit, dir, env, args...)
+}
+
+// runHostileFor is runHostile with another time limit.
+func runHostileFor(t *testing.T, limit time.Duration, dir string, env []string, args ...string) hostileRun {
+	t.Helper()
+	ctx, cancel := context.WithTimeout(context.Background(), limit)
 	defer cancel()
 	c := cliCommand(t, args...)
 	c.Dir = dir

@@ -65,8 +65,9 @@ type Prediction struct {
 type OOD struct {
 	Verdict string `json:"verdict"`
 	// Score is the fit score (inference.FitScore): the product over the
-	// required causes of each one's largest severity; when every required
-	// check passes, the largest severity (≤ 1). > 1 is out-of-distribution.
+	// required causes of each one's largest severity, at least the largest
+	// severity of a failed required check; when every required check
+	// passes, the largest severity (≤ 1). > 1 is out-of-distribution.
 	Score  Number  `json:"score"`
 	Checks []Check `json:"checks"`
 	// Causes group the failed checks by what they saw
