@@ -191,8 +191,8 @@ func (p *evidencePanel) showPrediction(card *inference.Card, pr inference.Predic
 		p.status.Importance = widget.DangerImportance
 	} else {
 		p.probCaption.Show()
-		p.probCaption.SetText(fmt.Sprintf("Calibrated by temperature scaling (T = %.2f; %s before calibration). Most probable class: %s.",
-			pr.Temperature, inference.FormatProbability(pr.Uncalibrated), className(pr.Label)))
+		p.probCaption.SetText(inference.CalibrationSentence(card, pr.Temperature, inference.FormatProbability(pr.Uncalibrated)) +
+			fmt.Sprintf(" Most probable class: %s.", className(pr.Label)))
 		p.status.SetText("A research score, not a diagnosis.")
 		p.status.Importance = widget.MediumImportance
 	}

@@ -38,7 +38,7 @@ func (u *UI) exportImage() (image.Image, error) {
 	}
 	if r := oc.result; r != nil {
 		spec.Verdict, spec.Headline = "In distribution", inference.FormatProbability(r.Prediction.Probability)
-		spec.Lines = append(spec.Lines, fmt.Sprintf("Probability of %s (calibrated). %s", inference.ClassName(oc.card.PositiveClass), inference.PrevalenceNote(oc.card)))
+		spec.Lines = append(spec.Lines, fmt.Sprintf("Probability of %s (%s). %s", inference.ClassName(oc.card.PositiveClass), inference.CalibrationLabel(oc.card), inference.PrevalenceNote(oc.card)))
 		if inference.Withheld(r) {
 			spec.Verdict, spec.OOD = "OUT OF DISTRIBUTION", true
 			spec.Lines = append([]string{"The scan is unlike the training scans."}, inference.VerdictCauses(r)...)

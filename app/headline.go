@@ -123,7 +123,7 @@ func (p *headPanel) show(oc *openCase, withheld bool) {
 		p.anyway.Hide()
 	default:
 		p.setProb(inference.FormatProbability(r.Prediction.Probability), colText,
-			fmt.Sprintf("Probability of %s (calibrated). %s", pos, inference.PrevalenceNote(oc.card)))
+			fmt.Sprintf("Probability of %s (%s). %s", pos, inference.CalibrationLabel(oc.card), inference.PrevalenceNote(oc.card)))
 		p.anyway.Hide()
 	}
 	p.u.reflow()

@@ -1,6 +1,7 @@
 package inference
 
 import (
+	"fmt"
 	"math"
 	"strings"
 
@@ -151,4 +152,30 @@ func PrevalenceNote(c *Card) string {
 	}
 	return "This probability assumes " + mix + ". Where " + ClassName(c.PositiveClass) +
 		" is rarer among the people scanned, the same scan means a lower chance."
+}
+
+// CalibrationLabel is the word beside a probability: "calibrated" when the
+// card rescales the model's output (a temperature other than 1, or a
+// logistic recalibration), and "calibration checked, not rescaled" when the
+// card keeps T = 1 (Calibration.Decision says why: a fitted temperature
+// that did not lower the NLL of held-out cases).
+func CalibrationLabel(c *Card) string {
+	if c.Calibration.Logistic != nil || c.Calibration.Temperature != 1 {
+		return "calibrated"
+	}
+	return "calibration checked, not rescaled"
+}
+
+// CalibrationSentence says how the shown probability was calibrated, for
+// the evidence beside it: the temperature applied, or that none was and
+// why, and the probability before any rescaling.
+func CalibrationSentence(c *Card, temperature float64, before string) string {
+	if CalibrationLabel(c) == "calibrated" {
+		return fmt.Sprintf("Calibrated by temperature scaling (T = %.2f; %s before calibration).", temperature, before)
+	}
+	why := "no temperature is applied"
+	if t := c.Calibration.FittedTemperature; t > 0 && t != 1 {
+		why = fmt.Sprintf("the temperature fitted on calibration cases (T = %.2f) did not lower the error on held-out cases, so none is applied (T = 1)", t)
+	}
+	return "Not rescaled: " + why + "."
 }

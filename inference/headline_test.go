@@ -46,3 +46,27 @@ func TestHeadlineRules(t *testing.T) {
 		t.Errorf("prevalence note %q", note)
 	}
 }
+
+// A card that kept T = 1 because the fitted temperature did not help on
+// held-out cases does not call its probability calibrated; one that applies
+// a temperature or a logistic recalibration does.
+func TestCalibrationLabel(t *testing.T) {
+	kept := &Card{Calibration: Calibration{Temperature: 1, FittedTemperature: 0.6207}}
+	if got := CalibrationLabel(kept); got != "calibration checked, not rescaled" {
+		t.Errorf("T = 1 kept: label %q", got)
+	}
+	if got := CalibrationSentence(kept, 1, "> 0.99"); !strings.Contains(got, "T = 0.62") || !strings.HasPrefix(got, "Not rescaled") {
+		t.Errorf("T = 1 kept: sentence %q", got)
+	}
+	scaled := &Card{Calibration: Calibration{Temperature: 0.84}}
+	if got := CalibrationLabel(scaled); got != "calibrated" {
+		t.Errorf("T = 0.84: label %q", got)
+	}
+	if got := CalibrationSentence(scaled, 0.84, "0.7"); !strings.Contains(got, "T = 0.84") || !strings.Contains(got, "0.7 before calibration") {
+		t.Errorf("T = 0.84: sentence %q", got)
+	}
+	logistic := &Card{Calibration: Calibration{Temperature: 1, Logistic: &LogisticRecalibration{Slope: 1.1}}}
+	if got := CalibrationLabel(logistic); got != "calibrated" {
+		t.Errorf("logistic recalibration: label %q", got)
+	}
+}

@@ -177,7 +177,7 @@ func figureTitle(m *overlay.Map, method overlay.Method, b *inference.ModelFolder
 			lines = append(lines, fmt.Sprintf("Probability of %s shown on request: %s, UNRELIABLE.", cls, inference.FormatProbability(prob)))
 		}
 	} else {
-		lines = append(lines, fmt.Sprintf("Probability of %s (calibrated). %s", cls, inference.PrevalenceNote(b.Card)))
+		lines = append(lines, fmt.Sprintf("Probability of %s (%s). %s", cls, inference.CalibrationLabel(b.Card), inference.PrevalenceNote(b.Card)))
 	}
 	return append(lines,
 		fmt.Sprintf("Relevance map: %s (%s), for %s. Slices across its strongest part; inside the head only; warm colours speak for the class.", method.Title(), method.Reference(), cls))
