@@ -132,7 +132,7 @@ func scoreScan(e *env, o scoreOptions, paths []string) error {
 	if o.json {
 		return report.EncodeScore(e.stdout, rep)
 	}
-	writeScoreText(e.stdout, rep, res, o.showProb)
+	writeScoreText(e.stdout, rep, res, mf.Card, o.showProb)
 	return nil
 }
 
@@ -218,7 +218,7 @@ func scoreReport(input string, v *volume.Volume, b *inference.ModelFolder, r *in
 // When the fit check fails, the verdict and its causes lead and the
 // prediction is withheld unless asked for (--show-probability), then
 // labelled unreliable.
-func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result, showProb bool) {
+func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result, card *inference.Card, showProb bool) {
 	fmt.Fprintln(w, notice.Full)
 	fmt.Fprintln(w)
 	ood := rep.OOD.Verdict == fitcheck.OutOfDistribution
@@ -247,7 +247,7 @@ func writeScoreText(w io.Writer, rep *report.Score, r *inference.Result, showPro
 			inference.FormatProbability(p.Probability), className(p.PositiveClass), className(p.Label))
 	default:
 		fmt.Fprintf(w, "Prediction:  %s\n", className(p.Label))
-		fmt.Fprintf(w, "Probability: %s that the scan shows %q (calibrated with temperature %.2f)\n", inference.FormatProbability(p.Probability), className(p.PositiveClass), p.Temperature)
+		fmt.Fprintf(w, "Probability: %s that the scan shows %q (%s, temperature %.2f)\n", inference.FormatProbability(p.Probability), className(p.PositiveClass), inference.CalibrationLabel(card), p.Temperature)
 	}
 	if !ood {
 		fmt.Fprintln(w)

@@ -9,6 +9,8 @@ import (
 	"strings"
 	"testing"
 
+	"brightfold/assets"
+	"brightfold/inference"
 	"brightfold/internal/notice"
 	"brightfold/internal/phantom"
 	"brightfold/internal/refcheck"
@@ -128,6 +130,11 @@ func TestScoreJSONAndResultFile(t *testing.T) {
 		if !strings.Contains(stdout, want) {
 			t.Errorf("text lacks %q:\n%s", want, stdout)
 		}
+	}
+	// the probability, when shown, is called calibrated only when the card
+	// rescales it
+	if strings.Contains(stdout, "Prediction:") && !strings.Contains(stdout, "(calibrated, temperature") && !strings.Contains(stdout, "(calibration checked, not rescaled, temperature 1.00)") {
+		t.Errorf("text does not say how the probability was calibrated:\n%s", stdout)
 	}
 }
 
@@ -347,5 +354,17 @@ func TestScoreDemoModelFolder(t *testing.T) {
 			t.Errorf("%s phantom: verdict %q, want %q", tc.shift, r.OOD.Verdict, tc.want)
 		}
 		t.Logf("%s phantom: verdict %s", tc.shift, r.OOD.Verdict)
+		if r.OOD.Verdict == "in-distribution" {
+			// card 1.3.0 keeps T = 1 (its fitted T did not help held-out
+			// cases): the probability is not called calibrated
+			mf, err := inference.LoadModelFolderFS(assets.DemoModelFolder())
+			if err != nil {
+				t.Fatal(err)
+			}
+			_, text, _ := runCLI("score", p, "--ort-lib", lib)
+			if want := "(" + inference.CalibrationLabel(mf.Card) + ", temperature"; !strings.Contains(text, want) {
+				t.Errorf("%s phantom: text lacks %q:\n%s", tc.shift, want, text)
+			}
+		}
 	}
 }
