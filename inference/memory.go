@@ -91,15 +91,30 @@ func memoryRefused(source string, limit int64) error {
 // scan takes once prepared, plus the library and the model's graph.
 const otherMemory = 700 << 20
 
-// errMemoryCeiling is the cause of a run stopped by watchMemory.
-var errMemoryCeiling = errors.New("process memory ceiling passed")
+// runScratch is what one run may add to the process's resident memory
+// besides the arena, in a process that already held more than
+// otherMemory when the run began (the window, with scans and maps of
+// several cases in memory).
+const runScratch = 256 << 20
+
+// ceilingPassedError is the cause of a run stopped by watchMemory.
+type ceilingPassedError struct{ ceiling int64 }
+
+func (e ceilingPassedError) Error() string {
+	return fmt.Sprintf("process memory ceiling of %d MiB passed", e.ceiling>>20)
+}
 
 // memoryPoll is how often watchMemory reads the resident memory.
 const memoryPoll = 20 * time.Millisecond
 
 // processCeiling is the resident memory at which a run is stopped: the
-// model memory limit plus otherMemory (956 MiB on the default settings).
-func processCeiling(limit int64) int64 { return limit + otherMemory }
+// model memory limit plus otherMemory (956 MiB on the default settings),
+// or, when the process held much before the run began (start bytes), what
+// it held plus the limit and runScratch, so that a viewer with several
+// cases in memory is not stopped by memory it holds for other reasons.
+func processCeiling(limit, start int64) int64 {
+	return max(limit+otherMemory, start+limit+runScratch)
+}
 
 // watchMemory cancels ctx with errMemoryCeiling when the process's resident
 // memory passes ceiling, until ctx is done. Where /proc is absent it only
@@ -115,7 +130,7 @@ func watchMemory(ctx context.Context, stop context.CancelCauseFunc, ceiling int6
 			if rss, ok := residentBytes(); !ok {
 				return
 			} else if rss > ceiling {
-				stop(errMemoryCeiling)
+				stop(ceilingPassedError{ceiling})
 				return
 			}
 		}
@@ -140,7 +155,7 @@ func residentBytes() (int64, bool) {
 }
 
 // ceilingPassed is the input error of a run stopped by watchMemory.
-func ceilingPassed(source string, limit int64) error {
+func ceilingPassed(source string, limit, ceiling int64) error {
 	return inputerr.New(source, "%s: while the model ran the process passed %d MiB of memory (the model memory limit of %d MiB plus %d MiB for the rest) and the run was stopped; set %s to a larger number of MiB if the model is legitimate",
-		ModelFile, processCeiling(limit)>>20, limit>>20, otherMemory>>20, ModelMemoryEnv)
+		ModelFile, ceiling>>20, limit>>20, (ceiling-limit)>>20, ModelMemoryEnv)
 }

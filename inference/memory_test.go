@@ -114,3 +114,17 @@ func waveTensors(n int, wave func(float64) float64, period float64) []*preproces
 	}
 	return ts
 }
+
+// The memory watch stops a run at the model memory limit plus 700 MiB in a
+// small process (the command line: 956 MiB on the defaults, under 1 GiB),
+// and, in a process that already holds much (the window with several cases
+// loaded), only when the run itself adds more than the limit plus 256 MiB.
+func TestProcessCeiling(t *testing.T) {
+	const mib = 1 << 20
+	if got := processCeiling(256*mib, 150*mib); got != 956*mib {
+		t.Errorf("command line: ceiling %d MiB, want 956", got/mib)
+	}
+	if got := processCeiling(256*mib, 1000*mib); got != 1512*mib {
+		t.Errorf("window holding 1000 MiB: ceiling %d MiB, want 1512", got/mib)
+	}
+}

@@ -265,7 +265,8 @@ func (s *Session) runCancellable(ctx context.Context, in ort.Value, outs []ort.V
 	budget := RunBudget()
 	ctx, stop := context.WithCancelCause(ctx)
 	defer stop(nil)
-	go watchMemory(ctx, stop, processCeiling(modelMemory()))
+	start, _ := residentBytes()
+	go watchMemory(ctx, stop, processCeiling(modelMemory(), start))
 	ctx, cancel := context.WithTimeout(ctx, budget)
 	defer cancel()
 	opts, err := ort.NewRunOptions()
@@ -346,8 +347,8 @@ const runGrace = 5 * time.Second
 // cancellation as it is, or an input error for a spent budget or a passed
 // memory ceiling.
 func runOverBudget(ctx context.Context, budget time.Duration, source string) error {
-	if errors.Is(context.Cause(ctx), errMemoryCeiling) {
-		return ceilingPassed(source, modelMemory())
+	if ce := (ceilingPassedError{}); errors.As(context.Cause(ctx), &ce) {
+		return ceilingPassed(source, modelMemory(), ce.ceiling)
 	}
 	if errors.Is(context.Cause(ctx), context.DeadlineExceeded) && errors.Is(ctx.Err(), context.DeadlineExceeded) {
 		return inputerr.New(source, "%s: one model run took longer than the budget of %s and was stopped (a graph that never ends?); set %s to give it more seconds", ModelFile, budget, RunBudgetEnv)
